@@ -8,3 +8,6 @@
 pub mod atomic;
 pub mod data;
 pub mod models;
+pub mod cost;
+pub mod skill;
+pub mod curves;

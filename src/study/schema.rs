@@ -1,0 +1,174 @@
+//! The study file as written by the user (TOML, kebab-case keys, unknown keys rejected). These
+//! plain structs only mirror the file; [`super::plan`] checks them into a plan.
+
+use crate::cost::CostInputs;
+use crate::models::esn::EsnParams;
+use crate::systems::SystemSpec;
+use serde::{Deserialize, Serialize};
+use std::path::PathBuf;
+
+/// A whole study file.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct StudyFile {
+    /// Title shown in the report.
+    pub title: Option<String>,
+    /// One paragraph on what the study is for.
+    pub description: Option<String>,
+    /// Master seed; every random choice derives from it.
+    #[serde(default)]
+    pub seed: u64,
+    pub data: DataSection,
+    pub split: SplitSection,
+    #[serde(default)]
+    pub skill: SkillSection,
+    pub subsets: SubsetSection,
+    #[serde(rename = "model")]
+    pub models: Vec<ModelSection>,
+    pub plan: PlanSection,
+    pub cost: CostInputs,
+}
+
+/// `[data]`: exactly one of `[data.simulate]` and `[data.file]`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct DataSection {
+    pub simulate: Option<SimulateSection>,
+    pub file: Option<FileSection>,
+}
+
+/// `[data.simulate]`: pilot data from a built-in system.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct SimulateSection {
+    pub system: SystemSpec,
+    /// Integrator time step, model time units.
+    pub dt: f64,
+    /// Time between saved samples, model time units.
+    pub sample_interval: f64,
+    /// Discarded spin-up, model time units.
+    #[serde(default)]
+    pub spin_up: f64,
+    /// Training pool in samples; default: the largest subset plus 20% for replicate windows.
+    pub training_pool: Option<usize>,
+    /// Seed of the initial condition; default: the study seed.
+    pub seed: Option<u64>,
+}
+
+/// `[data.file]`: the user's own trajectory.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct FileSection {
+    /// `.npy` (with optional `.json` sidecar) or `.csv`; relative to the study file.
+    pub path: PathBuf,
+    /// Needed when no sidecar gives it.
+    pub sample_interval: Option<f64>,
+}
+
+/// `[split]`: held-out test initial conditions after the training pool.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct SplitSection {
+    /// Number of test initial conditions M.
+    pub initial_conditions: usize,
+    /// Separation between the training pool and the first test window, model time units.
+    pub gap: f64,
+    /// Spacing of consecutive initial conditions, model time units; default: `gap`.
+    pub spacing: Option<f64>,
+}
+
+/// `[skill]`: valid prediction time settings.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct SkillSection {
+    /// Normalised error threshold θ (default 0.5).
+    #[serde(default = "default_threshold")]
+    pub threshold: f64,
+    /// Truth fed to the model before each forecast, model time units (default 2).
+    #[serde(default = "default_warm_up")]
+    pub warm_up: f64,
+    /// Forecast length, model time units (default 5).
+    #[serde(default = "default_max_lead")]
+    pub max_lead: f64,
+    /// Largest Lyapunov exponent of the resolved dynamics (per model time unit), if known; skill
+    /// is then also shown in Lyapunov times.
+    pub lyapunov_exponent: Option<f64>,
+}
+
+fn default_threshold() -> f64 {
+    0.5
+}
+fn default_warm_up() -> f64 {
+    2.0
+}
+fn default_max_lead() -> f64 {
+    5.0
+}
+
+impl Default for SkillSection {
+    fn default() -> Self {
+        Self {
+            threshold: default_threshold(),
+            warm_up: default_warm_up(),
+            max_lead: default_max_lead(),
+            lyapunov_exponent: None,
+        }
+    }
+}
+
+/// `[subsets]`: the nested training-set sizes and replicates.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct SubsetSection {
+    /// Explicit sizes in samples (ascending).
+    pub sizes: Option<Vec<usize>>,
+    /// Or a geometric range.
+    pub geometric: Option<GeometricSizes>,
+    /// Replicates per size: each uses its own model seed and training-window offset (default 3).
+    #[serde(default = "default_replicates")]
+    pub replicates: usize,
+}
+
+fn default_replicates() -> usize {
+    3
+}
+
+/// Geometric sizes from `smallest` to `largest` (both included), `count` in all.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct GeometricSizes {
+    pub smallest: usize,
+    pub largest: usize,
+    pub count: usize,
+}
+
+/// `[[model]]`: one candidate model; exactly one kind table.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct ModelSection {
+    /// Name used in outputs (letters, digits, `-`, `_`).
+    pub name: String,
+    /// Echo state network settings.
+    pub esn: Option<EsnParams>,
+}
+
+/// `[plan]`: what to solve for.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct PlanSection {
+    /// Target mean valid prediction times, model time units.
+    pub targets: Vec<f64>,
+    /// Two-sided confidence level of the intervals (default 0.9).
+    #[serde(default = "default_confidence")]
+    pub confidence: f64,
+    /// Bootstrap draws over replicates (default 400).
+    #[serde(default = "default_draws")]
+    pub bootstrap_draws: usize,
+}
+
+fn default_confidence() -> f64 {
+    0.9
+}
+fn default_draws() -> usize {
+    400
+}
