@@ -6,8 +6,10 @@
 //! [`curves`] fitted and inverted → [`cost`] of the campaign → [`report`].
 
 pub mod atomic;
+pub mod cost;
+pub mod curves;
 pub mod data;
 pub mod models;
-pub mod cost;
 pub mod skill;
-pub mod curves;
+pub mod study;
+pub mod systems;

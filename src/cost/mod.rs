@@ -56,7 +56,7 @@ fn eight() -> u32 {
 }
 
 /// Checked cost model with every default resolved.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub struct CostModel {
     pub core_hours_per_time_unit: f64,
@@ -78,22 +78,42 @@ impl CostInputs {
             allowed,
         };
         if !(self.core_hours_per_time_unit.is_finite() && self.core_hours_per_time_unit > 0.0) {
-            return Err(bad("core-hours-per-time-unit", self.core_hours_per_time_unit, "a positive number"));
+            return Err(bad(
+                "core-hours-per-time-unit",
+                self.core_hours_per_time_unit,
+                "a positive number",
+            ));
         }
         if !(self.overhead_factor.is_finite() && self.overhead_factor >= 1.0) {
-            return Err(bad("overhead-factor", self.overhead_factor, "a number of at least 1"));
+            return Err(bad(
+                "overhead-factor",
+                self.overhead_factor,
+                "a number of at least 1",
+            ));
         }
         if self.runs == 0 {
             return Err(bad("runs", 0.0, "a whole number of at least 1"));
         }
         if !(self.spin_up_per_run.is_finite() && self.spin_up_per_run >= 0.0) {
-            return Err(bad("spin-up-per-run", self.spin_up_per_run, "zero or a positive number of model time units"));
+            return Err(bad(
+                "spin-up-per-run",
+                self.spin_up_per_run,
+                "zero or a positive number of model time units",
+            ));
         }
         if !matches!(self.bytes_per_value, 4 | 8) {
-            return Err(bad("bytes-per-value", self.bytes_per_value as f64, "4 or 8"));
+            return Err(bad(
+                "bytes-per-value",
+                self.bytes_per_value as f64,
+                "4 or 8",
+            ));
         }
         if self.values_per_sample == Some(0) {
-            return Err(bad("values-per-sample", 0.0, "a whole number of at least 1"));
+            return Err(bad(
+                "values-per-sample",
+                0.0,
+                "a whole number of at least 1",
+            ));
         }
         Ok(CostModel {
             core_hours_per_time_unit: self.core_hours_per_time_unit,
@@ -122,7 +142,8 @@ impl CostModel {
     /// Budget for `samples` saved training samples. Monotone in `samples`, so quantiles of the
     /// sample count map to quantiles of every cost figure.
     pub fn budget(&self, samples: f64) -> Budget {
-        let simulated_time = samples * self.sample_interval + self.runs as f64 * self.spin_up_per_run;
+        let simulated_time =
+            samples * self.sample_interval + self.runs as f64 * self.spin_up_per_run;
         Budget {
             samples,
             simulated_time,

@@ -248,10 +248,7 @@ fn read_csv(path: &Path) -> Result<(Array2<f64>, Vec<String>), DataError> {
             let v: f64 = cell.parse().map_err(|_| {
                 csv_err(
                     line,
-                    format!(
-                        "cell '{cell}' in column '{}' is not a number",
-                        header[col]
-                    ),
+                    format!("cell '{cell}' in column '{}' is not a number", header[col]),
                 )
             })?;
             values.push(v);
@@ -359,7 +356,15 @@ mod tests {
             meta: meta(&["a", "b"]),
         };
         let p = dir.path().join("run.npy");
-        write_trajectory(&t, &p, OutputFormats { npy: true, csv: true }).unwrap();
+        write_trajectory(
+            &t,
+            &p,
+            OutputFormats {
+                npy: true,
+                csv: true,
+            },
+        )
+        .unwrap();
         let back = read_trajectory(&p, None).unwrap();
         assert_eq!(back.values, t.values);
         assert_eq!(back.subgrid, t.subgrid);
@@ -381,7 +386,10 @@ mod tests {
         assert!(e.contains("'abc'") && e.contains("column 'y'"), "{e}");
         std::fs::write(&p, "x,y\n1,2\n3,NaN\n").unwrap();
         let e = read_trajectory(&p, Some(0.1)).unwrap_err().to_string();
-        assert!(e.contains("sample 1") && e.contains("'y'") && e.contains("finite"), "{e}");
+        assert!(
+            e.contains("sample 1") && e.contains("'y'") && e.contains("finite"),
+            "{e}"
+        );
         std::fs::write(&p, "x,y\n1,2\n3,4\n").unwrap();
         let e = read_trajectory(&p, None).unwrap_err().to_string();
         assert!(e.contains("sample-interval"), "{e}");

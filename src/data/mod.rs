@@ -29,7 +29,9 @@ pub enum DataError {
         path: PathBuf,
         source: std::io::Error,
     },
-    #[error("{path} is not a readable .npy array of f64 with shape (samples, variables): {reason}")]
+    #[error(
+        "{path} is not a readable .npy array of f64 with shape (samples, variables): {reason}"
+    )]
     Npy { path: PathBuf, reason: String },
     #[error("metadata sidecar {path} is invalid: {reason}")]
     Sidecar { path: PathBuf, reason: String },

@@ -33,10 +33,7 @@ pub struct Split {
 impl SplitSpec {
     /// Samples the test region occupies after the gap.
     pub fn test_region(&self) -> usize {
-        self.warm_up
-            + self.initial_conditions.saturating_sub(1) * self.spacing
-            + self.max_lead
-            + 1
+        self.warm_up + self.initial_conditions.saturating_sub(1) * self.spacing + self.max_lead + 1
     }
 
     /// Total samples needed for a training pool of `pool` samples.

@@ -83,31 +83,63 @@ impl EsnParams {
     pub fn check(self) -> Result<ValidEsnParams, ModelError> {
         let p = &self;
         if !(10..=5000).contains(&p.reservoir_size) {
-            return Err(out_of_range("reservoir-size", p.reservoir_size.to_string(), "10 to 5000"));
+            return Err(out_of_range(
+                "reservoir-size",
+                p.reservoir_size.to_string(),
+                "10 to 5000",
+            ));
         }
         if p.degree == 0 || p.degree > p.reservoir_size {
-            return Err(out_of_range("degree", p.degree.to_string(), "1 to reservoir-size"));
+            return Err(out_of_range(
+                "degree",
+                p.degree.to_string(),
+                "1 to reservoir-size",
+            ));
         }
         let in_range = |v: f64, lo: f64, hi: f64, lo_open: bool| {
             v.is_finite() && v <= hi && if lo_open { v > lo } else { v >= lo }
         };
         if !in_range(p.spectral_radius, 0.0, 2.0, true) {
-            return Err(out_of_range("spectral-radius", p.spectral_radius.to_string(), "greater than 0 and at most 2"));
+            return Err(out_of_range(
+                "spectral-radius",
+                p.spectral_radius.to_string(),
+                "greater than 0 and at most 2",
+            ));
         }
         if !in_range(p.input_scaling, 0.0, 10.0, true) {
-            return Err(out_of_range("input-scaling", p.input_scaling.to_string(), "greater than 0 and at most 10"));
+            return Err(out_of_range(
+                "input-scaling",
+                p.input_scaling.to_string(),
+                "greater than 0 and at most 10",
+            ));
         }
         if !in_range(p.bias_scaling, 0.0, 10.0, false) {
-            return Err(out_of_range("bias-scaling", p.bias_scaling.to_string(), "0 to 10"));
+            return Err(out_of_range(
+                "bias-scaling",
+                p.bias_scaling.to_string(),
+                "0 to 10",
+            ));
         }
         if !in_range(p.leak_rate, 0.0, 1.0, true) {
-            return Err(out_of_range("leak-rate", p.leak_rate.to_string(), "greater than 0 and at most 1"));
+            return Err(out_of_range(
+                "leak-rate",
+                p.leak_rate.to_string(),
+                "greater than 0 and at most 1",
+            ));
         }
         if !in_range(p.ridge, 0.0, 1e3, true) {
-            return Err(out_of_range("ridge", p.ridge.to_string(), "greater than 0 and at most 1000"));
+            return Err(out_of_range(
+                "ridge",
+                p.ridge.to_string(),
+                "greater than 0 and at most 1000",
+            ));
         }
         if p.washout > 100_000 {
-            return Err(out_of_range("washout", p.washout.to_string(), "0 to 100000"));
+            return Err(out_of_range(
+                "washout",
+                p.washout.to_string(),
+                "0 to 100000",
+            ));
         }
         Ok(ValidEsnParams(self))
     }
@@ -328,7 +360,14 @@ pub fn fit_nested(
             rows = 0;
         }
         while next_size < sizes.len() && t + 2 == sizes[next_size] {
-            out.push(solve_prefix(p, &ne, &reservoir, &mean, &scale, sizes[next_size])?);
+            out.push(solve_prefix(
+                p,
+                &ne,
+                &reservoir,
+                &mean,
+                &scale,
+                sizes[next_size],
+            )?);
             next_size += 1;
         }
         if !r.iter().all(|x| x.is_finite()) {
@@ -467,7 +506,10 @@ mod tests {
     fn fast_tanh_matches_std() {
         for i in -400..=400 {
             let x = i as f64 * 0.05;
-            assert!((fast_tanh(x) - x.tanh()).abs() < 4.0 * f64::EPSILON, "x = {x}");
+            assert!(
+                (fast_tanh(x) - x.tanh()).abs() < 4.0 * f64::EPSILON,
+                "x = {x}"
+            );
         }
         assert_eq!(fast_tanh(1e3), 1.0);
         assert_eq!(fast_tanh(-1e3), -1.0);
@@ -504,12 +546,16 @@ mod tests {
         assert!(summary.training_rmse.unwrap() < 1e-2);
         let ic = 2500;
         let mut max_err: f64 = 0.0;
-        esn.forecast(data.slice(ndarray::s![ic - 200..=ic, ..]), 100, &mut |k, x| {
-            for j in 0..2 {
-                max_err = max_err.max((x[j] - data[[ic + k, j]]).abs());
-            }
-            true
-        });
+        esn.forecast(
+            data.slice(ndarray::s![ic - 200..=ic, ..]),
+            100,
+            &mut |k, x| {
+                for j in 0..2 {
+                    max_err = max_err.max((x[j] - data[[ic + k, j]]).abs());
+                }
+                true
+            },
+        );
         assert!(max_err < 0.01, "max error over 100 steps: {max_err}");
     }
 

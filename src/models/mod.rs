@@ -19,7 +19,9 @@ pub enum ModelError {
     },
     #[error("no subset sizes to train on")]
     NoSizes,
-    #[error("subset of {size} samples is larger than the {available} samples available for training")]
+    #[error(
+        "subset of {size} samples is larger than the {available} samples available for training"
+    )]
     SubsetTooLarge { size: usize, available: usize },
     #[error("subset of {size} samples leaves no training pairs after a washout of {washout}; use subsets larger than washout + 1 or lower `washout`")]
     SubsetBelowWashout { size: usize, washout: usize },
@@ -63,7 +65,12 @@ pub trait Forecaster: Send + Sync {
     /// rows before it the warm-up), then forecasts `steps` samples ahead, calling `sink(k, x̂)` for
     /// lead k = 1..=steps. Stops early when `sink` returns false. Never panics on a diverging
     /// forecast: non-finite values are passed to the sink, which decides.
-    fn forecast(&self, history: ArrayView2<f64>, steps: usize, sink: &mut dyn FnMut(usize, &[f64]) -> bool);
+    fn forecast(
+        &self,
+        history: ArrayView2<f64>,
+        steps: usize,
+        sink: &mut dyn FnMut(usize, &[f64]) -> bool,
+    );
 }
 
 /// Persistence: x̂(t) = x(0) at every lead.
@@ -71,7 +78,12 @@ pub trait Forecaster: Send + Sync {
 pub struct Persistence;
 
 impl Forecaster for Persistence {
-    fn forecast(&self, history: ArrayView2<f64>, steps: usize, sink: &mut dyn FnMut(usize, &[f64]) -> bool) {
+    fn forecast(
+        &self,
+        history: ArrayView2<f64>,
+        steps: usize,
+        sink: &mut dyn FnMut(usize, &[f64]) -> bool,
+    ) {
         let last = history.row(history.nrows() - 1).to_vec();
         for k in 1..=steps {
             if !sink(k, &last) {

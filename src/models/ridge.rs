@@ -123,7 +123,14 @@ impl NormalEquations {
         for j in 0..f {
             g_full[(j, j)] -= lambda;
         }
-        matmul(gw.as_mut(), Accum::Replace, g_full.as_ref(), w.as_ref(), 1.0, Par::Seq);
+        matmul(
+            gw.as_mut(),
+            Accum::Replace,
+            g_full.as_ref(),
+            w.as_ref(),
+            1.0,
+            Par::Seq,
+        );
         for k in 0..d {
             for i in 0..f {
                 rss += w[(i, k)] * (gw[(i, k)] - 2.0 * self.cross[(i, k)]);
@@ -161,14 +168,21 @@ mod tests {
         let mut ne = NormalEquations::zeros(f, d);
         let mut start = 0;
         for len in [1, 100, 56, 100] {
-            ne.add_rows(&phi[start * f..(start + len) * f], &y[start * d..(start + len) * d], len);
+            ne.add_rows(
+                &phi[start * f..(start + len) * f],
+                &y[start * d..(start + len) * d],
+                len,
+            );
             start += len;
         }
         assert_eq!(ne.count, rows);
         for i in 0..f {
             for j in 0..=i {
                 let direct: f64 = (0..rows).map(|r| phi[r * f + i] * phi[r * f + j]).sum();
-                assert!((ne.gram[(i, j)] - direct).abs() <= 1e-12 * rows as f64, "G[{i},{j}]");
+                assert!(
+                    (ne.gram[(i, j)] - direct).abs() <= 1e-12 * rows as f64,
+                    "G[{i},{j}]"
+                );
             }
             for k in 0..d {
                 let direct: f64 = (0..rows).map(|r| phi[r * f + i] * y[r * d + k]).sum();
@@ -192,7 +206,11 @@ mod tests {
             for i in 0..f {
                 let mut lhs = lambda * w[k * f + i];
                 for j in 0..f {
-                    let g = if i >= j { ne.gram[(i, j)] } else { ne.gram[(j, i)] };
+                    let g = if i >= j {
+                        ne.gram[(i, j)]
+                    } else {
+                        ne.gram[(j, i)]
+                    };
                     lhs += g * w[k * f + j];
                 }
                 assert!((lhs - ne.cross[(i, k)]).abs() < tol, "row {i} output {k}");

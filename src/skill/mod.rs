@@ -45,7 +45,12 @@ pub struct IcSkill {
 /// Valid prediction time of `model` from the initial condition at sample `ic` of `truth`.
 ///
 /// The forecast stops at the first lead where the error exceeds θ, so poor models cost little.
-pub fn valid_time(model: &dyn Forecaster, truth: ArrayView2<f64>, ic: usize, spec: &SkillSpec) -> IcSkill {
+pub fn valid_time(
+    model: &dyn Forecaster,
+    truth: ArrayView2<f64>,
+    ic: usize,
+    spec: &SkillSpec,
+) -> IcSkill {
     let d = truth.ncols();
     let history = truth.slice(ndarray::s![ic - spec.warm_up..=ic, ..]);
     let mut last_valid = 0usize;
@@ -148,7 +153,12 @@ mod tests {
 
     struct Exploding;
     impl Forecaster for Exploding {
-        fn forecast(&self, _: ArrayView2<f64>, steps: usize, sink: &mut dyn FnMut(usize, &[f64]) -> bool) {
+        fn forecast(
+            &self,
+            _: ArrayView2<f64>,
+            steps: usize,
+            sink: &mut dyn FnMut(usize, &[f64]) -> bool,
+        ) {
             for k in 1..=steps {
                 let v = if k >= 3 { f64::NAN } else { 0.0 };
                 if !sink(k, &[v]) {

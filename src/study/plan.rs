@@ -1,0 +1,400 @@
+//! A checked study: every value in range, every default resolved, time spans converted to
+//! samples once the sampling interval is known. Only a plan reaches the computing code.
+
+use super::schema::{DataSection, StudyFile};
+use super::StudyError;
+use crate::cost::CostInputs;
+use crate::models::esn::ValidEsnParams;
+use crate::systems::SystemSpec;
+use std::path::{Path, PathBuf};
+
+/// Where the pilot data comes from.
+#[derive(Debug, Clone, PartialEq)]
+pub enum DataSource {
+    /// Simulate a built-in system.
+    Simulate {
+        system: SystemSpec,
+        dt: f64,
+        sample_interval: f64,
+        spin_up: f64,
+        training_pool: usize,
+        seed: u64,
+    },
+    /// Read the user's file.
+    File {
+        path: PathBuf,
+        sample_interval: Option<f64>,
+    },
+}
+
+/// A candidate model of the plan.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ModelPlan {
+    pub name: String,
+    pub kind: ModelKind,
+}
+
+/// The model families the study engine can train.
+#[derive(Debug, Clone, PartialEq)]
+pub enum ModelKind {
+    Esn(ValidEsnParams),
+}
+
+impl ModelKind {
+    /// Short label of the family.
+    pub fn label(&self) -> &'static str {
+        match self {
+            ModelKind::Esn(_) => "echo state network",
+        }
+    }
+}
+
+/// Split and skill settings in model time units (converted to samples with the data's interval).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Timing {
+    pub initial_conditions: usize,
+    pub gap: f64,
+    pub spacing: f64,
+    pub threshold: f64,
+    pub warm_up: f64,
+    pub max_lead: f64,
+    pub lyapunov_exponent: Option<f64>,
+}
+
+/// A checked study.
+#[derive(Debug, Clone)]
+pub struct StudyPlan {
+    /// Study name: the file stem.
+    pub name: String,
+    pub title: String,
+    pub description: String,
+    pub seed: u64,
+    pub source_path: PathBuf,
+    /// SHA-256 of the study file's bytes.
+    pub study_hash: String,
+    pub data: DataSource,
+    pub timing: Timing,
+    /// Ascending subset sizes in samples.
+    pub sizes: Vec<usize>,
+    pub replicates: usize,
+    pub models: Vec<ModelPlan>,
+    /// Target mean valid times, model time units, ascending.
+    pub targets: Vec<f64>,
+    pub confidence: f64,
+    pub bootstrap_draws: usize,
+    pub cost: CostInputs,
+}
+
+/// Reads and checks a study file. Nothing is written.
+pub fn load_plan(path: &Path) -> Result<StudyPlan, StudyError> {
+    let bytes = std::fs::read(path).map_err(|source| StudyError::Read {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    let text = String::from_utf8(bytes.clone()).map_err(|_| StudyError::Parse {
+        path: path.to_path_buf(),
+        message: "the file is not UTF-8 text".into(),
+    })?;
+    let file: StudyFile = toml::from_str(&text).map_err(|e| StudyError::Parse {
+        path: path.to_path_buf(),
+        message: e.to_string(),
+    })?;
+    let name = path
+        .file_stem()
+        .map(|s| s.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "study".into());
+    check(file, path, name, crate::data::hash_bytes(&bytes))
+}
+
+fn check(
+    f: StudyFile,
+    path: &Path,
+    name: String,
+    study_hash: String,
+) -> Result<StudyPlan, StudyError> {
+    let invalid = |key: &str, value: String, allowed: &str| StudyError::Invalid {
+        path: path.to_path_buf(),
+        key: key.to_string(),
+        value,
+        allowed: allowed.to_string(),
+    };
+    let positive = |key: &str, v: f64| {
+        if v.is_finite() && v > 0.0 {
+            Ok(v)
+        } else {
+            Err(invalid(key, v.to_string(), "a positive number"))
+        }
+    };
+
+    // Subset sizes.
+    let sizes = match (&f.subsets.sizes, &f.subsets.geometric) {
+        (Some(s), None) => s.clone(),
+        (None, Some(g)) => {
+            if g.count < 2 || g.smallest == 0 || g.largest <= g.smallest {
+                return Err(invalid(
+                    "subsets.geometric",
+                    format!(
+                        "smallest {} largest {} count {}",
+                        g.smallest, g.largest, g.count
+                    ),
+                    "0 < smallest < largest and count >= 2",
+                ));
+            }
+            geometric_sizes(g.smallest, g.largest, g.count)
+        }
+        _ => {
+            return Err(invalid(
+                "subsets",
+                "both or neither of `sizes` and `geometric`".into(),
+                "exactly one of `sizes = [..]` or `geometric = { smallest, largest, count }`",
+            ))
+        }
+    };
+    if sizes.len() < 3 {
+        return Err(invalid(
+            "subsets.sizes",
+            format!("{sizes:?}"),
+            "at least 3 distinct sizes (a learning curve needs more points than parameters)",
+        ));
+    }
+    if sizes.windows(2).any(|w| w[1] <= w[0]) || sizes[0] < 2 {
+        return Err(invalid(
+            "subsets.sizes",
+            format!("{sizes:?}"),
+            "strictly increasing whole numbers of samples, each at least 2",
+        ));
+    }
+    if f.subsets.replicates == 0 || f.subsets.replicates > 1000 {
+        return Err(invalid(
+            "subsets.replicates",
+            f.subsets.replicates.to_string(),
+            "1 to 1000",
+        ));
+    }
+    let largest = *sizes.last().expect("checked non-empty");
+
+    // Data.
+    let data = match f.data {
+        DataSection {
+            simulate: Some(s),
+            file: None,
+        } => {
+            s.system
+                .validate()
+                .map_err(|e| invalid("data.simulate.system", e.to_string(), "see the message"))?;
+            positive("data.simulate.dt", s.dt)?;
+            positive("data.simulate.sample-interval", s.sample_interval)?;
+            let ratio = s.sample_interval / s.dt;
+            if (ratio - ratio.round()).abs() > 1e-9 * ratio.max(1.0) || ratio.round() < 1.0 {
+                return Err(invalid(
+                    "data.simulate.sample-interval",
+                    s.sample_interval.to_string(),
+                    "a whole multiple of `dt`",
+                ));
+            }
+            if !(s.spin_up.is_finite() && s.spin_up >= 0.0) {
+                return Err(invalid(
+                    "data.simulate.spin-up",
+                    s.spin_up.to_string(),
+                    "zero or a positive number",
+                ));
+            }
+            let training_pool = s.training_pool.unwrap_or(largest + largest / 5);
+            if training_pool < largest {
+                return Err(invalid(
+                    "data.simulate.training-pool",
+                    training_pool.to_string(),
+                    &format!("at least the largest subset size ({largest})"),
+                ));
+            }
+            DataSource::Simulate {
+                system: s.system,
+                dt: s.dt,
+                sample_interval: s.sample_interval,
+                spin_up: s.spin_up,
+                training_pool,
+                seed: s.seed.unwrap_or(f.seed),
+            }
+        }
+        DataSection {
+            simulate: None,
+            file: Some(file),
+        } => {
+            if let Some(dt) = file.sample_interval {
+                positive("data.file.sample-interval", dt)?;
+            }
+            let base = path.parent().unwrap_or(Path::new("."));
+            DataSource::File {
+                path: base.join(&file.path),
+                sample_interval: file.sample_interval,
+            }
+        }
+        _ => {
+            return Err(invalid(
+                "data",
+                "both or neither of [data.simulate] and [data.file]".into(),
+                "exactly one of the tables [data.simulate] or [data.file]",
+            ))
+        }
+    };
+
+    // Split and skill.
+    if f.split.initial_conditions == 0 || f.split.initial_conditions > 100_000 {
+        return Err(invalid(
+            "split.initial-conditions",
+            f.split.initial_conditions.to_string(),
+            "1 to 100000",
+        ));
+    }
+    let gap = positive("split.gap", f.split.gap)?;
+    let spacing = positive("split.spacing", f.split.spacing.unwrap_or(gap))?;
+    let threshold = positive("skill.threshold", f.skill.threshold)?;
+    let warm_up = positive("skill.warm-up", f.skill.warm_up)?;
+    let max_lead = positive("skill.max-lead", f.skill.max_lead)?;
+    if let Some(l) = f.skill.lyapunov_exponent {
+        positive("skill.lyapunov-exponent", l)?;
+    }
+
+    // Models.
+    if f.models.is_empty() {
+        return Err(invalid(
+            "model",
+            "no [[model]] tables".into(),
+            "at least one [[model]] table",
+        ));
+    }
+    let mut models = Vec::new();
+    for (i, m) in f.models.into_iter().enumerate() {
+        let key = format!("model[{i}]");
+        if m.name.is_empty()
+            || !m
+                .name
+                .chars()
+                .all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_')
+        {
+            return Err(invalid(
+                &format!("{key}.name"),
+                format!("'{}'", m.name),
+                "letters, digits, '-' and '_'",
+            ));
+        }
+        if m.name == "persistence" || models.iter().any(|p: &ModelPlan| p.name == m.name) {
+            return Err(invalid(
+                &format!("{key}.name"),
+                format!("'{}'", m.name),
+                "a unique name other than 'persistence'",
+            ));
+        }
+        let kind =
+            match m.esn {
+                Some(p) => ModelKind::Esn(p.check().map_err(|e| {
+                    invalid(&format!("{key}.esn"), e.to_string(), "see the message")
+                })?),
+                None => {
+                    return Err(invalid(
+                        &format!("{key}"),
+                        "no model kind".into(),
+                        "one kind table, e.g. `esn = { reservoir-size = 300 }`",
+                    ))
+                }
+            };
+        models.push(ModelPlan { name: m.name, kind });
+    }
+
+    // Targets.
+    let mut targets = f.plan.targets.clone();
+    if targets.is_empty() {
+        return Err(invalid(
+            "plan.targets",
+            "[]".into(),
+            "at least one target valid time (model time units)",
+        ));
+    }
+    for t in &targets {
+        positive("plan.targets", *t)?;
+    }
+    targets.sort_by(f64::total_cmp);
+    targets.dedup();
+    if !(f.plan.confidence > 0.5 && f.plan.confidence < 1.0) {
+        return Err(invalid(
+            "plan.confidence",
+            f.plan.confidence.to_string(),
+            "a probability between 0.5 and 1, e.g. 0.9",
+        ));
+    }
+    if !(20..=100_000).contains(&f.plan.bootstrap_draws) {
+        return Err(invalid(
+            "plan.bootstrap-draws",
+            f.plan.bootstrap_draws.to_string(),
+            "20 to 100000",
+        ));
+    }
+    // Cost inputs are checked fully once the data's variables are known; check the shape now.
+    f.cost
+        .check(1, 1.0)
+        .map_err(|e| invalid("cost", e.to_string(), "see the message"))?;
+
+    Ok(StudyPlan {
+        name,
+        title: f
+            .title
+            .unwrap_or_else(|| "Training-data budget study".into()),
+        description: f.description.unwrap_or_default(),
+        seed: f.seed,
+        source_path: path.to_path_buf(),
+        study_hash,
+        data,
+        timing: Timing {
+            initial_conditions: f.split.initial_conditions,
+            gap,
+            spacing,
+            threshold,
+            warm_up,
+            max_lead,
+            lyapunov_exponent: f.skill.lyapunov_exponent,
+        },
+        sizes,
+        replicates: f.subsets.replicates,
+        models,
+        targets,
+        confidence: f.plan.confidence,
+        bootstrap_draws: f.plan.bootstrap_draws,
+        cost: f.cost,
+    })
+}
+
+/// `count` sizes from `smallest` to `largest`, equally spaced in log n, rounded to whole samples
+/// and made strictly increasing.
+pub fn geometric_sizes(smallest: usize, largest: usize, count: usize) -> Vec<usize> {
+    let (a, b) = ((smallest as f64).ln(), (largest as f64).ln());
+    let mut out: Vec<usize> = (0..count)
+        .map(|i| (a + (b - a) * i as f64 / (count - 1) as f64).exp().round() as usize)
+        .collect();
+    out[0] = smallest;
+    out[count - 1] = largest;
+    out.dedup();
+    out
+}
+
+/// Converts a span in model time units to whole samples (rounded up).
+pub fn to_samples(span: f64, sample_interval: f64) -> usize {
+    (span / sample_interval - 1e-9).ceil().max(0.0) as usize
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn geometric_sizes_by_hand() {
+        assert_eq!(geometric_sizes(1000, 8000, 4), vec![1000, 2000, 4000, 8000]);
+        assert_eq!(geometric_sizes(10, 12, 5), vec![10, 11, 12]);
+    }
+
+    #[test]
+    fn spans_round_up_to_samples() {
+        assert_eq!(to_samples(1.0, 0.01), 100);
+        assert_eq!(to_samples(1.005, 0.01), 101);
+        assert_eq!(to_samples(0.3, 0.1), 3);
+    }
+}

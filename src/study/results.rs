@@ -1,0 +1,189 @@
+//! The results of a study: the `plan.json` data contract.
+//!
+//! `plan.json` (schema [`PLAN_SCHEMA`]) is one [`PlanDocument`]. Conventions: times are in model
+//! time units unless a name says otherwise; sizes are numbers of saved samples; core-hours and
+//! bytes are plain numbers; an interval is `[lower, upper]` at the study's confidence level with
+//! `null` for an unbounded side; maps are ordered by key. Fields are added, never renamed,
+//! within one schema version. The `timings` object is the only part that changes between
+//! identical runs.
+
+use crate::cost::{Budget, CostModel};
+use crate::curves::Family;
+use crate::skill::SkillSummary;
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+
+/// Version tag of the `plan.json` contract.
+pub const PLAN_SCHEMA: &str = "closure-budget/plan/1";
+
+/// Everything a study produced.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct PlanDocument {
+    pub schema: String,
+    pub tool_version: String,
+    pub study: StudyInfo,
+    pub data: DataInfo,
+    pub skill: SkillInfo,
+    /// Persistence (x̂(t) = x(0)) on the same initial conditions: the floor.
+    pub persistence: SkillSummary,
+    pub models: Vec<ModelResult>,
+    pub cost: CostModel,
+    pub warnings: Vec<String>,
+    pub timings: Timings,
+}
+
+/// The study file and its identity.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct StudyInfo {
+    pub name: String,
+    pub title: String,
+    pub description: String,
+    pub file: String,
+    /// SHA-256 of the study file.
+    pub file_sha256: String,
+    pub seed: u64,
+    pub sizes: Vec<usize>,
+    pub replicates: usize,
+    pub targets: Vec<f64>,
+    pub confidence: f64,
+    pub bootstrap_draws: usize,
+}
+
+/// The pilot data and its split.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct DataInfo {
+    /// "simulated" or the file path.
+    pub source: String,
+    pub system: Option<String>,
+    pub parameters: BTreeMap<String, f64>,
+    pub dt: Option<f64>,
+    pub sample_interval: f64,
+    pub samples: usize,
+    pub variables: Vec<String>,
+    /// SHA-256 of the state array.
+    pub content_sha256: String,
+    pub training_pool: usize,
+    pub test_initial_conditions: usize,
+    /// First and last test initial condition (sample indices).
+    pub test_range: [usize; 2],
+    pub seed: Option<u64>,
+    /// Climatological standard deviation of each variable over the training pool.
+    pub sigma: Vec<f64>,
+}
+
+/// How skill was measured.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct SkillInfo {
+    pub definition: String,
+    pub threshold: f64,
+    pub warm_up: f64,
+    pub max_lead: f64,
+    pub lyapunov_exponent: Option<f64>,
+}
+
+/// One candidate model: measured points, fitted curves, estimates per target.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct ModelResult {
+    pub name: String,
+    pub kind: String,
+    /// The model's settings as given (defaults resolved).
+    pub settings: serde_json::Value,
+    pub points: Vec<PointResult>,
+    pub fits: Vec<FitResult>,
+    /// Family chosen by AICc among the successful fits.
+    pub selected: Option<Family>,
+    pub estimates: Vec<TargetEstimate>,
+}
+
+/// Skill at one subset size, over replicates and initial conditions.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct PointResult {
+    pub n: usize,
+    /// Mean valid time of each replicate (over initial conditions).
+    pub replicate_means: Vec<f64>,
+    /// Mean over replicates.
+    pub mean: f64,
+    /// Standard error of the mean used as the fit weight (floored; see the curves module).
+    pub standard_error: f64,
+    /// 10% and 90% quantiles of the valid time over every initial condition and replicate.
+    pub q10: f64,
+    pub q90: f64,
+    pub censored_share: f64,
+    pub blow_up_share: f64,
+    /// Mean ridge penalty used over replicates.
+    pub ridge_penalty: Option<f64>,
+    /// Mean one-step training residual over replicates (standardised units).
+    pub training_rmse: Option<f64>,
+}
+
+/// One fitted family.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct FitResult {
+    pub family: Family,
+    pub formula: String,
+    pub params: BTreeMap<String, f64>,
+    pub std_errors: Option<BTreeMap<String, f64>>,
+    pub weighted_rss: Option<f64>,
+    pub aicc: Option<f64>,
+    pub asymptote: Option<f64>,
+    /// Why the family could not be fitted, if it could not.
+    pub error: Option<String>,
+}
+
+/// Whether a target is reachable.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum EstimateStatus {
+    /// The fitted curve reaches the target at `samples`.
+    Reached,
+    /// The target is already met at the smallest measured size.
+    AlreadyMet,
+    /// The fitted curve saturates below the target.
+    Unreachable,
+    /// No curve could be fitted.
+    NoFit,
+}
+
+/// Samples and cost to reach one target skill with one model.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct TargetEstimate {
+    /// Target mean valid time, model time units.
+    pub target: f64,
+    pub status: EstimateStatus,
+    /// Samples n* from the fit to all data.
+    pub samples: Option<f64>,
+    /// Bootstrap interval of n*; `None` for an unbounded side.
+    pub samples_interval: [Option<f64>; 2],
+    /// Share of bootstrap draws whose curve reached the target.
+    pub reached_share: f64,
+    /// Budget at n*, and at the interval ends.
+    pub budget: Option<Budget>,
+    pub budget_low: Option<Budget>,
+    pub budget_high: Option<Budget>,
+    /// Fitted asymptote, when the family has one.
+    pub asymptote: Option<f64>,
+    /// n* divided by the largest measured size.
+    pub extrapolation: Option<f64>,
+    pub note: String,
+}
+
+/// Wall time of each stage, seconds.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "kebab-case")]
+pub struct Timings {
+    pub data: f64,
+    pub training: f64,
+    pub forecasting: f64,
+    pub fitting: f64,
+    pub report: f64,
+    pub total: f64,
+    pub threads: usize,
+}

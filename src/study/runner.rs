@@ -1,0 +1,636 @@
+//! Runs a checked study: pilot data, nested-subset training, forecasts over the test initial
+//! conditions (in parallel, deterministic whatever the thread count), learning-curve fits,
+//! inversion for the targets, and costs. Writing the report is the caller's next step.
+
+use super::plan::{to_samples, DataSource, ModelKind, StudyPlan};
+use super::records::{RecordStore, SkillRecord};
+use super::results::*;
+use super::StudyError;
+use crate::cost::CostModel;
+use crate::curves::{self, Family, Inversion, SizeSamples};
+use crate::data::{
+    column_stats, read_trajectory, Split, SplitSpec, Trajectory, TrajectoryMeta, SIDECAR_SCHEMA,
+};
+use crate::models::{esn, FitSummary, Forecaster, Persistence};
+use crate::skill::{self, IcSkill, SkillSpec};
+use crate::systems::{simulate, SimulationSpec};
+use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+use rayon::prelude::*;
+use sha2::{Digest, Sha256};
+use std::collections::BTreeMap;
+use std::path::PathBuf;
+use std::sync::Arc;
+use std::time::Instant;
+
+/// How to run a study.
+#[derive(Debug, Clone)]
+pub struct RunOptions {
+    /// Output directory (created); the records store is written there as work finishes.
+    pub out_dir: PathBuf,
+    /// Worker threads; `None` uses rayon's default (one per core).
+    pub threads: Option<usize>,
+    /// Draw progress bars on standard error.
+    pub progress: bool,
+}
+
+/// Everything the report writers need.
+pub struct StudyOutcome {
+    pub document: PlanDocument,
+    pub records: Vec<SkillRecord>,
+    /// Persistence per initial condition.
+    pub persistence: Vec<IcSkill>,
+}
+
+/// Seed of a model's random parts, derived from the study seed, model name and replicate.
+pub fn derive_seed(study_seed: u64, model: &str, replicate: usize) -> u64 {
+    let mut h = Sha256::new();
+    h.update(study_seed.to_le_bytes());
+    h.update(model.as_bytes());
+    h.update((replicate as u64).to_le_bytes());
+    let d = h.finalize();
+    u64::from_le_bytes(d[..8].try_into().expect("8 bytes"))
+}
+
+/// Runs the study; see the module docs.
+pub fn run_study(plan: &StudyPlan, options: &RunOptions) -> Result<StudyOutcome, StudyError> {
+    let mut builder = rayon::ThreadPoolBuilder::new();
+    if let Some(t) = options.threads {
+        builder = builder.num_threads(t);
+    }
+    let pool = builder.build().map_err(|e| StudyError::Threads {
+        threads: options.threads.unwrap_or(0),
+        message: e.to_string(),
+    })?;
+    let threads = pool.current_num_threads();
+    pool.install(|| run_in_pool(plan, options, threads))
+}
+
+struct Prepared {
+    traj: Trajectory,
+    split: Split,
+    skill: SkillSpec,
+    cost: CostModel,
+    source: String,
+}
+
+fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
+    let t = &plan.timing;
+    let largest = *plan.sizes.last().expect("plan has sizes");
+    let split_for = |dt: f64| SplitSpec {
+        initial_conditions: t.initial_conditions,
+        gap: to_samples(t.gap, dt),
+        spacing: to_samples(t.spacing, dt).max(1),
+        warm_up: to_samples(t.warm_up, dt).max(1),
+        max_lead: to_samples(t.max_lead, dt).max(1),
+    };
+    let (traj, source) = match &plan.data {
+        DataSource::Simulate {
+            system,
+            dt,
+            sample_interval,
+            spin_up,
+            training_pool,
+            seed,
+        } => {
+            let samples = split_for(*sample_interval).total_for_pool(*training_pool);
+            let bar = bar(progress, samples as u64, "simulating pilot data");
+            let tick = |done: usize, _total: usize| bar.set_position(done as u64);
+            let sim = simulate(
+                &SimulationSpec {
+                    system: system.clone(),
+                    dt: *dt,
+                    sample_interval: *sample_interval,
+                    spin_up: *spin_up,
+                    samples,
+                    seed: *seed,
+                },
+                Some(&tick),
+            )?;
+            bar.finish_and_clear();
+            let meta = TrajectoryMeta {
+                schema: SIDECAR_SCHEMA.into(),
+                system: Some(system.label().into()),
+                parameters: system.parameters(),
+                dt: Some(*dt),
+                sample_interval: *sample_interval,
+                spin_up: Some(*spin_up),
+                variables: sim.resolved_names,
+                subgrid_variables: sim.subgrid_names,
+                seed: Some(*seed),
+                tool_version: env!("CARGO_PKG_VERSION").into(),
+            };
+            (
+                Trajectory {
+                    values: sim.resolved,
+                    subgrid: sim.subgrid,
+                    meta,
+                },
+                "simulated".to_string(),
+            )
+        }
+        DataSource::File {
+            path,
+            sample_interval,
+        } => (
+            read_trajectory(path, *sample_interval)?,
+            path.display().to_string(),
+        ),
+    };
+    let dt = traj.sample_interval();
+    let split = Split::new(traj.samples(), split_for(dt), largest)?;
+    let pool = traj.values.slice(ndarray::s![split.pool.clone(), ..]);
+    let (mean, sigma) = column_stats(pool);
+    if let Some(j) = sigma.iter().position(|s| !(*s > 0.0)) {
+        return Err(StudyError::ConstantVariable {
+            variable: traj.meta.variables[j].clone(),
+        });
+    }
+    let skill = SkillSpec {
+        threshold: t.threshold,
+        warm_up: split.spec.warm_up,
+        max_lead: split.spec.max_lead,
+        sample_interval: dt,
+        mean,
+        sigma,
+    };
+    let cost = plan.cost.check(traj.dim(), dt)?;
+    Ok(Prepared {
+        traj,
+        split,
+        skill,
+        cost,
+        source,
+    })
+}
+
+fn bar(enabled: bool, len: u64, message: &'static str) -> ProgressBar {
+    if !enabled {
+        return ProgressBar::hidden();
+    }
+    let b = ProgressBar::with_draw_target(Some(len), ProgressDrawTarget::stderr());
+    b.set_style(
+        ProgressStyle::with_template("{msg:<28} [{bar:30}] {pos}/{len} ({elapsed}, eta {eta})")
+            .expect("valid template")
+            .progress_chars("=> "),
+    );
+    b.set_message(message);
+    b
+}
+
+/// One trained model on one subset, ready to forecast.
+struct Trained {
+    model: usize,
+    replicate: usize,
+    seed: u64,
+    window_start: usize,
+    summary: FitSummary,
+    forecaster: Arc<dyn Forecaster>,
+}
+
+fn run_in_pool(
+    plan: &StudyPlan,
+    options: &RunOptions,
+    threads: usize,
+) -> Result<StudyOutcome, StudyError> {
+    let started = Instant::now();
+    let mut timings = Timings {
+        threads,
+        ..Timings::default()
+    };
+
+    // Data.
+    let t0 = Instant::now();
+    let prep = prepare(plan, options.progress)?;
+    timings.data = t0.elapsed().as_secs_f64();
+    let store = RecordStore::create(&options.out_dir.join("records.jsonl")).map_err(|source| {
+        StudyError::Write {
+            path: options.out_dir.join("records.jsonl"),
+            source,
+        }
+    })?;
+
+    // Training: one nested pass per (model, replicate).
+    let t0 = Instant::now();
+    let pool_len = prep.split.pool.len();
+    let largest = *plan.sizes.last().expect("sizes");
+    let slack = pool_len - largest;
+    let units: Vec<(usize, usize)> = (0..plan.models.len())
+        .flat_map(|m| (0..plan.replicates).map(move |r| (m, r)))
+        .collect();
+    let train_bar = bar(
+        options.progress,
+        units.len() as u64,
+        "training (nested subsets)",
+    );
+    let trained: Vec<Vec<Trained>> = units
+        .par_iter()
+        .map(|&(m, r)| {
+            let model = &plan.models[m];
+            let seed = derive_seed(plan.seed, &model.name, r);
+            let window_start = if plan.replicates > 1 {
+                r * slack / (plan.replicates - 1)
+            } else {
+                0
+            };
+            let window = prep
+                .traj
+                .values
+                .slice(ndarray::s![window_start..window_start + largest, ..]);
+            let fitted = match &model.kind {
+                ModelKind::Esn(p) => esn::fit_nested(p, window, &plan.sizes, seed),
+            }
+            .map_err(|source| StudyError::Model {
+                model: model.name.clone(),
+                replicate: r,
+                source,
+            })?;
+            train_bar.inc(1);
+            Ok(fitted
+                .into_iter()
+                .map(|(f, summary)| Trained {
+                    model: m,
+                    replicate: r,
+                    seed,
+                    window_start,
+                    summary,
+                    forecaster: Arc::new(f) as Arc<dyn Forecaster>,
+                })
+                .collect())
+        })
+        .collect::<Result<_, StudyError>>()?;
+    train_bar.finish_and_clear();
+    timings.training = t0.elapsed().as_secs_f64();
+
+    // Forecasting: every trained model from every test initial condition.
+    let t0 = Instant::now();
+    let truth = prep.traj.values.view();
+    let ics = &prep.split.initial_conditions;
+    let persistence: Vec<IcSkill> = ics
+        .par_iter()
+        .map(|&ic| skill::valid_time(&Persistence, truth, ic, &prep.skill))
+        .collect();
+    let tasks: Vec<&Trained> = trained.iter().flatten().collect();
+    let fc_bar = bar(options.progress, tasks.len() as u64, "forecasting");
+    let records: Vec<SkillRecord> = tasks
+        .par_iter()
+        .map(|t| {
+            let per_ic: Vec<IcSkill> = ics
+                .par_iter()
+                .map(|&ic| skill::valid_time(t.forecaster.as_ref(), truth, ic, &prep.skill))
+                .collect();
+            let record = SkillRecord {
+                model: plan.models[t.model].name.clone(),
+                replicate: t.replicate,
+                n: t.summary.n,
+                seed: t.seed,
+                window_start: t.window_start,
+                fit: t.summary.clone(),
+                summary: skill::summarise(&per_ic),
+                initial_conditions: per_ic,
+            };
+            store.append(&record).map_err(|source| StudyError::Write {
+                path: store.path().to_path_buf(),
+                source,
+            })?;
+            fc_bar.inc(1);
+            Ok(record)
+        })
+        .collect::<Result<_, StudyError>>()?;
+    fc_bar.finish_and_clear();
+    timings.forecasting = t0.elapsed().as_secs_f64();
+
+    // Curves, inversion and cost.
+    let t0 = Instant::now();
+    let mut warnings = Vec::new();
+    let models: Vec<ModelResult> = plan
+        .models
+        .iter()
+        .enumerate()
+        .map(|(m, model)| {
+            let mine: Vec<&SkillRecord> =
+                records.iter().filter(|r| r.model == model.name).collect();
+            model_result(plan, m, &mine, &prep.cost, &mut warnings)
+        })
+        .collect();
+    timings.fitting = t0.elapsed().as_secs_f64();
+
+    let persistence_summary = skill::summarise(&persistence);
+    let t = &plan.timing;
+    if let Some(&top) = plan.targets.last() {
+        if top > 0.8 * t.max_lead {
+            warnings.push(format!(
+                "the largest target ({top}) is above 80% of the maximum lead ({}): many forecasts will be censored near the target; raise skill.max-lead",
+                t.max_lead
+            ));
+        }
+    }
+    for m in &models {
+        if let Some(p) = m.points.last() {
+            if p.censored_share > 0.1 {
+                warnings.push(format!(
+                    "{}: {:.0}% of forecasts at n = {} were still valid at the maximum lead ({}); their valid times are lower bounds (treated as censored in the fit); raise skill.max-lead",
+                    m.name,
+                    100.0 * p.censored_share,
+                    p.n,
+                    t.max_lead
+                ));
+            }
+        }
+        if m.points.iter().any(|p| p.blow_up_share > 0.0) {
+            warnings.push(format!(
+                "{}: some free-running forecasts blew up (left mean ± {} σ or turned non-finite); they score the time of failure",
+                m.name,
+                skill::BLOW_UP_SIGMAS
+            ));
+        }
+    }
+    let d = &prep.traj;
+    let document = PlanDocument {
+        schema: PLAN_SCHEMA.into(),
+        tool_version: env!("CARGO_PKG_VERSION").into(),
+        study: StudyInfo {
+            name: plan.name.clone(),
+            title: plan.title.clone(),
+            description: plan.description.clone(),
+            file: plan.source_path.display().to_string(),
+            file_sha256: plan.study_hash.clone(),
+            seed: plan.seed,
+            sizes: plan.sizes.clone(),
+            replicates: plan.replicates,
+            targets: plan.targets.clone(),
+            confidence: plan.confidence,
+            bootstrap_draws: plan.bootstrap_draws,
+        },
+        data: DataInfo {
+            source: prep.source.clone(),
+            system: d.meta.system.clone(),
+            parameters: d.meta.parameters.clone(),
+            dt: d.meta.dt,
+            sample_interval: d.sample_interval(),
+            samples: d.samples(),
+            variables: d.meta.variables.clone(),
+            content_sha256: d.content_hash(),
+            training_pool: pool_len,
+            test_initial_conditions: ics.len(),
+            test_range: [ics[0], *ics.last().expect("at least one IC")],
+            seed: d.meta.seed,
+            sigma: prep.skill.sigma.clone(),
+        },
+        skill: SkillInfo {
+            definition: format!(
+                "valid prediction time: largest lead at which sqrt(mean_j ((x̂_j − x_j)/σ_j)²) has stayed ≤ {}, σ_j the training-pool standard deviation; mean over {} test initial conditions",
+                t.threshold,
+                ics.len()
+            ),
+            threshold: t.threshold,
+            warm_up: t.warm_up,
+            max_lead: t.max_lead,
+            lyapunov_exponent: t.lyapunov_exponent,
+        },
+        persistence: persistence_summary,
+        models,
+        cost: prep.cost.clone(),
+        warnings,
+        timings: Timings {
+            total: started.elapsed().as_secs_f64(),
+            ..timings
+        },
+    };
+    let mut records = records;
+    records.sort_by(|a, b| {
+        (a.model.as_str(), a.n, a.replicate).cmp(&(b.model.as_str(), b.n, b.replicate))
+    });
+    Ok(StudyOutcome {
+        document,
+        records,
+        persistence,
+    })
+}
+
+fn model_result(
+    plan: &StudyPlan,
+    m: usize,
+    records: &[&SkillRecord],
+    cost: &CostModel,
+    warnings: &mut Vec<String>,
+) -> ModelResult {
+    let model = &plan.models[m];
+    // Per size: replicate means in replicate order.
+    let mut points = Vec::new();
+    let mut samples = Vec::new();
+    for &n in &plan.sizes {
+        let mut at: Vec<&SkillRecord> = records.iter().copied().filter(|r| r.n == n).collect();
+        at.sort_by_key(|r| r.replicate);
+        let replicate_means: Vec<f64> = at.iter().map(|r| r.summary.mean).collect();
+        let all: Vec<IcSkill> = at
+            .iter()
+            .flat_map(|r| r.initial_conditions.iter().copied())
+            .collect();
+        let s = skill::summarise(&all);
+        let mean_of = |f: &dyn Fn(&SkillRecord) -> Option<f64>| {
+            let v: Vec<f64> = at.iter().filter_map(|r| f(r)).collect();
+            (!v.is_empty()).then(|| v.iter().sum::<f64>() / v.len() as f64)
+        };
+        samples.push(SizeSamples {
+            n: n as f64,
+            replicate_values: replicate_means.clone(),
+            censored: s.censored_share > 0.0,
+        });
+        points.push(PointResult {
+            n,
+            mean: replicate_means.iter().sum::<f64>() / replicate_means.len().max(1) as f64,
+            replicate_means,
+            standard_error: 0.0,
+            q10: s.q10,
+            q90: s.q90,
+            censored_share: s.censored_share,
+            blow_up_share: s.blow_up_share,
+            ridge_penalty: mean_of(&|r| r.fit.ridge_penalty),
+            training_rmse: mean_of(&|r| r.fit.training_rmse),
+        });
+    }
+    let curve_points = curves::summarise(&samples);
+    for (p, c) in points.iter_mut().zip(&curve_points) {
+        p.standard_error = c.standard_error;
+    }
+
+    let mut fits = Vec::new();
+    let mut ok_fits = Vec::new();
+    for family in Family::ALL {
+        match curves::fit_family(family, &curve_points) {
+            Ok(fit) => {
+                let names = family.param_names();
+                fits.push(FitResult {
+                    family,
+                    formula: family.formula().into(),
+                    params: names
+                        .iter()
+                        .map(|n| n.to_string())
+                        .zip(fit.params.iter().copied())
+                        .collect(),
+                    std_errors: fit.std_errors.as_ref().map(|se| {
+                        names
+                            .iter()
+                            .map(|n| n.to_string())
+                            .zip(se.iter().copied())
+                            .collect()
+                    }),
+                    weighted_rss: Some(fit.weighted_rss),
+                    aicc: fit.aicc,
+                    asymptote: family.asymptote(&fit.params),
+                    error: None,
+                });
+                ok_fits.push(fit);
+            }
+            Err(e) => fits.push(FitResult {
+                family,
+                formula: family.formula().into(),
+                params: BTreeMap::new(),
+                std_errors: None,
+                weighted_rss: None,
+                aicc: None,
+                asymptote: None,
+                error: Some(e.to_string()),
+            }),
+        }
+    }
+    let selected = curves::select_by_aicc(&ok_fits).map(|i| &ok_fits[i]);
+    if selected.is_none() {
+        warnings.push(format!(
+            "{}: no learning-curve family could be fitted and selected; no budget is given for this model",
+            model.name
+        ));
+    }
+    let smallest = plan.sizes[0] as f64;
+    let largest = *plan.sizes.last().expect("sizes") as f64;
+    let estimates: Vec<TargetEstimate> = match selected {
+        None => plan
+            .targets
+            .iter()
+            .map(|&target| TargetEstimate {
+                target,
+                status: EstimateStatus::NoFit,
+                samples: None,
+                samples_interval: [None, None],
+                reached_share: 0.0,
+                budget: None,
+                budget_low: None,
+                budget_high: None,
+                asymptote: None,
+                extrapolation: None,
+                note: "no learning curve could be fitted".into(),
+            })
+            .collect(),
+        Some(fit) => {
+            let boot = curves::bootstrap_inversion(
+                fit.family,
+                &samples,
+                &plan.targets,
+                plan.bootstrap_draws,
+                plan.confidence,
+                derive_seed(plan.seed, &model.name, usize::MAX),
+            );
+            plan.targets
+                .iter()
+                .zip(boot)
+                .map(|(&target, b)| {
+                    estimate(fit, target, &b, smallest, largest, plan.confidence, cost)
+                })
+                .collect()
+        }
+    };
+    for e in estimates.iter() {
+        if let Some(x) = e.extrapolation {
+            if x > 10.0 {
+                warnings.push(format!(
+                    "{}: reaching {} needs {:.0}× the largest measured subset; an extrapolation that far is unreliable, measure larger subsets",
+                    model.name, e.target, x
+                ));
+            }
+        }
+    }
+    let settings = match &model.kind {
+        ModelKind::Esn(p) => serde_json::to_value(p.get()).expect("settings serialise"),
+    };
+    ModelResult {
+        name: model.name.clone(),
+        kind: model.kind.label().into(),
+        settings,
+        points,
+        fits,
+        selected: selected.map(|f| f.family),
+        estimates,
+    }
+}
+
+fn estimate(
+    fit: &curves::CurveFit,
+    target: f64,
+    boot: &curves::BootstrapSummary,
+    smallest: f64,
+    largest: f64,
+    level: f64,
+    cost: &CostModel,
+) -> TargetEstimate {
+    let reached_share = boot.reached_draws as f64 / boot.draws.max(1) as f64;
+    let asymptote = fit.family.asymptote(&fit.params);
+    // A two-sided interval at `level` needs the upper quantile (1 + level)/2 of n*; draws that
+    // never reach count as n* = ∞, so the upper end is unbounded when too few draws reach.
+    let upper_prob = (1.0 + level) / 2.0;
+    let interval = match boot.n_quantiles {
+        Some((lo, _, hi)) if reached_share >= upper_prob => {
+            // Quantiles over reached draws only; rescale to all draws with unreached at +∞.
+            [Some(lo), Some(hi)]
+        }
+        Some((lo, _, _)) => [Some(lo), None],
+        None => [None, None],
+    };
+    let base = TargetEstimate {
+        target,
+        status: EstimateStatus::Unreachable,
+        samples: None,
+        samples_interval: interval,
+        reached_share,
+        budget: None,
+        budget_low: interval[0].map(|n| cost.budget(n)),
+        budget_high: interval[1].map(|n| cost.budget(n)),
+        asymptote,
+        extrapolation: None,
+        note: String::new(),
+    };
+    match fit.invert(target) {
+        Inversion::Reached { n } if n <= smallest => TargetEstimate {
+            status: EstimateStatus::AlreadyMet,
+            samples: Some(smallest),
+            budget: Some(cost.budget(smallest)),
+            extrapolation: Some(smallest / largest),
+            note: format!("met at the smallest measured size ({smallest:.0} samples); smaller sets were not measured"),
+            ..base
+        },
+        Inversion::Reached { n } => TargetEstimate {
+            status: EstimateStatus::Reached,
+            samples: Some(n),
+            budget: Some(cost.budget(n)),
+            extrapolation: Some(n / largest),
+            note: if interval[1].is_none() {
+                format!(
+                    "only {:.0}% of bootstrap draws reach the target: the upper end of the interval is unbounded",
+                    100.0 * reached_share
+                )
+            } else if n > largest {
+                format!("extrapolated {:.1}× beyond the largest measured subset", n / largest)
+            } else {
+                "within the measured range".into()
+            },
+            ..base
+        },
+        Inversion::Unreachable { asymptote, reason } => TargetEstimate {
+            asymptote: asymptote.or(base.asymptote),
+            note: match asymptote {
+                Some(a) => format!("the fitted curve levels off at {a:.3}, below the target; {reason}"),
+                None => reason,
+            },
+            ..base
+        },
+    }
+}
