@@ -6,10 +6,12 @@
 //! [`curves`] fitted and inverted → [`cost`] of the campaign → [`report`].
 
 pub mod atomic;
+pub mod cli;
 pub mod cost;
 pub mod curves;
 pub mod data;
 pub mod models;
+pub mod report;
 pub mod skill;
 pub mod study;
 pub mod systems;

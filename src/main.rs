@@ -1,1 +1,137 @@
-fn main() {}
+//! closure-budget command-line entry point: parse arguments, call the library, print the error
+//! chain, set the exit code.
+
+use anyhow::{bail, Context};
+use clap::Parser;
+use closure_budget::cli::{Cli, Command, SystemArgs};
+use closure_budget::data::{
+    write_trajectory, OutputFormats, Trajectory, TrajectoryMeta, SIDECAR_SCHEMA,
+};
+use closure_budget::study::{load_plan, run_study, RunOptions};
+use closure_budget::systems::{
+    largest_lyapunov, simulate, LyapunovSpec, SimulationSpec, SystemSpec,
+};
+use closure_budget::{report, study};
+use std::io::IsTerminal;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    match run(cli) {
+        Ok(code) => code,
+        Err(e) => {
+            eprintln!("error: {e:#}");
+            ExitCode::from(2)
+        }
+    }
+}
+
+fn run(cli: Cli) -> anyhow::Result<ExitCode> {
+    match cli.command {
+        Command::Run(a) => {
+            let plan = load_plan(&a.study)?;
+            let out = a
+                .out
+                .unwrap_or_else(|| PathBuf::from("reports").join(&plan.name));
+            let options = RunOptions {
+                out_dir: out.clone(),
+                threads: a.threads,
+                progress: !a.quiet && std::io::stderr().is_terminal(),
+            };
+            let outcome = run_study(&plan, &options)?;
+            let written = report::write_report(&outcome, &out)?;
+            print!("{}", outcome.document.text_summary());
+            println!("\nwritten:");
+            for p in written {
+                println!("  {}", p.display());
+            }
+        }
+        Command::Check(a) => {
+            let plan = load_plan(&a.study)?;
+            print!("{}", study::plan::describe(&plan));
+        }
+        Command::Simulate(a) => {
+            let (system, dt) = system_from_args(&a.system)?;
+            let spec = SimulationSpec {
+                system: system.clone(),
+                dt,
+                sample_interval: a.sample_interval,
+                spin_up: a.spin_up,
+                samples: a.samples,
+                seed: a.system.seed,
+            };
+            let sim = simulate(&spec, None)?;
+            let traj = Trajectory {
+                values: sim.resolved,
+                subgrid: sim.subgrid,
+                meta: TrajectoryMeta {
+                    schema: SIDECAR_SCHEMA.into(),
+                    system: Some(system.label().into()),
+                    parameters: system.parameters(),
+                    dt: Some(dt),
+                    sample_interval: a.sample_interval,
+                    spin_up: Some(a.spin_up),
+                    variables: sim.resolved_names,
+                    subgrid_variables: sim.subgrid_names,
+                    seed: Some(a.system.seed),
+                    tool_version: env!("CARGO_PKG_VERSION").into(),
+                },
+            };
+            let formats = OutputFormats {
+                npy: !a.no_npy,
+                csv: a.csv,
+            };
+            for p in write_trajectory(&traj, &a.out, formats)? {
+                println!("{}", p.display());
+            }
+        }
+        Command::Lyapunov(a) => {
+            let (system, dt) = system_from_args(&a.system)?;
+            let est = largest_lyapunov(&LyapunovSpec {
+                system: system.clone(),
+                dt,
+                spin_up: a.spin_up,
+                duration: a.duration,
+                renormalise_every: a.renormalise_every,
+                seed: a.system.seed,
+            })?;
+            if a.json {
+                println!("{}", serde_json::to_string_pretty(&est)?);
+            } else {
+                println!(
+                    "{}: largest Lyapunov exponent {:.4} ± {:.4} per model time unit \
+                     (Lyapunov time {:.4}); {} blocks over {} time units, dt = {dt}",
+                    system.label(),
+                    est.exponent,
+                    est.standard_error,
+                    1.0 / est.exponent,
+                    est.blocks,
+                    est.duration
+                );
+            }
+        }
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+fn system_from_args(a: &SystemArgs) -> anyhow::Result<(SystemSpec, f64)> {
+    let Some(mut system) = SystemSpec::with_defaults(&a.system) else {
+        bail!(
+            "unknown system '{}'; built-in systems are lorenz-63, lorenz-96, two-scale-lorenz-96",
+            a.system
+        );
+    };
+    for kv in &a.set {
+        let (k, v) = kv
+            .split_once('=')
+            .with_context(|| format!("--set '{kv}' is not KEY=VALUE (e.g. --set forcing=20)"))?;
+        system.set(k.trim(), v.trim()).map_err(anyhow::Error::msg)?;
+    }
+    system.validate()?;
+    let dt = a.dt.unwrap_or(match system {
+        SystemSpec::TwoScaleLorenz96 { .. } => 0.005,
+        _ => 0.01,
+    });
+    Ok((system, dt))
+}

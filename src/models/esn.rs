@@ -427,6 +427,7 @@ impl Forecaster for Esn {
         steps: usize,
         sink: &mut dyn FnMut(usize, &[f64]) -> bool,
     ) {
+        super::ridge::clear_upper_simd_state();
         let res = &self.reservoir;
         let d = self.mean.len();
         let f = res.features();

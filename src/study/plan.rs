@@ -398,3 +398,57 @@ mod tests {
         assert_eq!(to_samples(0.3, 0.1), 3);
     }
 }
+
+/// A plain-text description of what a plan will do (for `check`).
+pub fn describe(plan: &StudyPlan) -> String {
+    use std::fmt::Write;
+    let mut s = String::new();
+    let _ = writeln!(s, "study '{}' is valid: {}", plan.name, plan.title);
+    match &plan.data {
+        DataSource::Simulate {
+            system,
+            dt,
+            sample_interval,
+            training_pool,
+            seed,
+            ..
+        } => {
+            let params: Vec<String> = system
+                .parameters()
+                .iter()
+                .map(|(k, v)| format!("{k}={v}"))
+                .collect();
+            let _ = writeln!(
+                s,
+                "data: simulate {} ({}), dt {dt}, sample interval {sample_interval}, training pool {training_pool} samples, seed {seed}",
+                system.label(),
+                params.join(" ")
+            );
+        }
+        DataSource::File { path, .. } => {
+            let _ = writeln!(s, "data: file {}", path.display());
+        }
+    }
+    let t = &plan.timing;
+    let _ = writeln!(
+        s,
+        "test: {} initial conditions, gap {}, spacing {}, warm-up {}, max lead {}, threshold {}",
+        t.initial_conditions, t.gap, t.spacing, t.warm_up, t.max_lead, t.threshold
+    );
+    let _ = writeln!(
+        s,
+        "sizes: {:?} × {} replicates",
+        plan.sizes, plan.replicates
+    );
+    for m in &plan.models {
+        let _ = writeln!(s, "model {}: {}", m.name, m.kind.label());
+    }
+    let _ = writeln!(s, "targets (mean valid time): {:?}", plan.targets);
+    let forecasts = plan.models.len() * plan.replicates * plan.sizes.len() * t.initial_conditions;
+    let _ = writeln!(
+        s,
+        "work: {} nested training passes, {forecasts} forecasts",
+        plan.models.len() * plan.replicates
+    );
+    s
+}

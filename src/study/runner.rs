@@ -627,7 +627,7 @@ fn estimate(
         Inversion::Unreachable { asymptote, reason } => TargetEstimate {
             asymptote: asymptote.or(base.asymptote),
             note: match asymptote {
-                Some(a) => format!("the fitted curve levels off at {a:.3}, below the target; {reason}"),
+                Some(a) => format!("the fitted curve levels off at {a:.3}, at or below the target"),
                 None => reason,
             },
             ..base

@@ -249,6 +249,72 @@ pub(crate) fn spin_up_steps(spin_up: f64, dt: f64) -> usize {
 }
 
 impl SystemSpec {
+    /// Default parameters of a built-in system by label: Lorenz-63 σ=10, ρ=28, β=8/3 (Lorenz
+    /// 1963); Lorenz-96 K=40, F=8 (Lorenz 1996); two-scale Lorenz-96 K=8, J=32, h=1, c=10, b=10,
+    /// F=20 (the K, J, h, c, b of Wilks 2005 at a forcing where the slow variables are
+    /// broadband-chaotic).
+    pub fn with_defaults(label: &str) -> Option<SystemSpec> {
+        Some(match label {
+            "lorenz-63" => SystemSpec::Lorenz63 {
+                sigma: 10.0,
+                rho: 28.0,
+                beta: 8.0 / 3.0,
+            },
+            "lorenz-96" => SystemSpec::Lorenz96 {
+                k: 40,
+                forcing: 8.0,
+            },
+            "two-scale-lorenz-96" => SystemSpec::TwoScaleLorenz96 {
+                k: 8,
+                j: 32,
+                h: 1.0,
+                c: 10.0,
+                b: 10.0,
+                forcing: 20.0,
+            },
+            _ => return None,
+        })
+    }
+
+    /// Sets one parameter by name (as spelled in study files); whole-number parameters (`k`,
+    /// `j`) must be given as whole numbers. Errors say which names the system has.
+    pub fn set(&mut self, key: &str, value: &str) -> Result<(), String> {
+        let float = || -> Result<f64, String> {
+            value
+                .parse::<f64>()
+                .map_err(|_| format!("`{key}` = '{value}' is not a number"))
+        };
+        let whole = || -> Result<usize, String> {
+            value
+                .parse::<usize>()
+                .map_err(|_| format!("`{key}` = '{value}' is not a whole number"))
+        };
+        let label = self.label();
+        match (self, key) {
+            (SystemSpec::Lorenz63 { sigma, .. }, "sigma") => *sigma = float()?,
+            (SystemSpec::Lorenz63 { rho, .. }, "rho") => *rho = float()?,
+            (SystemSpec::Lorenz63 { beta, .. }, "beta") => *beta = float()?,
+            (SystemSpec::Lorenz96 { k, .. }, "k") => *k = whole()?,
+            (SystemSpec::Lorenz96 { forcing, .. }, "forcing") => *forcing = float()?,
+            (SystemSpec::TwoScaleLorenz96 { k, .. }, "k") => *k = whole()?,
+            (SystemSpec::TwoScaleLorenz96 { j, .. }, "j") => *j = whole()?,
+            (SystemSpec::TwoScaleLorenz96 { h, .. }, "h") => *h = float()?,
+            (SystemSpec::TwoScaleLorenz96 { c, .. }, "c") => *c = float()?,
+            (SystemSpec::TwoScaleLorenz96 { b, .. }, "b") => *b = float()?,
+            (SystemSpec::TwoScaleLorenz96 { forcing, .. }, "forcing") => *forcing = float()?,
+            (s, _) => {
+                let names: Vec<String> = s.parameters().into_keys().collect();
+                return Err(format!(
+                    "{label} has no parameter `{key}`; its parameters are {}",
+                    names.join(", ")
+                ));
+            }
+        }
+        Ok(())
+    }
+}
+
+impl SystemSpec {
     /// Checks every parameter; errors name the field, the bad value and what is allowed.
     pub fn validate(&self) -> Result<(), SystemError> {
         let system = self.label();

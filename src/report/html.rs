@@ -1,0 +1,715 @@
+//! `report.html`: one self-contained page (inline CSS and SVG, no scripts, no network) that puts
+//! the answer first (samples and cost per model and target), then the evidence (learning curves,
+//! fits, measured points), the assumptions, warnings, provenance and cautions.
+
+use std::fmt::Write;
+
+use crate::cost::Budget;
+use crate::study::results::{EstimateStatus, PlanDocument, PointResult, TargetEstimate};
+use crate::study::runner::StudyOutcome;
+
+use super::format::{bytes, escape, number, opt, percent, samples, sig3, thousands};
+use super::svg;
+
+const CSS: &str = r#"
+:root { --ink:#222a35; --muted:#5d6673; --line:#d9dde3; --soft:#f4f6f8; --accent:#1d7a6c;
+  --accent-soft:#e3f1ee; --warn:#8a4b08; --warn-soft:#fdf1de; --bad:#a3352a; --bad-soft:#f9e6e3; }
+* { box-sizing:border-box; }
+html { font-size:15px; }
+body { margin:0; color:var(--ink); background:#fff; line-height:1.5;
+  font-family:system-ui,-apple-system,"Segoe UI",Roboto,"Helvetica Neue",Arial,"Noto Sans",sans-serif; }
+main { max-width:1080px; margin:0 auto; padding:28px 28px 60px; }
+header { border-bottom:3px solid var(--accent); padding-bottom:14px; margin-bottom:8px; }
+.kicker { text-transform:uppercase; letter-spacing:.08em; font-size:.78rem; color:var(--accent);
+  font-weight:600; margin:0; }
+h1 { font-size:1.9rem; line-height:1.2; margin:.2em 0 .3em; }
+h2 { font-size:1.35rem; margin:2.2em 0 .5em; padding-bottom:.2em; border-bottom:1px solid var(--line); }
+h3 { font-size:1.08rem; margin:1.6em 0 .4em; }
+p { margin:.5em 0; max-width:78ch; }
+.lede { font-size:1.05rem; }
+.muted, .sub { color:var(--muted); }
+.sub { display:block; font-size:.85rem; }
+nav.toc { font-size:.9rem; margin:10px 0 0; color:var(--muted); }
+nav.toc a { color:var(--accent); text-decoration:none; margin-right:1em; white-space:nowrap; }
+code, .mono { font-family:ui-monospace,"SFMono-Regular",Menlo,Consolas,"Liberation Mono",monospace;
+  font-size:.88em; }
+.hash { word-break:break-all; }
+table { border-collapse:collapse; width:100%; margin:.6em 0 1.2em; font-size:.92rem; }
+th, td { text-align:left; vertical-align:top; padding:7px 10px; border-bottom:1px solid var(--line); }
+thead th { background:var(--soft); font-weight:600; border-bottom:2px solid var(--line); }
+td.num, th.num { text-align:right; font-variant-numeric:tabular-nums; }
+tbody tr:nth-child(even) td { background:#fafbfc; }
+table.kv th { width:15em; font-weight:600; background:none; }
+.answer td { padding-top:10px; padding-bottom:10px; }
+.answer td:first-child { white-space:nowrap; }
+.answer td:nth-child(2) { min-width:8em; }
+.answer td:nth-child(3) { min-width:14em; }
+.answer td:last-child { min-width:9em; }
+.big { font-size:1.2rem; font-weight:700; font-variant-numeric:tabular-nums; }
+.badge { display:inline-block; padding:1px 8px; border-radius:10px; font-size:.8rem; font-weight:600;
+  white-space:nowrap; }
+.reached { background:var(--accent-soft); color:var(--accent); }
+.met { background:#e6eef8; color:#2f558a; }
+.unreachable { background:var(--bad-soft); color:var(--bad); }
+.nofit { background:var(--soft); color:var(--muted); }
+.selected { background:var(--accent-soft); color:var(--accent); }
+tr.failed td { color:var(--muted); }
+.floor { background:var(--soft); border-left:4px solid #8a8f96; padding:8px 12px; max-width:none; }
+figure { margin:.6em 0 1.4em; }
+svg.chart { display:block; max-width:100%; height:auto; border:1px solid var(--line); border-radius:4px; }
+figcaption { font-size:.88rem; color:var(--muted); margin-top:6px; max-width:78ch; }
+.formula { background:var(--soft); border-radius:4px; padding:10px 14px; margin:.6em 0;
+  font-family:ui-monospace,"SFMono-Regular",Menlo,Consolas,monospace; font-size:.9rem; }
+.formula div { margin:2px 0; }
+.warnings { background:var(--warn-soft); border:1px solid #e9c58f; border-left:5px solid var(--warn);
+  border-radius:4px; padding:10px 16px; }
+.warnings h2 { border:none; margin-top:.3em; color:var(--warn); }
+.warnings li { margin:.3em 0; }
+.cautions { border-top:3px solid var(--line); margin-top:2.4em; }
+.cautions li { margin:.4em 0; max-width:80ch; }
+@media print {
+  html { font-size:10.5pt; }
+  main { max-width:none; padding:0; }
+  nav.toc { display:none; }
+  h2 { break-after:avoid; }
+  h3 { break-after:avoid; }
+  figure, tr, .warnings { break-inside:avoid; }
+  svg.chart { border:none; }
+  tbody tr:nth-child(even) td { background:none; }
+}
+"#;
+
+/// The whole report page. Pure: the same outcome gives the same bytes.
+pub fn html(outcome: &StudyOutcome) -> String {
+    let doc = &outcome.document;
+    let mut out = String::with_capacity(64 * 1024);
+    let title = if doc.study.title.trim().is_empty() {
+        doc.study.name.as_str()
+    } else {
+        doc.study.title.as_str()
+    };
+    let _ = write!(
+        out,
+        "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n\
+         <meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n\
+         <title>{} — simulation budget</title>\n<style>{CSS}</style>\n</head>\n<body>\n<main>\n",
+        escape(title)
+    );
+    header(&mut out, doc, title);
+    answer(&mut out, doc);
+    learning_curves(&mut out, doc);
+    fits(&mut out, doc);
+    measured_points(&mut out, doc);
+    assumptions(&mut out, doc);
+    warnings(&mut out, doc);
+    provenance(&mut out, doc);
+    cautions(&mut out, doc);
+    out.push_str("</main>\n</body>\n</html>\n");
+    out
+}
+
+/// "simulated two-scale-lorenz96 (F = 20, h = 1)" or "file data/run.npy".
+fn data_source(doc: &PlanDocument) -> String {
+    let d = &doc.data;
+    match &d.system {
+        Some(system) => {
+            let params: Vec<String> = d
+                .parameters
+                .iter()
+                .map(|(k, v)| format!("{} = {}", escape(k), number(*v)))
+                .collect();
+            let params = if params.is_empty() {
+                String::new()
+            } else {
+                format!(" ({})", params.join(", "))
+            };
+            format!("simulated <strong>{}</strong>{params}", escape(system))
+        }
+        None => format!("file <code>{}</code>", escape(&d.source)),
+    }
+}
+
+fn confidence(doc: &PlanDocument) -> String {
+    percent(doc.study.confidence)
+}
+
+fn header(out: &mut String, doc: &PlanDocument, title: &str) {
+    let d = &doc.data;
+    let _ = write!(
+        out,
+        "<header>\n<p class=\"kicker\">closure-budget · simulation budget report</p>\n\
+         <h1>{}</h1>\n",
+        escape(title)
+    );
+    if !doc.study.description.trim().is_empty() {
+        let _ = writeln!(
+            out,
+            "<p class=\"lede\">{}</p>",
+            escape(&doc.study.description)
+        );
+    }
+    let _ = write!(
+        out,
+        "<p>This report estimates how much high-fidelity training data a machine-learned model \
+         needs to reach a target forecast skill, from learning curves measured on pilot data, \
+         and what producing that data would cost.</p>\n\
+         <p class=\"muted\">Pilot data: {} — {} samples of {} variable{}, one every {} model time \
+         units.</p>\n",
+        data_source(doc),
+        thousands(d.samples as f64),
+        d.variables.len(),
+        if d.variables.len() == 1 { "" } else { "s" },
+        number(d.sample_interval),
+    );
+    out.push_str(
+        "<nav class=\"toc\"><a href=\"#answer\">Answer</a><a href=\"#curves\">Learning curves</a>\
+         <a href=\"#fits\">Fits</a><a href=\"#points\">Measured points</a>\
+         <a href=\"#assumptions\">Budget assumptions</a>",
+    );
+    if !doc.warnings.is_empty() {
+        out.push_str("<a href=\"#warnings\">Warnings</a>");
+    }
+    out.push_str(
+        "<a href=\"#provenance\">Provenance</a><a href=\"#cautions\">Cautions</a></nav>\n\
+         </header>\n",
+    );
+}
+
+/// "18,100–35,000", "18,100–unbounded", "up to 35,000" or "unbounded".
+fn interval(lo: Option<f64>, hi: Option<f64>, f: impl Fn(f64) -> String) -> String {
+    match (lo, hi) {
+        (Some(l), Some(h)) => format!("{}–{}", f(l), f(h)),
+        (Some(l), None) => format!("{}–unbounded", f(l)),
+        (None, Some(h)) => format!("up to {}", f(h)),
+        (None, None) => "unbounded".into(),
+    }
+}
+
+/// A budget figure with its interval, or "—" when there is no budget.
+fn budget_cell(
+    doc: &PlanDocument,
+    e: &TargetEstimate,
+    field: fn(&Budget) -> f64,
+    f: fn(f64) -> String,
+    unit: &str,
+) -> String {
+    let Some(b) = &e.budget else {
+        return "—".into();
+    };
+    let lo = e.budget_low.as_ref().map(field);
+    let hi = e.budget_high.as_ref().map(field);
+    let bounded_hi = hi.filter(|_| e.samples_interval[1].is_some());
+    format!(
+        "<span class=\"big\">{}</span>{unit}<span class=\"sub\">{} interval {}</span>",
+        f(field(b)),
+        confidence(doc),
+        interval(lo, bounded_hi, f)
+    )
+}
+
+fn target_cell(doc: &PlanDocument, target: f64) -> String {
+    let mut s = format!("<span class=\"big\">{}</span> time units", sig3(target));
+    if let Some(l) = doc.skill.lyapunov_exponent {
+        let _ = write!(
+            s,
+            "<span class=\"sub\">{} Lyapunov times</span>",
+            sig3(target * l)
+        );
+    }
+    s
+}
+
+fn status_cell(e: &TargetEstimate) -> String {
+    match e.status {
+        EstimateStatus::Reached => "<span class=\"badge reached\">reached</span>".into(),
+        EstimateStatus::AlreadyMet => "<span class=\"badge met\">already met</span>\
+             <span class=\"sub\">at the smallest measured size</span>"
+            .into(),
+        EstimateStatus::Unreachable => format!(
+            "<span class=\"badge unreachable\">unreachable</span><span class=\"sub\">{}</span>",
+            match e.asymptote {
+                Some(a) => format!("fitted asymptote {} time units", sig3(a)),
+                None => "the fitted curve does not rise to it".into(),
+            }
+        ),
+        EstimateStatus::NoFit => "<span class=\"badge nofit\">no fit</span>".into(),
+    }
+}
+
+fn samples_cell(doc: &PlanDocument, e: &TargetEstimate) -> String {
+    let Some(n) = e.samples.filter(|v| v.is_finite()) else {
+        return "—".into();
+    };
+    let [lo, hi] = e.samples_interval;
+    let mut s = format!(
+        "<span class=\"big\">{}</span> samples<span class=\"sub\">{} interval {}</span>",
+        samples(n),
+        confidence(doc),
+        interval(lo, hi, samples)
+    );
+    if let Some(x) = e.extrapolation.filter(|x| *x > 1.0) {
+        let _ = write!(
+            s,
+            "<span class=\"sub\">{}× the largest size measured</span>",
+            sig3(x)
+        );
+    }
+    if e.reached_share < 1.0 && e.status == EstimateStatus::Reached {
+        let _ = write!(
+            s,
+            "<span class=\"sub\">{} of bootstrap curves reach it</span>",
+            percent(e.reached_share)
+        );
+    }
+    s
+}
+
+fn answer(out: &mut String, doc: &PlanDocument) {
+    let p = &doc.persistence;
+    let _ = write!(
+        out,
+        "<section id=\"answer\">\n<h2>The answer</h2>\n\
+         <p>Training samples needed for each target skill (mean valid prediction time over {} \
+         test initial conditions), read from each model's selected learning-curve family, with \
+         {} bootstrap intervals, and what simulating and storing those samples costs.</p>\n\
+         <p class=\"floor\">Floor: persistence (repeating the initial state) stays valid for \
+         <strong>{} time units</strong> on average (10–90% of initial conditions: {}–{}); a \
+         useful model must beat it.</p>\n",
+        thousands(doc.data.test_initial_conditions as f64),
+        confidence(doc),
+        sig3(p.mean),
+        sig3(p.q10),
+        sig3(p.q90),
+    );
+    for m in &doc.models {
+        let _ = write!(
+            out,
+            "<h3>{} <span class=\"muted\">({})</span></h3>\n<p class=\"muted\">Selected family: {}</p>\n",
+            escape(&m.name),
+            escape(&m.kind),
+            m.selected
+                .map(|f| format!("{} ({})", f.label(), escape(f.formula())))
+                .unwrap_or_else(|| "none (no family could be fitted)".into())
+        );
+        if m.estimates.is_empty() {
+            out.push_str("<p>No targets were estimated for this model.</p>\n");
+            continue;
+        }
+        out.push_str(
+            "<table class=\"answer\">\n<thead><tr><th>Target valid time</th><th>Status</th>\
+             <th class=\"num\">Samples n*</th><th class=\"num\">Simulated time</th>\
+             <th class=\"num\">Core-hours</th><th class=\"num\">Storage</th><th>Note</th>\
+             </tr></thead>\n<tbody>\n",
+        );
+        for e in &m.estimates {
+            let _ = writeln!(
+                out,
+                "<tr><td>{}</td><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
+                 <td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td></tr>",
+                target_cell(doc, e.target),
+                status_cell(e),
+                samples_cell(doc, e),
+                budget_cell(doc, e, |b| b.simulated_time, sig3, " time units"),
+                budget_cell(doc, e, |b| b.core_hours, sig3, ""),
+                budget_cell(doc, e, |b| b.storage_bytes, bytes, ""),
+                escape(&e.note),
+            );
+        }
+        out.push_str("</tbody>\n</table>\n");
+    }
+    out.push_str("</section>\n");
+}
+
+fn learning_curves(out: &mut String, doc: &PlanDocument) {
+    out.push_str(
+        "<section id=\"curves\">\n<h2>Learning curves</h2>\n\
+         <p>Mean valid prediction time against the number of training samples (log scale). \
+         Each fitted family is drawn beyond the measured sizes up to 1.5 times the largest \
+         size or estimate; the bold line is the selected family.</p>\n",
+    );
+    for m in &doc.models {
+        let _ = write!(
+            out,
+            "<h3>{}</h3>\n<figure>\n{}\n<figcaption>",
+            escape(&m.name),
+            svg::learning_curve(doc, m)
+        );
+        let _ = write!(
+            out,
+            "Large markers: mean over {} replicates with ± one standard error; small markers: \
+             each replicate's mean over the test initial conditions; light bars: 10–90% of \
+             single forecasts.",
+            doc.study.replicates
+        );
+        if m.points.iter().any(|p| p.censored_share > 0.0) {
+            out.push_str(
+                " Hollow markers: some forecasts were still valid at the maximum lead, so \
+                 those means are lower bounds.",
+            );
+        }
+        if let Some((_, hi, true)) = svg::x_range(m) {
+            let _ = write!(
+                out,
+                " Some estimates lie beyond the drawn range, which stops at {} samples \
+                 (1,000 times the largest measured size).",
+                samples(hi)
+            );
+        }
+        out.push_str("</figcaption>\n</figure>\n");
+    }
+    out.push_str("</section>\n");
+}
+
+fn fits(out: &mut String, doc: &PlanDocument) {
+    out.push_str(
+        "<section id=\"fits\">\n<h2>Fits</h2>\n<p>Weighted least-squares fits of each family to \
+         the measured means (weights from the standard errors). The family with the lowest AICc \
+         is selected; ΔAICc above about 2 is a meaningful preference.</p>\n",
+    );
+    for m in &doc.models {
+        let _ = writeln!(out, "<h3>{}</h3>", escape(&m.name));
+        if m.fits.is_empty() {
+            out.push_str("<p>No families were fitted.</p>\n");
+            continue;
+        }
+        let best = m
+            .fits
+            .iter()
+            .filter_map(|f| f.aicc)
+            .filter(|a| a.is_finite())
+            .fold(f64::INFINITY, f64::min);
+        out.push_str(
+            "<table>\n<thead><tr><th>Family</th><th>Formula</th><th>Parameters ± std. error</th>\
+             <th class=\"num\">Weighted RSS</th><th class=\"num\">AICc</th>\
+             <th class=\"num\">ΔAICc</th><th class=\"num\">Asymptote</th><th></th></tr></thead>\n\
+             <tbody>\n",
+        );
+        for f in &m.fits {
+            if let Some(err) = &f.error {
+                let _ = writeln!(
+                    out,
+                    "<tr class=\"failed\"><td>{}</td><td><code>{}</code></td>\
+                     <td colspan=\"6\">not fitted: {}</td></tr>",
+                    f.family.label(),
+                    escape(&f.formula),
+                    escape(err)
+                );
+                continue;
+            }
+            let params: Vec<String> = f
+                .family
+                .param_names()
+                .iter()
+                .map(|k| {
+                    let v = f.params.get(*k).copied();
+                    let se = f.std_errors.as_ref().and_then(|s| s.get(*k)).copied();
+                    match se {
+                        Some(se) => format!("{k} = {} ± {}", opt(v, number), number(se)),
+                        None => format!("{k} = {}", opt(v, number)),
+                    }
+                })
+                .collect();
+            let selected = m.selected == Some(f.family);
+            let _ = writeln!(
+                out,
+                "<tr><td>{}</td><td><code>{}</code></td><td class=\"mono\">{}</td>\
+                 <td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
+                 <td class=\"num\">{}</td><td>{}</td></tr>",
+                f.family.label(),
+                escape(&f.formula),
+                params.join("<br>"),
+                opt(f.weighted_rss, number),
+                opt(f.aicc, number),
+                match f.aicc {
+                    Some(a) if a.is_finite() && best.is_finite() => number(a - best),
+                    _ => "—".into(),
+                },
+                match f.asymptote {
+                    Some(a) => sig3(a),
+                    None => "none (unbounded)".into(),
+                },
+                if selected {
+                    "<span class=\"badge selected\">selected</span>"
+                } else {
+                    ""
+                }
+            );
+        }
+        out.push_str("</tbody>\n</table>\n");
+    }
+    out.push_str("</section>\n");
+}
+
+fn point_row(p: &PointResult) -> String {
+    let reps: Vec<String> = p.replicate_means.iter().map(|v| sig3(*v)).collect();
+    format!(
+        "<tr><td class=\"num\">{}</td><td class=\"num\">{} ± {}</td><td class=\"mono\">{}</td>\
+         <td class=\"num\">{}–{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
+         <td class=\"num\">{}</td><td class=\"num\">{}</td></tr>\n",
+        thousands(p.n as f64),
+        sig3(p.mean),
+        sig3(p.standard_error),
+        reps.join(", "),
+        sig3(p.q10),
+        sig3(p.q90),
+        percent(p.censored_share),
+        percent(p.blow_up_share),
+        opt(p.ridge_penalty, number),
+        opt(p.training_rmse, number),
+    )
+}
+
+fn measured_points(out: &mut String, doc: &PlanDocument) {
+    out.push_str(
+        "<section id=\"points\">\n<h2>Measured points</h2>\n<p>Online skill (valid prediction \
+         time, model time units) beside offline fit quality (one-step training RMSE in \
+         standardised units). The two can disagree: a small training error does not guarantee \
+         a stable free-running forecast.</p>\n",
+    );
+    for m in &doc.models {
+        let _ = write!(
+            out,
+            "<h3>{}</h3>\n<table>\n<thead><tr><th class=\"num\">n</th>\
+             <th class=\"num\">Mean ± s.e.</th><th>Replicate means</th>\
+             <th class=\"num\">10–90%</th><th class=\"num\">Censored</th>\
+             <th class=\"num\">Blow-ups</th><th class=\"num\">Ridge penalty</th>\
+             <th class=\"num\">Training RMSE</th></tr></thead>\n<tbody>\n",
+            escape(&m.name)
+        );
+        for p in &m.points {
+            out.push_str(&point_row(p));
+        }
+        out.push_str("</tbody>\n</table>\n");
+    }
+    out.push_str("</section>\n");
+}
+
+fn assumptions(out: &mut String, doc: &PlanDocument) {
+    let c = &doc.cost;
+    let _ = write!(
+        out,
+        "<section id=\"assumptions\">\n<h2>Budget assumptions</h2>\n\
+         <table class=\"kv\">\n<tbody>\n\
+         <tr><th>Solver cost</th><td>{} core-hours per model time unit of the high-fidelity \
+         solver (your measurement)</td></tr>\n\
+         <tr><th>Overhead factor</th><td>{} — multiplies core-hours for I/O, tests and failed \
+         runs</td></tr>\n\
+         <tr><th>Runs</th><td>{} independent run{} share the samples</td></tr>\n\
+         <tr><th>Spin-up per run</th><td>{} model time units, simulated and discarded by every \
+         run</td></tr>\n\
+         <tr><th>Sample interval</th><td>{} model time units between saved samples</td></tr>\n\
+         <tr><th>Values per sample</th><td>{} values stored per saved snapshot</td></tr>\n\
+         <tr><th>Bytes per value</th><td>{} ({} precision)</td></tr>\n\
+         </tbody>\n</table>\n\
+         <div class=\"formula\"><div>simulated time = samples × sample interval + runs × \
+         spin-up per run</div><div>core-hours = simulated time × core-hours per time unit × \
+         overhead factor</div><div>storage = samples × values per sample × bytes per value\
+         </div></div>\n<p class=\"muted\">Storage uses decimal units (1 GB = 10⁹ bytes, 1 TB = \
+         10¹² bytes). Cost intervals are the bootstrap interval of n* carried through these \
+         formulas, which increase with n.</p>\n</section>\n",
+        number(c.core_hours_per_time_unit),
+        number(c.overhead_factor),
+        c.runs,
+        if c.runs == 1 { "" } else { "s" },
+        number(c.spin_up_per_run),
+        number(c.sample_interval),
+        thousands(c.values_per_sample as f64),
+        c.bytes_per_value,
+        if c.bytes_per_value == 4 {
+            "single"
+        } else {
+            "double"
+        },
+    );
+}
+
+fn warnings(out: &mut String, doc: &PlanDocument) {
+    if doc.warnings.is_empty() {
+        return;
+    }
+    out.push_str("<section id=\"warnings\" class=\"warnings\">\n<h2>⚠ Warnings</h2>\n<ul>\n");
+    for w in &doc.warnings {
+        let _ = writeln!(out, "<li>{}</li>", escape(w));
+    }
+    out.push_str("</ul>\n</section>\n");
+}
+
+fn kv(out: &mut String, key: &str, value: &str) {
+    let _ = writeln!(out, "<tr><th>{key}</th><td>{value}</td></tr>");
+}
+
+fn list(values: &[f64]) -> String {
+    values
+        .iter()
+        .map(|v| number(*v))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+fn provenance(out: &mut String, doc: &PlanDocument) {
+    let (s, d, k, t) = (&doc.study, &doc.data, &doc.skill, &doc.timings);
+    out.push_str(
+        "<section id=\"provenance\">\n<h2>Provenance</h2>\n<table class=\"kv\">\n<tbody>\n",
+    );
+    kv(
+        out,
+        "Tool",
+        &format!("closure-budget {}", escape(&doc.tool_version)),
+    );
+    kv(
+        out,
+        "Results schema",
+        &format!("<code>{}</code>", escape(&doc.schema)),
+    );
+    kv(
+        out,
+        "Study",
+        &format!("{} — <code>{}</code>", escape(&s.name), escape(&s.file)),
+    );
+    kv(
+        out,
+        "Study file SHA-256",
+        &format!("<code class=\"hash\">{}</code>", escape(&s.file_sha256)),
+    );
+    kv(out, "Data source", &data_source(doc));
+    if let Some(dt) = d.dt {
+        kv(
+            out,
+            "Integration step",
+            &format!("{} model time units", number(dt)),
+        );
+    }
+    kv(
+        out,
+        "Samples",
+        &format!(
+            "{} samples every {} model time units; variables: {}",
+            thousands(d.samples as f64),
+            number(d.sample_interval),
+            escape(&d.variables.join(", "))
+        ),
+    );
+    kv(
+        out,
+        "Data content SHA-256",
+        &format!("<code class=\"hash\">{}</code>", escape(&d.content_sha256)),
+    );
+    let mut seed = format!("study {}", s.seed);
+    if let Some(ds) = d.seed {
+        let _ = write!(seed, "; data {ds}");
+    }
+    kv(out, "Seeds", &seed);
+    kv(
+        out,
+        "Training pool",
+        &format!("{} samples", thousands(d.training_pool as f64)),
+    );
+    kv(
+        out,
+        "Test initial conditions",
+        &format!(
+            "{} initial conditions at samples {}–{}",
+            thousands(d.test_initial_conditions as f64),
+            thousands(d.test_range[0] as f64),
+            thousands(d.test_range[1] as f64)
+        ),
+    );
+    kv(out, "Skill", &escape(&k.definition));
+    let mut skill = format!(
+        "threshold {}; warm-up {} and maximum lead {} model time units",
+        number(k.threshold),
+        number(k.warm_up),
+        number(k.max_lead)
+    );
+    if let Some(l) = k.lyapunov_exponent {
+        let _ = write!(skill, "; largest Lyapunov exponent {}", number(l));
+    }
+    kv(out, "Skill settings", &skill);
+    kv(
+        out,
+        "Sizes",
+        &s.sizes
+            .iter()
+            .map(|n| thousands(*n as f64))
+            .collect::<Vec<_>>()
+            .join(", "),
+    );
+    kv(
+        out,
+        "Targets",
+        &format!("{} model time units", list(&s.targets)),
+    );
+    kv(out, "Replicates", &s.replicates.to_string());
+    kv(
+        out,
+        "Bootstrap",
+        &format!(
+            "{} draws, {} confidence",
+            thousands(s.bootstrap_draws as f64),
+            confidence(doc)
+        ),
+    );
+    for m in &doc.models {
+        kv(
+            out,
+            &format!("Model {}", escape(&m.name)),
+            &format!(
+                "{} <code class=\"hash\">{}</code>",
+                escape(&m.kind),
+                escape(&m.settings.to_string())
+            ),
+        );
+    }
+    kv(
+        out,
+        "Stage timings",
+        &format!(
+            "data {} s, training {} s, forecasting {} s, fitting {} s, report {} s; total {} s \
+             on {} thread{}",
+            sig3(t.data),
+            sig3(t.training),
+            sig3(t.forecasting),
+            sig3(t.fitting),
+            sig3(t.report),
+            sig3(t.total),
+            t.threads,
+            if t.threads == 1 { "" } else { "s" }
+        ),
+    );
+    out.push_str("</tbody>\n</table>\n</section>\n");
+}
+
+fn cautions(out: &mut String, doc: &PlanDocument) {
+    let _ = write!(
+        out,
+        "<section id=\"cautions\" class=\"cautions\">\n<h2>Cautions</h2>\n<ul>\n\
+         <li>Every figure above is a statistical estimate from a small pilot study. Its \
+         uncertainty is the {} interval shown beside it, and the true requirement can fall \
+         outside it.</li>\n\
+         <li>The estimates assume that the pilot data represent the regime of the planned \
+         campaign (same physics, parameters, resolution and sampling), and that the learning \
+         curve keeps its fitted shape beyond the largest measured size. The further an \
+         estimate extrapolates, the less it can be trusted.</li>\n\
+         <li>Before committing an allocation, check the estimate with a pilot run at or near the \
+         predicted size.</li>\n\
+         <li>These numbers support an allocation request; they do not replace the allocation \
+         program's own rules or review.</li>\n\
+         <li>A model used in engineering design must follow licensed engineering practice and be \
+         validated independently; forecast skill on this benchmark is not such a \
+         validation.</li>\n</ul>\n</section>\n",
+        confidence(doc)
+    );
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn intervals_name_unbounded_sides() {
+        assert_eq!(interval(Some(1.0), Some(2.0), sig3), "1.00–2.00");
+        assert_eq!(interval(Some(18100.0), None, samples), "18,100–unbounded");
+        assert_eq!(interval(None, Some(5.0), sig3), "up to 5.00");
+        assert_eq!(interval(None, None, sig3), "unbounded");
+    }
+}

@@ -1,0 +1,490 @@
+//! Report writers: turn a finished study into `report.html`, `plan.json` and `skill.csv`.
+//!
+//! Each format has a pure exporter from results to bytes ([`html`], [`plan_json`],
+//! [`skill_csv`]); [`write_report`] writes them, each atomically. Output is deterministic:
+//! fixed number formatting, no timestamps; the only run-dependent values are the stage
+//! `timings`.
+//!
+//! # `report.html`
+//! One self-contained page: inline CSS and inline SVG charts, no scripts, no network
+//! references, printable. Sections: the answer (samples and cost per model and target), learning
+//! curves, fits, measured points, budget assumptions, warnings, provenance, cautions.
+//!
+//! # `plan.json`
+//! The [`PlanDocument`] contract, pretty-printed, with a trailing newline.
+//!
+//! # `skill.csv`
+//! Every skill measurement, one row per (model, replicate, subset size, test initial
+//! condition), plus one row per initial condition for the persistence floor. Sorted by model,
+//! n, replicate and initial condition. Columns:
+//!
+//! | column | meaning |
+//! |---|---|
+//! | `model` | model name; `persistence` for the floor (x̂(t) = x(0)) |
+//! | `replicate` | replicate index (empty for persistence) |
+//! | `n` | training subset size in samples (empty for persistence) |
+//! | `initial_condition` | index 0..M−1 of the test initial condition, in split order |
+//! | `valid_time` | valid prediction time, model time units |
+//! | `valid_lyapunov_times` | `valid_time` × the largest Lyapunov exponent; empty when the study sets none |
+//! | `censored` | `true` when the forecast was still valid at the maximum lead (the valid time is a lower bound) |
+//! | `blew_up` | `true` when the forecast turned non-finite or left the blow-up bound |
+//! | `ridge_penalty` | ridge penalty used by this fit (empty when the model has no ridge readout, and for persistence) |
+//! | `training_rmse` | one-step training RMSE in standardised units, offline fit quality (empty when unknown) |
+//!
+//! Floats are written as the shortest decimal that reads back to the same value.
+
+mod csv;
+mod format;
+mod html;
+mod svg;
+
+use crate::atomic::write_atomic;
+use crate::study::results::PlanDocument;
+use crate::study::runner::StudyOutcome;
+use std::path::{Path, PathBuf};
+
+pub use self::csv::HEADER as SKILL_CSV_HEADER;
+
+/// File names written by [`write_report`].
+pub const REPORT_HTML: &str = "report.html";
+pub const PLAN_JSON: &str = "plan.json";
+pub const SKILL_CSV: &str = "skill.csv";
+
+/// Errors from writing the report files.
+#[derive(Debug, thiserror::Error)]
+pub enum ReportError {
+    #[error("cannot write {path}: {source}")]
+    Write {
+        path: PathBuf,
+        source: std::io::Error,
+    },
+}
+
+/// Writes report.html, plan.json and skill.csv into `out_dir` (created if missing; each file
+/// atomically). Returns the paths written, in that order.
+pub fn write_report(outcome: &StudyOutcome, out_dir: &Path) -> Result<Vec<PathBuf>, ReportError> {
+    let files: [(&str, Vec<u8>); 3] = [
+        (REPORT_HTML, html(outcome).into_bytes()),
+        (PLAN_JSON, plan_json(&outcome.document)),
+        (SKILL_CSV, skill_csv(outcome)),
+    ];
+    let mut written = Vec::with_capacity(files.len());
+    for (name, bytes) in files {
+        let path = out_dir.join(name);
+        write_atomic(&path, &bytes).map_err(|source| ReportError::Write {
+            path: path.clone(),
+            source,
+        })?;
+        written.push(path);
+    }
+    Ok(written)
+}
+
+/// The HTML report page. Pure.
+pub fn html(outcome: &StudyOutcome) -> String {
+    html::html(outcome)
+}
+
+/// `plan.json`: the document as pretty-printed JSON with a trailing newline. Pure.
+pub fn plan_json(doc: &PlanDocument) -> Vec<u8> {
+    let mut bytes = serde_json::to_vec_pretty(doc).expect("the plan document serialises");
+    bytes.push(b'\n');
+    bytes
+}
+
+/// `skill.csv` (columns in the module docs). Pure.
+pub fn skill_csv(outcome: &StudyOutcome) -> Vec<u8> {
+    csv::skill_csv(outcome)
+}
+
+#[cfg(test)]
+pub(crate) mod tests {
+    use super::*;
+    use crate::cost::CostModel;
+    use crate::curves::Family;
+    use crate::models::FitSummary;
+    use crate::skill::{IcSkill, SkillSummary};
+    use crate::study::records::SkillRecord;
+    use crate::study::results::*;
+    use std::collections::BTreeMap;
+
+    fn summary(mean: f64) -> SkillSummary {
+        SkillSummary {
+            mean,
+            median: mean,
+            q10: mean * 0.7,
+            q90: mean * 1.3,
+            censored_share: 0.0,
+            blow_up_share: 0.0,
+        }
+    }
+
+    fn params(pairs: &[(&str, f64)]) -> BTreeMap<String, f64> {
+        pairs.iter().map(|(k, v)| (k.to_string(), *v)).collect()
+    }
+
+    /// Two models, three sizes, two replicates, four initial conditions; targets 2.9 (reached
+    /// by the first model) and 5.0 (above its asymptote); one warning; hostile user text.
+    pub(crate) fn fixture() -> StudyOutcome {
+        let sizes = [1000usize, 4000, 16000];
+        let cost = CostModel {
+            core_hours_per_time_unit: 12.5,
+            overhead_factor: 1.2,
+            runs: 4,
+            spin_up_per_run: 10.0,
+            bytes_per_value: 8,
+            values_per_sample: 264,
+            sample_interval: 0.01,
+        };
+        let mut records = Vec::new();
+        let mut models = Vec::new();
+        for (mi, name) in ["esn-500", "esn <b>tiny</b>"].iter().enumerate() {
+            let scale = if mi == 0 { 1.0 } else { 0.5 };
+            let mut points = Vec::new();
+            for (si, &n) in sizes.iter().enumerate() {
+                let base = scale * (2.4 + 0.22 * si as f64);
+                let mut rep_means = Vec::new();
+                for rep in 0..2 {
+                    let ics: Vec<IcSkill> = (0..4)
+                        .map(|ic| IcSkill {
+                            valid_time: base + 0.1 * ic as f64 - 0.15 + 0.05 * rep as f64,
+                            censored: mi == 0 && si == 2 && ic == 3,
+                            blew_up: mi == 1 && si == 0 && ic == 0,
+                        })
+                        .collect();
+                    let mean = ics.iter().map(|s| s.valid_time).sum::<f64>() / 4.0;
+                    rep_means.push(mean);
+                    records.push(SkillRecord {
+                        model: name.to_string(),
+                        replicate: rep,
+                        n,
+                        seed: 7 + rep as u64,
+                        window_start: 0,
+                        fit: FitSummary {
+                            n,
+                            training_pairs: n - 1,
+                            ridge_penalty: Some(1e-6 * n as f64),
+                            training_rmse: Some(0.05 / (1.0 + si as f64)),
+                        },
+                        summary: summary(mean),
+                        initial_conditions: ics,
+                    });
+                }
+                points.push(PointResult {
+                    n,
+                    mean: rep_means.iter().sum::<f64>() / 2.0,
+                    standard_error: 0.05,
+                    replicate_means: rep_means,
+                    q10: base - 0.1,
+                    q90: base + 0.2,
+                    censored_share: if mi == 0 && si == 2 { 0.125 } else { 0.0 },
+                    blow_up_share: if mi == 1 && si == 0 { 0.125 } else { 0.0 },
+                    ridge_penalty: Some(1e-6 * n as f64),
+                    training_rmse: Some(0.05 / (1.0 + si as f64)),
+                });
+            }
+            let failed = FitResult {
+                family: Family::ExponentialSaturation,
+                formula: Family::ExponentialSaturation.formula().into(),
+                params: BTreeMap::new(),
+                std_errors: None,
+                weighted_rss: None,
+                aicc: None,
+                asymptote: None,
+                error: Some("did not converge after 200 iterations (n0 < 0)".into()),
+            };
+            let (fits, selected, estimates) = if mi == 0 {
+                let fits = vec![
+                    FitResult {
+                        family: Family::PowerLaw,
+                        formula: Family::PowerLaw.formula().into(),
+                        params: params(&[("a", 1.2), ("b", 0.09)]),
+                        std_errors: Some(params(&[("a", 0.1), ("b", 0.01)])),
+                        weighted_rss: Some(1.9),
+                        aicc: Some(14.2),
+                        asymptote: None,
+                        error: None,
+                    },
+                    FitResult {
+                        family: Family::SaturatingPowerLaw,
+                        formula: Family::SaturatingPowerLaw.formula().into(),
+                        params: params(&[("c", 3.0), ("a", 20.0), ("b", 0.5)]),
+                        std_errors: Some(params(&[("c", 0.08), ("a", 3.0), ("b", 0.05)])),
+                        weighted_rss: Some(0.4),
+                        aicc: Some(11.0),
+                        asymptote: Some(3.0),
+                        error: None,
+                    },
+                    failed,
+                ];
+                let estimates = vec![
+                    TargetEstimate {
+                        target: 2.9,
+                        status: EstimateStatus::Reached,
+                        samples: Some(40000.0),
+                        samples_interval: [Some(30000.0), None],
+                        reached_share: 0.93,
+                        budget: Some(cost.budget(40000.0)),
+                        budget_low: Some(cost.budget(30000.0)),
+                        budget_high: None,
+                        asymptote: Some(3.0),
+                        extrapolation: Some(2.5),
+                        note: "extrapolates 2.5× beyond the largest size".into(),
+                    },
+                    TargetEstimate {
+                        target: 5.0,
+                        status: EstimateStatus::Unreachable,
+                        samples: None,
+                        samples_interval: [None, None],
+                        reached_share: 0.0,
+                        budget: None,
+                        budget_low: None,
+                        budget_high: None,
+                        asymptote: Some(3.0),
+                        extrapolation: None,
+                        note: "the curve saturates at 3.0 < 5.0".into(),
+                    },
+                ];
+                (fits, Some(Family::SaturatingPowerLaw), estimates)
+            } else {
+                let estimates = [2.9, 5.0]
+                    .iter()
+                    .map(|&target| TargetEstimate {
+                        target,
+                        status: EstimateStatus::NoFit,
+                        samples: None,
+                        samples_interval: [None, None],
+                        reached_share: 0.0,
+                        budget: None,
+                        budget_low: None,
+                        budget_high: None,
+                        asymptote: None,
+                        extrapolation: None,
+                        note: "no family could be fitted".into(),
+                    })
+                    .collect();
+                (vec![failed], None, estimates)
+            };
+            models.push(ModelResult {
+                name: name.to_string(),
+                kind: "esn".into(),
+                settings: serde_json::json!({"reservoir": 500, "spectral-radius": 0.9}),
+                points,
+                fits,
+                selected,
+                estimates,
+            });
+        }
+        let persistence: Vec<IcSkill> = (0..4)
+            .map(|ic| IcSkill {
+                valid_time: 0.08 + 0.01 * ic as f64,
+                censored: false,
+                blew_up: false,
+            })
+            .collect();
+        let document = PlanDocument {
+            schema: PLAN_SCHEMA.into(),
+            tool_version: "0.1.0".into(),
+            study: StudyInfo {
+                name: "fixture".into(),
+                title: "Pilot <script>alert(1)</script> & co".into(),
+                description: "Two-scale \"Lorenz-96\" closure at F = 20 <test>".into(),
+                file: "studies/fixture.toml".into(),
+                file_sha256: "ab".repeat(32),
+                seed: 42,
+                sizes: sizes.to_vec(),
+                replicates: 2,
+                targets: vec![2.9, 5.0],
+                confidence: 0.9,
+                bootstrap_draws: 200,
+            },
+            data: DataInfo {
+                source: "simulated".into(),
+                system: Some("two-scale-lorenz96".into()),
+                parameters: params(&[("F", 20.0), ("h", 1.0)]),
+                dt: Some(0.001),
+                sample_interval: 0.01,
+                samples: 30000,
+                variables: (0..8).map(|k| format!("X{k}")).collect(),
+                content_sha256: "cd".repeat(32),
+                training_pool: 20000,
+                test_initial_conditions: 4,
+                test_range: [21000, 28000],
+                seed: Some(3),
+                sigma: vec![3.5; 8],
+            },
+            skill: SkillInfo {
+                definition: "valid prediction time, threshold 0.5".into(),
+                threshold: 0.5,
+                warm_up: 0.5,
+                max_lead: 3.0,
+                lyapunov_exponent: Some(0.5),
+            },
+            persistence: crate::skill::summarise(&persistence),
+            models,
+            cost,
+            warnings: vec![
+                "esn-500: 12% of forecasts at n = 16000 were censored <raise max-lead>".into(),
+            ],
+            timings: Timings {
+                data: 1.0,
+                training: 2.0,
+                forecasting: 3.0,
+                fitting: 0.5,
+                report: 0.0,
+                total: 6.5,
+                threads: 2,
+            },
+        };
+        StudyOutcome {
+            document,
+            records,
+            persistence,
+        }
+    }
+
+    #[test]
+    fn answer_comes_before_the_learning_curves() {
+        let page = html(&fixture());
+        let answer = page.find("id=\"answer\"").expect("answer section");
+        let curves = page.find("id=\"curves\"").expect("curves section");
+        assert!(answer < curves);
+        let order = [
+            "id=\"answer\"",
+            "id=\"curves\"",
+            "id=\"fits\"",
+            "id=\"points\"",
+            "id=\"assumptions\"",
+            "id=\"warnings\"",
+            "id=\"provenance\"",
+            "id=\"cautions\"",
+        ];
+        let at: Vec<usize> = order.iter().map(|s| page.find(s).unwrap()).collect();
+        assert!(at.windows(2).all(|w| w[0] < w[1]), "sections in order");
+        assert!(page.contains("40,000</span> samples"));
+        assert!(page.contains("30,000–unbounded"));
+        assert!(page.contains("unreachable"));
+        assert!(page.contains("fitted asymptote 3.00"));
+    }
+
+    #[test]
+    fn user_text_is_escaped() {
+        let page = html(&fixture());
+        assert!(!page.contains("<script"));
+        assert!(!page.contains("<b>tiny"));
+        assert!(!page.contains("<test>"));
+        assert!(!page.contains("<raise"));
+        assert!(page.contains("Pilot &lt;script&gt;alert(1)&lt;/script&gt; &amp; co"));
+        assert!(page.contains("esn &lt;b&gt;tiny&lt;/b&gt;"));
+    }
+
+    #[test]
+    fn one_svg_per_model_and_no_network_references() {
+        let outcome = fixture();
+        let page = html(&outcome);
+        assert_eq!(page.matches("<svg").count(), outcome.document.models.len());
+        assert!(!page.contains("<?xml"));
+        let rest = page.replace("xmlns=\"http://www.w3.org/2000/svg\"", "");
+        assert!(!rest.contains("http://") && !rest.contains("https://"));
+        assert!(!page.contains("<script"));
+    }
+
+    #[test]
+    fn plan_json_round_trips() {
+        let outcome = fixture();
+        let bytes = plan_json(&outcome.document);
+        assert_eq!(bytes.last(), Some(&b'\n'));
+        let back: PlanDocument = serde_json::from_slice(&bytes).unwrap();
+        // serde_json without its `float_roundtrip` feature may parse a float 1 ulp off, so
+        // floats are compared to 1e-15 relative; everything else must match exactly.
+        let (a, b) = (
+            serde_json::to_value(&back).unwrap(),
+            serde_json::to_value(&outcome.document).unwrap(),
+        );
+        assert!(values_close(&a, &b), "plan.json does not round-trip");
+    }
+
+    fn values_close(a: &serde_json::Value, b: &serde_json::Value) -> bool {
+        use serde_json::Value;
+        match (a, b) {
+            (Value::Number(x), Value::Number(y)) if x.is_f64() || y.is_f64() => {
+                let (x, y) = (x.as_f64().unwrap(), y.as_f64().unwrap());
+                (x - y).abs() <= 1e-15 * x.abs().max(y.abs())
+            }
+            (Value::Array(x), Value::Array(y)) => {
+                x.len() == y.len() && x.iter().zip(y).all(|(u, v)| values_close(u, v))
+            }
+            (Value::Object(x), Value::Object(y)) => {
+                x.len() == y.len()
+                    && x.iter()
+                        .zip(y)
+                        .all(|((k, u), (l, v))| k == l && values_close(u, v))
+            }
+            _ => a == b,
+        }
+    }
+
+    #[test]
+    fn write_report_writes_three_files_and_no_temporaries() {
+        let outcome = fixture();
+        let dir = tempfile::tempdir().unwrap();
+        let out = dir.path().join("report");
+        let written = write_report(&outcome, &out).unwrap();
+        assert_eq!(
+            written,
+            [REPORT_HTML, PLAN_JSON, SKILL_CSV]
+                .map(|n| out.join(n))
+                .to_vec()
+        );
+        let mut names: Vec<String> = std::fs::read_dir(&out)
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+            .collect();
+        names.sort();
+        assert_eq!(names, ["plan.json", "report.html", "skill.csv"]);
+        assert_eq!(
+            std::fs::read(out.join(SKILL_CSV)).unwrap(),
+            skill_csv(&outcome)
+        );
+    }
+
+    #[test]
+    fn write_errors_name_the_path() {
+        let dir = tempfile::tempdir().unwrap();
+        let blocker = dir.path().join("file");
+        std::fs::write(&blocker, b"x").unwrap();
+        let err = write_report(&fixture(), &blocker).unwrap_err();
+        assert!(err.to_string().contains("report.html"), "{err}");
+    }
+
+    /// Renders the fixture, and the quick demo's results when they exist, for a look in a
+    /// browser: `cargo test --release --lib report::tests::render -- --ignored`, then open
+    /// `target/report-preview/*/report.html`.
+    #[test]
+    #[ignore = "writes preview files for manual inspection"]
+    fn render_previews() {
+        let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+        let preview = root.join("target").join("report-preview");
+        write_report(&fixture(), &preview.join("fixture")).unwrap();
+        let demo = root.join("reports").join("demo-quick");
+        if let Ok(bytes) = std::fs::read(demo.join(PLAN_JSON)) {
+            let document: PlanDocument = serde_json::from_slice(&bytes).unwrap();
+            let records = crate::study::records::read_records(&demo.join("records.jsonl"))
+                .unwrap_or_default();
+            let outcome = StudyOutcome {
+                document,
+                records,
+                persistence: vec![],
+            };
+            write_report(&outcome, &preview.join("demo-quick")).unwrap();
+        }
+    }
+
+    #[test]
+    fn output_is_deterministic() {
+        let (a, b) = (fixture(), fixture());
+        assert_eq!(html(&a), html(&b));
+        assert_eq!(plan_json(&a.document), plan_json(&b.document));
+        assert_eq!(skill_csv(&a), skill_csv(&b));
+    }
+}

@@ -1,0 +1,563 @@
+//! Learning-curve charts as inline SVG (plotters, SVG backend into a `String`): measured skill
+//! against the training-set size on a log axis, with the fitted families, targets and the
+//! persistence floor, and a legend panel on the right.
+
+use crate::curves::Family;
+use crate::study::results::{EstimateStatus, FitResult, ModelResult, PlanDocument};
+use plotters::coord::Shift;
+use plotters::element::DashedPathElement;
+use plotters::prelude::*;
+use plotters::style::text_anchor::{HPos, Pos, VPos};
+
+use super::format::{escape, short};
+
+/// Chart size in pixels (the SVG scales down to narrower pages).
+pub const WIDTH: u32 = 720;
+pub const HEIGHT: u32 = 420;
+/// Width of the legend panel at the right of the chart.
+const LEGEND_WIDTH: u32 = 200;
+/// The fitted curves extend to this factor beyond the largest size or finite n*.
+const EXTEND: f64 = 1.5;
+/// …but never beyond this factor of the largest measured size, so the data stay readable.
+const MAX_EXTRAPOLATION: f64 = 1000.0;
+/// Points per fitted curve.
+const CURVE_POINTS: usize = 240;
+
+const INK: RGBColor = RGBColor(0x22, 0x2a, 0x35);
+const GRID: RGBColor = RGBColor(0xe3, 0xe6, 0xea);
+const DATA: RGBColor = RGBColor(0x2f, 0x55, 0x8a);
+const BAND: RGBColor = RGBColor(0xd6, 0xe2, 0xf1);
+const TARGET: RGBColor = RGBColor(0xb0, 0x4a, 0x2c);
+const FLOOR: RGBColor = RGBColor(0x8a, 0x8f, 0x96);
+/// One colour per family, in [`Family::ALL`] order.
+const FAMILY_COLOURS: [RGBColor; 3] = [
+    RGBColor(0x1d, 0x7a, 0x6c),
+    RGBColor(0x8a, 0x4f, 0x9e),
+    RGBColor(0xa8, 0x7a, 0x16),
+];
+
+fn family_colour(f: Family) -> RGBColor {
+    let i = Family::ALL.iter().position(|g| *g == f).unwrap_or(0);
+    FAMILY_COLOURS[i % FAMILY_COLOURS.len()]
+}
+
+/// Natural parameter vector of a successful fit, in [`Family::param_names`] order.
+pub fn param_vector(fit: &FitResult) -> Option<Vec<f64>> {
+    if fit.error.is_some() {
+        return None;
+    }
+    fit.family
+        .param_names()
+        .iter()
+        .map(|k| fit.params.get(*k).copied().filter(|v| v.is_finite()))
+        .collect()
+}
+
+/// The n range of a model's chart: from the smallest size / 1.5 to
+/// max(largest size, largest finite n*) × 1.5, capped at 1,000 × the largest size.
+/// The flag says whether the cap cut off some estimate.
+pub fn x_range(model: &ModelResult) -> Option<(f64, f64, bool)> {
+    let sizes = model.points.iter().map(|p| p.n as f64);
+    let lo = sizes.clone().fold(f64::INFINITY, f64::min).max(1.0);
+    let hi = sizes.fold(0.0, f64::max);
+    if hi.is_nan() || hi < 1.0 {
+        return None;
+    }
+    let n_star = model
+        .estimates
+        .iter()
+        .filter(|e| e.status == EstimateStatus::Reached)
+        .filter_map(|e| e.samples)
+        .filter(|v| v.is_finite())
+        .fold(0.0, f64::max);
+    let wanted = hi.max(n_star) * EXTEND;
+    let cap = hi * MAX_EXTRAPOLATION;
+    Some((lo / EXTEND, wanted.min(cap), wanted > cap))
+}
+
+/// Compact axis label for a sample count: 500, 2k, 15k, 1.5M.
+fn compact(n: f64) -> String {
+    let (v, suffix) = if n >= 1e9 {
+        (n / 1e9, "G")
+    } else if n >= 1e6 {
+        (n / 1e6, "M")
+    } else if n >= 1e3 {
+        (n / 1e3, "k")
+    } else {
+        (n, "")
+    };
+    let s = if (v - v.round()).abs() < 1e-9 {
+        format!("{}", v.round())
+    } else {
+        format!("{v:.1}")
+    };
+    format!("{s}{suffix}")
+}
+
+/// Tick positions 1, 2, 5 × 10^k inside [lo, hi]; only powers of ten when that would be too
+/// many, and at least the two ends when no tick falls inside.
+fn log_ticks(lo: f64, hi: f64) -> Vec<f64> {
+    let (e0, e1) = (lo.log10().floor() as i32, hi.log10().ceil() as i32);
+    let within = |mantissas: &[f64]| -> Vec<f64> {
+        (e0..=e1)
+            .flat_map(|e| mantissas.iter().map(move |m| m * 10f64.powi(e)))
+            .filter(|v| (lo..=hi).contains(v))
+            .collect()
+    };
+    let mut ticks = within(&[1.0, 2.0, 5.0]);
+    if ticks.len() > 10 {
+        ticks = within(&[1.0]);
+    }
+    if ticks.len() > 10 {
+        ticks = ticks.into_iter().step_by(2).collect();
+    }
+    if ticks.is_empty() {
+        ticks = vec![lo, hi];
+    }
+    ticks
+}
+
+enum Swatch {
+    Line {
+        colour: RGBColor,
+        width: u32,
+        dashed: bool,
+    },
+    Marker {
+        colour: RGBColor,
+        filled: bool,
+        radius: u32,
+    },
+    Band,
+}
+
+struct LegendItem {
+    swatch: Swatch,
+    text: String,
+    second_line: Option<String>,
+}
+
+/// The learning-curve chart of one model as an `<svg>` element (no XML prolog), with an
+/// accessible `<title>`. A chart that cannot be drawn becomes a small SVG saying why.
+pub fn learning_curve(doc: &PlanDocument, model: &ModelResult) -> String {
+    let mut buf = String::new();
+    let drawn = {
+        let root = SVGBackend::with_string(&mut buf, (WIDTH, HEIGHT)).into_drawing_area();
+        let r = draw(&root, doc, model).map_err(|e| e.to_string());
+        let p = root.present().map_err(|e| e.to_string());
+        r.and(p)
+    };
+    let svg = match drawn {
+        Ok(()) => buf,
+        Err(reason) => placeholder(&format!("chart not drawn: {reason}")),
+    };
+    finish(&svg, &format!("Learning curve of model {}", model.name))
+}
+
+fn placeholder(message: &str) -> String {
+    format!(
+        "<svg width=\"{WIDTH}\" height=\"80\" viewBox=\"0 0 {WIDTH} 80\" \
+         xmlns=\"http://www.w3.org/2000/svg\">\n<text x=\"16\" y=\"44\" \
+         font-family=\"sans-serif\" font-size=\"14\">{}</text>\n</svg>\n",
+        escape(message)
+    )
+}
+
+/// Strips any XML prolog, makes the SVG scale with the page, and adds a `<title>`.
+fn finish(svg: &str, title: &str) -> String {
+    let mut s = svg.trim_start();
+    if s.starts_with("<?xml") {
+        s = s.find("?>").map(|i| s[i + 2..].trim_start()).unwrap_or(s);
+    }
+    let Some(end) = s.find('>') else {
+        return placeholder("chart not drawn");
+    };
+    let (open, rest) = s.split_at(end);
+    format!(
+        "{open} class=\"chart\" role=\"img\"><title>{}</title>{}",
+        escape(title),
+        &rest[1..]
+    )
+}
+
+type DrawResult = Result<(), Box<dyn std::error::Error>>;
+
+fn draw(
+    root: &DrawingArea<SVGBackend<'_>, Shift>,
+    doc: &PlanDocument,
+    model: &ModelResult,
+) -> DrawResult {
+    root.fill(&WHITE)?;
+    let Some((x_lo, x_hi, _)) = x_range(model) else {
+        root.draw(&Text::new(
+            "no measured points",
+            (20, 40),
+            ("sans-serif", 16).into_font().color(&INK),
+        ))?;
+        return Ok(());
+    };
+    let (plot_area, legend_area) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
+    let targets = &doc.study.targets;
+    let floor = doc.persistence.mean;
+
+    let mut y_max = floor.max(targets.iter().copied().fold(0.0, f64::max));
+    for p in &model.points {
+        y_max = y_max
+            .max(p.q90)
+            .max(p.mean + p.standard_error)
+            .max(p.replicate_means.iter().copied().fold(0.0, f64::max));
+    }
+    let y_hi = if y_max.is_finite() && y_max > 0.0 {
+        y_max * 1.12
+    } else {
+        1.0
+    };
+
+    let label_font = ("sans-serif", 13).into_font().color(&INK);
+    let axis_font = ("sans-serif", 14).into_font().color(&INK);
+    let mut chart = ChartBuilder::on(&plot_area)
+        .margin_top(14)
+        .margin_right(12)
+        .margin_left(6)
+        .margin_bottom(6)
+        .x_label_area_size(44)
+        .y_label_area_size(52)
+        .build_cartesian_2d(
+            (x_lo..x_hi)
+                .log_scale()
+                .with_key_points(log_ticks(x_lo, x_hi)),
+            0f64..y_hi,
+        )?;
+    chart
+        .configure_mesh()
+        .x_desc("training samples n (log scale)")
+        .y_desc("mean valid prediction time (model time units)")
+        .axis_desc_style(axis_font)
+        .label_style(label_font.clone())
+        .x_labels(8)
+        .y_labels(8)
+        .x_label_formatter(&|v| compact(*v))
+        .y_label_formatter(&|v| short(*v))
+        .bold_line_style(GRID)
+        .light_line_style(TRANSPARENT)
+        .axis_style(INK.mix(0.6))
+        .draw()?;
+
+    // 10–90% spread of every initial condition and replicate, one light bar per size.
+    let mut sizes: Vec<f64> = model.points.iter().map(|p| p.n as f64).collect();
+    sizes.sort_by(f64::total_cmp);
+    let min_ratio = sizes
+        .windows(2)
+        .map(|w| w[1] / w[0])
+        .filter(|r| *r > 1.0)
+        .fold(2.0, f64::min);
+    let half_width = min_ratio.powf(0.3).min(1.12);
+    chart.draw_series(model.points.iter().map(|p| {
+        let n = p.n as f64;
+        Rectangle::new(
+            [(n / half_width, p.q10), (n * half_width, p.q90)],
+            BAND.filled(),
+        )
+    }))?;
+
+    // Persistence floor and targets.
+    if floor.is_finite() {
+        chart.draw_series(std::iter::once(PathElement::new(
+            vec![(x_lo, floor), (x_hi, floor)],
+            FLOOR.stroke_width(2),
+        )))?;
+    }
+    for t in targets.iter().filter(|t| t.is_finite() && **t <= y_hi) {
+        chart.draw_series(std::iter::once(DashedPathElement::new(
+            vec![(x_lo, *t), (x_hi, *t)],
+            7,
+            5,
+            TARGET.stroke_width(2),
+        )))?;
+        chart.draw_series(std::iter::once(Text::new(
+            format!("target {}", short(*t)),
+            (x_lo * 1.06, *t),
+            ("sans-serif", 12)
+                .into_font()
+                .color(&TARGET)
+                .pos(Pos::new(HPos::Left, VPos::Bottom)),
+        )))?;
+    }
+
+    // Fitted families: the selected one bold and solid, the others thin and dashed.
+    let ln_lo = x_lo.ln();
+    let ln_step = (x_hi.ln() - ln_lo) / (CURVE_POINTS - 1) as f64;
+    for fit in &model.fits {
+        let Some(p) = param_vector(fit) else { continue };
+        let selected = model.selected == Some(fit.family);
+        let colour = family_colour(fit.family);
+        for segment in clipped_curve(fit.family, &p, ln_lo, ln_step, y_hi) {
+            if selected {
+                chart.draw_series(std::iter::once(PathElement::new(
+                    segment,
+                    colour.stroke_width(3),
+                )))?;
+            } else {
+                chart.draw_series(std::iter::once(DashedPathElement::new(
+                    segment,
+                    6,
+                    4,
+                    colour.stroke_width(1),
+                )))?;
+            }
+        }
+    }
+
+    // Replicate means, then the per-size mean with ± standard-error bars.
+    chart.draw_series(model.points.iter().flat_map(|p| {
+        let n = p.n as f64;
+        p.replicate_means
+            .iter()
+            .map(move |m| Circle::new((n, *m), 2, DATA.mix(0.5).filled()))
+    }))?;
+    // ± standard-error bars with short caps (drawn by hand: the errorbar feature is off).
+    let cap = half_width.powf(0.4);
+    chart.draw_series(model.points.iter().flat_map(|p| {
+        let n = p.n as f64;
+        let (lo, hi) = (
+            (p.mean - p.standard_error).max(0.0),
+            p.mean + p.standard_error,
+        );
+        [
+            vec![(n, lo), (n, hi)],
+            vec![(n / cap, lo), (n * cap, lo)],
+            vec![(n / cap, hi), (n * cap, hi)],
+        ]
+        .into_iter()
+        .map(|path| PathElement::new(path, DATA.stroke_width(2)))
+    }))?;
+    chart.draw_series(model.points.iter().map(|p| {
+        let style = if p.censored_share > 0.0 {
+            ShapeStyle::from(&WHITE).filled()
+        } else {
+            DATA.filled()
+        };
+        Circle::new((p.n as f64, p.mean), 5, style)
+    }))?;
+    chart.draw_series(
+        model
+            .points
+            .iter()
+            .filter(|p| p.censored_share > 0.0)
+            .map(|p| Circle::new((p.n as f64, p.mean), 5, DATA.stroke_width(2))),
+    )?;
+
+    draw_legend(&legend_area, &legend_items(model))?;
+    Ok(())
+}
+
+/// Samples a fitted curve on a log grid and splits it where it leaves [0, y_hi].
+fn clipped_curve(
+    family: Family,
+    p: &[f64],
+    ln_lo: f64,
+    ln_step: f64,
+    y_hi: f64,
+) -> Vec<Vec<(f64, f64)>> {
+    let mut segments = vec![];
+    let mut current = vec![];
+    for i in 0..CURVE_POINTS {
+        let n = (ln_lo + ln_step * i as f64).exp();
+        let y = family.eval(p, n);
+        if y.is_finite() && (0.0..=y_hi).contains(&y) {
+            current.push((n, y));
+        } else if !current.is_empty() {
+            segments.push(std::mem::take(&mut current));
+        }
+    }
+    if !current.is_empty() {
+        segments.push(current);
+    }
+    segments.retain(|s| s.len() > 1);
+    segments
+}
+
+fn legend_items(model: &ModelResult) -> Vec<LegendItem> {
+    let item = |swatch, text: &str, second: Option<String>| LegendItem {
+        swatch,
+        text: text.to_string(),
+        second_line: second,
+    };
+    let mut items = vec![
+        item(
+            Swatch::Marker {
+                colour: DATA,
+                filled: true,
+                radius: 5,
+            },
+            "mean ± standard error",
+            None,
+        ),
+        item(
+            Swatch::Marker {
+                colour: DATA,
+                filled: true,
+                radius: 2,
+            },
+            "replicate mean",
+            None,
+        ),
+        item(Swatch::Band, "10–90% of forecasts", None),
+    ];
+    if model.points.iter().any(|p| p.censored_share > 0.0) {
+        items.push(item(
+            Swatch::Marker {
+                colour: DATA,
+                filled: false,
+                radius: 5,
+            },
+            "some forecasts censored",
+            Some("(mean is a lower bound)".into()),
+        ));
+    }
+    for fit in &model.fits {
+        if param_vector(fit).is_none() {
+            continue;
+        }
+        let selected = model.selected == Some(fit.family);
+        items.push(item(
+            Swatch::Line {
+                colour: family_colour(fit.family),
+                width: if selected { 3 } else { 1 },
+                dashed: !selected,
+            },
+            &fit.family.label().replace('-', " "),
+            Some(if selected {
+                format!("{} (selected)", fit.family.formula())
+            } else {
+                fit.family.formula().to_string()
+            }),
+        ));
+    }
+    items.push(item(
+        Swatch::Line {
+            colour: TARGET,
+            width: 2,
+            dashed: true,
+        },
+        "target skill",
+        None,
+    ));
+    items.push(item(
+        Swatch::Line {
+            colour: FLOOR,
+            width: 2,
+            dashed: false,
+        },
+        "persistence (mean)",
+        None,
+    ));
+    items
+}
+
+fn draw_legend(area: &DrawingArea<SVGBackend<'_>, Shift>, items: &[LegendItem]) -> DrawResult {
+    let font = ("sans-serif", 13).into_font().color(&INK);
+    let small = ("sans-serif", 12).into_font().color(&FLOOR);
+    let (x0, x1, tx) = (6, 32, 40);
+    let mut y = 24;
+    area.draw(&Text::new(
+        "Legend",
+        (x0, y - 8),
+        ("sans-serif", 13)
+            .into_font()
+            .style(FontStyle::Bold)
+            .color(&INK),
+    ))?;
+    y += 16;
+    for it in items {
+        let mid = (x0 + x1) / 2;
+        match it.swatch {
+            Swatch::Line {
+                colour,
+                width,
+                dashed,
+            } => {
+                if dashed {
+                    area.draw(&DashedPathElement::new(
+                        vec![(x0, y), (x1, y)],
+                        6,
+                        4,
+                        colour.stroke_width(width),
+                    ))?;
+                } else {
+                    area.draw(&PathElement::new(
+                        vec![(x0, y), (x1, y)],
+                        colour.stroke_width(width),
+                    ))?;
+                }
+            }
+            Swatch::Marker {
+                colour,
+                filled,
+                radius,
+            } => {
+                if filled {
+                    area.draw(&Circle::new((mid, y), radius, colour.filled()))?;
+                } else {
+                    area.draw(&Circle::new((mid, y), radius, WHITE.filled()))?;
+                    area.draw(&Circle::new((mid, y), radius, colour.stroke_width(2)))?;
+                }
+            }
+            Swatch::Band => {
+                area.draw(&Rectangle::new(
+                    [(mid - 5, y - 8), (mid + 5, y + 8)],
+                    BAND.filled(),
+                ))?;
+            }
+        }
+        area.draw(&Text::new(
+            it.text.clone(),
+            (tx, y),
+            font.clone().pos(Pos::new(HPos::Left, VPos::Center)),
+        ))?;
+        y += 20;
+        if let Some(s) = &it.second_line {
+            area.draw(&Text::new(
+                s.clone(),
+                (tx, y - 4),
+                small.clone().pos(Pos::new(HPos::Left, VPos::Center)),
+            ))?;
+            y += 16;
+        }
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn log_ticks_by_hand() {
+        assert_eq!(log_ticks(600.0, 30000.0), [1e3, 2e3, 5e3, 1e4, 2e4]);
+        assert_eq!(log_ticks(1.0, 1e6), [1.0, 10.0, 100.0, 1e3, 1e4, 1e5, 1e6]);
+    }
+
+    #[test]
+    fn compact_labels() {
+        assert_eq!(compact(500.0), "500");
+        assert_eq!(compact(2000.0), "2k");
+        assert_eq!(compact(1500.0), "1.5k");
+        assert_eq!(compact(3e6), "3M");
+    }
+
+    #[test]
+    fn clipping_splits_out_of_range_parts() {
+        // 0.01·n^1 on n ∈ [1, 1e4] leaves [0, 10] at n = 1000.
+        let segs = clipped_curve(
+            Family::PowerLaw,
+            &[0.01, 1.0],
+            0.0,
+            1e4f64.ln() / 239.0,
+            10.0,
+        );
+        assert_eq!(segs.len(), 1);
+        assert!(segs[0].iter().all(|(_, y)| *y <= 10.0));
+        assert!(segs[0].last().unwrap().0 < 1001.0);
+    }
+}

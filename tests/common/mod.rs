@@ -1,0 +1,52 @@
+//! Shared helpers for the command-line tests.
+
+#![allow(dead_code)]
+
+use std::path::{Path, PathBuf};
+use std::process::Output;
+
+/// The built binary under test.
+pub fn bin() -> assert_cmd::Command {
+    assert_cmd::Command::new(env!("CARGO_BIN_EXE_closure-budget"))
+}
+
+/// Path of a file in the repository.
+pub fn repo(rel: &str) -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join(rel)
+}
+
+/// Runs the binary with `args` in `dir` and returns its output.
+pub fn run_in(dir: &Path, args: &[&str]) -> Output {
+    bin()
+        .current_dir(dir)
+        .args(args)
+        .output()
+        .expect("binary runs")
+}
+
+pub fn stderr(o: &Output) -> String {
+    String::from_utf8_lossy(&o.stderr).into_owned()
+}
+
+pub fn stdout(o: &Output) -> String {
+    String::from_utf8_lossy(&o.stdout).into_owned()
+}
+
+/// Every file below `dir`, relative, sorted.
+pub fn files_below(dir: &Path) -> Vec<String> {
+    let mut out = Vec::new();
+    if let Ok(rd) = std::fs::read_dir(dir) {
+        for e in rd.flatten() {
+            let p = e.path();
+            if p.is_dir() {
+                for f in files_below(&p) {
+                    out.push(format!("{}/{}", e.file_name().to_string_lossy(), f));
+                }
+            } else {
+                out.push(e.file_name().to_string_lossy().into_owned());
+            }
+        }
+    }
+    out.sort();
+    out
+}
