@@ -45,7 +45,7 @@ pub enum Command {
 pub struct RunArgs {
     /// Study file (TOML).
     pub study: PathBuf,
-    /// Output directory [default: reports/<study file stem>].
+    /// Output directory [default: reports/STUDY-NAME, the study file name without .toml].
     #[arg(long, short)]
     pub out: Option<PathBuf>,
     /// Worker threads [default: one per core]; results are identical for any count.

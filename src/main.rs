@@ -21,7 +21,7 @@ fn main() -> ExitCode {
     match run(cli) {
         Ok(code) => code,
         Err(e) => {
-            eprintln!("error: {e:#}");
+            eprintln!("error: {}", error_chain(&e));
             ExitCode::from(2)
         }
     }
@@ -113,6 +113,20 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         }
     }
     Ok(ExitCode::SUCCESS)
+}
+
+/// The error and its causes joined by ": ", leaving out a cause whose text the message before it
+/// already contains (several error types quote their source in their own message).
+fn error_chain(e: &anyhow::Error) -> String {
+    let mut out = e.to_string();
+    for cause in e.chain().skip(1) {
+        let text = cause.to_string();
+        if !out.contains(&text) {
+            out.push_str(": ");
+            out.push_str(&text);
+        }
+    }
+    out
 }
 
 fn system_from_args(a: &SystemArgs) -> anyhow::Result<(SystemSpec, f64)> {

@@ -320,7 +320,7 @@ pub fn fit_nested(
     }
     let (mean, mut scale) = column_stats(train.slice(ndarray::s![..smallest, ..]));
     scale.iter_mut().for_each(|s| {
-        if !(*s > 0.0) {
+        if s.is_nan() || *s <= 0.0 {
             *s = 1.0;
         }
     });

@@ -18,7 +18,7 @@ const CSS: &str = r#"
 html { font-size:15px; }
 body { margin:0; color:var(--ink); background:#fff; line-height:1.5;
   font-family:system-ui,-apple-system,"Segoe UI",Roboto,"Helvetica Neue",Arial,"Noto Sans",sans-serif; }
-main { max-width:1080px; margin:0 auto; padding:28px 28px 60px; }
+main { max-width:1160px; margin:0 auto; padding:28px 28px 60px; }
 header { border-bottom:3px solid var(--accent); padding-bottom:14px; margin-bottom:8px; }
 .kicker { text-transform:uppercase; letter-spacing:.08em; font-size:.78rem; color:var(--accent);
   font-weight:600; margin:0; }

@@ -64,12 +64,13 @@ pub fn valid_time(
             let z = (x[j] - row[j]) * inv_sigma[j];
             sq += z * z;
             let excursion = (x[j] - spec.mean[j]) * inv_sigma[j];
-            if !(excursion.abs() <= BLOW_UP_SIGMAS) {
+            // NaN counts as a blow-up: a stated choice, not an accident of comparison.
+            if excursion.is_nan() || excursion.abs() > BLOW_UP_SIGMAS {
                 blew_up = true;
             }
         }
         let err = (sq / d as f64).sqrt();
-        if blew_up || !(err <= spec.threshold) {
+        if blew_up || err.is_nan() || err > spec.threshold {
             exceeded = true;
             return false;
         }

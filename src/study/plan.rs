@@ -292,7 +292,7 @@ fn check(
                 })?),
                 None => {
                     return Err(invalid(
-                        &format!("{key}"),
+                        &key,
                         "no model kind".into(),
                         "one kind table, e.g. `esn = { reservoir-size = 300 }`",
                     ))
@@ -381,24 +381,6 @@ pub fn to_samples(span: f64, sample_interval: f64) -> usize {
     (span / sample_interval - 1e-9).ceil().max(0.0) as usize
 }
 
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn geometric_sizes_by_hand() {
-        assert_eq!(geometric_sizes(1000, 8000, 4), vec![1000, 2000, 4000, 8000]);
-        assert_eq!(geometric_sizes(10, 12, 5), vec![10, 11, 12]);
-    }
-
-    #[test]
-    fn spans_round_up_to_samples() {
-        assert_eq!(to_samples(1.0, 0.01), 100);
-        assert_eq!(to_samples(1.005, 0.01), 101);
-        assert_eq!(to_samples(0.3, 0.1), 3);
-    }
-}
-
 /// A plain-text description of what a plan will do (for `check`).
 pub fn describe(plan: &StudyPlan) -> String {
     use std::fmt::Write;
@@ -451,4 +433,22 @@ pub fn describe(plan: &StudyPlan) -> String {
         plan.models.len() * plan.replicates
     );
     s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn geometric_sizes_by_hand() {
+        assert_eq!(geometric_sizes(1000, 8000, 4), vec![1000, 2000, 4000, 8000]);
+        assert_eq!(geometric_sizes(10, 12, 5), vec![10, 11, 12]);
+    }
+
+    #[test]
+    fn spans_round_up_to_samples() {
+        assert_eq!(to_samples(1.0, 0.01), 100);
+        assert_eq!(to_samples(1.005, 0.01), 101);
+        assert_eq!(to_samples(0.3, 0.1), 3);
+    }
 }

@@ -140,7 +140,7 @@ fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
     let split = Split::new(traj.samples(), split_for(dt), largest)?;
     let pool = traj.values.slice(ndarray::s![split.pool.clone(), ..]);
     let (mean, sigma) = column_stats(pool);
-    if let Some(j) = sigma.iter().position(|s| !(*s > 0.0)) {
+    if let Some(j) = sigma.iter().position(|s| s.is_nan() || *s <= 0.0) {
         return Err(StudyError::ConstantVariable {
             variable: traj.meta.variables[j].clone(),
         });
