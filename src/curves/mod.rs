@@ -18,7 +18,7 @@
 //!
 //! References: Levenberg (1944), Q. Appl. Math. 2, 164–168; Marquardt (1963), J. SIAM 11,
 //! 431–441; Moré (1978), "The Levenberg–Marquardt algorithm: implementation and theory"
-//! (MINPACK), Lecture Notes in Math. 630; Hurvich & Tsai (1989), Biometrika 76, 297–307
+//! (MINPACK), Springer LNM 630; Hurvich & Tsai (1989), Biometrika 76, 297–307
 //! (AICc); Efron & Tibshirani (1993), An Introduction to the Bootstrap; NIST Statistical
 //! Reference Datasets (StRD), nonlinear regression.
 

@@ -457,29 +457,6 @@ pub(crate) mod tests {
         assert!(err.to_string().contains("report.html"), "{err}");
     }
 
-    /// Renders the fixture, and the quick demo's results when they exist, for a look in a
-    /// browser: `cargo test --release --lib report::tests::render -- --ignored`, then open
-    /// `target/report-preview/*/report.html`.
-    #[test]
-    #[ignore = "writes preview files for manual inspection"]
-    fn render_previews() {
-        let root = Path::new(env!("CARGO_MANIFEST_DIR"));
-        let preview = root.join("target").join("report-preview");
-        write_report(&fixture(), &preview.join("fixture")).unwrap();
-        let demo = root.join("reports").join("demo-quick");
-        if let Ok(bytes) = std::fs::read(demo.join(PLAN_JSON)) {
-            let document: PlanDocument = serde_json::from_slice(&bytes).unwrap();
-            let records = crate::study::records::read_records(&demo.join("records.jsonl"))
-                .unwrap_or_default();
-            let outcome = StudyOutcome {
-                document,
-                records,
-                persistence: vec![],
-            };
-            write_report(&outcome, &preview.join("demo-quick")).unwrap();
-        }
-    }
-
     #[test]
     fn output_is_deterministic() {
         let (a, b) = (fixture(), fixture());
