@@ -41,7 +41,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             };
             let outcome = run_study(&plan, &options)?;
             let written = report::write_report(&outcome, &out)?;
-            print!("{}", outcome.document.text_summary());
+            print!("{}", report::text_summary(&outcome.document));
             println!("\nwritten:");
             for p in written {
                 println!("  {}", p.display());

@@ -37,6 +37,9 @@ mod csv;
 mod format;
 mod html;
 mod svg;
+mod text;
+
+pub use text::text_summary;
 
 use crate::atomic::write_atomic;
 use crate::study::results::PlanDocument;
@@ -249,19 +252,7 @@ pub(crate) mod tests {
             } else {
                 let estimates = [2.9, 5.0]
                     .iter()
-                    .map(|&target| TargetEstimate {
-                        target,
-                        status: EstimateStatus::NoFit,
-                        samples: None,
-                        samples_interval: [None, None],
-                        reached_share: 0.0,
-                        budget: None,
-                        budget_low: None,
-                        budget_high: None,
-                        asymptote: None,
-                        extrapolation: None,
-                        note: "no family could be fitted".into(),
-                    })
+                    .map(|&target| TargetEstimate::no_fit(target, "no family could be fitted"))
                     .collect();
                 (vec![failed], None, estimates)
             };

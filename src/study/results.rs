@@ -188,125 +188,21 @@ pub struct Timings {
     pub threads: usize,
 }
 
-/// Formats a number with thousands separators and no decimals.
-pub fn thousands(x: f64) -> String {
-    if !x.is_finite() {
-        return x.to_string();
-    }
-    let s = format!("{:.0}", x.abs());
-    let mut out = String::new();
-    for (i, c) in s.chars().enumerate() {
-        if i > 0 && (s.len() - i) % 3 == 0 {
-            out.push(',');
+impl TargetEstimate {
+    /// An estimate for a target when no learning curve could be fitted.
+    pub fn no_fit(target: f64, note: &str) -> Self {
+        TargetEstimate {
+            target,
+            status: EstimateStatus::NoFit,
+            samples: None,
+            samples_interval: [None, None],
+            reached_share: 0.0,
+            budget: None,
+            budget_low: None,
+            budget_high: None,
+            asymptote: None,
+            extrapolation: None,
+            note: note.to_string(),
         }
-        out.push(c);
-    }
-    if x < 0.0 && s != "0" {
-        out.insert(0, '-');
-    }
-    out
-}
-
-/// Bytes in decimal units (kB, MB, GB, TB, PB) with three significant digits.
-pub fn human_bytes(b: f64) -> String {
-    let units = ["B", "kB", "MB", "GB", "TB", "PB", "EB"];
-    let mut v = b;
-    let mut i = 0;
-    while v >= 1000.0 && i + 1 < units.len() {
-        v /= 1000.0;
-        i += 1;
-    }
-    format!("{} {}", sig3(v), units[i])
-}
-
-/// Three significant digits, no exponent for ordinary magnitudes.
-pub fn sig3(x: f64) -> String {
-    if x == 0.0 || !x.is_finite() {
-        return format!("{x}");
-    }
-    let digits = x.abs().log10().floor() as i32;
-    if digits >= 3 {
-        thousands((x / 10f64.powi(digits - 2)).round() * 10f64.powi(digits - 2))
-    } else {
-        let decimals = (2 - digits).max(0) as usize;
-        format!("{x:.decimals$}")
-    }
-}
-
-impl PlanDocument {
-    /// The answer as plain text for the terminal: per model and target, samples, simulated time,
-    /// core-hours and storage with intervals, then warnings.
-    pub fn text_summary(&self) -> String {
-        use std::fmt::Write;
-        let mut s = String::new();
-        let _ = writeln!(s, "{}", self.study.title);
-        let _ = writeln!(
-            s,
-            "persistence floor: mean valid time {} time units",
-            sig3(self.persistence.mean)
-        );
-        let level = (self.study.confidence * 100.0).round();
-        for m in &self.models {
-            let selected = m.selected.map(|f| f.label()).unwrap_or("none");
-            let _ = writeln!(s, "\nmodel {} ({}; curve: {selected})", m.name, m.kind);
-            for e in &m.estimates {
-                let range = |lo: Option<f64>, hi: Option<f64>, f: &dyn Fn(f64) -> String| {
-                    format!(
-                        "{}–{}",
-                        lo.map(f).unwrap_or_else(|| "?".into()),
-                        hi.map(f).unwrap_or_else(|| "unbounded".into())
-                    )
-                };
-                match (e.status, &e.budget) {
-                    (EstimateStatus::Reached | EstimateStatus::AlreadyMet, Some(b)) => {
-                        let _ = writeln!(
-                            s,
-                            "  target {:>6}: {} samples ({level}% {}), {} time units, {} core-hours ({}), {}",
-                            sig3(e.target),
-                            thousands(b.samples),
-                            range(e.samples_interval[0], e.samples_interval[1], &thousands),
-                            sig3(b.simulated_time),
-                            sig3(b.core_hours),
-                            range(
-                                e.budget_low.map(|b| b.core_hours),
-                                e.budget_high.map(|b| b.core_hours),
-                                &sig3
-                            ),
-                            human_bytes(b.storage_bytes)
-                        );
-                    }
-                    _ => {
-                        let _ = writeln!(
-                            s,
-                            "  target {:>6}: {:?}: {}",
-                            sig3(e.target),
-                            e.status,
-                            e.note
-                        );
-                    }
-                }
-            }
-        }
-        for w in &self.warnings {
-            let _ = writeln!(s, "warning: {w}");
-        }
-        s
-    }
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn number_formatting() {
-        assert_eq!(thousands(1234567.4), "1,234,567");
-        assert_eq!(thousands(999.0), "999");
-        assert_eq!(thousands(-1000.0), "-1,000");
-        assert_eq!(sig3(123456.0), "123,000");
-        assert_eq!(sig3(1.23456), "1.23");
-        assert_eq!(sig3(0.012345), "0.0123");
-        assert_eq!(human_bytes(2.5e12), "2.50 TB");
-        assert_eq!(human_bytes(512.0), "512 B");
     }
 }

@@ -507,19 +507,7 @@ fn model_result(
         None => plan
             .targets
             .iter()
-            .map(|&target| TargetEstimate {
-                target,
-                status: EstimateStatus::NoFit,
-                samples: None,
-                samples_interval: [None, None],
-                reached_share: 0.0,
-                budget: None,
-                budget_low: None,
-                budget_high: None,
-                asymptote: None,
-                extrapolation: None,
-                note: "no learning curve could be fitted".into(),
-            })
+            .map(|&target| TargetEstimate::no_fit(target, "no learning curve could be fitted"))
             .collect(),
         Some(fit) => {
             let boot = curves::bootstrap_inversion(
