@@ -87,6 +87,18 @@ fn quick_demo_runs_end_to_end() {
         vec!["plan.json", "records.jsonl", "report.html", "skill.csv"]
     );
     assert_eq!(doc.schema, PLAN_SCHEMA);
+    // Every stage's wall time is recorded, the report stage included.
+    let t = &doc.timings;
+    for (stage, secs) in [
+        ("data", t.data),
+        ("training", t.training),
+        ("forecasting", t.forecasting),
+        ("fitting", t.fitting),
+        ("report", t.report),
+    ] {
+        assert!(secs > 0.0, "{stage} time {secs}");
+    }
+    assert!(t.total >= t.data + t.training + t.forecasting + t.fitting + t.report - 1e-9);
     assert_eq!(doc.models.len(), 1);
     let m = &doc.models[0];
     assert_eq!(m.points.len(), 4);

@@ -664,13 +664,12 @@ fn provenance(out: &mut String, doc: &PlanDocument) {
         out,
         "Stage timings",
         &format!(
-            "data {} s, training {} s, forecasting {} s, fitting {} s, report {} s; total {} s \
-             on {} thread{}",
+            "data {} s, training {} s, forecasting {} s, fitting {} s; total {} s before \
+             writing this report (plan.json adds the report stage), on {} thread{}",
             sig3(t.data),
             sig3(t.training),
             sig3(t.forecasting),
             sig3(t.fitting),
-            sig3(t.report),
             sig3(t.total),
             t.threads,
             if t.threads == 1 { "" } else { "s" }

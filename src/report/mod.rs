@@ -66,10 +66,18 @@ pub enum ReportError {
 /// Writes report.html, plan.json and skill.csv into `out_dir` (created if missing; each file
 /// atomically). Returns the paths written, in that order.
 pub fn write_report(outcome: &StudyOutcome, out_dir: &Path) -> Result<Vec<PathBuf>, ReportError> {
+    // The report stage's own time (rendering the page and the CSV) is known only after the
+    // page exists, so it reaches plan.json but not the page.
+    let started = std::time::Instant::now();
+    let page = html(outcome).into_bytes();
+    let csv = skill_csv(outcome);
+    let mut document = outcome.document.clone();
+    document.timings.report = started.elapsed().as_secs_f64();
+    document.timings.total += document.timings.report;
     let files: [(&str, Vec<u8>); 3] = [
-        (REPORT_HTML, html(outcome).into_bytes()),
-        (PLAN_JSON, plan_json(&outcome.document)),
-        (SKILL_CSV, skill_csv(outcome)),
+        (REPORT_HTML, page),
+        (PLAN_JSON, plan_json(&document)),
+        (SKILL_CSV, csv),
     ];
     let mut written = Vec::with_capacity(files.len());
     for (name, bytes) in files {
