@@ -315,7 +315,7 @@ pub struct BootstrapSummary {
 
 /// Quantile with linear interpolation between order statistics (Hyndman–Fan type 7) of a
 /// sorted, non-empty slice.
-fn quantile_sorted(v: &[f64], prob: f64) -> f64 {
+pub(crate) fn quantile_sorted(v: &[f64], prob: f64) -> f64 {
     let h = (v.len() - 1) as f64 * prob;
     let lo = h.floor() as usize;
     let hi = (lo + 1).min(v.len() - 1);
@@ -394,7 +394,11 @@ pub fn bootstrap_inversion(
 
 /// Refit from `start` (natural parameters); fall back to the default starts when that run
 /// fails or does not converge.
-fn refit(family: Family, points: &[CurvePoint], start: &[f64]) -> Result<CurveFit, CurveError> {
+pub(crate) fn refit(
+    family: Family,
+    points: &[CurvePoint],
+    start: &[f64],
+) -> Result<CurveFit, CurveError> {
     validate_points(family, points)?;
     let obs = observations(points);
     match fit_from_starts(family, points, &obs, &[start.to_vec()]) {

@@ -10,7 +10,8 @@
 //! how NIST computes its certified standard deviations.
 //!
 //! References: Levenberg (1944); Marquardt (1963); Moré (1978), MINPACK LMDER; NIST StRD
-//! nonlinear regression datasets (validation in the tests below).
+//! nonlinear regression datasets Misra1a, Misra1b, Misra1d, DanWood, Rat42, MGH09, Thurber and
+//! Eckerle4 (validation in the tests below, from both certified starts).
 
 use levenberg_marquardt::{LeastSquaresProblem, LevenbergMarquardt, TerminationReason};
 use nalgebra::{storage::Owned, DMatrix, DVector, Dyn};
@@ -501,6 +502,68 @@ pub(crate) mod tests {
         }
     }
 
+    /// MGH09: y = b1 (x² + x b2) / (x² + x b3 + b4).
+    struct Mgh09;
+    impl Model for Mgh09 {
+        fn n_params(&self) -> usize {
+            4
+        }
+        fn eval(&self, p: &[f64], x: f64) -> f64 {
+            p[0] * (x * x + x * p[1]) / (x * x + x * p[2] + p[3])
+        }
+        fn grad(&self, p: &[f64], x: f64, out: &mut [f64]) {
+            let num = x * x + x * p[1];
+            let den = x * x + x * p[2] + p[3];
+            out[0] = num / den;
+            out[1] = p[0] * x / den;
+            out[2] = -p[0] * num * x / (den * den);
+            out[3] = -p[0] * num / (den * den);
+        }
+    }
+
+    /// Thurber: y = (b1 + b2 x + b3 x² + b4 x³) / (1 + b5 x + b6 x² + b7 x³).
+    struct Thurber;
+    impl Model for Thurber {
+        fn n_params(&self) -> usize {
+            7
+        }
+        fn eval(&self, p: &[f64], x: f64) -> f64 {
+            let num = p[0] + x * (p[1] + x * (p[2] + x * p[3]));
+            let den = 1.0 + x * (p[4] + x * (p[5] + x * p[6]));
+            num / den
+        }
+        fn grad(&self, p: &[f64], x: f64, out: &mut [f64]) {
+            let num = p[0] + x * (p[1] + x * (p[2] + x * p[3]));
+            let den = 1.0 + x * (p[4] + x * (p[5] + x * p[6]));
+            let powers = [1.0, x, x * x, x * x * x];
+            for k in 0..4 {
+                out[k] = powers[k] / den;
+            }
+            for k in 1..4 {
+                out[3 + k] = -num * powers[k] / (den * den);
+            }
+        }
+    }
+
+    /// Eckerle4: y = (b1/b2) exp(−½ ((x − b3)/b2)²).
+    struct Eckerle4;
+    impl Model for Eckerle4 {
+        fn n_params(&self) -> usize {
+            3
+        }
+        fn eval(&self, p: &[f64], x: f64) -> f64 {
+            let z = (x - p[2]) / p[1];
+            p[0] / p[1] * (-0.5 * z * z).exp()
+        }
+        fn grad(&self, p: &[f64], x: f64, out: &mut [f64]) {
+            let z = (x - p[2]) / p[1];
+            let e = (-0.5 * z * z).exp();
+            out[0] = e / p[1];
+            out[1] = p[0] * e * (z * z - 1.0) / (p[1] * p[1]);
+            out[2] = p[0] * e * z / (p[1] * p[1]);
+        }
+    }
+
     // NIST StRD (https://www.itl.nist.gov/div898/strd/nls/), files in
     // shared/reference-data/nist/. Required: parameters ≥ 6 significant digits, standard
     // deviations ≥ 3, residual sum of squares ≥ 6. Asserted (tighter, as achieved from both
@@ -534,6 +597,33 @@ pub(crate) mod tests {
     fn nist_rat42_both_starts() {
         // Source: NIST StRD Rat42.dat (higher difficulty).
         run_nist("Rat42", &Rat42, 8.0, 7.5, 10.0);
+    }
+
+    // Higher-difficulty sets. Both certified starts converge to the certified solution, so
+    // both are asserted. Achieved (min over parameters; this engine, x86-64 release build):
+    // MGH09 start 1 / 2: parameters 7.1 / 7.2, standard deviations 7.2 / 7.3, RSS 11.6;
+    // Thurber: parameters 7.8 / 8.2, standard deviations 7.2 / 7.6, RSS 11.2;
+    // Eckerle4: parameters 9.7 / 9.6, standard deviations 9.7 / 9.6, RSS 10.7.
+    // Asserted with about half a digit of margin below that, and always at or above the
+    // required 6 / 3 / 6.
+
+    #[test]
+    fn nist_mgh09_both_starts() {
+        // Source: NIST StRD MGH09.dat (higher difficulty; start 1 is far from the solution
+        // and takes about 500 evaluations).
+        run_nist("MGH09", &Mgh09, 6.5, 6.5, 10.0);
+    }
+
+    #[test]
+    fn nist_thurber_both_starts() {
+        // Source: NIST StRD Thurber.dat (higher difficulty, 7 parameters).
+        run_nist("Thurber", &Thurber, 7.5, 6.5, 10.0);
+    }
+
+    #[test]
+    fn nist_eckerle4_both_starts() {
+        // Source: NIST StRD Eckerle4.dat (higher difficulty).
+        run_nist("Eckerle4", &Eckerle4, 9.0, 9.0, 10.0);
     }
 
     #[test]

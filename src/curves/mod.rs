@@ -22,16 +22,22 @@
 //! (AICc); Efron & Tibshirani (1993), An Introduction to the Bootstrap; NIST Statistical
 //! Reference Datasets (StRD), nonlinear regression.
 
+pub mod backtest;
+#[cfg(test)]
+mod coverage;
 pub mod families;
 pub mod fit;
 pub mod lsq;
+pub mod uncertainty;
 
+pub use backtest::{backtest, Backtest, BacktestCase, BacktestScore, WeightRule};
 pub use families::{Family, Inversion};
 pub use fit::{
     aicc, bootstrap_inversion, fit_family, select_by_aicc, summarise, BootstrapSummary, CurveFit,
     CurvePoint, SizeSamples,
 };
 pub use lsq::{least_squares, LsqResult, Model, Observation};
+pub use uncertainty::{bootstrap_targets, SkillGrid, TargetDraws};
 
 /// Everything that can go wrong while fitting or using a learning curve.
 #[derive(Debug, thiserror::Error)]

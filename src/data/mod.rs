@@ -1,6 +1,7 @@
 //! Trajectories of state vectors: the in-memory type, its metadata sidecar, readers and writers
 //! (`.npy` + JSON sidecar, CSV), content hashing, and the training/test split.
 
+pub mod autocorr;
 mod io;
 mod split;
 

@@ -61,7 +61,11 @@ fn count(x: Option<usize>) -> String {
 /// `skill.csv` as bytes. Rows are sorted by model, n, replicate and initial condition; the
 /// persistence rows (empty `replicate` and `n`) sort under the model name `persistence`.
 pub fn skill_csv(outcome: &StudyOutcome) -> Vec<u8> {
-    let lyapunov = outcome.document.skill.lyapunov_exponent;
+    let lyapunov = outcome
+        .document
+        .skill
+        .as_ref()
+        .and_then(|k| k.lyapunov_exponent);
     let mut rows: Vec<Row<'_>> = outcome.records.iter().flat_map(rows_of_record).collect();
     rows.extend(outcome.persistence.iter().enumerate().map(|(ic, s)| Row {
         model: PERSISTENCE,

@@ -50,6 +50,7 @@ table.kv th { width:15em; font-weight:600; background:none; }
   white-space:nowrap; }
 .reached { background:var(--accent-soft); color:var(--accent); }
 .met { background:#e6eef8; color:#2f558a; }
+.extrapolated { background:#fbf0dc; color:#8a5a00; }
 .unreachable { background:var(--bad-soft); color:var(--bad); }
 .nofit { background:var(--soft); color:var(--muted); }
 .selected { background:var(--accent-soft); color:var(--accent); }
@@ -99,6 +100,7 @@ pub fn html(outcome: &StudyOutcome) -> String {
     answer(&mut out, doc);
     learning_curves(&mut out, doc);
     fits(&mut out, doc);
+    backtest(&mut out, doc);
     measured_points(&mut out, doc);
     assumptions(&mut out, doc);
     warnings(&mut out, doc);
@@ -110,7 +112,12 @@ pub fn html(outcome: &StudyOutcome) -> String {
 
 /// "simulated two-scale-lorenz96 (F = 20, h = 1)" or "file data/run.npy".
 fn data_source(doc: &PlanDocument) -> String {
-    let d = &doc.data;
+    let Some(d) = &doc.data else {
+        return format!(
+            "skill measured outside the tool, read from <code>{}</code>",
+            escape(&doc.study.file)
+        );
+    };
     match &d.system {
         Some(system) => {
             let params: Vec<String> = d
@@ -134,7 +141,6 @@ fn confidence(doc: &PlanDocument) -> String {
 }
 
 fn header(out: &mut String, doc: &PlanDocument, title: &str) {
-    let d = &doc.data;
     let _ = write!(
         out,
         "<header>\n<p class=\"kicker\">closure-budget · simulation budget report</p>\n\
@@ -148,22 +154,31 @@ fn header(out: &mut String, doc: &PlanDocument, title: &str) {
             escape(&doc.study.description)
         );
     }
-    let _ = write!(
-        out,
+    out.push_str(
         "<p>This report estimates how much high-fidelity training data a machine-learned model \
          needs to reach a target forecast skill, from learning curves measured on pilot data, \
-         and what producing that data would cost.</p>\n\
-         <p class=\"muted\">Pilot data: {} — {} samples of {} variable{}, one every {} model time \
-         units.</p>\n",
-        data_source(doc),
-        thousands(d.samples as f64),
-        d.variables.len(),
-        if d.variables.len() == 1 { "" } else { "s" },
-        number(d.sample_interval),
+         and what producing that data would cost.</p>\n",
     );
+    match &doc.data {
+        Some(d) => {
+            let _ = writeln!(
+                out,
+                "<p class=\"muted\">Pilot data: {} — {} samples of {} variable{}, one every {} \
+                 model time units.</p>",
+                data_source(doc),
+                thousands(d.samples as f64),
+                d.variables.len(),
+                if d.variables.len() == 1 { "" } else { "s" },
+                number(d.sample_interval),
+            );
+        }
+        None => {
+            let _ = writeln!(out, "<p class=\"muted\">Data: {}.</p>", data_source(doc));
+        }
+    }
     out.push_str(
         "<nav class=\"toc\"><a href=\"#answer\">Answer</a><a href=\"#curves\">Learning curves</a>\
-         <a href=\"#fits\">Fits</a><a href=\"#points\">Measured points</a>\
+         <a href=\"#fits\">Fits</a><a href=\"#backtest\">Backtest</a><a href=\"#points\">Measured points</a>\
          <a href=\"#assumptions\">Budget assumptions</a>",
     );
     if !doc.warnings.is_empty() {
@@ -209,7 +224,7 @@ fn budget_cell(
 
 fn target_cell(doc: &PlanDocument, target: f64) -> String {
     let mut s = format!("<span class=\"big\">{}</span> time units", sig3(target));
-    if let Some(l) = doc.skill.lyapunov_exponent {
+    if let Some(l) = doc.skill.as_ref().and_then(|k| k.lyapunov_exponent) {
         let _ = write!(
             s,
             "<span class=\"sub\">{} Lyapunov times</span>",
@@ -221,16 +236,23 @@ fn target_cell(doc: &PlanDocument, target: f64) -> String {
 
 fn status_cell(e: &TargetEstimate) -> String {
     match e.status {
-        EstimateStatus::Reached => "<span class=\"badge reached\">reached</span>".into(),
-        EstimateStatus::AlreadyMet => "<span class=\"badge met\">already met</span>\
-             <span class=\"sub\">at the smallest measured size</span>"
+        EstimateStatus::ReachedInData => "<span class=\"badge met\">reached in the data</span>\
+             <span class=\"sub\">a measured size already reaches it</span>"
             .into(),
+        EstimateStatus::Reachable => "<span class=\"badge reached\">reachable</span>".into(),
+        EstimateStatus::Extrapolated => format!(
+            "<span class=\"badge extrapolated\">extrapolated</span><span class=\"sub\">{}× the \
+             largest measured size</span>",
+            e.extrapolation.map(sig3).unwrap_or_else(|| "?".into())
+        ),
         EstimateStatus::Unreachable => format!(
-            "<span class=\"badge unreachable\">unreachable</span><span class=\"sub\">{}</span>",
+            "<span class=\"badge unreachable\">unreachable</span><span class=\"sub\">{}; \
+             P(unreachable) {}</span>",
             match e.asymptote {
                 Some(a) => format!("fitted asymptote {} time units", sig3(a)),
                 None => "the fitted curve does not rise to it".into(),
-            }
+            },
+            percent(e.p_unreachable)
         ),
         EstimateStatus::NoFit => "<span class=\"badge nofit\">no fit</span>".into(),
     }
@@ -241,12 +263,23 @@ fn samples_cell(doc: &PlanDocument, e: &TargetEstimate) -> String {
         return "—".into();
     };
     let [lo, hi] = e.samples_interval;
+    let range = match (lo, hi) {
+        (Some(l), None) => format!("n* ≥ {}", samples(l)),
+        _ => interval(lo, hi, samples),
+    };
     let mut s = format!(
         "<span class=\"big\">{}</span> samples<span class=\"sub\">{} interval {}</span>",
         samples(n),
         confidence(doc),
-        interval(lo, hi, samples)
+        range
     );
+    if let Some(m) = e.median_samples {
+        let _ = write!(
+            s,
+            "<span class=\"sub\">bootstrap median {}</span>",
+            samples(m)
+        );
+    }
     if let Some(x) = e.extrapolation.filter(|x| *x > 1.0) {
         let _ = write!(
             s,
@@ -254,33 +287,48 @@ fn samples_cell(doc: &PlanDocument, e: &TargetEstimate) -> String {
             sig3(x)
         );
     }
-    if e.reached_share < 1.0 && e.status == EstimateStatus::Reached {
+    if e.p_unreachable > 0.0 {
         let _ = write!(
             s,
-            "<span class=\"sub\">{} of bootstrap curves reach it</span>",
-            percent(e.reached_share)
+            "<span class=\"sub\">P(unreachable) {}</span>",
+            percent(e.p_unreachable)
         );
     }
     s
 }
 
 fn answer(out: &mut String, doc: &PlanDocument) {
-    let p = &doc.persistence;
+    let over = match &doc.data {
+        Some(d) => format!(
+            "mean valid prediction time over {} test initial conditions",
+            thousands(d.test_initial_conditions as f64)
+        ),
+        None => "as measured by the user's own code".into(),
+    };
     let _ = write!(
         out,
         "<section id=\"answer\">\n<h2>The answer</h2>\n\
-         <p>Training samples needed for each target skill (mean valid prediction time over {} \
-         test initial conditions), read from each model's selected learning-curve family, with \
-         {} bootstrap intervals, and what simulating and storing those samples costs.</p>\n\
-         <p class=\"floor\">Floor: persistence (repeating the initial state) stays valid for \
-         <strong>{} time units</strong> on average (10–90% of initial conditions: {}–{}); a \
-         useful model must beat it.</p>\n",
-        thousands(doc.data.test_initial_conditions as f64),
+         <p>Training samples needed for each target skill ({over}), read from each model's \
+         selected learning-curve family, with {} bootstrap intervals over replicates, test \
+         initial conditions and curve families{}.</p>\n",
         confidence(doc),
-        sig3(p.mean),
-        sig3(p.q10),
-        sig3(p.q90),
+        if doc.cost.is_some() {
+            ", and what simulating and storing those samples costs"
+        } else {
+            ""
+        },
     );
+    if let Some(p) = &doc.persistence {
+        let _ = writeln!(
+            out,
+            "<p class=\"floor\">Floor: persistence (repeating the initial state) stays valid for \
+             <strong>{} time units</strong> on average (10–90% of initial conditions: {}–{}); a \
+             useful model must beat it.</p>",
+            sig3(p.mean),
+            sig3(p.q10),
+            sig3(p.q90),
+        );
+    }
     for m in &doc.models {
         let _ = write!(
             out,
@@ -459,6 +507,76 @@ fn point_row(p: &PointResult) -> String {
     )
 }
 
+fn backtest(out: &mut String, doc: &PlanDocument) {
+    out.push_str(
+        "<section id=\"backtest\">\n<h2>Backtest</h2>\n\
+         <p>How well each family extrapolates: fitted on the first k sizes only, it predicts the \
+         larger ones. The family that fits the measured points best is not always the one that \
+         extrapolates best, and the last observed value is a hard baseline to beat. Families are \
+         weighted by the inverse mean squared error of their prediction at the largest size (or \
+         by AICc when there are too few sizes); the bootstrap draws families by these weights, so \
+         the intervals above include the uncertainty of the curve's shape.</p>\n",
+    );
+    for m in &doc.models {
+        let _ = writeln!(out, "<h3>{}</h3>", escape(&m.name));
+        let Some(bt) = &m.backtest else {
+            out.push_str("<p class=\"muted\">No family could be fitted.</p>\n");
+            continue;
+        };
+        let rule = match bt.rule {
+            crate::curves::WeightRule::Backtest => "inverse mean squared backtest error",
+            crate::curves::WeightRule::Aicc => "Akaike weights (too few sizes to backtest)",
+            crate::curves::WeightRule::Equal => "equal (too few sizes for AICc)",
+        };
+        let _ = write!(
+            out,
+            "<figure>\n{}\n<figcaption>Prediction at the largest measured size from fits on \
+             the first k sizes; dashed: the observed mean there.</figcaption>\n</figure>\n\
+             <table class=\"data\"><thead><tr><th>Family</th><th class=\"num\">Cases</th>\
+             <th class=\"num\">RMS error at largest size</th>\
+             <th class=\"num\">Mean abs. error, held-out sizes</th>\
+             <th class=\"num\">Weight</th></tr></thead>\n<tbody>\n",
+            svg::backtest_chart(m)
+        );
+        for s in &bt.scores {
+            let weight = s
+                .family
+                .and_then(|f| bt.weights.iter().find(|(g, _)| *g == f).map(|(_, w)| *w));
+            let name = match s.family {
+                Some(f) => format!("{} <code>{}</code>", f.label(), escape(f.formula())),
+                None => "last observed value (baseline)".into(),
+            };
+            let _ = writeln!(
+                out,
+                "<tr{}><td>{}{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
+                 <td class=\"num\">{}</td><td class=\"num\">{}</td></tr>",
+                if s.cases == 0 {
+                    " class=\"failed\""
+                } else {
+                    ""
+                },
+                name,
+                if s.family.is_some() && s.family == m.selected {
+                    " <span class=\"badge selected\">selected</span>"
+                } else {
+                    ""
+                },
+                s.cases,
+                s.rms_error_at_largest
+                    .map(sig3)
+                    .unwrap_or_else(|| "—".into()),
+                s.mean_abs_error.map(sig3).unwrap_or_else(|| "—".into()),
+                weight.map(percent).unwrap_or_else(|| "—".into()),
+            );
+        }
+        let _ = writeln!(
+            out,
+            "</tbody>\n</table>\n<p class=\"muted\">Weights: {rule}.</p>"
+        );
+    }
+    out.push_str("</section>\n");
+}
+
 fn measured_points(out: &mut String, doc: &PlanDocument) {
     out.push_str(
         "<section id=\"points\">\n<h2>Measured points</h2>\n<p>Online skill (valid prediction \
@@ -485,7 +603,13 @@ fn measured_points(out: &mut String, doc: &PlanDocument) {
 }
 
 fn assumptions(out: &mut String, doc: &PlanDocument) {
-    let c = &doc.cost;
+    let Some(c) = &doc.cost else {
+        out.push_str(
+            "<section id=\"assumptions\">\n<h2>Budget assumptions</h2>\n<p class=\"muted\">No \
+             cost inputs were given: the estimates are in training samples only.</p>\n</section>\n",
+        );
+        return;
+    };
     let _ = write!(
         out,
         "<section id=\"assumptions\">\n<h2>Budget assumptions</h2>\n\
@@ -547,7 +671,7 @@ fn list(values: &[f64]) -> String {
 }
 
 fn provenance(out: &mut String, doc: &PlanDocument) {
-    let (s, d, k, t) = (&doc.study, &doc.data, &doc.skill, &doc.timings);
+    let (s, t) = (&doc.study, &doc.timings);
     out.push_str(
         "<section id=\"provenance\">\n<h2>Provenance</h2>\n<table class=\"kv\">\n<tbody>\n",
     );
@@ -572,59 +696,63 @@ fn provenance(out: &mut String, doc: &PlanDocument) {
         &format!("<code class=\"hash\">{}</code>", escape(&s.file_sha256)),
     );
     kv(out, "Data source", &data_source(doc));
-    if let Some(dt) = d.dt {
+    if let Some(d) = &doc.data {
+        if let Some(dt) = d.dt {
+            kv(
+                out,
+                "Integration step",
+                &format!("{} model time units", number(dt)),
+            );
+        }
         kv(
             out,
-            "Integration step",
-            &format!("{} model time units", number(dt)),
+            "Samples",
+            &format!(
+                "{} samples every {} model time units; variables: {}",
+                thousands(d.samples as f64),
+                number(d.sample_interval),
+                escape(&d.variables.join(", "))
+            ),
+        );
+        kv(
+            out,
+            "Data content SHA-256",
+            &format!("<code class=\"hash\">{}</code>", escape(&d.content_sha256)),
+        );
+        kv(
+            out,
+            "Training pool",
+            &format!("{} samples", thousands(d.training_pool as f64)),
+        );
+        kv(
+            out,
+            "Test initial conditions",
+            &format!(
+                "{} initial conditions at samples {}–{}",
+                thousands(d.test_initial_conditions as f64),
+                thousands(d.test_range[0] as f64),
+                thousands(d.test_range[1] as f64)
+            ),
         );
     }
-    kv(
-        out,
-        "Samples",
-        &format!(
-            "{} samples every {} model time units; variables: {}",
-            thousands(d.samples as f64),
-            number(d.sample_interval),
-            escape(&d.variables.join(", "))
-        ),
-    );
-    kv(
-        out,
-        "Data content SHA-256",
-        &format!("<code class=\"hash\">{}</code>", escape(&d.content_sha256)),
-    );
     let mut seed = format!("study {}", s.seed);
-    if let Some(ds) = d.seed {
+    if let Some(ds) = doc.data.as_ref().and_then(|d| d.seed) {
         let _ = write!(seed, "; data {ds}");
     }
     kv(out, "Seeds", &seed);
-    kv(
-        out,
-        "Training pool",
-        &format!("{} samples", thousands(d.training_pool as f64)),
-    );
-    kv(
-        out,
-        "Test initial conditions",
-        &format!(
-            "{} initial conditions at samples {}–{}",
-            thousands(d.test_initial_conditions as f64),
-            thousands(d.test_range[0] as f64),
-            thousands(d.test_range[1] as f64)
-        ),
-    );
-    kv(out, "Skill", &escape(&k.definition));
-    let mut skill = format!(
-        "threshold {}; warm-up {} and maximum lead {} model time units",
-        number(k.threshold),
-        number(k.warm_up),
-        number(k.max_lead)
-    );
-    if let Some(l) = k.lyapunov_exponent {
-        let _ = write!(skill, "; largest Lyapunov exponent {}", number(l));
+    if let Some(k) = &doc.skill {
+        kv(out, "Skill", &escape(&k.definition));
+        let mut skill = format!(
+            "threshold {}; warm-up {} and maximum lead {} model time units",
+            number(k.threshold),
+            number(k.warm_up),
+            number(k.max_lead)
+        );
+        if let Some(l) = k.lyapunov_exponent {
+            let _ = write!(skill, "; largest Lyapunov exponent {}", number(l));
+        }
+        kv(out, "Skill settings", &skill);
     }
-    kv(out, "Skill settings", &skill);
     kv(
         out,
         "Sizes",

@@ -37,6 +37,7 @@ mod csv;
 mod format;
 mod html;
 mod svg;
+pub mod tables;
 mod text;
 
 pub use text::text_summary;
@@ -231,10 +232,11 @@ pub(crate) mod tests {
                 let estimates = vec![
                     TargetEstimate {
                         target: 2.9,
-                        status: EstimateStatus::Reached,
+                        status: EstimateStatus::Extrapolated,
                         samples: Some(40000.0),
+                        median_samples: Some(41000.0),
                         samples_interval: [Some(30000.0), None],
-                        reached_share: 0.93,
+                        p_unreachable: 0.07,
                         budget: Some(cost.budget(40000.0)),
                         budget_low: Some(cost.budget(30000.0)),
                         budget_high: None,
@@ -246,8 +248,9 @@ pub(crate) mod tests {
                         target: 5.0,
                         status: EstimateStatus::Unreachable,
                         samples: None,
+                        median_samples: None,
                         samples_interval: [None, None],
-                        reached_share: 0.0,
+                        p_unreachable: 1.0,
                         budget: None,
                         budget_low: None,
                         budget_high: None,
@@ -271,6 +274,8 @@ pub(crate) mod tests {
                 points,
                 fits,
                 selected,
+                backtest: None,
+                trust_factor: 2.0,
                 estimates,
             });
         }
@@ -296,8 +301,9 @@ pub(crate) mod tests {
                 targets: vec![2.9, 5.0],
                 confidence: 0.9,
                 bootstrap_draws: 200,
+                trust_factor: 2.0,
             },
-            data: DataInfo {
+            data: Some(DataInfo {
                 source: "simulated".into(),
                 system: Some("two-scale-lorenz96".into()),
                 parameters: params(&[("F", 20.0), ("h", 1.0)]),
@@ -311,17 +317,17 @@ pub(crate) mod tests {
                 test_range: [21000, 28000],
                 seed: Some(3),
                 sigma: vec![3.5; 8],
-            },
-            skill: SkillInfo {
+            }),
+            skill: Some(SkillInfo {
                 definition: "valid prediction time, threshold 0.5".into(),
                 threshold: 0.5,
                 warm_up: 0.5,
                 max_lead: 3.0,
                 lyapunov_exponent: Some(0.5),
-            },
-            persistence: crate::skill::summarise(&persistence),
+            }),
+            persistence: Some(crate::skill::summarise(&persistence)),
             models,
-            cost,
+            cost: Some(cost),
             warnings: vec![
                 "esn-500: 12% of forecasts at n = 16000 were censored <raise max-lead>".into(),
             ],
@@ -352,6 +358,7 @@ pub(crate) mod tests {
             "id=\"answer\"",
             "id=\"curves\"",
             "id=\"fits\"",
+            "id=\"backtest\"",
             "id=\"points\"",
             "id=\"assumptions\"",
             "id=\"warnings\"",
@@ -361,7 +368,11 @@ pub(crate) mod tests {
         let at: Vec<usize> = order.iter().map(|s| page.find(s).unwrap()).collect();
         assert!(at.windows(2).all(|w| w[0] < w[1]), "sections in order");
         assert!(page.contains("40,000</span> samples"));
-        assert!(page.contains("30,000–unbounded"));
+        assert!(
+            page.contains("n* ≥ 30,000"),
+            "a one-sided bound when the upper end is infinite"
+        );
+        assert!(page.contains("P(unreachable) 7"));
         assert!(page.contains("unreachable"));
         assert!(page.contains("fitted asymptote 3.00"));
     }

@@ -3,7 +3,7 @@
 //! persistence floor, and a legend panel on the right.
 
 use crate::curves::Family;
-use crate::study::results::{EstimateStatus, FitResult, ModelResult, PlanDocument};
+use crate::study::results::{FitResult, ModelResult, PlanDocument};
 use plotters::coord::Shift;
 use plotters::element::DashedPathElement;
 use plotters::prelude::*;
@@ -30,10 +30,14 @@ const BAND: RGBColor = RGBColor(0xd6, 0xe2, 0xf1);
 const TARGET: RGBColor = RGBColor(0xb0, 0x4a, 0x2c);
 const FLOOR: RGBColor = RGBColor(0x8a, 0x8f, 0x96);
 /// One colour per family, in [`Family::ALL`] order.
-const FAMILY_COLOURS: [RGBColor; 3] = [
+const FAMILY_COLOURS: [RGBColor; 7] = [
     RGBColor(0x1d, 0x7a, 0x6c),
     RGBColor(0x8a, 0x4f, 0x9e),
     RGBColor(0xa8, 0x7a, 0x16),
+    RGBColor(0x3b, 0x6f, 0xb6),
+    RGBColor(0xb8, 0x5c, 0x8a),
+    RGBColor(0x5d, 0x7f, 0x2a),
+    RGBColor(0x7a, 0x5c, 0x44),
 ];
 
 fn family_colour(f: Family) -> RGBColor {
@@ -66,7 +70,7 @@ pub fn x_range(model: &ModelResult) -> Option<(f64, f64, bool)> {
     let n_star = model
         .estimates
         .iter()
-        .filter(|e| e.status == EstimateStatus::Reached)
+        .filter(|e| e.status.has_budget())
         .filter_map(|e| e.samples)
         .filter(|v| v.is_finite())
         .fold(0.0, f64::max);
@@ -198,7 +202,7 @@ fn draw(
     };
     let (plot_area, legend_area) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
     let targets = &doc.study.targets;
-    let floor = doc.persistence.mean;
+    let floor = doc.persistence.as_ref().map_or(f64::NAN, |p| p.mean);
 
     let mut y_max = floor.max(targets.iter().copied().fold(0.0, f64::max));
     for p in &model.points {
@@ -525,6 +529,129 @@ fn draw_legend(area: &DrawingArea<SVGBackend<'_>, Shift>, items: &[LegendItem]) 
             y += 16;
         }
     }
+    Ok(())
+}
+
+/// The backtest chart of one model: for each family (and the last-observed-value baseline),
+/// the skill predicted at the largest measured size from fits on the first k sizes, against
+/// the largest size used in the fit; the observed mean at the largest size as a reference.
+pub fn backtest_chart(model: &ModelResult) -> String {
+    let mut buf = String::new();
+    let drawn = {
+        let root = SVGBackend::with_string(&mut buf, (WIDTH, 340)).into_drawing_area();
+        let r = draw_backtest(&root, model).map_err(|e| e.to_string());
+        let p = root.present().map_err(|e| e.to_string());
+        r.and(p)
+    };
+    let svg = match drawn {
+        Ok(()) => buf,
+        Err(reason) => placeholder(&format!("chart not drawn: {reason}")),
+    };
+    finish(&svg, &format!("Backtest of model {}", model.name))
+}
+
+fn draw_backtest(root: &DrawingArea<SVGBackend<'_>, Shift>, model: &ModelResult) -> DrawResult {
+    root.fill(&WHITE)?;
+    let Some(bt) = model.backtest.as_ref().filter(|b| !b.cases.is_empty()) else {
+        root.draw(&Text::new(
+            "too few sizes to backtest",
+            (20, 40),
+            ("sans-serif", 16).into_font().color(&INK),
+        ))?;
+        return Ok(());
+    };
+    let observed = model.points.last().map(|p| p.mean).unwrap_or(0.0);
+    let xs: Vec<f64> = bt.cases.iter().map(|c| c.fitted_up_to).collect();
+    let x_lo = xs.iter().copied().fold(f64::INFINITY, f64::min) / 1.3;
+    let x_hi = xs.iter().copied().fold(0.0, f64::max) * 1.3;
+    let preds = bt.cases.iter().filter_map(|c| c.predicted_at_largest);
+    let (mut y_lo, mut y_hi) = (observed * 0.5, observed * 1.5);
+    for p in preds {
+        // Keep wild extrapolations from flattening the chart: clamp the range to 0–3× observed.
+        y_lo = y_lo.min(p.max(0.0));
+        y_hi = y_hi.max(p.min(3.0 * observed.abs().max(1e-9)));
+    }
+    let (plot_area, legend_area) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
+    let label_font = ("sans-serif", 13).into_font().color(&INK);
+    let mut chart = ChartBuilder::on(&plot_area)
+        .margin_top(14)
+        .margin_right(12)
+        .margin_left(6)
+        .margin_bottom(6)
+        .x_label_area_size(44)
+        .y_label_area_size(52)
+        .build_cartesian_2d(
+            (x_lo..x_hi)
+                .log_scale()
+                .with_key_points(log_ticks(x_lo, x_hi)),
+            y_lo..y_hi,
+        )?;
+    chart
+        .configure_mesh()
+        .x_desc("largest size used in the fit (log scale)")
+        .y_desc("predicted skill at the largest size")
+        .axis_desc_style(("sans-serif", 14).into_font().color(&INK))
+        .label_style(label_font)
+        .x_labels(8)
+        .y_labels(6)
+        .x_label_formatter(&|v| compact(*v))
+        .y_label_formatter(&|v| short(*v))
+        .bold_line_style(GRID)
+        .light_line_style(TRANSPARENT)
+        .axis_style(INK.mix(0.6))
+        .draw()?;
+    chart.draw_series(std::iter::once(DashedPathElement::new(
+        vec![(x_lo, observed), (x_hi, observed)],
+        6,
+        4,
+        TARGET.stroke_width(2),
+    )))?;
+    let mut items = vec![LegendItem {
+        swatch: Swatch::Line {
+            colour: TARGET,
+            width: 2,
+            dashed: true,
+        },
+        text: "observed at the largest size".into(),
+        second_line: None,
+    }];
+    let mut lines: Vec<(Option<Family>, RGBColor)> = vec![(None, FLOOR)];
+    lines.extend(
+        bt.scores
+            .iter()
+            .filter_map(|s| s.family)
+            .map(|f| (Some(f), family_colour(f))),
+    );
+    for (family, colour) in lines {
+        let pts: Vec<(f64, f64)> = bt
+            .cases
+            .iter()
+            .filter(|c| c.family == family)
+            .filter_map(|c| {
+                c.predicted_at_largest
+                    .map(|p| (c.fitted_up_to, p.clamp(y_lo, y_hi)))
+            })
+            .collect();
+        if pts.is_empty() {
+            continue;
+        }
+        let selected = family.is_some() && family == model.selected;
+        let style = colour.stroke_width(if selected { 3 } else { 1 });
+        chart.draw_series(LineSeries::new(pts.clone(), style))?;
+        chart.draw_series(pts.iter().map(|&p| Circle::new(p, 3, colour.filled())))?;
+        items.push(LegendItem {
+            swatch: Swatch::Line {
+                colour,
+                width: if selected { 3 } else { 1 },
+                dashed: false,
+            },
+            text: family
+                .map(|f| f.label().replace('-', " "))
+                .unwrap_or_else(|| "last observed value".into()),
+            second_line: selected.then(|| "(selected)".to_string()),
+        });
+    }
+    draw_legend(&legend_area, &items)?;
     Ok(())
 }
 

@@ -1,7 +1,7 @@
 //! The answer as plain text for the terminal (printed after `run`).
 
 use super::format::{bytes, sig3, thousands};
-use crate::study::results::{EstimateStatus, PlanDocument};
+use crate::study::results::PlanDocument;
 
 /// The answer as plain text for the terminal: per model and target, samples, simulated time,
 /// core-hours and storage with intervals, then warnings.
@@ -9,11 +9,13 @@ pub fn text_summary(doc: &PlanDocument) -> String {
     use std::fmt::Write;
     let mut s = String::new();
     let _ = writeln!(s, "{}", doc.study.title);
-    let _ = writeln!(
-        s,
-        "persistence floor: mean valid time {} time units",
-        sig3(doc.persistence.mean)
-    );
+    if let Some(p) = &doc.persistence {
+        let _ = writeln!(
+            s,
+            "persistence floor: mean valid time {} time units",
+            sig3(p.mean)
+        );
+    }
     let level = (doc.study.confidence * 100.0).round();
     for m in &doc.models {
         let selected = m.selected.map(|f| f.label()).unwrap_or("none");
@@ -27,11 +29,12 @@ pub fn text_summary(doc: &PlanDocument) -> String {
                 )
             };
             match (e.status, &e.budget) {
-                (EstimateStatus::Reached | EstimateStatus::AlreadyMet, Some(b)) => {
+                (status, Some(b)) if status.has_budget() => {
                     let _ = writeln!(
                         s,
-                        "  target {:>6}: {} samples ({level}% {}), {} time units, {} core-hours ({}), {}",
+                        "  target {:>6}: {}: {} samples ({level}% {}), {} time units, {} core-hours ({}), {}",
                         sig3(e.target),
+                        status.label(),
                         thousands(b.samples),
                         range(e.samples_interval[0], e.samples_interval[1], &thousands),
                         sig3(b.simulated_time),
@@ -44,12 +47,23 @@ pub fn text_summary(doc: &PlanDocument) -> String {
                         bytes(b.storage_bytes)
                     );
                 }
+                (status, _) if status.has_budget() => {
+                    let _ = writeln!(
+                        s,
+                        "  target {:>6}: {}: {} samples ({level}% {}); {}",
+                        sig3(e.target),
+                        status.label(),
+                        e.samples.map(thousands).unwrap_or_default(),
+                        range(e.samples_interval[0], e.samples_interval[1], &thousands),
+                        e.note
+                    );
+                }
                 _ => {
                     let _ = writeln!(
                         s,
-                        "  target {:>6}: {:?}: {}",
+                        "  target {:>6}: {}: {}",
                         sig3(e.target),
-                        e.status,
+                        e.status.label(),
                         e.note
                     );
                 }

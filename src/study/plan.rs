@@ -82,6 +82,7 @@ pub struct StudyPlan {
     pub targets: Vec<f64>,
     pub confidence: f64,
     pub bootstrap_draws: usize,
+    pub trust_factor: f64,
     pub cost: CostInputs,
 }
 
@@ -322,6 +323,13 @@ fn check(
             "a probability between 0.5 and 1, e.g. 0.9",
         ));
     }
+    if !(f.plan.trust_factor.is_finite() && f.plan.trust_factor >= 1.0) {
+        return Err(invalid(
+            "plan.trust-factor",
+            f.plan.trust_factor.to_string(),
+            "a number of at least 1 (multiples of the largest measured size)",
+        ));
+    }
     if !(20..=100_000).contains(&f.plan.bootstrap_draws) {
         return Err(invalid(
             "plan.bootstrap-draws",
@@ -359,6 +367,7 @@ fn check(
         targets,
         confidence: f.plan.confidence,
         bootstrap_draws: f.plan.bootstrap_draws,
+        trust_factor: f.plan.trust_factor,
         cost: f.cost,
     })
 }

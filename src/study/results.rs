@@ -23,12 +23,16 @@ pub struct PlanDocument {
     pub schema: String,
     pub tool_version: String,
     pub study: StudyInfo,
-    pub data: DataInfo,
-    pub skill: SkillInfo,
-    /// Persistence (x̂(t) = x(0)) on the same initial conditions: the floor.
-    pub persistence: SkillSummary,
+    /// The pilot data; `null` when the skill was measured outside the tool (`fit`).
+    pub data: Option<DataInfo>,
+    /// How skill was measured; `null` for skill measured outside the tool.
+    pub skill: Option<SkillInfo>,
+    /// Persistence (x̂(t) = x(0)) on the same initial conditions: the floor; `null` for skill
+    /// measured outside the tool.
+    pub persistence: Option<SkillSummary>,
     pub models: Vec<ModelResult>,
-    pub cost: CostModel,
+    /// The campaign cost model; `null` when no cost inputs were given.
+    pub cost: Option<CostModel>,
     pub warnings: Vec<String>,
     pub timings: Timings,
 }
@@ -49,6 +53,8 @@ pub struct StudyInfo {
     pub targets: Vec<f64>,
     pub confidence: f64,
     pub bootstrap_draws: usize,
+    /// Estimates beyond this multiple of the largest measured size are flagged as extrapolated.
+    pub trust_factor: f64,
 }
 
 /// The pilot data and its split.
@@ -95,8 +101,13 @@ pub struct ModelResult {
     pub settings: serde_json::Value,
     pub points: Vec<PointResult>,
     pub fits: Vec<FitResult>,
-    /// Family chosen by AICc among the successful fits.
+    /// Family with the largest weight (see `backtest`).
     pub selected: Option<Family>,
+    /// Backtest cases and scores, and the family weights used by the bootstrap.
+    pub backtest: Option<crate::curves::Backtest>,
+    /// Trust range: estimates beyond `trust_factor` × the largest measured size are flagged as
+    /// extrapolated.
+    pub trust_factor: f64,
     pub estimates: Vec<TargetEstimate>,
 }
 
@@ -137,18 +148,44 @@ pub struct FitResult {
     pub error: Option<String>,
 }
 
-/// Whether a target is reachable.
+/// Whether and how a target is reached.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum EstimateStatus {
-    /// The fitted curve reaches the target at `samples`.
-    Reached,
-    /// The target is already met at the smallest measured size.
-    AlreadyMet,
-    /// The fitted curve saturates below the target.
+    /// A measured size already reaches the target on average.
+    ReachedInData,
+    /// The selected curve reaches the target within the trust range (at most `trust-factor`
+    /// times the largest measured size).
+    Reachable,
+    /// The selected curve reaches the target only beyond the trust range.
+    Extrapolated,
+    /// The selected curve levels off below the target.
     Unreachable,
     /// No curve could be fitted.
     NoFit,
+}
+
+impl EstimateStatus {
+    /// Short human label.
+    pub fn label(&self) -> &'static str {
+        match self {
+            EstimateStatus::ReachedInData => "reached in the data",
+            EstimateStatus::Reachable => "reachable",
+            EstimateStatus::Extrapolated => "extrapolated",
+            EstimateStatus::Unreachable => "unreachable",
+            EstimateStatus::NoFit => "no fit",
+        }
+    }
+
+    /// Whether the estimate carries a sample count and a budget.
+    pub fn has_budget(&self) -> bool {
+        matches!(
+            self,
+            EstimateStatus::ReachedInData
+                | EstimateStatus::Reachable
+                | EstimateStatus::Extrapolated
+        )
+    }
 }
 
 /// Samples and cost to reach one target skill with one model.
@@ -158,17 +195,20 @@ pub struct TargetEstimate {
     /// Target mean valid time, model time units.
     pub target: f64,
     pub status: EstimateStatus,
-    /// Samples n* from the fit to all data.
+    /// n* from the selected family fitted to all data.
     pub samples: Option<f64>,
-    /// Bootstrap interval of n*; `None` for an unbounded side.
+    /// Bootstrap median of n* (`None` when infinite: most draws never reach the target).
+    pub median_samples: Option<f64>,
+    /// Bootstrap interval of n*; `None` for an unbounded side (an unbounded upper end reads
+    /// "n* ≥ lower").
     pub samples_interval: [Option<f64>; 2],
-    /// Share of bootstrap draws whose curve reached the target.
-    pub reached_share: f64,
+    /// Share of bootstrap draws whose curve never reaches the target.
+    pub p_unreachable: f64,
     /// Budget at n*, and at the interval ends.
     pub budget: Option<Budget>,
     pub budget_low: Option<Budget>,
     pub budget_high: Option<Budget>,
-    /// Fitted asymptote, when the family has one.
+    /// Fitted asymptote of the selected family, when it has one.
     pub asymptote: Option<f64>,
     /// n* divided by the largest measured size.
     pub extrapolation: Option<f64>,
@@ -195,8 +235,9 @@ impl TargetEstimate {
             target,
             status: EstimateStatus::NoFit,
             samples: None,
+            median_samples: None,
             samples_interval: [None, None],
-            reached_share: 0.0,
+            p_unreachable: 1.0,
             budget: None,
             budget_low: None,
             budget_high: None,

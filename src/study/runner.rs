@@ -7,7 +7,7 @@ use super::records::{RecordStore, SkillRecord};
 use super::results::*;
 use super::StudyError;
 use crate::cost::CostModel;
-use crate::curves::{self, Family, Inversion, SizeSamples};
+use crate::curves::{self, Family, Inversion, SizeSamples, SkillGrid};
 use crate::data::{
     column_stats, read_trajectory, Split, SplitSpec, Trajectory, TrajectoryMeta, SIDECAR_SCHEMA,
 };
@@ -360,8 +360,9 @@ fn run_in_pool(
             targets: plan.targets.clone(),
             confidence: plan.confidence,
             bootstrap_draws: plan.bootstrap_draws,
+            trust_factor: plan.trust_factor,
         },
-        data: DataInfo {
+        data: Some(DataInfo {
             source: prep.source.clone(),
             system: d.meta.system.clone(),
             parameters: d.meta.parameters.clone(),
@@ -375,8 +376,8 @@ fn run_in_pool(
             test_range: [ics[0], *ics.last().expect("at least one IC")],
             seed: d.meta.seed,
             sigma: prep.skill.sigma.clone(),
-        },
-        skill: SkillInfo {
+        }),
+        skill: Some(SkillInfo {
             definition: format!(
                 "valid prediction time: largest lead at which sqrt(mean_j ((x̂_j − x_j)/σ_j)²) has stayed ≤ {}, σ_j the training-pool standard deviation; mean over {} test initial conditions",
                 t.threshold,
@@ -386,10 +387,10 @@ fn run_in_pool(
             warm_up: t.warm_up,
             max_lead: t.max_lead,
             lyapunov_exponent: t.lyapunov_exponent,
-        },
-        persistence: persistence_summary,
+        }),
+        persistence: Some(persistence_summary),
         models,
-        cost: prep.cost.clone(),
+        cost: Some(prep.cost.clone()),
         warnings,
         timings: Timings {
             total: started.elapsed().as_secs_f64(),
@@ -415,13 +416,11 @@ fn model_result(
     warnings: &mut Vec<String>,
 ) -> ModelResult {
     let model = &plan.models[m];
-    // Per size: replicate means in replicate order.
     let mut points = Vec::new();
-    let mut samples = Vec::new();
+    let mut grid = Vec::new();
     for &n in &plan.sizes {
         let mut at: Vec<&SkillRecord> = records.iter().copied().filter(|r| r.n == n).collect();
         at.sort_by_key(|r| r.replicate);
-        let replicate_means: Vec<f64> = at.iter().map(|r| r.summary.mean).collect();
         let all: Vec<IcSkill> = at
             .iter()
             .flat_map(|r| r.initial_conditions.iter().copied())
@@ -431,11 +430,20 @@ fn model_result(
             let v: Vec<f64> = at.iter().filter_map(|r| f(r)).collect();
             (!v.is_empty()).then(|| v.iter().sum::<f64>() / v.len() as f64)
         };
-        samples.push(SizeSamples {
+        let cell = SkillGrid {
             n: n as f64,
-            replicate_values: replicate_means.clone(),
+            values: at
+                .iter()
+                .map(|r| {
+                    r.initial_conditions
+                        .iter()
+                        .map(|ic| ic.valid_time)
+                        .collect()
+                })
+                .collect(),
             censored: s.censored_share > 0.0,
-        });
+        };
+        let replicate_means = cell.replicate_means().replicate_values;
         points.push(PointResult {
             n,
             mean: replicate_means.iter().sum::<f64>() / replicate_means.len().max(1) as f64,
@@ -448,33 +456,103 @@ fn model_result(
             ridge_penalty: mean_of(&|r| r.fit.ridge_penalty),
             training_rmse: mean_of(&|r| r.fit.training_rmse),
         });
+        grid.push(cell);
     }
-    let curve_points = curves::summarise(&samples);
-    for (p, c) in points.iter_mut().zip(&curve_points) {
-        p.standard_error = c.standard_error;
+    let curve = analyse_curve(
+        &grid,
+        &plan.targets,
+        &CurveSettings {
+            draws: plan.bootstrap_draws,
+            level: plan.confidence,
+            trust_factor: plan.trust_factor,
+            seed: derive_seed(plan.seed, &model.name, usize::MAX),
+        },
+        Some(cost),
+    );
+    for (p, se) in points.iter_mut().zip(&curve.standard_errors) {
+        p.standard_error = *se;
     }
+    if curve.selected.is_none() {
+        warnings.push(format!(
+            "{}: no learning-curve family could be fitted; no budget is given for this model",
+            model.name
+        ));
+    }
+    for e in &curve.estimates {
+        if e.status == EstimateStatus::Extrapolated {
+            warnings.push(format!(
+                "{}: reaching {} needs {:.1}× the largest measured subset, beyond the trust range ({}×); measure larger subsets before relying on it",
+                model.name,
+                e.target,
+                e.extrapolation.unwrap_or(f64::NAN),
+                plan.trust_factor
+            ));
+        }
+    }
+    let settings = match &model.kind {
+        ModelKind::Esn(p) => serde_json::to_value(p.get()).expect("settings serialise"),
+    };
+    ModelResult {
+        name: model.name.clone(),
+        kind: model.kind.label().into(),
+        settings,
+        points,
+        fits: curve.fits,
+        selected: curve.selected,
+        backtest: curve.backtest,
+        trust_factor: plan.trust_factor,
+        estimates: curve.estimates,
+    }
+}
 
+/// Settings of the curve analysis.
+#[derive(Debug, Clone, Copy)]
+pub struct CurveSettings {
+    pub draws: usize,
+    pub level: f64,
+    pub trust_factor: f64,
+    pub seed: u64,
+}
+
+/// Fits, backtest, weights and per-target estimates for one model's measured skill.
+pub struct CurveAnalysis {
+    /// Standard error used as fit weight at each size.
+    pub standard_errors: Vec<f64>,
+    pub fits: Vec<FitResult>,
+    pub selected: Option<Family>,
+    pub backtest: Option<curves::Backtest>,
+    pub estimates: Vec<TargetEstimate>,
+}
+
+/// Fits every family to the measured skill, backtests and weights them, bootstraps n* for
+/// every target over replicates, initial conditions and families, and (when a cost model is
+/// given) prices every estimate. Shared by studies and by fits of user-measured skill.
+pub fn analyse_curve(
+    grid: &[SkillGrid],
+    targets: &[f64],
+    settings: &CurveSettings,
+    cost: Option<&CostModel>,
+) -> CurveAnalysis {
+    let samples: Vec<SizeSamples> = grid.iter().map(|g| g.replicate_means()).collect();
+    let curve_points = curves::summarise(&samples);
     let mut fits = Vec::new();
     let mut ok_fits = Vec::new();
     for family in Family::ALL {
+        let names = family.param_names();
+        let named = |v: &[f64]| -> BTreeMap<String, f64> {
+            names
+                .iter()
+                .map(|n| n.to_string())
+                .zip(v.iter().copied())
+                .collect()
+        };
         match curves::fit_family(family, &curve_points) {
             Ok(fit) => {
-                let names = family.param_names();
                 fits.push(FitResult {
                     family,
                     formula: family.formula().into(),
-                    params: names
-                        .iter()
-                        .map(|n| n.to_string())
-                        .zip(fit.params.iter().copied())
-                        .collect(),
-                    std_errors: fit.std_errors.as_ref().map(|se| {
-                        names
-                            .iter()
-                            .map(|n| n.to_string())
-                            .zip(se.iter().copied())
-                            .collect()
-                    }),
+                    params: named(&fit.params),
+                    std_errors: fit.std_errors.as_deref().map(named),
                     weighted_rss: Some(fit.weighted_rss),
                     aicc: fit.aicc,
                     asymptote: family.asymptote(&fit.params),
@@ -494,59 +572,40 @@ fn model_result(
             }),
         }
     }
-    let selected = curves::select_by_aicc(&ok_fits).map(|i| &ok_fits[i]);
-    if selected.is_none() {
-        warnings.push(format!(
-            "{}: no learning-curve family could be fitted and selected; no budget is given for this model",
-            model.name
-        ));
-    }
-    let smallest = plan.sizes[0] as f64;
-    let largest = *plan.sizes.last().expect("sizes") as f64;
-    let estimates: Vec<TargetEstimate> = match selected {
-        None => plan
-            .targets
-            .iter()
-            .map(|&target| TargetEstimate::no_fit(target, "no learning curve could be fitted"))
-            .collect(),
-        Some(fit) => {
-            let boot = curves::bootstrap_inversion(
-                fit.family,
-                &samples,
-                &plan.targets,
-                plan.bootstrap_draws,
-                plan.confidence,
-                derive_seed(plan.seed, &model.name, usize::MAX),
+    let bt = (!ok_fits.is_empty()).then(|| curves::backtest(&samples, &Family::ALL, &ok_fits));
+    let selected = bt
+        .as_ref()
+        .and_then(|b| b.selected())
+        .and_then(|f| ok_fits.iter().find(|x| x.family == f));
+    let estimates = match (selected, &bt) {
+        (Some(fit), Some(b)) => {
+            let draws = curves::bootstrap_targets(
+                grid,
+                &b.weights,
+                &ok_fits,
+                targets,
+                settings.draws,
+                settings.level,
+                settings.seed,
             );
-            plan.targets
+            targets
                 .iter()
-                .zip(boot)
-                .map(|(&target, b)| {
-                    estimate(fit, target, &b, smallest, largest, plan.confidence, cost)
+                .zip(draws)
+                .map(|(&target, d)| {
+                    estimate(fit, target, &d, &curve_points, settings.trust_factor, cost)
                 })
                 .collect()
         }
+        _ => targets
+            .iter()
+            .map(|&target| TargetEstimate::no_fit(target, "no learning curve could be fitted"))
+            .collect(),
     };
-    for e in estimates.iter() {
-        if let Some(x) = e.extrapolation {
-            if x > 10.0 {
-                warnings.push(format!(
-                    "{}: reaching {} needs {:.0}× the largest measured subset; an extrapolation that far is unreliable, measure larger subsets",
-                    model.name, e.target, x
-                ));
-            }
-        }
-    }
-    let settings = match &model.kind {
-        ModelKind::Esn(p) => serde_json::to_value(p.get()).expect("settings serialise"),
-    };
-    ModelResult {
-        name: model.name.clone(),
-        kind: model.kind.label().into(),
-        settings,
-        points,
+    CurveAnalysis {
+        standard_errors: curve_points.iter().map(|p| p.standard_error).collect(),
         fits,
         selected: selected.map(|f| f.family),
+        backtest: bt,
         estimates,
     }
 }
@@ -554,68 +613,90 @@ fn model_result(
 fn estimate(
     fit: &curves::CurveFit,
     target: f64,
-    boot: &curves::BootstrapSummary,
-    smallest: f64,
-    largest: f64,
-    level: f64,
-    cost: &CostModel,
+    draws: &curves::TargetDraws,
+    points: &[curves::CurvePoint],
+    trust_factor: f64,
+    cost: Option<&CostModel>,
 ) -> TargetEstimate {
-    let reached_share = boot.reached_draws as f64 / boot.draws.max(1) as f64;
-    let asymptote = fit.family.asymptote(&fit.params);
-    // A two-sided interval at `level` needs the upper quantile (1 + level)/2 of n*; draws that
-    // never reach count as n* = ∞, so the upper end is unbounded when too few draws reach.
-    let upper_prob = (1.0 + level) / 2.0;
-    let interval = match boot.n_quantiles {
-        Some((lo, _, hi)) if reached_share >= upper_prob => {
-            // Quantiles over reached draws only; rescale to all draws with unreached at +∞.
-            [Some(lo), Some(hi)]
-        }
-        Some((lo, _, _)) => [Some(lo), None],
-        None => [None, None],
+    let largest = points.last().map(|p| p.n).unwrap_or(f64::NAN);
+    let interval = [draws.lower, draws.upper];
+    let price = |n: Option<f64>| n.and_then(|n| cost.map(|c| c.budget(n)));
+    let pct = |p: f64| format!("{:.0}%", 100.0 * p);
+    let unreachable_note = if draws.p_unreachable > 0.0 {
+        format!(
+            "; in {} of bootstrap draws the curve never reaches the target",
+            pct(draws.p_unreachable)
+        )
+    } else {
+        String::new()
     };
+    let first_in_data = points.iter().find(|p| p.mean >= target);
     let base = TargetEstimate {
         target,
         status: EstimateStatus::Unreachable,
         samples: None,
+        median_samples: draws.median,
         samples_interval: interval,
-        reached_share,
+        p_unreachable: draws.p_unreachable,
         budget: None,
-        budget_low: interval[0].map(|n| cost.budget(n)),
-        budget_high: interval[1].map(|n| cost.budget(n)),
-        asymptote,
+        budget_low: price(interval[0]),
+        budget_high: price(interval[1]),
+        asymptote: fit.family.asymptote(&fit.params),
         extrapolation: None,
         note: String::new(),
     };
-    match fit.invert(target) {
-        Inversion::Reached { n } if n <= smallest => TargetEstimate {
-            status: EstimateStatus::AlreadyMet,
-            samples: Some(smallest),
-            budget: Some(cost.budget(smallest)),
-            extrapolation: Some(smallest / largest),
-            note: format!("met at the smallest measured size ({smallest:.0} samples); smaller sets were not measured"),
-            ..base
-        },
-        Inversion::Reached { n } => TargetEstimate {
-            status: EstimateStatus::Reached,
-            samples: Some(n),
-            budget: Some(cost.budget(n)),
-            extrapolation: Some(n / largest),
-            note: if interval[1].is_none() {
-                format!(
-                    "only {:.0}% of bootstrap draws reach the target: the upper end of the interval is unbounded",
-                    100.0 * reached_share
-                )
-            } else if n > largest {
-                format!("extrapolated {:.1}× beyond the largest measured subset", n / largest)
-            } else {
-                "within the measured range".into()
-            },
-            ..base
-        },
-        Inversion::Unreachable { asymptote, reason } => TargetEstimate {
+    match (fit.invert(target), first_in_data) {
+        (inv, Some(p)) => {
+            let n = match inv {
+                Inversion::Reached { n } if n <= p.n => n.max(points[0].n.min(n)),
+                _ => p.n,
+            };
+            TargetEstimate {
+                status: EstimateStatus::ReachedInData,
+                samples: Some(n),
+                budget: price(Some(n)),
+                extrapolation: Some(n / largest),
+                note: format!(
+                    "the measured mean reaches the target at {} samples{unreachable_note}",
+                    p.n
+                ),
+                ..base
+            }
+        }
+        (Inversion::Reached { n }, None) => {
+            let beyond = n > trust_factor * largest;
+            TargetEstimate {
+                status: if beyond {
+                    EstimateStatus::Extrapolated
+                } else {
+                    EstimateStatus::Reachable
+                },
+                samples: Some(n),
+                budget: price(Some(n)),
+                extrapolation: Some(n / largest),
+                note: if beyond {
+                    format!(
+                        "extrapolated {:.1}× beyond the largest measured size (trust range {trust_factor}×){unreachable_note}",
+                        n / largest
+                    )
+                } else if interval[1].is_none() {
+                    format!(
+                        "the upper end is unbounded: n* ≥ {}{unreachable_note}",
+                        interval[0].map(|l| format!("{l:.0}")).unwrap_or_else(|| "?".into())
+                    )
+                } else {
+                    format!("{:.1}× the largest measured size{unreachable_note}", n / largest)
+                },
+                ..base
+            }
+        }
+        (Inversion::Unreachable { asymptote, reason }, None) => TargetEstimate {
             asymptote: asymptote.or(base.asymptote),
             note: match asymptote {
-                Some(a) => format!("the fitted curve levels off at {a:.3}, at or below the target"),
+                Some(a) => format!(
+                    "the fitted curve levels off at {a:.3}, at or below the target; unreachable in {} of bootstrap draws",
+                    pct(draws.p_unreachable)
+                ),
                 None => reason,
             },
             ..base

@@ -161,9 +161,17 @@ pub struct PlanSection {
     /// Two-sided confidence level of the intervals (default 0.9).
     #[serde(default = "default_confidence")]
     pub confidence: f64,
-    /// Bootstrap draws over replicates (default 400).
+    /// Bootstrap draws over replicates, test initial conditions and curve families (default 400).
     #[serde(default = "default_draws")]
     pub bootstrap_draws: usize,
+    /// Estimates beyond this multiple of the largest measured size are flagged as
+    /// extrapolated (default 2).
+    #[serde(default = "default_trust_factor")]
+    pub trust_factor: f64,
+}
+
+fn default_trust_factor() -> f64 {
+    2.0
 }
 
 fn default_confidence() -> f64 {

@@ -1,0 +1,1297 @@
+//! The full campaign cost model: solver rate, Reynolds-number scaling, runs, overheads,
+//! charging, wall-clock and storage, and its breakdown for a number of saved samples.
+//!
+//! Formulas, for S saved samples at saving interval Δt_save over R runs:
+//!
+//! - rate r (device-hours per model time unit): measured; or N · c / Δt_solver / 3600 for N grid
+//!   points and c core- (or GPU-) seconds per point-step; carried to the target Reynolds number
+//!   by a [`ScalingLaw`] (rate × (Re_t/Re_p)^(cost exponent), N × (Re_t/Re_p)^(grid exponent),
+//!   Δt_solver ÷ (Re_t/Re_p)^(step exponent));
+//! - runs R: given, or the fewest runs whose wall-clock each stays within a limit L:
+//!   R = max(1, ⌈S·Δt_save / (L/w − spin-up)⌉) with w the wall-hours per model time unit of one
+//!   run (below);
+//! - sampling time per run = S/R · Δt_save; simulated time T = S·Δt_save + R · spin-up;
+//!   solver steps = T / Δt_solver;
+//! - checkpointing (Young 1974): interval τ = √(2δM) for checkpoint cost δ and mean time between
+//!   failures M (wall-hours), expected overhead fraction f = δ/τ + τ/(2M) (writing plus rework
+//!   after a failure, to first order; needs δ ≪ M, here enforced as δ < M/2);
+//! - production device-hours H = T · r · overhead factor · (1 + f) / e, with e the parallel
+//!   efficiency (the share of the measured per-device throughput kept at run size);
+//! - contingency line = (contingency factor − 1) · production (failed and test runs), for every
+//!   charge; total = production + contingency;
+//! - wall-clock: one run takes H/R ÷ (devices per run) hours; w = r · overhead · (1 + f) /
+//!   (e · devices per run); with k runs at once (⌊nodes / nodes per run⌋, or all R when the
+//!   allocation size is not given) the campaign takes ⌈R/k⌉ run lengths in parallel, R one after
+//!   another (contingency runs not included);
+//! - whole-node charging: nodes per run = ⌈devices per run / devices per node⌉; node-hours =
+//!   R · nodes per run · hours per run; charged device-hours = node-hours · devices per node;
+//!   service units = node-hours · units per node-hour; GPU charge = charged GPU-hours · factor;
+//! - storage: snapshot = values per sample · bytes per value · storage factor (values per sample
+//!   = grid points · variables per point when given); checkpoint file = checkpoint values · 8
+//!   bytes; scratch = S snapshots + R · checkpoints kept · checkpoint file; archive = S snapshots
+//!   + one final checkpoint per run.
+//!
+//! Every figure except the per-run ones is non-decreasing in S, so quantiles of S map to
+//! quantiles of the figure. With a wall-clock limit, adding a run shortens every run, so the
+//! per-run and campaign wall-clock are not monotone in S.
+//!
+//! References: J. W. Young (1974), A first order approximation to the optimum checkpoint
+//! interval, Commun. ACM 17(9), 530–531; scaling laws in [`super::scaling`].
+
+use super::scaling::{ReynoldsScaling, ScalingLaw};
+use super::{Budget, CostError, CostInputs, CostModel};
+use serde::{Deserialize, Serialize};
+
+/// What the rate counts: CPU core-hours or GPU-hours.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Device {
+    Cpu,
+    Gpu,
+}
+
+impl Device {
+    /// "core-hours" or "GPU-hours".
+    pub fn hours_label(&self) -> &'static str {
+        match self {
+            Device::Cpu => "core-hours",
+            Device::Gpu => "GPU-hours",
+        }
+    }
+    /// "cores" or "GPUs".
+    pub fn plural(&self) -> &'static str {
+        match self {
+            Device::Cpu => "cores",
+            Device::Gpu => "GPUs",
+        }
+    }
+}
+
+/// Where the rate came from, with the inputs at the pilot Reynolds number.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", tag = "kind")]
+pub enum RateSource {
+    /// `core-hours-per-time-unit`, measured.
+    Measured { core_hours_per_time_unit: f64 },
+    /// grid points × core-seconds per point-step ÷ solver time step ÷ 3600.
+    CpuPointSteps {
+        grid_points: f64,
+        core_seconds_per_point_step: f64,
+        solver_time_step: f64,
+    },
+    /// grid points × GPU-seconds per point-step ÷ solver time step ÷ 3600.
+    GpuPointSteps {
+        grid_points: f64,
+        gpu_seconds_per_point_step: f64,
+        solver_time_step: f64,
+        gpus_per_run: u32,
+    },
+}
+
+/// How the number of runs is chosen.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", tag = "rule")]
+pub enum RunCount {
+    Fixed {
+        runs: u32,
+    },
+    /// The fewest runs whose wall-clock each stays within the limit.
+    WallLimit {
+        max_wall_hours_per_run: f64,
+    },
+}
+
+/// Young's checkpoint interval and the expected overhead it implies.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct Checkpointing {
+    /// δ, wall-hours to write one checkpoint.
+    pub cost_hours: f64,
+    /// M, mean time between failures, wall-hours.
+    pub mtbf_hours: f64,
+    /// τ = √(2δM), wall-hours of computing between checkpoints.
+    pub interval_hours: f64,
+    /// f = δ/τ + τ/(2M), expected share of extra wall time.
+    pub overhead_fraction: f64,
+}
+
+/// Young's (1974) first-order optimal checkpoint interval τ = √(2δM).
+pub fn young_interval(checkpoint_cost: f64, mtbf: f64) -> f64 {
+    (2.0 * checkpoint_cost * mtbf).sqrt()
+}
+
+impl Checkpointing {
+    /// Checkpointing at Young's interval for checkpoint cost δ and mean time between failures M.
+    pub fn young(cost_hours: f64, mtbf_hours: f64) -> Checkpointing {
+        let tau = young_interval(cost_hours, mtbf_hours);
+        Checkpointing {
+            cost_hours,
+            mtbf_hours,
+            interval_hours: tau,
+            overhead_fraction: cost_hours / tau + tau / (2.0 * mtbf_hours),
+        }
+    }
+}
+
+/// Snapshot and checkpoint sizes.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct StorageModel {
+    /// Values per saved snapshot (at the target Reynolds number), before the storage factor.
+    pub values_per_sample: f64,
+    pub bytes_per_value: u32,
+    /// Spectral or dealiasing factor on the snapshot size.
+    pub storage_factor: f64,
+    /// Values per checkpoint file (written in double precision).
+    pub checkpoint_values: f64,
+    /// Checkpoint files kept on scratch per run.
+    pub checkpoints_kept: u32,
+}
+
+impl StorageModel {
+    /// Bytes of one saved snapshot: values × bytes per value × storage factor.
+    pub fn snapshot_bytes(&self) -> f64 {
+        self.values_per_sample * self.bytes_per_value as f64 * self.storage_factor
+    }
+    /// Bytes of one checkpoint file: checkpoint values × 8.
+    pub fn checkpoint_bytes(&self) -> f64 {
+        self.checkpoint_values * 8.0
+    }
+}
+
+/// The checked campaign model (every default resolved, every key validated).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct Campaign {
+    pub device: Device,
+    pub rate_source: RateSource,
+    /// Device-hours per model time unit at the pilot Reynolds number.
+    pub pilot_rate: f64,
+    /// Device-hours per model time unit for the campaign (after scaling).
+    pub rate: f64,
+    pub scaling: Option<ReynoldsScaling>,
+    /// Grid points of the campaign's solver (after scaling), when known.
+    pub grid_points: Option<f64>,
+    /// Solver time step of the campaign (after scaling), model time units, when known.
+    pub solver_time_step: Option<f64>,
+    /// Time between saved samples, model time units.
+    pub sample_interval: f64,
+    pub runs: RunCount,
+    pub spin_up_per_run: f64,
+    pub overhead_factor: f64,
+    pub checkpointing: Option<Checkpointing>,
+    pub contingency_factor: f64,
+    pub parallel_efficiency: f64,
+    /// Cores (CPU) or GPUs each run uses.
+    pub devices_per_run: Option<u32>,
+    /// Cores (CPU) or GPUs per node, for whole-node charging.
+    pub devices_per_node: Option<u32>,
+    /// Nodes available at once.
+    pub nodes_available: Option<u32>,
+    pub gpu_charge_factor: Option<f64>,
+    pub service_units_per_node_hour: Option<f64>,
+    pub storage: StorageModel,
+}
+
+/// Charges of one line of the table (production, contingency or total).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct Charges {
+    /// Core-hours (CPU) or GPU-hours (GPU).
+    pub device_hours: f64,
+    pub node_hours: Option<f64>,
+    /// Device-hours charged for whole nodes (node-hours × devices per node).
+    pub whole_node_device_hours: Option<f64>,
+    /// Charged GPU-hours × GPU charge factor.
+    pub gpu_charge: Option<f64>,
+    pub service_units: Option<f64>,
+}
+
+impl Charges {
+    fn scaled(&self, k: f64) -> Charges {
+        Charges {
+            device_hours: self.device_hours * k,
+            node_hours: self.node_hours.map(|x| x * k),
+            whole_node_device_hours: self.whole_node_device_hours.map(|x| x * k),
+            gpu_charge: self.gpu_charge.map(|x| x * k),
+            service_units: self.service_units.map(|x| x * k),
+        }
+    }
+}
+
+/// Wall-clock of the production runs.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct WallClock {
+    pub devices_per_run: u32,
+    pub nodes_per_run: Option<u32>,
+    /// Wall-hours of one run.
+    pub hours_per_run: f64,
+    /// Runs that fit on the allocation at once.
+    pub concurrent_runs: u32,
+    /// Campaign wall-hours with up to `concurrent_runs` runs at once.
+    pub parallel_hours: f64,
+    /// Campaign wall-hours with the runs one after another.
+    pub serial_hours: f64,
+}
+
+/// Storage of the campaign.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct StorageBreakdown {
+    pub snapshot_bytes_each: f64,
+    /// All saved snapshots.
+    pub snapshot_bytes: f64,
+    pub checkpoint_bytes_each: f64,
+    /// Snapshots plus the checkpoints kept by every run.
+    pub scratch_bytes: f64,
+    /// Snapshots plus one final checkpoint per run.
+    pub archive_bytes: f64,
+}
+
+/// The campaign's cost for a number of saved samples, figure by figure.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct Breakdown {
+    pub samples: f64,
+    pub runs: u32,
+    pub spin_up_per_run: f64,
+    pub sampling_time_per_run: f64,
+    /// Model time units, spin-up included.
+    pub simulated_time: f64,
+    pub spin_up_steps_per_run: Option<f64>,
+    pub sampling_steps_per_run: Option<f64>,
+    pub solver_steps: Option<f64>,
+    pub device: Device,
+    /// Simulated time × rate, before overheads.
+    pub base_device_hours: f64,
+    pub production: Charges,
+    pub contingency: Charges,
+    pub total: Charges,
+    pub wall: Option<WallClock>,
+    pub storage: StorageBreakdown,
+}
+
+fn bad(key: &'static str, value: impl ToString, allowed: &'static str) -> CostError {
+    CostError::Invalid {
+        key,
+        value: value.to_string(),
+        allowed,
+    }
+}
+
+fn positive(key: &'static str, x: Option<f64>) -> Result<Option<f64>, CostError> {
+    match x {
+        Some(v) if !(v.is_finite() && v > 0.0) => Err(bad(key, v, "a positive number")),
+        _ => Ok(x),
+    }
+}
+
+fn at_least_one(key: &'static str, x: Option<u32>) -> Result<Option<u32>, CostError> {
+    match x {
+        Some(0) => Err(bad(key, 0, "a whole number of at least 1")),
+        _ => Ok(x),
+    }
+}
+
+fn require<T>(
+    x: Option<T>,
+    key: &'static str,
+    needs: &'static str,
+    why: &'static str,
+) -> Result<T, CostError> {
+    x.ok_or(CostError::Missing { key, needs, why })
+}
+
+impl CostInputs {
+    /// Checks every key and resolves the full campaign model; `variables` (the data's state
+    /// variables, the default values per sample) and `sample_interval` come from the data.
+    pub fn campaign(&self, variables: usize, sample_interval: f64) -> Result<Campaign, CostError> {
+        // Rate: exactly one of three.
+        let given: Vec<&'static str> = [
+            (
+                "core-hours-per-time-unit",
+                self.core_hours_per_time_unit.is_some(),
+            ),
+            (
+                "core-seconds-per-point-step",
+                self.core_seconds_per_point_step.is_some(),
+            ),
+            (
+                "gpu-seconds-per-point-step",
+                self.gpu_seconds_per_point_step.is_some(),
+            ),
+        ]
+        .iter()
+        .filter(|(_, on)| *on)
+        .map(|(k, _)| *k)
+        .collect();
+        match given.len() {
+            0 => return Err(CostError::MissingRate),
+            1 => {}
+            _ => {
+                return Err(CostError::TwoRates {
+                    keys: given
+                        .iter()
+                        .map(|k| format!("`{k}`"))
+                        .collect::<Vec<_>>()
+                        .join(", "),
+                })
+            }
+        }
+        positive("core-hours-per-time-unit", self.core_hours_per_time_unit)?;
+        positive(
+            "core-seconds-per-point-step",
+            self.core_seconds_per_point_step,
+        )?;
+        positive(
+            "gpu-seconds-per-point-step",
+            self.gpu_seconds_per_point_step,
+        )?;
+        positive("solver-time-step", self.solver_time_step)?;
+        if let Some(n) = self.grid_points {
+            if !(n.is_finite() && n >= 1.0) {
+                return Err(bad("grid-points", n, "a number of at least 1"));
+            }
+        }
+        let gpus_per_run = at_least_one("gpus-per-run", self.gpus_per_run)?;
+        let cores_per_run = at_least_one("cores-per-run", self.cores_per_run)?;
+        let cores_per_node = at_least_one("cores-per-node", self.cores_per_node)?;
+        let gpus_per_node = at_least_one("gpus-per-node", self.gpus_per_node)?;
+        let nodes = at_least_one("nodes", self.nodes)?;
+
+        let why_grid = "the rate is grid points × seconds per point-step ÷ solver time step";
+        let (device, rate_source, pilot_rate) = if let Some(c) = self.core_hours_per_time_unit {
+            (
+                Device::Cpu,
+                RateSource::Measured {
+                    core_hours_per_time_unit: c,
+                },
+                c,
+            )
+        } else if let Some(c) = self.core_seconds_per_point_step {
+            let key = "core-seconds-per-point-step";
+            let n = require(self.grid_points, key, "grid-points", why_grid)?;
+            let dt = require(self.solver_time_step, key, "solver-time-step", why_grid)?;
+            let src = RateSource::CpuPointSteps {
+                grid_points: n,
+                core_seconds_per_point_step: c,
+                solver_time_step: dt,
+            };
+            (Device::Cpu, src, n * c / dt / 3600.0)
+        } else {
+            let key = "gpu-seconds-per-point-step";
+            let c = self.gpu_seconds_per_point_step.unwrap_or_default();
+            let n = require(self.grid_points, key, "grid-points", why_grid)?;
+            let dt = require(self.solver_time_step, key, "solver-time-step", why_grid)?;
+            let g = require(
+                gpus_per_run,
+                key,
+                "gpus-per-run",
+                "the wall-clock and node count follow from the GPUs each run uses",
+            )?;
+            let src = RateSource::GpuPointSteps {
+                grid_points: n,
+                gpu_seconds_per_point_step: c,
+                solver_time_step: dt,
+                gpus_per_run: g,
+            };
+            (Device::Gpu, src, n * c / dt / 3600.0)
+        };
+        let gpu_only = "only with `gpu-seconds-per-point-step` (a GPU rate)";
+        let cpu_only =
+            "only with a CPU rate (`core-hours-per-time-unit` or `core-seconds-per-point-step`)";
+        if device == Device::Cpu {
+            if let Some(g) = gpus_per_run {
+                return Err(bad("gpus-per-run", g, gpu_only));
+            }
+            if let Some(g) = gpus_per_node {
+                return Err(bad("gpus-per-node", g, gpu_only));
+            }
+            if let Some(f) = self.gpu_charge_factor {
+                return Err(bad("gpu-charge-factor", f, gpu_only));
+            }
+        } else {
+            if let Some(c) = cores_per_run {
+                return Err(bad("cores-per-run", c, cpu_only));
+            }
+            if let Some(c) = cores_per_node {
+                return Err(bad("cores-per-node", c, cpu_only));
+            }
+        }
+        let (devices_per_run, devices_per_node) = match device {
+            Device::Cpu => (cores_per_run, cores_per_node),
+            Device::Gpu => (gpus_per_run, gpus_per_node),
+        };
+        let (per_run_key, per_node_key) = match device {
+            Device::Cpu => ("cores-per-run", "cores-per-node"),
+            Device::Gpu => ("gpus-per-run", "gpus-per-node"),
+        };
+        if devices_per_node.is_some() && devices_per_run.is_none() {
+            return Err(CostError::Missing {
+                key: per_node_key,
+                needs: per_run_key,
+                why: "whole-node charging rounds each run's devices up to whole nodes",
+            });
+        }
+
+        // Reynolds-number scaling.
+        let pilot_re = positive("pilot-reynolds", self.pilot_reynolds)?;
+        let target_re = positive("target-reynolds", self.target_reynolds)?;
+        let scaling = match &self.scaling_law {
+            None => {
+                for (key, given) in [
+                    ("pilot-reynolds", pilot_re.is_some()),
+                    ("target-reynolds", target_re.is_some()),
+                    ("grid-exponent", self.grid_exponent.is_some()),
+                    ("step-exponent", self.step_exponent.is_some()),
+                ] {
+                    if given {
+                        return Err(CostError::Missing {
+                            key,
+                            needs: "scaling-law",
+                            why: "Reynolds numbers and exponents only act through a scaling law",
+                        });
+                    }
+                }
+                None
+            }
+            Some(name) => {
+                let custom = name == "custom";
+                for (key, x) in [
+                    ("grid-exponent", self.grid_exponent),
+                    ("step-exponent", self.step_exponent),
+                ] {
+                    match x {
+                        Some(v) if !custom => {
+                            return Err(bad(key, v, "only with scaling-law = \"custom\""))
+                        }
+                        Some(v) if !v.is_finite() => return Err(bad(key, v, "a finite number")),
+                        _ => {}
+                    }
+                }
+                let grid_exponent = if custom {
+                    require(
+                        self.grid_exponent,
+                        "scaling-law",
+                        "grid-exponent",
+                        "a custom law needs the exponent of grid points in Re",
+                    )?
+                } else {
+                    0.0
+                };
+                let law = ScalingLaw::from_name(
+                    name,
+                    grid_exponent,
+                    self.step_exponent.unwrap_or(0.0),
+                )
+                .ok_or_else(|| bad("scaling-law", format!("\"{name}\""), ScalingLaw::NAMES))?;
+                let why =
+                    "the law scales the pilot rate from the pilot to the target Reynolds number";
+                let p = require(pilot_re, "scaling-law", "pilot-reynolds", why)?;
+                let t = require(target_re, "scaling-law", "target-reynolds", why)?;
+                Some(ReynoldsScaling::new(law, p, t))
+            }
+        };
+        let (rate, grid_points, solver_time_step) = match &scaling {
+            None => (pilot_rate, self.grid_points, self.solver_time_step),
+            Some(s) => (
+                s.law
+                    .scale_rate(pilot_rate, s.pilot_reynolds, s.target_reynolds),
+                self.grid_points
+                    .map(|n| s.law.scale_grid(n, s.pilot_reynolds, s.target_reynolds)),
+                self.solver_time_step.map(|dt| {
+                    s.law
+                        .scale_time_step(dt, s.pilot_reynolds, s.target_reynolds)
+                }),
+            ),
+        };
+
+        // Campaign shape.
+        if !(sample_interval.is_finite() && sample_interval > 0.0) {
+            return Err(bad(
+                "sample-interval",
+                sample_interval,
+                "a positive number of model time units",
+            ));
+        }
+        if self.runs.is_some() && self.max_wall_hours_per_run.is_some() {
+            return Err(CostError::Conflict {
+                a: "runs",
+                b: "max-wall-hours-per-run",
+                why: "give the number of runs, or a per-run limit to choose it from",
+            });
+        }
+        at_least_one("runs", self.runs)?;
+        positive("max-wall-hours-per-run", self.max_wall_hours_per_run)?;
+        if !(self.spin_up_per_run.is_finite() && self.spin_up_per_run >= 0.0) {
+            return Err(bad(
+                "spin-up-per-run",
+                self.spin_up_per_run,
+                "zero or a positive number of model time units",
+            ));
+        }
+
+        // Overheads.
+        if !(self.overhead_factor.is_finite() && self.overhead_factor >= 1.0) {
+            return Err(bad(
+                "overhead-factor",
+                self.overhead_factor,
+                "a number of at least 1",
+            ));
+        }
+        if !(self.contingency_factor.is_finite() && self.contingency_factor >= 1.0) {
+            return Err(bad(
+                "contingency-factor",
+                self.contingency_factor,
+                "a number of at least 1 (1.1 adds 10% for failed and test runs)",
+            ));
+        }
+        let e = self.parallel_efficiency;
+        if !(e.is_finite() && e > 0.0 && e <= 1.0) {
+            return Err(bad(
+                "parallel-efficiency",
+                e,
+                "a number above 0 and at most 1",
+            ));
+        }
+        let delta = positive("checkpoint-cost-hours", self.checkpoint_cost_hours)?;
+        let mtbf = positive("mtbf-hours", self.mtbf_hours)?;
+        let checkpointing = match (delta, mtbf) {
+            (None, None) => None,
+            (Some(_), None) => {
+                return Err(CostError::Missing {
+                    key: "checkpoint-cost-hours",
+                    needs: "mtbf-hours",
+                    why: "Young's checkpoint interval √(2δM) needs both",
+                })
+            }
+            (None, Some(_)) => {
+                return Err(CostError::Missing {
+                    key: "mtbf-hours",
+                    needs: "checkpoint-cost-hours",
+                    why: "Young's checkpoint interval √(2δM) needs both",
+                })
+            }
+            (Some(d), Some(m)) => {
+                if d >= m / 2.0 {
+                    return Err(bad(
+                        "checkpoint-cost-hours",
+                        d,
+                        "less than half of mtbf-hours (Young's first-order interval needs δ ≪ M)",
+                    ));
+                }
+                Some(Checkpointing::young(d, m))
+            }
+        };
+        positive("gpu-charge-factor", self.gpu_charge_factor)?;
+        positive(
+            "service-units-per-node-hour",
+            self.service_units_per_node_hour,
+        )?;
+        if self.service_units_per_node_hour.is_some() && devices_per_node.is_none() {
+            return Err(CostError::Missing {
+                key: "service-units-per-node-hour",
+                needs: per_node_key,
+                why: "service units are charged per node-hour",
+            });
+        }
+        let nodes_per_run = devices_per_run
+            .zip(devices_per_node)
+            .map(|(d, p)| d.div_ceil(p));
+        if let Some(n) = nodes {
+            let k = require(
+                nodes_per_run,
+                "nodes",
+                per_node_key,
+                "runs at once = nodes ÷ nodes per run, and nodes per run follow from the devices per node and per run",
+            )?;
+            if n < k {
+                return Err(CostError::Invalid {
+                    key: "nodes",
+                    value: n.to_string(),
+                    allowed: "at least the nodes one run needs (devices per run ÷ devices per node, rounded up)",
+                });
+            }
+        }
+
+        // Storage.
+        if !matches!(self.bytes_per_value, 4 | 8) {
+            return Err(bad("bytes-per-value", self.bytes_per_value, "4 or 8"));
+        }
+        if self.values_per_sample == Some(0) {
+            return Err(bad("values-per-sample", 0, "a whole number of at least 1"));
+        }
+        let variables_per_point = at_least_one("variables-per-point", self.variables_per_point)?;
+        if self.values_per_sample.is_some() && variables_per_point.is_some() {
+            return Err(CostError::Conflict {
+                a: "values-per-sample",
+                b: "variables-per-point",
+                why: "values per sample are either given or grid points × variables per point",
+            });
+        }
+        if !(self.storage_factor.is_finite() && self.storage_factor > 0.0) {
+            return Err(bad(
+                "storage-factor",
+                self.storage_factor,
+                "a positive number (1 for none)",
+            ));
+        }
+        if let Some(c) = self.checkpoint_values {
+            if !(c.is_finite() && c >= 1.0) {
+                return Err(bad("checkpoint-values", c, "a number of at least 1"));
+            }
+        }
+        let values_per_sample = match (self.values_per_sample, variables_per_point) {
+            (Some(v), _) => v as f64,
+            (None, Some(k)) => {
+                require(
+                    grid_points,
+                    "variables-per-point",
+                    "grid-points",
+                    "values per sample = grid points × variables per point",
+                )? * k as f64
+            }
+            (None, None) => variables.max(1) as f64,
+        };
+        let storage = StorageModel {
+            values_per_sample,
+            bytes_per_value: self.bytes_per_value,
+            storage_factor: self.storage_factor,
+            checkpoint_values: self.checkpoint_values.unwrap_or(values_per_sample),
+            checkpoints_kept: self.checkpoints_kept,
+        };
+
+        let runs = match self.max_wall_hours_per_run {
+            Some(limit) => RunCount::WallLimit {
+                max_wall_hours_per_run: limit,
+            },
+            None => RunCount::Fixed {
+                runs: self.runs.unwrap_or(1),
+            },
+        };
+        let campaign = Campaign {
+            device,
+            rate_source,
+            pilot_rate,
+            rate,
+            scaling,
+            grid_points,
+            solver_time_step,
+            sample_interval,
+            runs,
+            spin_up_per_run: self.spin_up_per_run,
+            overhead_factor: self.overhead_factor,
+            checkpointing,
+            contingency_factor: self.contingency_factor,
+            parallel_efficiency: e,
+            devices_per_run,
+            devices_per_node,
+            nodes_available: nodes,
+            gpu_charge_factor: self.gpu_charge_factor,
+            service_units_per_node_hour: self.service_units_per_node_hour,
+            storage,
+        };
+        if let RunCount::WallLimit {
+            max_wall_hours_per_run: limit,
+        } = runs
+        {
+            let w = campaign
+                .wall_hours_per_time_unit()
+                .ok_or(CostError::Missing {
+                    key: "max-wall-hours-per-run",
+                    needs: per_run_key,
+                    why: "a run's wall-clock is its device-hours ÷ the devices it uses",
+                })?;
+            let spin_up_hours = w * self.spin_up_per_run;
+            if spin_up_hours >= limit {
+                return Err(CostError::WallLimitTooShort {
+                    limit,
+                    spin_up_hours,
+                });
+            }
+        }
+        Ok(campaign)
+    }
+}
+
+impl Campaign {
+    /// Multiplier from base device-hours to production device-hours:
+    /// overhead × (1 + checkpoint overhead) ÷ parallel efficiency.
+    pub fn production_multiplier(&self) -> f64 {
+        let f = self.checkpointing.map_or(0.0, |c| c.overhead_fraction);
+        self.overhead_factor * (1.0 + f) / self.parallel_efficiency
+    }
+
+    /// Wall-hours one run spends per model time unit, when the devices per run are known.
+    pub fn wall_hours_per_time_unit(&self) -> Option<f64> {
+        self.devices_per_run
+            .map(|d| self.rate * self.production_multiplier() / d as f64)
+    }
+
+    /// Nodes one run occupies, when the per-node count is known.
+    pub fn nodes_per_run(&self) -> Option<u32> {
+        self.devices_per_run
+            .zip(self.devices_per_node)
+            .map(|(d, p)| d.div_ceil(p))
+    }
+
+    /// Runs for `samples` saved samples (given, or the fewest within the wall-clock limit).
+    pub fn runs_for(&self, samples: f64) -> u32 {
+        match self.runs {
+            RunCount::Fixed { runs } => runs,
+            RunCount::WallLimit {
+                max_wall_hours_per_run: limit,
+            } => {
+                // Checked in `campaign`: devices per run known and spin-up fits in the limit.
+                let w = self.wall_hours_per_time_unit().unwrap_or(f64::INFINITY);
+                let room = limit / w - self.spin_up_per_run;
+                let r = (samples * self.sample_interval / room).ceil();
+                if r.is_finite() && r >= 1.0 {
+                    r.min(u32::MAX as f64) as u32
+                } else {
+                    1
+                }
+            }
+        }
+    }
+
+    /// Every figure of the campaign for `samples` saved samples.
+    pub fn breakdown(&self, samples: f64) -> Breakdown {
+        let runs = self.runs_for(samples);
+        let r = runs as f64;
+        let sampling = samples * self.sample_interval;
+        let sampling_time_per_run = sampling / r;
+        let simulated_time = sampling + r * self.spin_up_per_run;
+        let steps = |t: f64| self.solver_time_step.map(|dt| t / dt);
+        let base = simulated_time * self.rate;
+        let device_hours = base * self.production_multiplier();
+        let nodes_per_run = self.nodes_per_run();
+        let wall = self.devices_per_run.map(|d| {
+            let hours_per_run = device_hours / r / d as f64;
+            let concurrent = match (self.nodes_available, nodes_per_run) {
+                (Some(n), Some(k)) => (n / k).clamp(1, runs),
+                _ => runs,
+            };
+            WallClock {
+                devices_per_run: d,
+                nodes_per_run,
+                hours_per_run,
+                concurrent_runs: concurrent,
+                parallel_hours: runs.div_ceil(concurrent) as f64 * hours_per_run,
+                serial_hours: r * hours_per_run,
+            }
+        });
+        let node_hours = wall.and_then(|w| w.nodes_per_run.map(|k| r * k as f64 * w.hours_per_run));
+        let whole_node_device_hours = node_hours
+            .zip(self.devices_per_node)
+            .map(|(h, p)| h * p as f64);
+        let production = Charges {
+            device_hours,
+            node_hours,
+            whole_node_device_hours,
+            gpu_charge: self
+                .gpu_charge_factor
+                .map(|f| f * whole_node_device_hours.unwrap_or(device_hours)),
+            service_units: self
+                .service_units_per_node_hour
+                .zip(node_hours)
+                .map(|(su, h)| su * h),
+        };
+        let s = &self.storage;
+        let snapshot_bytes = samples * s.snapshot_bytes();
+        let ckpt = s.checkpoint_bytes();
+        Breakdown {
+            samples,
+            runs,
+            spin_up_per_run: self.spin_up_per_run,
+            sampling_time_per_run,
+            simulated_time,
+            spin_up_steps_per_run: steps(self.spin_up_per_run),
+            sampling_steps_per_run: steps(sampling_time_per_run),
+            solver_steps: steps(simulated_time),
+            device: self.device,
+            base_device_hours: base,
+            production,
+            contingency: production.scaled(self.contingency_factor - 1.0),
+            total: production.scaled(self.contingency_factor),
+            wall,
+            storage: StorageBreakdown {
+                snapshot_bytes_each: s.snapshot_bytes(),
+                snapshot_bytes,
+                checkpoint_bytes_each: ckpt,
+                scratch_bytes: snapshot_bytes + r * s.checkpoints_kept as f64 * ckpt,
+                archive_bytes: snapshot_bytes + r * ckpt,
+            },
+        }
+    }
+
+    /// The summary [`Budget`] for `samples`: simulated time, total device-hours (contingency
+    /// included) and snapshot storage. Non-decreasing in `samples`.
+    pub fn budget(&self, samples: f64) -> Budget {
+        let b = self.breakdown(samples);
+        Budget {
+            samples,
+            simulated_time: b.simulated_time,
+            core_hours: b.total.device_hours,
+            storage_bytes: b.storage.snapshot_bytes,
+        }
+    }
+
+    /// The summary [`CostModel`] (plan.json's `cost`). With runs chosen from a wall-clock limit
+    /// its `runs` is 1, so its budget omits the extra runs' spin-up: use [`Campaign::budget`].
+    pub fn summary(&self) -> CostModel {
+        CostModel {
+            core_hours_per_time_unit: self.rate,
+            overhead_factor: self.production_multiplier() * self.contingency_factor,
+            runs: match self.runs {
+                RunCount::Fixed { runs } => runs,
+                RunCount::WallLimit { .. } => 1,
+            },
+            spin_up_per_run: self.spin_up_per_run,
+            bytes_per_value: self.storage.bytes_per_value,
+            values_per_sample: (self.storage.values_per_sample * self.storage.storage_factor)
+                .round()
+                .max(1.0) as u64,
+            sample_interval: self.sample_interval,
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn close(a: f64, b: f64, rel: f64) -> bool {
+        (a - b).abs() <= rel * a.abs().max(b.abs())
+    }
+
+    fn cpu() -> CostInputs {
+        CostInputs {
+            core_hours_per_time_unit: Some(100.0),
+            runs: Some(4),
+            spin_up_per_run: 5.0,
+            ..CostInputs::default()
+        }
+    }
+
+    fn err(i: CostInputs) -> String {
+        i.campaign(8, 0.01).unwrap_err().to_string()
+    }
+
+    #[test]
+    fn rate_from_grid_points_by_hand() {
+        // 1e6 points × 2e-6 core-s per point-step = 2 core-s per step; ÷ 1e-3 time units per
+        // step = 2000 core-s per time unit; ÷ 3600 = 0.556 core-hours per time unit.
+        let c = CostInputs {
+            core_hours_per_time_unit: None,
+            core_seconds_per_point_step: Some(2e-6),
+            grid_points: Some(1e6),
+            solver_time_step: Some(1e-3),
+            ..cpu()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        assert!(close(c.rate, 2000.0 / 3600.0, 1e-15));
+        assert_eq!(c.device, Device::Cpu);
+        let b = c.breakdown(10_000.0);
+        // 10,000 × 0.01 = 100 sampling + 4 × 5 spin-up = 120 time units = 120,000 steps.
+        assert!(close(b.solver_steps.unwrap(), 120_000.0, 1e-12));
+        assert!(close(b.sampling_steps_per_run.unwrap(), 25_000.0, 1e-12));
+        assert!(close(b.spin_up_steps_per_run.unwrap(), 5_000.0, 1e-12));
+    }
+
+    #[test]
+    fn campaign_budget_equals_the_summary_budget_for_fixed_runs() {
+        let i = CostInputs {
+            overhead_factor: 1.2,
+            contingency_factor: 1.1,
+            parallel_efficiency: 0.8,
+            checkpoint_cost_hours: Some(0.1),
+            mtbf_hours: Some(20.0),
+            bytes_per_value: 4,
+            values_per_sample: Some(1000),
+            ..cpu()
+        };
+        let c = i.campaign(8, 0.01).unwrap();
+        let m = i.check(8, 0.01).unwrap();
+        for n in [1.0, 1234.5, 1e6] {
+            let (a, b) = (c.budget(n), m.budget(n));
+            assert!(close(a.core_hours, b.core_hours, 1e-14), "{a:?} {b:?}");
+            assert!(close(a.simulated_time, b.simulated_time, 1e-15));
+            assert_eq!(a.storage_bytes, b.storage_bytes);
+        }
+        // 120 time units × 100 × 1.2 × (1 + f) ÷ 0.8, then × 1.1 in total.
+        let f = c.checkpointing.unwrap().overhead_fraction;
+        let b = c.breakdown(10_000.0);
+        let production = 120.0 * 100.0 * 1.2 * (1.0 + f) / 0.8;
+        assert!(close(b.production.device_hours, production, 1e-14));
+        assert!(close(b.contingency.device_hours, 0.1 * production, 1e-12));
+        assert!(close(b.total.device_hours, 1.1 * production, 1e-14));
+    }
+
+    #[test]
+    fn young_interval_by_hand() {
+        // Young 1974: τ = √(2δM). δ = 0.1 h, M = 20 h: τ = √4 = 2 h;
+        // overhead δ/τ + τ/(2M) = 0.05 + 0.05 = 0.1.
+        assert_eq!(young_interval(0.1, 20.0), 2.0);
+        let c = Checkpointing::young(0.1, 20.0);
+        assert!((c.interval_hours - 2.0).abs() < 1e-15);
+        assert!((c.overhead_fraction - 0.1).abs() < 1e-15);
+        // δ = 5 min, M = 24 h: τ = √(2 · (1/12) · 24) = 2 h.
+        assert!((young_interval(1.0 / 12.0, 24.0) - 2.0).abs() < 1e-15);
+        let e = err(CostInputs {
+            checkpoint_cost_hours: Some(0.1),
+            ..cpu()
+        });
+        assert!(
+            e.contains("checkpoint-cost-hours") && e.contains("mtbf-hours"),
+            "{e}"
+        );
+        let e = err(CostInputs {
+            checkpoint_cost_hours: Some(15.0),
+            mtbf_hours: Some(20.0),
+            ..cpu()
+        });
+        assert!(
+            e.contains("checkpoint-cost-hours") && e.contains("15"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn whole_node_charging_rounds_up() {
+        // 100 cores per run on 48-core nodes: 3 nodes (144 cores) are charged.
+        let c = CostInputs {
+            cores_per_run: Some(100),
+            cores_per_node: Some(48),
+            service_units_per_node_hour: Some(2.0),
+            ..cpu()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        assert_eq!(c.nodes_per_run(), Some(3));
+        let b = c.breakdown(10_000.0);
+        // 12,000 core-hours over 4 runs on 100 cores: 30 wall-hours per run.
+        let w = b.wall.unwrap();
+        assert!(close(w.hours_per_run, 30.0, 1e-14));
+        assert!(close(
+            b.production.node_hours.unwrap(),
+            4.0 * 3.0 * 30.0,
+            1e-14
+        ));
+        assert!(close(
+            b.production.whole_node_device_hours.unwrap(),
+            4.0 * 144.0 * 30.0,
+            1e-14
+        ));
+        assert!(b.production.whole_node_device_hours.unwrap() > b.production.device_hours);
+        assert!(close(
+            b.production.service_units.unwrap(),
+            2.0 * 360.0,
+            1e-14
+        ));
+        // 96 cores: exactly 2 nodes, nothing rounded.
+        let c = CostInputs {
+            cores_per_run: Some(96),
+            cores_per_node: Some(48),
+            ..cpu()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        let b = c.breakdown(10_000.0);
+        assert!(close(
+            b.production.whole_node_device_hours.unwrap(),
+            b.production.device_hours,
+            1e-14
+        ));
+    }
+
+    #[test]
+    fn wall_clock_parallel_and_serial_by_hand() {
+        // 4 runs, 12,000 core-hours at efficiency 0.75 → 16,000; 100 cores (3 nodes of 48) per
+        // run: 40 h per run. 7 nodes hold 2 runs at once: 2 rounds = 80 h; serial 160 h.
+        let c = CostInputs {
+            cores_per_run: Some(100),
+            cores_per_node: Some(48),
+            nodes: Some(7),
+            parallel_efficiency: 0.75,
+            ..cpu()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        let w = c.breakdown(10_000.0).wall.unwrap();
+        assert!(close(w.hours_per_run, 40.0, 1e-14));
+        assert_eq!(w.concurrent_runs, 2);
+        assert!(close(w.parallel_hours, 80.0, 1e-14));
+        assert!(close(w.serial_hours, 160.0, 1e-14));
+        // Without an allocation size every run goes at once.
+        let c = CostInputs {
+            cores_per_run: Some(100),
+            ..cpu()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        let w = c.breakdown(10_000.0).wall.unwrap();
+        assert_eq!(w.concurrent_runs, 4);
+        assert!(close(w.parallel_hours, 30.0, 1e-14) && close(w.serial_hours, 120.0, 1e-14));
+    }
+
+    #[test]
+    fn runs_from_a_wall_clock_limit() {
+        // 100 core-hours per time unit on 100 cores: 1 wall-hour per time unit. Limit 25 h,
+        // spin-up 5: 20 time units of sampling per run. 100 time units → 5 runs.
+        let c = CostInputs {
+            runs: None,
+            max_wall_hours_per_run: Some(25.0),
+            cores_per_run: Some(100),
+            ..cpu()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        assert_eq!(c.runs_for(10_000.0), 5);
+        assert_eq!(c.runs_for(10_001.0), 6);
+        assert_eq!(c.runs_for(1.0), 1);
+        let b = c.breakdown(10_000.0);
+        assert!(close(b.wall.unwrap().hours_per_run, 25.0, 1e-12));
+        assert!(close(b.simulated_time, 125.0, 1e-12));
+        let e = err(CostInputs {
+            runs: None,
+            max_wall_hours_per_run: Some(4.0),
+            cores_per_run: Some(100),
+            ..cpu()
+        });
+        assert!(
+            e.contains("max-wall-hours-per-run") && e.contains("spin-up"),
+            "{e}"
+        );
+        let e = err(CostInputs {
+            max_wall_hours_per_run: Some(30.0),
+            ..cpu()
+        });
+        assert!(
+            e.contains("runs") && e.contains("max-wall-hours-per-run"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn gpu_rate_and_charge() {
+        // 1e8 points × 1e-9 GPU-s per point-step ÷ 1e-3 ÷ 3600 = 100/3600 GPU-hours per time unit.
+        let c = CostInputs {
+            core_hours_per_time_unit: None,
+            gpu_seconds_per_point_step: Some(1e-9),
+            grid_points: Some(1e8),
+            solver_time_step: Some(1e-3),
+            gpus_per_run: Some(6),
+            gpus_per_node: Some(4),
+            gpu_charge_factor: Some(3.0),
+            ..cpu()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        assert_eq!(c.device, Device::Gpu);
+        assert!(close(c.rate, 100.0 / 3600.0, 1e-14));
+        let b = c.breakdown(10_000.0);
+        let gpu_hours = 120.0 * 100.0 / 3600.0;
+        assert!(close(b.production.device_hours, gpu_hours, 1e-14));
+        // 6 GPUs on 4-GPU nodes: 2 nodes, 8 GPUs charged, × 3 charge factor.
+        let charged = gpu_hours * 8.0 / 6.0;
+        assert!(close(
+            b.production.whole_node_device_hours.unwrap(),
+            charged,
+            1e-14
+        ));
+        assert!(close(
+            b.production.gpu_charge.unwrap(),
+            3.0 * charged,
+            1e-14
+        ));
+    }
+
+    #[test]
+    fn reynolds_scaling_of_rate_grid_and_storage() {
+        // Isotropic turbulence, Re_L doubled: rate × 8, grid × 2^(9/4), step ÷ 2^(3/4).
+        let c = CostInputs {
+            core_hours_per_time_unit: None,
+            core_seconds_per_point_step: Some(1e-6),
+            grid_points: Some(1e6),
+            solver_time_step: Some(1e-3),
+            scaling_law: Some("isotropic-turbulence".into()),
+            pilot_reynolds: Some(100.0),
+            target_reynolds: Some(200.0),
+            variables_per_point: Some(3),
+            ..cpu()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        assert!(close(c.rate, 8.0 * c.pilot_rate, 1e-14));
+        assert!(close(c.grid_points.unwrap(), 1e6 * 2f64.powf(2.25), 1e-14));
+        assert!(close(
+            c.solver_time_step.unwrap(),
+            1e-3 / 2f64.powf(0.75),
+            1e-14
+        ));
+        assert!(close(
+            c.storage.values_per_sample,
+            3e6 * 2f64.powf(2.25),
+            1e-14
+        ));
+        let e = err(CostInputs {
+            scaling_law: Some("pipe".into()),
+            pilot_reynolds: Some(1.0),
+            target_reynolds: Some(2.0),
+            ..cpu()
+        });
+        assert!(
+            e.contains("scaling-law") && e.contains("pipe") && e.contains("isotropic-turbulence"),
+            "{e}"
+        );
+        let e = err(CostInputs {
+            scaling_law: Some("wall-resolved-les".into()),
+            pilot_reynolds: Some(1e4),
+            ..cpu()
+        });
+        assert!(e.contains("target-reynolds"), "{e}");
+        let e = err(CostInputs {
+            scaling_law: Some("custom".into()),
+            pilot_reynolds: Some(1e4),
+            target_reynolds: Some(1e5),
+            ..cpu()
+        });
+        assert!(e.contains("grid-exponent"), "{e}");
+        let c = CostInputs {
+            scaling_law: Some("custom".into()),
+            grid_exponent: Some(2.0),
+            step_exponent: Some(1.0),
+            pilot_reynolds: Some(1e4),
+            target_reynolds: Some(2e4),
+            ..cpu()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        assert!(close(c.rate, 800.0, 1e-14));
+    }
+
+    #[test]
+    fn bad_inputs_give_clear_errors() {
+        let e = err(CostInputs {
+            core_hours_per_time_unit: Some(-3.0),
+            ..cpu()
+        });
+        assert!(
+            e.contains("core-hours-per-time-unit") && e.contains("-3") && e.contains("positive"),
+            "{e}"
+        );
+        let e = err(CostInputs {
+            core_hours_per_time_unit: None,
+            core_seconds_per_point_step: Some(1e-6),
+            grid_points: Some(1e6),
+            solver_time_step: Some(0.0),
+            ..cpu()
+        });
+        assert!(e.contains("solver-time-step") && e.contains("= 0"), "{e}");
+        let e = err(CostInputs {
+            parallel_efficiency: 1.2,
+            ..cpu()
+        });
+        assert!(
+            e.contains("parallel-efficiency") && e.contains("1.2") && e.contains("at most 1"),
+            "{e}"
+        );
+        let e = err(CostInputs {
+            core_hours_per_time_unit: None,
+            ..cpu()
+        });
+        assert!(
+            e.contains("no solver rate") && e.contains("core-hours-per-time-unit"),
+            "{e}"
+        );
+        let e = err(CostInputs {
+            core_seconds_per_point_step: Some(1e-6),
+            ..cpu()
+        });
+        assert!(
+            e.contains("core-hours-per-time-unit")
+                && e.contains("core-seconds-per-point-step")
+                && e.contains("exactly one"),
+            "{e}"
+        );
+        let e = err(CostInputs {
+            core_hours_per_time_unit: None,
+            core_seconds_per_point_step: Some(1e-6),
+            solver_time_step: Some(1e-3),
+            ..cpu()
+        });
+        assert!(e.contains("grid-points"), "{e}");
+        let e = err(CostInputs {
+            gpus_per_run: Some(4),
+            ..cpu()
+        });
+        assert!(e.contains("gpus-per-run") && e.contains("GPU rate"), "{e}");
+        let e = err(CostInputs {
+            contingency_factor: 0.9,
+            ..cpu()
+        });
+        assert!(e.contains("contingency-factor"), "{e}");
+        let e = err(CostInputs {
+            cores_per_run: Some(10),
+            nodes: Some(2),
+            ..cpu()
+        });
+        assert!(e.contains("nodes") && e.contains("cores-per-node"), "{e}");
+        let e = err(CostInputs {
+            values_per_sample: Some(10),
+            variables_per_point: Some(3),
+            grid_points: Some(10.0),
+            ..cpu()
+        });
+        assert!(
+            e.contains("values-per-sample") && e.contains("variables-per-point"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn storage_reproduces_a_published_snapshot_size() {
+        // Lee & Moser 2015 (J. Fluid Mech. 774, 395–415), channel DNS at Re_τ ≈ 5200 on a
+        // 10240 × 1536 × 7680 grid (as quoted in the brief, not re-read here): 1.21e11 points;
+        // one double-precision variable is 0.966 TB ≈ 0.97 TB. Checked to 3 significant digits.
+        let points = 10240.0 * 1536.0 * 7680.0;
+        let c = CostInputs {
+            grid_points: Some(points),
+            variables_per_point: Some(1),
+            bytes_per_value: 8,
+            ..cpu()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        let tb = c.storage.snapshot_bytes() / 1e12;
+        assert_eq!(format!("{:.2e}", points), "1.21e11");
+        assert_eq!(format!("{tb:.3}"), "0.966");
+        assert_eq!(format!("{tb:.2}"), "0.97");
+        // Ten snapshots, four runs keeping two checkpoints of 4 values per point.
+        let c = CostInputs {
+            grid_points: Some(points),
+            variables_per_point: Some(1),
+            checkpoint_values: Some(4.0 * points),
+            storage_factor: 1.5,
+            ..cpu()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        let s = c.breakdown(10.0).storage;
+        let one = points * 8.0;
+        assert!(close(s.snapshot_bytes, 10.0 * 1.5 * one, 1e-15));
+        assert!(close(
+            s.scratch_bytes,
+            10.0 * 1.5 * one + 4.0 * 2.0 * 4.0 * one,
+            1e-15
+        ));
+        assert!(close(
+            s.archive_bytes,
+            10.0 * 1.5 * one + 4.0 * 4.0 * one,
+            1e-15
+        ));
+    }
+}
