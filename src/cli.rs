@@ -14,7 +14,11 @@ Examples:
       --samples 20000 --out pilot.npy --csv
       write a pilot trajectory (.npy, JSON sidecar, optional CSV)
   closure-budget lyapunov --system lorenz-63
-      estimate the largest Lyapunov exponent of a built-in system";
+      estimate the largest Lyapunov exponent of a built-in system
+  closure-budget fit my-skill.csv --target 1.0 --target 2.0 --report reports/mine
+      fit learning curves to skill measured by your own training code
+  closure-budget cost --inputs studies/demo.toml --samples 20000 --sample-interval 0.01
+      price a number of samples with a study's [cost] table";
 
 /// Plan how much high-fidelity simulation a machine-learned closure or emulator needs.
 ///
@@ -39,6 +43,76 @@ pub enum Command {
     Simulate(SimulateArgs),
     /// Estimate the largest Lyapunov exponent of a built-in system.
     Lyapunov(LyapunovArgs),
+    /// Fit learning curves to skill measured elsewhere and invert them for target skills.
+    Fit(FitArgs),
+    /// Price a number of samples (or simulated time) with a set of cost inputs.
+    Cost(CostArgs),
+}
+
+const FIT_AFTER_HELP: &str = "\
+The CSV needs a header row naming the columns model, n, replicate and skill (any order; other
+columns are ignored), and one row per measurement:
+  model,n,replicate,skill
+  unet-closure,2000,seed1,0.41
+  unet-closure,2000,seed2,0.44
+  unet-closure,4000,seed1,0.58
+n is the training-set size in samples, replicate a label (e.g. a seed), skill the measured
+skill (larger is better). Rows with the same model, n and replicate count as separate
+evaluations of one trained model. Each model needs skill at 3 or more sizes.";
+
+#[derive(Debug, Args)]
+#[command(after_help = FIT_AFTER_HELP)]
+pub struct FitArgs {
+    /// CSV of measured skill (columns model, n, replicate, skill).
+    pub csv: PathBuf,
+    /// Target skill to invert for (repeatable).
+    #[arg(long = "target", required = true)]
+    pub targets: Vec<f64>,
+    /// Bootstrap draws.
+    #[arg(long, default_value_t = 400)]
+    pub draws: usize,
+    /// Two-sided confidence level of the intervals.
+    #[arg(long, default_value_t = 0.9)]
+    pub confidence: f64,
+    /// Estimates beyond this multiple of the largest measured size are flagged as extrapolated.
+    #[arg(long, default_value_t = 2.0)]
+    pub trust_factor: f64,
+    /// Seed of the bootstrap.
+    #[arg(long, default_value_t = 0)]
+    pub seed: u64,
+    /// Also write the results as JSON (the plan.json contract) to this file.
+    #[arg(long)]
+    pub json: Option<PathBuf>,
+    /// Also write an HTML report and plan.json into this directory.
+    #[arg(long)]
+    pub report: Option<PathBuf>,
+}
+
+#[derive(Debug, Args)]
+pub struct CostArgs {
+    /// TOML file with the cost inputs: a study file (its [cost] table is used) or a file of
+    /// cost keys alone.
+    #[arg(long)]
+    pub inputs: PathBuf,
+    /// Training samples to price.
+    #[arg(
+        long,
+        conflicts_with = "sampled_time",
+        required_unless_present = "sampled_time"
+    )]
+    pub samples: Option<f64>,
+    /// Or simulated (sampled) time to price, model time units.
+    #[arg(long)]
+    pub sampled_time: Option<f64>,
+    /// Time between saved samples, model time units.
+    #[arg(long)]
+    pub sample_interval: f64,
+    /// State variables per saved sample (the default values per sample).
+    #[arg(long, default_value_t = 1)]
+    pub variables: usize,
+    /// Print JSON instead of text.
+    #[arg(long)]
+    pub json: bool,
 }
 
 #[derive(Debug, Args)]

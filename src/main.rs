@@ -4,9 +4,13 @@
 use anyhow::{bail, Context};
 use clap::Parser;
 use closure_budget::cli::{Cli, Command, SystemArgs};
+use closure_budget::cost::spec::{cost_report, Amount, CostSpec};
+use closure_budget::cost::CostInputs;
 use closure_budget::data::{
     write_trajectory, OutputFormats, Trajectory, TrajectoryMeta, SIDECAR_SCHEMA,
 };
+use closure_budget::study::measured::{fit_measured, MeasuredOptions};
+use closure_budget::study::runner::StudyOutcome;
 use closure_budget::study::{load_plan, run_study, RunOptions};
 use closure_budget::systems::{
     largest_lyapunov, simulate, LyapunovSpec, SimulationSpec, SystemSpec,
@@ -111,8 +115,69 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 );
             }
         }
+        Command::Fit(a) => {
+            let doc = fit_measured(
+                &a.csv,
+                &MeasuredOptions {
+                    targets: a.targets,
+                    draws: a.draws,
+                    confidence: a.confidence,
+                    trust_factor: a.trust_factor,
+                    seed: a.seed,
+                },
+            )?;
+            print!("{}", report::text_summary(&doc));
+            if let Some(path) = &a.json {
+                closure_budget::atomic::write_atomic(path, &report::plan_json(&doc))
+                    .with_context(|| format!("cannot write {}", path.display()))?;
+                println!("written: {}", path.display());
+            }
+            if let Some(dir) = &a.report {
+                let outcome = StudyOutcome {
+                    document: doc,
+                    records: Vec::new(),
+                    persistence: Vec::new(),
+                    run_tables: Vec::new(),
+                };
+                for p in report::write_report(&outcome, dir)? {
+                    println!("written: {}", p.display());
+                }
+            }
+        }
+        Command::Cost(a) => {
+            let text = std::fs::read_to_string(&a.inputs)
+                .with_context(|| format!("cannot read {}", a.inputs.display()))?;
+            let inputs = cost_inputs_from_toml(&text)
+                .with_context(|| format!("{} holds no valid cost inputs", a.inputs.display()))?;
+            let amount = match (a.samples, a.sampled_time) {
+                (Some(n), _) => Amount::Samples(n),
+                (None, Some(t)) => Amount::SampledTime(t),
+                (None, None) => bail!("give --samples or --sampled-time"),
+            };
+            let r = cost_report(&CostSpec {
+                amount,
+                sample_interval: a.sample_interval,
+                variables: a.variables,
+                inputs,
+            })?;
+            if a.json {
+                println!("{}", serde_json::to_string_pretty(&r)?);
+            } else {
+                print!("{}", report::tables::cost_text(&r));
+            }
+        }
     }
     Ok(ExitCode::SUCCESS)
+}
+
+/// Cost inputs from a study file's `[cost]` table, or from a file of cost keys alone.
+fn cost_inputs_from_toml(text: &str) -> anyhow::Result<CostInputs> {
+    let value: toml::Table = toml::from_str(text)?;
+    let table = match value.get("cost") {
+        Some(toml::Value::Table(t)) => t.clone(),
+        _ => value,
+    };
+    Ok(table.try_into()?)
 }
 
 /// The error and its causes joined by ": ", leaving out a cause whose text the message before it

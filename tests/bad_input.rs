@@ -277,3 +277,118 @@ fn lyapunov_command_prints_the_exponent() {
     let l = v["exponent"].as_f64().unwrap();
     assert!((l - 0.9056).abs() < 0.05 * 0.9056, "{l}");
 }
+
+/// `fit` on a hand-written CSV of skill measured elsewhere: the table, JSON and report are
+/// written; bad CSVs fail with a clear message and write nothing.
+#[test]
+fn fit_command_on_a_hand_written_csv() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut csv = String::from("model,n,replicate,skill,wall_seconds\n");
+    for (i, n) in [500, 1000, 2000, 4000, 8000, 16000].iter().enumerate() {
+        for (r, wobble) in [-0.02, 0.0, 0.025].iter().enumerate() {
+            // A saturating curve 1.5(1 − e^{−n/3000}) with small replicate offsets.
+            let skill = 1.5 * (1.0 - (-(*n as f64) / 3000.0).exp()) + wobble;
+            csv.push_str(&format!(
+                "my-closure,{n},seed{r},{skill:.4},{}\n",
+                10 * (i + 1)
+            ));
+        }
+    }
+    std::fs::write(dir.path().join("skill.csv"), &csv).unwrap();
+    let o = run_in(
+        dir.path(),
+        &[
+            "fit",
+            "skill.csv",
+            "--target",
+            "1.0",
+            "--target",
+            "2.0",
+            "--json",
+            "fit.json",
+            "--report",
+            "rep",
+        ],
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    let text = stdout(&o);
+    assert!(
+        text.contains("my-closure") && text.contains("unreachable"),
+        "{text}"
+    );
+    let doc: closure_budget::study::results::PlanDocument =
+        serde_json::from_slice(&std::fs::read(dir.path().join("fit.json")).unwrap()).unwrap();
+    let m = &doc.models[0];
+    assert_eq!(m.points.len(), 6);
+    assert!(doc.data.is_none() && doc.cost.is_none());
+    // Target 1.0 lies inside the measured range (n* = −3000 ln(1/3) ≈ 3296 on the true curve).
+    let e = &m.estimates[0];
+    let n = e.samples.unwrap();
+    assert!((2000.0..5000.0).contains(&n), "{e:?}");
+    // Target 2.0 is above the asymptote 1.5: refused.
+    assert_eq!(
+        m.estimates[1].status,
+        closure_budget::study::results::EstimateStatus::Unreachable
+    );
+    assert!(m.estimates[1].p_unreachable > 0.9);
+    assert_eq!(
+        files_below(&dir.path().join("rep")),
+        vec!["plan.json", "report.html"]
+    );
+
+    std::fs::write(
+        dir.path().join("bad.csv"),
+        "model,n,replicate,skill\na,100,1,0.5\na,100,2,0.6\n",
+    )
+    .unwrap();
+    let o = run_in(
+        dir.path(),
+        &["fit", "bad.csv", "--target", "1", "--report", "bad-rep"],
+    );
+    assert_eq!(o.status.code(), Some(2));
+    assert!(
+        stderr(&o).contains("at least 3 distinct sizes"),
+        "{}",
+        stderr(&o)
+    );
+    assert!(!dir.path().join("bad-rep").exists());
+}
+
+#[test]
+fn cost_command_prices_samples() {
+    let o = bin()
+        .args([
+            "cost",
+            "--inputs",
+            repo("studies/demo.toml").to_str().unwrap(),
+            "--samples",
+            "10000",
+            "--sample-interval",
+            "0.01",
+            "--json",
+        ])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", stderr(&o));
+    let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    assert!(v.to_string().contains("core"), "{v}");
+    let o = bin()
+        .args([
+            "cost",
+            "--inputs",
+            repo("studies/demo.toml").to_str().unwrap(),
+            "--samples",
+            "10000",
+            "--sample-interval",
+            "0.01",
+        ])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", stderr(&o));
+    // Demo inputs: (10,000 × 0.01 + 4 runs × 20 spin-up) × 2,400 × 1.25 = 540,000 core-hours.
+    assert!(
+        stdout(&o).contains("540,000") || stdout(&o).contains("540000"),
+        "{}",
+        stdout(&o)
+    );
+}

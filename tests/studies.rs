@@ -84,7 +84,20 @@ fn quick_demo_runs_end_to_end() {
     let out = dir.path().join("out");
     assert_eq!(
         files_below(&out),
-        vec!["plan.json", "records.jsonl", "report.html", "skill.csv"]
+        vec![
+            "plan.json",
+            "records.jsonl",
+            "report.html",
+            "skill.csv",
+            "tables/runs.csv",
+            "tables/runs.md",
+            "tables/runs.tex"
+        ]
+    );
+    let md = std::fs::read_to_string(out.join("tables/runs.md")).unwrap();
+    assert!(
+        md.contains("esn-tiny") && md.to_lowercase().contains("contingency"),
+        "{md}"
     );
     assert_eq!(doc.schema, PLAN_SCHEMA);
     // Every stage's wall time is recorded, the report stage included.

@@ -75,12 +75,12 @@ pub fn write_report(outcome: &StudyOutcome, out_dir: &Path) -> Result<Vec<PathBu
     let mut document = outcome.document.clone();
     document.timings.report = started.elapsed().as_secs_f64();
     document.timings.total += document.timings.report;
-    let files: [(&str, Vec<u8>); 3] = [
-        (REPORT_HTML, page),
-        (PLAN_JSON, plan_json(&document)),
-        (SKILL_CSV, csv),
-    ];
-    let mut written = Vec::with_capacity(files.len());
+    let mut files = vec![(REPORT_HTML, page), (PLAN_JSON, plan_json(&document))];
+    // Skill measured outside the tool has no per-forecast records to list.
+    if !outcome.records.is_empty() || !outcome.persistence.is_empty() {
+        files.push((SKILL_CSV, csv));
+    }
+    let mut written = Vec::with_capacity(files.len() + 3);
     for (name, bytes) in files {
         let path = out_dir.join(name);
         write_atomic(&path, &bytes).map_err(|source| ReportError::Write {
@@ -88,6 +88,9 @@ pub fn write_report(outcome: &StudyOutcome, out_dir: &Path) -> Result<Vec<PathBu
             source,
         })?;
         written.push(path);
+    }
+    if !outcome.run_tables.is_empty() {
+        written.extend(tables::write_run_tables(&outcome.run_tables, out_dir)?);
     }
     Ok(written)
 }
@@ -345,6 +348,7 @@ pub(crate) mod tests {
             document,
             records,
             persistence,
+            run_tables: Vec::new(),
         }
     }
 

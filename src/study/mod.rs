@@ -1,6 +1,7 @@
 //! Studies: the study file schema, its validation into a plan, the results contract, the
 //! records store, and the runner that turns a plan into results.
 
+pub mod measured;
 pub mod plan;
 pub mod records;
 pub mod results;

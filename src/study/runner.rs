@@ -6,7 +6,8 @@ use super::plan::{to_samples, DataSource, ModelKind, StudyPlan};
 use super::records::{RecordStore, SkillRecord};
 use super::results::*;
 use super::StudyError;
-use crate::cost::CostModel;
+use crate::cost::campaign::Campaign;
+use crate::cost::runs::RunTable;
 use crate::curves::{self, Family, Inversion, SizeSamples, SkillGrid};
 use crate::data::{
     column_stats, read_trajectory, Split, SplitSpec, Trajectory, TrajectoryMeta, SIDECAR_SCHEMA,
@@ -39,6 +40,8 @@ pub struct StudyOutcome {
     pub records: Vec<SkillRecord>,
     /// Persistence per initial condition.
     pub persistence: Vec<IcSkill>,
+    /// Proposal-ready tables of runs, one per model and reachable target.
+    pub run_tables: Vec<RunTable>,
 }
 
 /// Seed of a model's random parts, derived from the study seed, model name and replicate.
@@ -69,7 +72,7 @@ struct Prepared {
     traj: Trajectory,
     split: Split,
     skill: SkillSpec,
-    cost: CostModel,
+    cost: Campaign,
     source: String,
 }
 
@@ -153,7 +156,7 @@ fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
         mean,
         sigma,
     };
-    let cost = plan.cost.check(traj.dim(), dt)?;
+    let cost = plan.cost.campaign(traj.dim(), dt)?;
     Ok(Prepared {
         traj,
         split,
@@ -390,7 +393,7 @@ fn run_in_pool(
         }),
         persistence: Some(persistence_summary),
         models,
-        cost: Some(prep.cost.clone()),
+        cost: Some(prep.cost.summary()),
         warnings,
         timings: Timings {
             total: started.elapsed().as_secs_f64(),
@@ -401,10 +404,32 @@ fn run_in_pool(
     records.sort_by(|a, b| {
         (a.model.as_str(), a.n, a.replicate).cmp(&(b.model.as_str(), b.n, b.replicate))
     });
+    let run_tables = document
+        .models
+        .iter()
+        .flat_map(|m| {
+            m.estimates
+                .iter()
+                .filter(|e| e.status.has_budget())
+                .filter_map(|e| {
+                    e.samples.map(|n| {
+                        RunTable::new(
+                            &prep.cost,
+                            &m.name,
+                            e.target,
+                            plan.confidence,
+                            n,
+                            e.samples_interval,
+                        )
+                    })
+                })
+        })
+        .collect();
     Ok(StudyOutcome {
         document,
         records,
         persistence,
+        run_tables,
     })
 }
 
@@ -412,7 +437,7 @@ fn model_result(
     plan: &StudyPlan,
     m: usize,
     records: &[&SkillRecord],
-    cost: &CostModel,
+    cost: &Campaign,
     warnings: &mut Vec<String>,
 ) -> ModelResult {
     let model = &plan.models[m];
@@ -531,7 +556,7 @@ pub fn analyse_curve(
     grid: &[SkillGrid],
     targets: &[f64],
     settings: &CurveSettings,
-    cost: Option<&CostModel>,
+    cost: Option<&Campaign>,
 ) -> CurveAnalysis {
     let samples: Vec<SizeSamples> = grid.iter().map(|g| g.replicate_means()).collect();
     let curve_points = curves::summarise(&samples);
@@ -616,7 +641,7 @@ fn estimate(
     draws: &curves::TargetDraws,
     points: &[curves::CurvePoint],
     trust_factor: f64,
-    cost: Option<&CostModel>,
+    cost: Option<&Campaign>,
 ) -> TargetEstimate {
     let largest = points.last().map(|p| p.n).unwrap_or(f64::NAN);
     let interval = [draws.lower, draws.upper];
