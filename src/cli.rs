@@ -90,7 +90,7 @@ pub struct FitArgs {
 
 #[derive(Debug, Args)]
 pub struct CostArgs {
-    /// TOML file with the cost inputs: a study file (its [cost] table is used) or a file of
+    /// TOML file with the cost inputs: a study file (its `[cost]` table is used) or a file of
     /// cost keys alone.
     #[arg(long)]
     pub inputs: PathBuf,

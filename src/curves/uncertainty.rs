@@ -5,7 +5,7 @@
 //! indices once, and applies them at every size (the same replicates and the same initial
 //! conditions are used at every size, so their errors are shared across sizes and must be
 //! resampled together); recomputes every replicate mean; draws a family with probability equal
-//! to its weight (backtest or Akaike weights, see [`super::backtest`]); refits that family
+//! to its weight (backtest or Akaike weights, see [`mod@super::backtest`]); refits that family
 //! starting from its full-data fit; and inverts every target. A draw whose curve levels off
 //! below a target counts as n* = ∞ for that target, so the interval is taken over all draws
 //! (a draw whose refit fails is left out and counted). Percentile intervals (Efron &
