@@ -233,9 +233,9 @@ mod tests {
             (Family::ExponentialSaturation, 0.75),
             (Family::SaturatingPowerLaw, 0.25),
         ];
-        let r = bootstrap_targets(&g, &w, &f, &[1.0], 1000, 0.9, 3);
-        let share = r[0].family_draws[0].1 as f64 / 1000.0;
-        // Binomial sd at p = 0.75, 1000 draws: 0.0137; allow 4 sd.
-        assert!((share - 0.75).abs() < 0.055, "{share}");
+        let r = bootstrap_targets(&g, &w, &f, &[1.0], 400, 0.9, 3);
+        let share = r[0].family_draws[0].1 as f64 / 400.0;
+        // Binomial sd at p = 0.75, 400 draws: 0.0217; allow 4 sd.
+        assert!((share - 0.75).abs() < 0.087, "{share}");
     }
 }

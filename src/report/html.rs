@@ -50,6 +50,7 @@ table.kv th { width:15em; font-weight:600; background:none; }
   white-space:nowrap; }
 .reached { background:var(--accent-soft); color:var(--accent); }
 .met { background:#e6eef8; color:#2f558a; }
+tr.total td { font-weight:700; border-top:2px solid var(--line); }
 .extrapolated { background:#fbf0dc; color:#8a5a00; }
 .unreachable { background:var(--bad-soft); color:var(--bad); }
 .nofit { background:var(--soft); color:var(--muted); }
@@ -103,6 +104,8 @@ pub fn html(outcome: &StudyOutcome) -> String {
     backtest(&mut out, doc);
     measured_points(&mut out, doc);
     assumptions(&mut out, doc);
+    runs(&mut out, outcome);
+    decorrelation(&mut out, doc);
     warnings(&mut out, doc);
     provenance(&mut out, doc);
     cautions(&mut out, doc);
@@ -645,6 +648,64 @@ fn assumptions(out: &mut String, doc: &PlanDocument) {
             "double"
         },
     );
+}
+
+fn runs(out: &mut String, outcome: &StudyOutcome) {
+    if outcome.run_tables.is_empty() {
+        return;
+    }
+    out.push_str(
+        "<section id=\"runs\">\n<h2>Tables of runs</h2>\n<p>The campaign behind each estimate, \
+         ready for an allocation request (also written as <code>tables/runs.md</code>, \
+         <code>.tex</code> and <code>.csv</code>). Ranges are the bootstrap interval of n* \
+         carried through the cost model.</p>\n",
+    );
+    out.push_str(&super::tables::runs_html(&outcome.run_tables));
+    out.push_str("</section>\n");
+}
+
+fn decorrelation(out: &mut String, doc: &PlanDocument) {
+    let Some(e) = doc
+        .data
+        .as_ref()
+        .and_then(|d| d.effective_sample_size.as_ref())
+    else {
+        return;
+    };
+    let _ = write!(
+        out,
+        "<section id=\"decorrelation\">\n<h2>Decorrelation of the pilot data</h2>\n\
+         <p>Integrated autocorrelation time τ = 1 + 2Σρ(k) per variable over the training pool \
+         (Sokal's automatic window, c = {}), and the effective sample size N/τ. Samples much \
+         closer than τ add storage, not information: saving every {} samples ({} model time \
+         units) would cut snapshot storage by {}. This is about statistical information only: \
+         a model that steps at the saved interval, like the emulators here, still needs its \
+         training pairs at that interval.</p>\n\
+         <table class=\"data\"><thead><tr><th>Variable</th><th class=\"num\">τ (samples)</th>\
+         <th class=\"num\">τ (time units)</th><th class=\"num\">Effective samples</th>\
+         <th>Reliable</th></tr></thead>\n<tbody>\n",
+        number(e.window_constant),
+        e.recommended_stride,
+        number(e.recommended_interval),
+        percent(e.storage_share_saved),
+    );
+    for v in &e.variables {
+        let _ = writeln!(
+            out,
+            "<tr><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
+             <td class=\"num\">{}</td><td>{}</td></tr>",
+            escape(&v.variable),
+            sig3(v.tau_time / e.sample_interval),
+            sig3(v.tau_time),
+            thousands(v.ess),
+            if v.unreliable {
+                "no: series shorter than 50τ"
+            } else {
+                "yes"
+            }
+        );
+    }
+    out.push_str("</tbody>\n</table>\n</section>\n");
 }
 
 fn warnings(out: &mut String, doc: &PlanDocument) {

@@ -320,6 +320,7 @@ pub(crate) mod tests {
                 test_range: [21000, 28000],
                 seed: Some(3),
                 sigma: vec![3.5; 8],
+                effective_sample_size: None,
             }),
             skill: Some(SkillInfo {
                 definition: "valid prediction time, threshold 0.5".into(),

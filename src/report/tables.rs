@@ -49,12 +49,13 @@ pub fn write_run_tables(tables: &[RunTable], out_dir: &Path) -> Result<Vec<PathB
 enum Flavour {
     Markdown,
     Latex,
+    Html,
 }
 
 impl Flavour {
     fn dash(self) -> &'static str {
         match self {
-            Flavour::Markdown => "–",
+            Flavour::Markdown | Flavour::Html => "–",
             Flavour::Latex => "--",
         }
     }
@@ -62,6 +63,7 @@ impl Flavour {
         match self {
             Flavour::Markdown => s.replace('|', "\\|"),
             Flavour::Latex => latex_escape(s),
+            Flavour::Html => super::format::escape(s),
         }
     }
 }
@@ -322,6 +324,51 @@ pub fn runs_markdown(tables: &[RunTable]) -> Vec<u8> {
         }
     }
     s.into_bytes()
+}
+
+/// The run tables as HTML tables (for the report page), user text escaped.
+pub fn runs_html(tables: &[RunTable]) -> String {
+    let f = Flavour::Html;
+    let mut s = String::new();
+    for t in tables {
+        let _ = write!(
+            s,
+            "<h3>{}</h3>\n<p>{}</p>\n<table class=\"data runs\"><thead><tr>",
+            f.text(&heading(t)),
+            samples_line(t, f)
+        );
+        let cols = columns(t, f);
+        for (i, (h, _)) in cols.iter().enumerate() {
+            let _ = write!(
+                s,
+                "<th{}>{}</th>",
+                if i == 0 { "" } else { " class=\"num\"" },
+                h
+            );
+        }
+        s.push_str("</tr></thead>\n<tbody>\n");
+        for row in &t.rows {
+            s.push_str(if row.kind == RowKind::Total {
+                "<tr class=\"total\">"
+            } else {
+                "<tr>"
+            });
+            for (i, (_, c)) in cols.iter().enumerate() {
+                let _ = write!(
+                    s,
+                    "<td{}>{}</td>",
+                    if i == 0 { "" } else { " class=\"num\"" },
+                    c(row)
+                );
+            }
+            s.push_str("</tr>\n");
+        }
+        s.push_str("</tbody>\n</table>\n");
+        for line in footer_lines(t, f) {
+            let _ = writeln!(s, "<p class=\"muted\">{}</p>", f.text(&line));
+        }
+    }
+    s
 }
 
 /// The run tables as LaTeX: one booktabs `tabular` per model and target (needs

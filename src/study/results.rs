@@ -78,6 +78,9 @@ pub struct DataInfo {
     pub seed: Option<u64>,
     /// Climatological standard deviation of each variable over the training pool.
     pub sigma: Vec<f64>,
+    /// Integrated autocorrelation times and effective sample sizes over the training pool,
+    /// with the recommended saving interval; `None` when they could not be estimated.
+    pub effective_sample_size: Option<crate::data::autocorr::EssReport>,
 }
 
 /// How skill was measured.

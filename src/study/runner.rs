@@ -318,6 +318,23 @@ fn run_in_pool(
     timings.fitting = t0.elapsed().as_secs_f64();
 
     let persistence_summary = skill::summarise(&persistence);
+    // Decorrelation of the pilot data (Sokal's automatic window, c = 5).
+    let ess = crate::data::autocorr::effective_sample_size(
+        prep.traj
+            .values
+            .slice(ndarray::s![prep.split.pool.clone(), ..]),
+        &prep.traj.meta.variables,
+        prep.traj.sample_interval(),
+        5.0,
+    )
+    .ok();
+    if let Some(e) = &ess {
+        if e.any_unreliable {
+            warnings.push(
+                "the training pool is shorter than about 50 integrated autocorrelation times for some variable: its effective sample size is unreliable".into(),
+            );
+        }
+    }
     let t = &plan.timing;
     if let Some(&top) = plan.targets.last() {
         if top > 0.8 * t.max_lead {
@@ -379,6 +396,7 @@ fn run_in_pool(
             test_range: [ics[0], *ics.last().expect("at least one IC")],
             seed: d.meta.seed,
             sigma: prep.skill.sigma.clone(),
+            effective_sample_size: ess.clone(),
         }),
         skill: Some(SkillInfo {
             definition: format!(
