@@ -372,23 +372,42 @@ fn cost_command_prices_samples() {
     assert!(o.status.success(), "{}", stderr(&o));
     let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
     assert!(v.to_string().contains("core"), "{v}");
-    let o = bin()
-        .args([
+    // A file of cost keys alone, by hand: (1,000 × 0.01 + 2 runs × 5 spin-up) = 20 time units
+    // × 100 core-hours × overhead 1.5 = 3,000 core-hours.
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(
+        dir.path().join("cost.toml"),
+        "core-hours-per-time-unit = 100.0\nruns = 2\nspin-up-per-run = 5.0\noverhead-factor = 1.5\n",
+    )
+    .unwrap();
+    let args = [
+        "cost",
+        "--inputs",
+        "cost.toml",
+        "--samples",
+        "1000",
+        "--sample-interval",
+        "0.01",
+    ];
+    let o = run_in(dir.path(), &args);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(stdout(&o).contains("3,000 core-hours"), "{}", stdout(&o));
+    let o = run_in(
+        dir.path(),
+        &[
             "cost",
             "--inputs",
-            repo("studies/demo.toml").to_str().unwrap(),
+            "missing.toml",
             "--samples",
-            "10000",
+            "1",
             "--sample-interval",
             "0.01",
-        ])
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", stderr(&o));
-    // Demo inputs: (10,000 × 0.01 + 4 runs × 20 spin-up) × 2,400 × 1.25 = 540,000 core-hours.
+        ],
+    );
+    assert_eq!(o.status.code(), Some(2));
     assert!(
-        stdout(&o).contains("540,000") || stdout(&o).contains("540000"),
+        stderr(&o).contains("cannot read missing.toml"),
         "{}",
-        stdout(&o)
+        stderr(&o)
     );
 }
