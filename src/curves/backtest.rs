@@ -283,6 +283,34 @@ mod tests {
         assert!(bt.scores[0].family.is_none() && bt.scores[0].cases == 5);
     }
 
+    /// The family that fits best in sample is not the better extrapolator: on a saturating
+    /// curve, a power law fits every measured size better than a logarithm (so AICc picks it),
+    /// but it overshoots the larger sizes, and the backtest weights pick the logarithm.
+    #[test]
+    fn backtest_overrules_the_best_in_sample_fit() {
+        let sizes: Vec<f64> = (0..8).map(|i| 100.0 * 2f64.powi(i)).collect();
+        let samples = samples_from(|n: f64| 2.0 * (1.0 - (-n / 3000.0).exp()), &sizes);
+        let points = summarise(&samples);
+        let families = [Family::PowerLaw, Family::Logarithmic];
+        let fits: Vec<CurveFit> = families
+            .iter()
+            .map(|&f| fit_family(f, &points).unwrap())
+            .collect();
+        let by_aicc = crate::curves::select_by_aicc(&fits).map(|i| fits[i].family);
+        assert_eq!(by_aicc, Some(Family::PowerLaw));
+        let bt = backtest(&samples, &families, &fits);
+        assert_eq!(bt.selected(), Some(Family::Logarithmic), "{:?}", bt.weights);
+        let rms = |f: Family| {
+            bt.scores
+                .iter()
+                .find(|s| s.family == Some(f))
+                .unwrap()
+                .rms_error_at_largest
+                .unwrap()
+        };
+        assert!(rms(Family::Logarithmic) < rms(Family::PowerLaw));
+    }
+
     /// With four sizes only two-parameter families can be backtested (k = 3), so a single
     /// family at most has a score and the weights fall back to Akaike weights; with three sizes
     /// AICc is undefined too and the weights are equal.

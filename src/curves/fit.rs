@@ -1,13 +1,11 @@
 //! Learning-curve fitting: replicate summaries, weighted multi-start fits of one family,
-//! AICc selection, and a replicate bootstrap of the n that reaches a target skill.
+//! and AICc selection (the bootstrap of n* lives in `uncertainty`).
 //!
 //! References: Levenberg (1944); Marquardt (1963); Moré (1978) MINPACK; Hurvich & Tsai
 //! (1989), "Regression and time series model selection in small samples", Biometrika 76
 //! (AICc); Efron & Tibshirani (1993), An Introduction to the Bootstrap, ch. 13 (percentile
 //! intervals).
 
-use rand::{RngExt, SeedableRng};
-use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
 
 use super::families::{Family, FittingModel, Inversion};
@@ -294,25 +292,6 @@ pub fn select_by_aicc(fits: &[CurveFit]) -> Option<usize> {
         .map(|(i, _)| i)
 }
 
-/// Bootstrap distribution of the inverted n for one target skill.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct BootstrapSummary {
-    /// The target skill this summary is for.
-    pub target: f64,
-    /// Bootstrap draws made.
-    pub draws: usize,
-    /// Draws whose refitted curve reached the target.
-    pub reached_draws: usize,
-    /// Draws whose refit failed (counted as not reached).
-    pub failed_fits: usize,
-    /// (lower, median, upper) percentile quantiles of n over the draws that reached, at
-    /// probabilities ((1 − level)/2, 0.5, (1 + level)/2); `None` if no draw reached or the
-    /// level is not in (0, 1).
-    pub n_quantiles: Option<(f64, f64, f64)>,
-    /// Central probability of the interval, e.g. 0.9.
-    pub level: f64,
-}
-
 /// Quantile with linear interpolation between order statistics (Hyndman–Fan type 7) of a
 /// sorted, non-empty slice.
 pub(crate) fn quantile_sorted(v: &[f64], prob: f64) -> f64 {
@@ -320,76 +299,6 @@ pub(crate) fn quantile_sorted(v: &[f64], prob: f64) -> f64 {
     let lo = h.floor() as usize;
     let hi = (lo + 1).min(v.len() - 1);
     v[lo] + (h - lo as f64) * (v[hi] - v[lo])
-}
-
-/// Replicate bootstrap of the n that reaches each target (Efron & Tibshirani 1993).
-///
-/// Each draw resamples the replicate values within each size with replacement (sizes and
-/// censoring flags fixed; a ChaCha8 generator seeded with `seed`, so the result is
-/// deterministic for a seed), summarises them with [`summarise`], refits `family` starting
-/// from the full-data fit (falling back to the family's default starts if that run does not
-/// converge), and inverts every target. A draw whose refit fails, or whose curve saturates
-/// below the target, counts as not reached; the percentile quantiles are over the draws that
-/// reached, so read them together with `reached_draws / draws`. If the full-data fit itself
-/// fails, every draw counts as failed.
-pub fn bootstrap_inversion(
-    family: Family,
-    samples: &[SizeSamples],
-    targets: &[f64],
-    draws: usize,
-    level: f64,
-    seed: u64,
-) -> Vec<BootstrapSummary> {
-    let mut reached: Vec<Vec<f64>> = vec![Vec::with_capacity(draws); targets.len()];
-    let mut failed = 0usize;
-    match fit_family(family, &summarise(samples)) {
-        Err(_) => failed = draws,
-        Ok(full) => {
-            let mut rng = ChaCha8Rng::seed_from_u64(seed);
-            let mut resampled: Vec<SizeSamples> = samples.to_vec();
-            for _ in 0..draws {
-                for (dst, src) in resampled.iter_mut().zip(samples) {
-                    let r = src.replicate_values.len();
-                    for v in dst.replicate_values.iter_mut() {
-                        *v = src.replicate_values[rng.random_range(0..r)];
-                    }
-                }
-                match refit(family, &summarise(&resampled), &full.params) {
-                    Ok(fit) => {
-                        for (t, out) in targets.iter().zip(reached.iter_mut()) {
-                            if let Inversion::Reached { n } = fit.invert(*t) {
-                                out.push(n);
-                            }
-                        }
-                    }
-                    Err(_) => failed += 1,
-                }
-            }
-        }
-    }
-    let level_ok = level > 0.0 && level < 1.0;
-    targets
-        .iter()
-        .zip(reached)
-        .map(|(&target, mut ns)| {
-            ns.sort_by(f64::total_cmp);
-            let n_quantiles = (level_ok && !ns.is_empty()).then(|| {
-                (
-                    quantile_sorted(&ns, (1.0 - level) / 2.0),
-                    quantile_sorted(&ns, 0.5),
-                    quantile_sorted(&ns, (1.0 + level) / 2.0),
-                )
-            });
-            BootstrapSummary {
-                target,
-                draws,
-                reached_draws: ns.len(),
-                failed_fits: failed,
-                n_quantiles,
-                level,
-            }
-        })
-        .collect()
 }
 
 /// Refit from `start` (natural parameters); fall back to the default starts when that run
@@ -410,6 +319,8 @@ pub(crate) fn refit(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use rand::{RngExt, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
 
     /// Standard normal deviate by Box–Muller.
     fn normal(rng: &mut ChaCha8Rng) -> f64 {
@@ -615,57 +526,5 @@ mod tests {
         for q in pts.iter().filter(|q| q.censored) {
             assert!(censored.eval(q.n) >= q.mean);
         }
-    }
-
-    #[test]
-    fn bootstrap_is_deterministic_and_covers_truth() {
-        let fam = Family::ExponentialSaturation;
-        let p = [8.0, 300.0];
-        let samples = synthetic(fam, &p, 0.15, 6, 7);
-        let target = 7.0;
-        let n_star = match fam.invert(&p, target) {
-            Inversion::Reached { n } => n,
-            other => panic!("{other:?}"),
-        };
-        let a = bootstrap_inversion(fam, &samples, &[target, 8.0, 16.0], 300, 0.9, 42);
-        let b = bootstrap_inversion(fam, &samples, &[target, 8.0, 16.0], 300, 0.9, 42);
-        assert_eq!(a, b);
-        let c = bootstrap_inversion(fam, &samples, &[target], 300, 0.9, 43);
-        assert_ne!(a[0].n_quantiles, c[0].n_quantiles);
-
-        let s = &a[0];
-        assert_eq!(s.draws, 300);
-        assert_eq!(s.failed_fits, 0);
-        assert_eq!(s.reached_draws, 300);
-        let (lo, med, hi) = s.n_quantiles.unwrap();
-        eprintln!("bootstrap: n* = {n_star}, 90% interval [{lo}, {hi}], median {med}; at-asymptote reached {}/{}", a[1].reached_draws, a[1].draws);
-        assert!(lo <= med && med <= hi);
-        assert!(lo <= n_star && n_star <= hi, "{n_star} not in [{lo}, {hi}]");
-
-        // Target at the true asymptote: draws whose fitted c falls below it do not reach.
-        let at = &a[1];
-        assert!(
-            at.reached_draws > 0 && at.reached_draws < at.draws,
-            "{at:?}"
-        );
-        // Target far above: no draw reaches, no quantiles.
-        assert_eq!(a[2].reached_draws, 0);
-        assert_eq!(a[2].n_quantiles, None);
-    }
-
-    #[test]
-    fn bootstrap_with_unfittable_data_counts_failures() {
-        let samples = synthetic(Family::PowerLaw, &[0.5, 0.35], 0.01, 3, 9);
-        let out = bootstrap_inversion(
-            Family::SaturatingPowerLaw,
-            &samples[..2],
-            &[1.0],
-            10,
-            0.9,
-            1,
-        );
-        assert_eq!(out[0].failed_fits, 10);
-        assert_eq!(out[0].reached_draws, 0);
-        assert_eq!(out[0].n_quantiles, None);
     }
 }

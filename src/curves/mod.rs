@@ -1,15 +1,17 @@
 //! Learning curves skill(n): curve families, a weighted nonlinear least-squares engine,
-//! AICc model selection, inversion for the training-set size n that reaches a target skill,
-//! and a replicate bootstrap of that n.
+//! AICc, backtests and family weights, inversion for the training-set size n that reaches a
+//! target skill, and a bootstrap of that n over replicates, initial conditions and families.
 //!
 //! Layout:
 //! - [`lsq`]: a generic weighted (and optionally one-sided, "censored") nonlinear
 //!   least-squares engine on top of the `levenberg-marquardt` crate, with standard errors
 //!   `sqrt(RSS/(m−p) · diag((JᵀJ)⁻¹))` computed here; validated on NIST StRD sets.
-//! - [`families`]: the learning-curve families (power law, saturating power law,
-//!   exponential saturation), their closed-form inverses and deterministic starting points.
-//! - [`fit`]: replicate summaries, multi-start fitting of one family, AICc selection and the
-//!   replicate bootstrap of the inverted n.
+//! - [`families`]: the seven learning-curve families (power law, saturating and shifted
+//!   saturating power laws, exponential saturation, Morgan–Mercer–Flodin, Weibull,
+//!   logarithmic), their closed-form inverses and deterministic starting points.
+//! - [`fit`]: replicate summaries, multi-start fitting of one family, AICc selection.
+//! - [`mod@backtest`]: fit on the smaller sizes, predict the larger; family weights.
+//! - [`uncertainty`]: bootstrap of n* over replicates, test initial conditions and families.
 //!
 //! Censored points: a size at which some forecasts hit the maximum lead time only gives a
 //! lower bound on the skill. Such a point contributes the one-sided residual
@@ -32,10 +34,7 @@ pub mod uncertainty;
 
 pub use backtest::{backtest, Backtest, BacktestCase, BacktestScore, WeightRule};
 pub use families::{Family, Inversion};
-pub use fit::{
-    aicc, bootstrap_inversion, fit_family, select_by_aicc, summarise, BootstrapSummary, CurveFit,
-    CurvePoint, SizeSamples,
-};
+pub use fit::{aicc, fit_family, select_by_aicc, summarise, CurveFit, CurvePoint, SizeSamples};
 pub use lsq::{least_squares, LsqResult, Model, Observation};
 pub use uncertainty::{bootstrap_targets, SkillGrid, TargetDraws};
 
