@@ -332,6 +332,7 @@ pub(crate) mod tests {
             persistence: Some(crate::skill::summarise(&persistence)),
             models,
             cost: Some(cost),
+            campaign: None,
             warnings: vec![
                 "esn-500: 12% of forecasts at n = 16000 were censored <raise max-lead>".into(),
             ],

@@ -310,6 +310,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
         persistence: None,
         models,
         cost: None,
+        campaign: None,
         warnings,
         timings: Timings {
             fitting,

@@ -31,8 +31,12 @@ pub struct PlanDocument {
     /// measured outside the tool.
     pub persistence: Option<SkillSummary>,
     pub models: Vec<ModelResult>,
-    /// The campaign cost model; `null` when no cost inputs were given.
+    /// The campaign cost model in brief; `null` when no cost inputs were given.
     pub cost: Option<CostModel>,
+    /// The full campaign model behind `cost` (rate and its source, scaling law, runs,
+    /// overheads, allocation, storage); `null` when no cost inputs were given.
+    #[serde(default)]
+    pub campaign: Option<crate::cost::campaign::Campaign>,
     pub warnings: Vec<String>,
     pub timings: Timings,
 }

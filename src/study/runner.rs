@@ -412,6 +412,7 @@ fn run_in_pool(
         persistence: Some(persistence_summary),
         models,
         cost: Some(prep.cost.summary()),
+        campaign: Some(prep.cost.clone()),
         warnings,
         timings: Timings {
             total: started.elapsed().as_secs_f64(),
