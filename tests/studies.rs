@@ -142,6 +142,15 @@ fn quick_demo_runs_end_to_end() {
     assert_eq!(csv.lines().count(), 1 + 3 * 4 * 16 + 16);
     let html = std::fs::read_to_string(out.join("report.html")).unwrap();
     assert!(html.contains("<svg") && html.contains("esn-tiny"));
+    for section in [
+        "Cost against target skill",
+        "Every number and its source",
+        "Tables of runs",
+        "Decorrelation of the pilot data",
+        "id=\"backtest\"",
+    ] {
+        assert!(html.contains(section), "report lacks {section}");
+    }
 }
 
 /// Results are bit-for-bit identical whatever the thread count: skill.csv byte for byte, and
