@@ -80,7 +80,19 @@ pub fn write_report(outcome: &StudyOutcome, out_dir: &Path) -> Result<Vec<PathBu
     if !outcome.records.is_empty() || !outcome.persistence.is_empty() {
         files.push((SKILL_CSV, csv));
     }
-    let mut written = Vec::with_capacity(files.len() + 3);
+    let mut written = write_files(out_dir, files)?;
+    if !outcome.run_tables.is_empty() {
+        written.extend(tables::write_run_tables(&outcome.run_tables, out_dir)?);
+    }
+    Ok(written)
+}
+
+/// Writes each `(relative path, bytes)` under `out_dir` atomically; returns the paths.
+pub(crate) fn write_files(
+    out_dir: &Path,
+    files: Vec<(&str, Vec<u8>)>,
+) -> Result<Vec<PathBuf>, ReportError> {
+    let mut written = Vec::with_capacity(files.len());
     for (name, bytes) in files {
         let path = out_dir.join(name);
         write_atomic(&path, &bytes).map_err(|source| ReportError::Write {
@@ -88,9 +100,6 @@ pub fn write_report(outcome: &StudyOutcome, out_dir: &Path) -> Result<Vec<PathBu
             source,
         })?;
         written.push(path);
-    }
-    if !outcome.run_tables.is_empty() {
-        written.extend(tables::write_run_tables(&outcome.run_tables, out_dir)?);
     }
     Ok(written)
 }

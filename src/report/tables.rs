@@ -15,7 +15,6 @@
 
 use super::format::{bytes, sig3, thousands};
 use super::ReportError;
-use crate::atomic::write_atomic;
 use crate::cost::{CostReport, Ranged, RowKind, RunRow, RunTable};
 use std::fmt::Write;
 use std::path::{Path, PathBuf};
@@ -27,21 +26,14 @@ pub const RUNS_CSV: &str = "tables/runs.csv";
 
 /// Writes the three run tables into `out_dir/tables/` (each atomically); returns the paths.
 pub fn write_run_tables(tables: &[RunTable], out_dir: &Path) -> Result<Vec<PathBuf>, ReportError> {
-    let files = [
-        (RUNS_MD, runs_markdown(tables)),
-        (RUNS_TEX, runs_latex(tables)),
-        (RUNS_CSV, runs_csv(tables)),
-    ];
-    let mut written = Vec::new();
-    for (name, bytes) in files {
-        let path = out_dir.join(name);
-        write_atomic(&path, &bytes).map_err(|source| ReportError::Write {
-            path: path.clone(),
-            source,
-        })?;
-        written.push(path);
-    }
-    Ok(written)
+    super::write_files(
+        out_dir,
+        vec![
+            (RUNS_MD, runs_markdown(tables)),
+            (RUNS_TEX, runs_latex(tables)),
+            (RUNS_CSV, runs_csv(tables)),
+        ],
+    )
 }
 
 /// Output flavour: separators and escaping differ between Markdown and LaTeX.
