@@ -80,6 +80,9 @@ pub struct FitArgs {
     /// Seed of the bootstrap.
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
+    /// Fit on the log scale (relative errors), for skill spanning decades.
+    #[arg(long)]
+    pub log_scale: bool,
     /// Also write the results as JSON (the plan.json contract) to this file.
     #[arg(long)]
     pub json: Option<PathBuf>,

@@ -120,6 +120,11 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 &a.csv,
                 &MeasuredOptions {
                     targets: a.targets,
+                    scale: if a.log_scale {
+                        closure_budget::curves::FitScale::Log
+                    } else {
+                        closure_budget::curves::FitScale::Linear
+                    },
                     draws: a.draws,
                     confidence: a.confidence,
                     trust_factor: a.trust_factor,

@@ -16,7 +16,7 @@
 //! weights from AICc, w_f ∝ exp(−ΔAICc_f / 2) (Burnham & Anderson 2002, ch. 2.9); when AICc
 //! is undefined for every family (too few sizes), the fitted families get equal weights.
 
-use super::fit::{fit_family, summarise, CurveFit, SizeSamples};
+use super::fit::{fit_family_on, summarise, CurveFit, FitScale, SizeSamples};
 use super::Family;
 use serde::{Deserialize, Serialize};
 
@@ -78,7 +78,12 @@ pub struct Backtest {
 
 /// Runs the backtest for `families` and weights the full-data `fits` (one per family that
 /// could be fitted to all sizes).
-pub fn backtest(samples: &[SizeSamples], families: &[Family], fits: &[CurveFit]) -> Backtest {
+pub fn backtest(
+    samples: &[SizeSamples],
+    families: &[Family],
+    fits: &[CurveFit],
+    scale: FitScale,
+) -> Backtest {
     let m = samples.len();
     let observed = summarise(samples);
     let mut cases = Vec::new();
@@ -106,7 +111,7 @@ pub fn backtest(samples: &[SizeSamples], families: &[Family], fits: &[CurveFit])
             error: None,
         });
         for &family in families {
-            let case = match fit_family(family, &head) {
+            let case = match fit_family_on(family, &head, scale) {
                 Ok(fit) => {
                     let (pred, e_last, mae) = score(&|n| fit.eval(n));
                     BacktestCase {
@@ -232,6 +237,7 @@ impl Backtest {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::curves::fit_family;
 
     fn samples_from(f: impl Fn(f64) -> f64, sizes: &[f64]) -> Vec<SizeSamples> {
         sizes
@@ -260,7 +266,7 @@ mod tests {
             .iter()
             .filter_map(|&f| fit_family(f, &points).ok())
             .collect();
-        let bt = backtest(&samples, &Family::ALL, &fits);
+        let bt = backtest(&samples, &Family::ALL, &fits, FitScale::Linear);
         assert_eq!(bt.rule, WeightRule::Backtest);
         let w = |f: Family| {
             bt.weights
@@ -298,7 +304,7 @@ mod tests {
             .collect();
         let by_aicc = crate::curves::select_by_aicc(&fits).map(|i| fits[i].family);
         assert_eq!(by_aicc, Some(Family::PowerLaw));
-        let bt = backtest(&samples, &families, &fits);
+        let bt = backtest(&samples, &families, &fits, FitScale::Linear);
         assert_eq!(bt.selected(), Some(Family::Logarithmic), "{:?}", bt.weights);
         let rms = |f: Family| {
             bt.scores
@@ -326,6 +332,7 @@ mod tests {
             &samples,
             &[Family::PowerLaw, Family::SaturatingPowerLaw],
             &fits,
+            FitScale::Linear,
         );
         assert_eq!(bt.rule, WeightRule::Aicc);
         let sizes = [100.0, 200.0, 400.0];
@@ -335,7 +342,7 @@ mod tests {
             .iter()
             .filter_map(|&f| fit_family(f, &points).ok())
             .collect();
-        let bt = backtest(&samples, &Family::ALL, &fits);
+        let bt = backtest(&samples, &Family::ALL, &fits, FitScale::Linear);
         assert_eq!(bt.rule, WeightRule::Equal);
         assert!(bt.cases.is_empty());
         let w: Vec<f64> = bt.weights.iter().map(|(_, w)| *w).collect();

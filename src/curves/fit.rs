@@ -104,6 +104,42 @@ fn median(v: &mut [f64]) -> Option<f64> {
     })
 }
 
+/// The scale on which residuals are measured.
+///
+/// `Linear`: r = (f(n) − mean)/se. `Log`: r = (ln f(n) − ln mean)/(se/mean), the first-order
+/// (delta-method) standard error of ln mean, for curves spanning decades of skill where relative
+/// errors matter more than absolute ones. Needs positive means; AICc compares fits only within
+/// one scale.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum FitScale {
+    #[default]
+    Linear,
+    Log,
+}
+
+/// A family as a model of ln skill(n): ln f and ∇f / f.
+struct LogModel(FittingModel);
+
+impl super::lsq::Model for LogModel {
+    fn n_params(&self) -> usize {
+        self.0.n_params()
+    }
+    fn eval(&self, q: &[f64], x: f64) -> f64 {
+        let f = self.0.eval(q, x);
+        if f > 0.0 {
+            f.ln()
+        } else {
+            f64::NAN
+        }
+    }
+    fn grad(&self, q: &[f64], x: f64, out: &mut [f64]) {
+        let f = self.0.eval(q, x);
+        self.0.grad(q, x, out);
+        out.iter_mut().for_each(|g| *g /= f);
+    }
+}
+
 /// A fitted learning curve, parameters in the family's natural form.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct CurveFit {
@@ -120,6 +156,9 @@ pub struct CurveFit {
     pub points: usize,
     /// The optimiser met a convergence test at the reported parameters.
     pub converged: bool,
+    /// Scale of the residuals (RSS and AICc are on this scale).
+    #[serde(default)]
+    pub scale: FitScale,
 }
 
 impl CurveFit {
@@ -154,6 +193,28 @@ fn observations(points: &[CurvePoint]) -> Vec<Observation> {
             y: p.mean,
             weight: 1.0 / p.standard_error,
             lower_bound_only: p.censored,
+        })
+        .collect()
+}
+
+/// Observations of ln skill: y = ln mean, weight = mean/se (see [`FitScale`]).
+fn log_observations(points: &[CurvePoint]) -> Result<Vec<Observation>, CurveError> {
+    points
+        .iter()
+        .map(|p| {
+            if p.mean > 0.0 {
+                Ok(Observation {
+                    x: p.n,
+                    y: p.mean.ln(),
+                    weight: p.mean / p.standard_error,
+                    lower_bound_only: p.censored,
+                })
+            } else {
+                Err(CurveError::NonPositiveForLog {
+                    n: p.n,
+                    mean: p.mean,
+                })
+            }
         })
         .collect()
 }
@@ -194,19 +255,36 @@ fn validate_points(family: Family, points: &[CurvePoint]) -> Result<(), CurveErr
 /// could be run, or a best fit with non-finite parameters or that is not increasing over the
 /// measured range of n ([`CurveError::NotIncreasing`]).
 pub fn fit_family(family: Family, points: &[CurvePoint]) -> Result<CurveFit, CurveError> {
+    fit_family_on(family, points, FitScale::Linear)
+}
+
+/// [`fit_family`] with residuals on the given scale (starting points always come from the
+/// linear-scale data).
+pub fn fit_family_on(
+    family: Family,
+    points: &[CurvePoint],
+    scale: FitScale,
+) -> Result<CurveFit, CurveError> {
     validate_points(family, points)?;
-    let obs = observations(points);
-    let starts = family.starting_points(&obs);
-    fit_from_starts(family, points, &obs, &starts)
+    let starts = family.starting_points(&observations(points));
+    fit_from_starts(family, points, &starts, scale)
 }
 
 fn fit_from_starts(
     family: Family,
     points: &[CurvePoint],
-    obs: &[Observation],
     starts: &[Vec<f64>],
+    scale: FitScale,
 ) -> Result<CurveFit, CurveError> {
-    let model = FittingModel(family);
+    let (obs, model): (Vec<Observation>, Box<dyn super::lsq::Model>) = match scale {
+        FitScale::Linear => (observations(points), Box::new(FittingModel(family))),
+        FitScale::Log => (
+            log_observations(points)?,
+            Box::new(LogModel(FittingModel(family))),
+        ),
+    };
+    let obs = &obs;
+    let model = model.as_ref();
     let mut best: Option<LsqResult> = None;
     let mut last_problem = String::from("no valid starting point");
     for start in starts {
@@ -217,7 +295,7 @@ fn fit_from_starts(
             last_problem = format!("starting point {start:?} is outside the family's domain");
             continue;
         };
-        let res = match least_squares(&model, obs, &q0) {
+        let res = match least_squares(model, obs, &q0) {
             Ok(r) => r,
             Err(e) => {
                 last_problem = e.to_string();
@@ -272,6 +350,7 @@ fn fit_from_starts(
         aicc: aicc(best.rss, points.len(), family.n_params()),
         points: points.len(),
         converged: best.converged,
+        scale,
     })
 }
 
@@ -307,12 +386,17 @@ pub(crate) fn refit(
     family: Family,
     points: &[CurvePoint],
     start: &[f64],
+    scale: FitScale,
 ) -> Result<CurveFit, CurveError> {
     validate_points(family, points)?;
-    let obs = observations(points);
-    match fit_from_starts(family, points, &obs, &[start.to_vec()]) {
+    match fit_from_starts(family, points, &[start.to_vec()], scale) {
         Ok(fit) if fit.converged => Ok(fit),
-        _ => fit_from_starts(family, points, &obs, &family.starting_points(&obs)),
+        _ => fit_from_starts(
+            family,
+            points,
+            &family.starting_points(&observations(points)),
+            scale,
+        ),
     }
 }
 
@@ -526,5 +610,73 @@ mod tests {
         for q in pts.iter().filter(|q| q.censored) {
             assert!(censored.eval(q.n) >= q.mean);
         }
+    }
+
+    /// On the log scale a power law is a straight line, ln f = ln a + b ln n, so its fit must
+    /// equal the weighted linear regression of ln y on ln n with weights (y/se)², by hand.
+    #[test]
+    fn log_scale_power_law_is_a_weighted_line_in_log_log() {
+        let pts: Vec<CurvePoint> = [
+            (10.0, 0.31, 0.02),
+            (100.0, 0.52, 0.03),
+            (1e3, 1.1, 0.05),
+            (1e4, 2.3, 0.2),
+            (1e5, 4.4, 0.3),
+        ]
+        .iter()
+        .map(|&(n, mean, se)| CurvePoint {
+            n,
+            mean,
+            standard_error: se,
+            censored: false,
+        })
+        .collect();
+        let fit = fit_family_on(Family::PowerLaw, &pts, FitScale::Log).unwrap();
+        assert_eq!(fit.scale, FitScale::Log);
+        let (mut sw, mut sx, mut sy, mut sxx, mut sxy) = (0.0, 0.0, 0.0, 0.0, 0.0);
+        for p in &pts {
+            let w = (p.mean / p.standard_error).powi(2);
+            let (x, y) = (p.n.ln(), p.mean.ln());
+            sw += w;
+            sx += w * x;
+            sy += w * y;
+            sxx += w * x * x;
+            sxy += w * x * y;
+        }
+        let b = (sw * sxy - sx * sy) / (sw * sxx - sx * sx);
+        let ln_a = (sy - b * sx) / sw;
+        assert!(
+            (fit.params[1] - b).abs() < 1e-9 * b.abs(),
+            "{:?} vs b = {b}",
+            fit.params
+        );
+        assert!(
+            (fit.params[0].ln() - ln_a).abs() < 1e-9,
+            "{:?} vs ln a = {ln_a}",
+            fit.params
+        );
+        // The linear-scale fit of the same points differs (absolute errors weigh the top sizes).
+        let lin = fit_family(Family::PowerLaw, &pts).unwrap();
+        assert!((lin.params[1] - b).abs() > 1e-6);
+    }
+
+    #[test]
+    fn log_scale_needs_positive_skill() {
+        let pts: Vec<CurvePoint> = [(10.0, -0.1), (100.0, 0.5), (1e3, 1.0)]
+            .iter()
+            .map(|&(n, mean)| CurvePoint {
+                n,
+                mean,
+                standard_error: 0.05,
+                censored: false,
+            })
+            .collect();
+        let e = fit_family_on(Family::PowerLaw, &pts, FitScale::Log)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("log scale needs positive skill") && e.contains("-0.1"),
+            "{e}"
+        );
     }
 }

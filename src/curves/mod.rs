@@ -34,7 +34,10 @@ pub mod uncertainty;
 
 pub use backtest::{backtest, Backtest, BacktestCase, BacktestScore, WeightRule};
 pub use families::{Family, Inversion};
-pub use fit::{aicc, fit_family, select_by_aicc, summarise, CurveFit, CurvePoint, SizeSamples};
+pub use fit::{
+    aicc, fit_family, fit_family_on, select_by_aicc, summarise, CurveFit, CurvePoint, FitScale,
+    SizeSamples,
+};
 pub use lsq::{least_squares, LsqResult, Model, Observation};
 pub use uncertainty::{bootstrap_targets, SkillGrid, TargetDraws};
 
@@ -92,6 +95,10 @@ pub enum CurveError {
         starts: usize,
         last_problem: String,
     },
+
+    /// A log-scale fit met a mean skill that is not positive.
+    #[error("the mean skill at n = {n} is {mean}; fitting on the log scale needs positive skill (use the linear scale)")]
+    NonPositiveForLog { n: f64, mean: f64 },
 
     /// The best fit has non-finite parameters.
     #[error("{family}: the best fit has non-finite parameters {params:?}; the family does not describe these data")]

@@ -122,7 +122,7 @@ pub fn bootstrap_targets(
             failed += 1;
             continue;
         };
-        match refit(family, &summarise(&resampled), &full.params) {
+        match refit(family, &summarise(&resampled), &full.params, full.scale) {
             Ok(fit) => {
                 for (t, out) in targets.iter().zip(ns.iter_mut()) {
                     out.push(match fit.invert(*t) {

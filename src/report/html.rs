@@ -1005,6 +1005,16 @@ fn provenance(out: &mut String, doc: &PlanDocument) {
     kv(out, "Replicates", &s.replicates.to_string());
     kv(
         out,
+        "Curve fits",
+        match s.fit_scale {
+            crate::curves::FitScale::Linear => "weighted least squares on the linear scale",
+            crate::curves::FitScale::Log => {
+                "weighted least squares on the log scale (relative errors)"
+            }
+        },
+    );
+    kv(
+        out,
         "Bootstrap",
         &format!(
             "{} draws, {} confidence",

@@ -314,6 +314,7 @@ pub(crate) mod tests {
                 confidence: 0.9,
                 bootstrap_draws: 200,
                 trust_factor: 2.0,
+                fit_scale: crate::curves::FitScale::Linear,
             },
             data: Some(DataInfo {
                 source: "simulated".into(),

@@ -53,6 +53,8 @@ pub enum MeasuredError {
 #[derive(Debug, Clone)]
 pub struct MeasuredOptions {
     pub targets: Vec<f64>,
+    /// Scale of the curve-fit residuals.
+    pub scale: crate::curves::FitScale,
     pub draws: usize,
     pub confidence: f64,
     pub trust_factor: f64,
@@ -234,6 +236,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
             grid,
             &targets,
             &CurveSettings {
+                scale: options.scale,
                 draws: options.draws,
                 level: options.confidence,
                 trust_factor: options.trust_factor,
@@ -304,6 +307,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
             confidence: options.confidence,
             bootstrap_draws: options.draws,
             trust_factor: options.trust_factor,
+            fit_scale: options.scale,
         },
         data: None,
         skill: None,

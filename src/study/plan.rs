@@ -83,6 +83,7 @@ pub struct StudyPlan {
     pub confidence: f64,
     pub bootstrap_draws: usize,
     pub trust_factor: f64,
+    pub fit_scale: crate::curves::FitScale,
     pub cost: CostInputs,
 }
 
@@ -368,6 +369,7 @@ fn check(
         confidence: f.plan.confidence,
         bootstrap_draws: f.plan.bootstrap_draws,
         trust_factor: f.plan.trust_factor,
+        fit_scale: f.plan.fit_scale,
         cost: f.cost,
     })
 }

@@ -59,6 +59,9 @@ pub struct StudyInfo {
     pub bootstrap_draws: usize,
     /// Estimates beyond this multiple of the largest measured size are flagged as extrapolated.
     pub trust_factor: f64,
+    /// Scale of the curve-fit residuals.
+    #[serde(default)]
+    pub fit_scale: crate::curves::FitScale,
 }
 
 /// The pilot data and its split.

@@ -381,6 +381,7 @@ fn run_in_pool(
             confidence: plan.confidence,
             bootstrap_draws: plan.bootstrap_draws,
             trust_factor: plan.trust_factor,
+            fit_scale: plan.fit_scale,
         },
         data: Some(DataInfo {
             source: prep.source.clone(),
@@ -506,6 +507,7 @@ fn model_result(
         &grid,
         &plan.targets,
         &CurveSettings {
+            scale: plan.fit_scale,
             draws: plan.bootstrap_draws,
             level: plan.confidence,
             trust_factor: plan.trust_factor,
@@ -552,6 +554,7 @@ fn model_result(
 /// Settings of the curve analysis.
 #[derive(Debug, Clone, Copy)]
 pub struct CurveSettings {
+    pub scale: curves::FitScale,
     pub draws: usize,
     pub level: f64,
     pub trust_factor: f64,
@@ -590,7 +593,7 @@ pub fn analyse_curve(
                 .zip(v.iter().copied())
                 .collect()
         };
-        match curves::fit_family(family, &curve_points) {
+        match curves::fit_family_on(family, &curve_points, settings.scale) {
             Ok(fit) => {
                 fits.push(FitResult {
                     family,
@@ -616,7 +619,8 @@ pub fn analyse_curve(
             }),
         }
     }
-    let bt = (!ok_fits.is_empty()).then(|| curves::backtest(&samples, &Family::ALL, &ok_fits));
+    let bt = (!ok_fits.is_empty())
+        .then(|| curves::backtest(&samples, &Family::ALL, &ok_fits, settings.scale));
     let selected = bt
         .as_ref()
         .and_then(|b| b.selected())

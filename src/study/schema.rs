@@ -168,6 +168,10 @@ pub struct PlanSection {
     /// extrapolated (default 2).
     #[serde(default = "default_trust_factor")]
     pub trust_factor: f64,
+    /// Scale of the curve-fit residuals: "linear" (default) or "log" (relative errors, for
+    /// skill spanning decades).
+    #[serde(default)]
+    pub fit_scale: crate::curves::FitScale,
 }
 
 fn default_trust_factor() -> f64 {
