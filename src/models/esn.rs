@@ -336,7 +336,9 @@ pub fn fit_nested(
             out[j] = (train[[t, j]] - mean[j]) / scale[j];
         }
     };
+    // Column-major feature block: feature j of row i at j · BLOCK_ROWS + i (see `add`).
     let mut phi_block = vec![0.0; BLOCK_ROWS * f];
+    let mut phi_row = vec![0.0; f];
     let mut y_block = vec![0.0; BLOCK_ROWS * d];
     let mut rows = 0;
     let mut out = Vec::with_capacity(sizes.len());
@@ -347,7 +349,10 @@ pub fn fit_nested(
         reservoir.step(&mut r, &u, &mut scratch);
         standardise(t + 1, &mut u_next);
         if t >= p.washout {
-            reservoir.write_features(&r, &mut phi_block[rows * f..(rows + 1) * f]);
+            reservoir.write_features(&r, &mut phi_row);
+            for (j, v) in phi_row.iter().enumerate() {
+                phi_block[j * BLOCK_ROWS + rows] = *v;
+            }
             for j in 0..d {
                 y_block[rows * d + j] = u_next[j] - u[j];
             }
@@ -356,7 +361,10 @@ pub fn fit_nested(
         std::mem::swap(&mut u, &mut u_next);
         let at_boundary = t + 2 == sizes[next_size];
         if rows == BLOCK_ROWS || at_boundary {
-            ne.add_rows(&phi_block[..rows * f], &y_block[..rows * d], rows);
+            ne.add(
+                faer::MatRef::from_column_major_slice_with_stride(&phi_block, rows, f, BLOCK_ROWS),
+                faer::MatRef::from_row_major_slice(&y_block[..rows * d], rows, d),
+            );
             rows = 0;
         }
         while next_size < sizes.len() && t + 2 == sizes[next_size] {
