@@ -144,10 +144,24 @@ struct LegendItem {
 /// The learning-curve chart of one model as an `<svg>` element (no XML prolog), with an
 /// accessible `<title>`. A chart that cannot be drawn becomes a small SVG saying why.
 pub fn learning_curve(doc: &PlanDocument, model: &ModelResult) -> String {
+    render(
+        HEIGHT,
+        &format!("Learning curve of model {}", model.name),
+        |root| draw(root, doc, model),
+    )
+}
+
+/// Draws a chart of `height` pixels into an SVG string and finishes it with `title`; a chart
+/// that cannot be drawn becomes a small SVG saying why.
+fn render(
+    height: u32,
+    title: &str,
+    draw: impl FnOnce(&DrawingArea<SVGBackend<'_>, Shift>) -> DrawResult,
+) -> String {
     let mut buf = String::new();
     let drawn = {
-        let root = SVGBackend::with_string(&mut buf, (WIDTH, HEIGHT)).into_drawing_area();
-        let r = draw(&root, doc, model).map_err(|e| e.to_string());
+        let root = SVGBackend::with_string(&mut buf, (WIDTH, height)).into_drawing_area();
+        let r = draw(&root).map_err(|e| e.to_string());
         let p = root.present().map_err(|e| e.to_string());
         r.and(p)
     };
@@ -155,7 +169,22 @@ pub fn learning_curve(doc: &PlanDocument, model: &ModelResult) -> String {
         Ok(()) => buf,
         Err(reason) => placeholder(&format!("chart not drawn: {reason}")),
     };
-    finish(&svg, &format!("Learning curve of model {}", model.name))
+    finish(&svg, title)
+}
+
+/// The plot area's chart builder with the house margins and label areas.
+fn chart_builder<'a, 'b>(
+    area: &'a DrawingArea<SVGBackend<'b>, Shift>,
+    y_label_area: u32,
+) -> ChartBuilder<'a, 'b, SVGBackend<'b>> {
+    let mut b = ChartBuilder::on(area);
+    b.margin_top(14)
+        .margin_right(12)
+        .margin_left(6)
+        .margin_bottom(6)
+        .x_label_area_size(44)
+        .y_label_area_size(y_label_area);
+    b
 }
 
 fn placeholder(message: &str) -> String {
@@ -219,19 +248,12 @@ fn draw(
 
     let label_font = ("sans-serif", 13).into_font().color(&INK);
     let axis_font = ("sans-serif", 14).into_font().color(&INK);
-    let mut chart = ChartBuilder::on(&plot_area)
-        .margin_top(14)
-        .margin_right(12)
-        .margin_left(6)
-        .margin_bottom(6)
-        .x_label_area_size(44)
-        .y_label_area_size(52)
-        .build_cartesian_2d(
-            (x_lo..x_hi)
-                .log_scale()
-                .with_key_points(log_ticks(x_lo, x_hi)),
-            0f64..y_hi,
-        )?;
+    let mut chart = chart_builder(&plot_area, 52).build_cartesian_2d(
+        (x_lo..x_hi)
+            .log_scale()
+            .with_key_points(log_ticks(x_lo, x_hi)),
+        0f64..y_hi,
+    )?;
     chart
         .configure_mesh()
         .x_desc("training samples n (log scale)")
@@ -536,18 +558,9 @@ fn draw_legend(area: &DrawingArea<SVGBackend<'_>, Shift>, items: &[LegendItem]) 
 /// the skill predicted at the largest measured size from fits on the first k sizes, against
 /// the largest size used in the fit; the observed mean at the largest size as a reference.
 pub fn backtest_chart(model: &ModelResult) -> String {
-    let mut buf = String::new();
-    let drawn = {
-        let root = SVGBackend::with_string(&mut buf, (WIDTH, 340)).into_drawing_area();
-        let r = draw_backtest(&root, model).map_err(|e| e.to_string());
-        let p = root.present().map_err(|e| e.to_string());
-        r.and(p)
-    };
-    let svg = match drawn {
-        Ok(()) => buf,
-        Err(reason) => placeholder(&format!("chart not drawn: {reason}")),
-    };
-    finish(&svg, &format!("Backtest of model {}", model.name))
+    render(340, &format!("Backtest of model {}", model.name), |root| {
+        draw_backtest(root, model)
+    })
 }
 
 fn draw_backtest(root: &DrawingArea<SVGBackend<'_>, Shift>, model: &ModelResult) -> DrawResult {
@@ -573,19 +586,12 @@ fn draw_backtest(root: &DrawingArea<SVGBackend<'_>, Shift>, model: &ModelResult)
     }
     let (plot_area, legend_area) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
     let label_font = ("sans-serif", 13).into_font().color(&INK);
-    let mut chart = ChartBuilder::on(&plot_area)
-        .margin_top(14)
-        .margin_right(12)
-        .margin_left(6)
-        .margin_bottom(6)
-        .x_label_area_size(44)
-        .y_label_area_size(52)
-        .build_cartesian_2d(
-            (x_lo..x_hi)
-                .log_scale()
-                .with_key_points(log_ticks(x_lo, x_hi)),
-            y_lo..y_hi,
-        )?;
+    let mut chart = chart_builder(&plot_area, 52).build_cartesian_2d(
+        (x_lo..x_hi)
+            .log_scale()
+            .with_key_points(log_ticks(x_lo, x_hi)),
+        y_lo..y_hi,
+    )?;
     chart
         .configure_mesh()
         .x_desc("largest size used in the fit (log scale)")
@@ -719,96 +725,79 @@ pub fn cost_chart(doc: &PlanDocument) -> Option<String> {
         * 1.5;
     let lyapunov = doc.skill.as_ref().and_then(|k| k.lyapunov_exponent);
     let hours = campaign.device.hours_label();
-    let mut buf = String::new();
-    let drawn = {
-        let root = SVGBackend::with_string(&mut buf, (WIDTH, 380)).into_drawing_area();
-        let r = (|| -> DrawResult {
-            root.fill(&WHITE)?;
-            let (plot_area, legend_area) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
-            let x_desc = match lyapunov {
-                Some(l) => format!(
-                    "target mean valid time (model time units; × {} for Lyapunov times)",
-                    short(l)
-                ),
-                None => "target mean valid time (model time units)".to_string(),
-            };
-            let mut chart = ChartBuilder::on(&plot_area)
-                .margin_top(14)
-                .margin_right(12)
-                .margin_left(6)
-                .margin_bottom(6)
-                .x_label_area_size(44)
-                .y_label_area_size(64)
-                .build_cartesian_2d(x_lo..x_hi, (y_lo..y_hi).log_scale())?;
-            chart
-                .configure_mesh()
-                .x_desc(x_desc)
-                .y_desc(format!("{hours} (log scale)"))
-                .axis_desc_style(("sans-serif", 14).into_font().color(&INK))
-                .label_style(("sans-serif", 13).into_font().color(&INK))
-                .x_labels(8)
-                .y_labels(6)
-                .x_label_formatter(&|v| short(*v))
-                .y_label_formatter(&|v| compact(*v))
-                .bold_line_style(GRID)
-                .light_line_style(TRANSPARENT)
-                .axis_style(INK.mix(0.6))
-                .draw()?;
-            let mut items = Vec::new();
-            for (name, colour, pts) in &series {
-                chart.draw_series(LineSeries::new(pts.clone(), colour.stroke_width(2)))?;
-                if let Some(m) = doc.models.iter().find(|m| &m.name == name) {
-                    for e in &m.estimates {
-                        let Some(b) = e.budget else { continue };
-                        if !(x_lo..=x_hi).contains(&e.target) {
-                            continue;
-                        }
-                        let lo = e
-                            .budget_low
-                            .map_or(b.core_hours, |x| x.core_hours)
-                            .max(y_lo);
-                        let hi = e.budget_high.map_or(y_hi, |x| x.core_hours).min(y_hi);
-                        chart.draw_series(std::iter::once(PathElement::new(
-                            vec![(e.target, lo), (e.target, hi)],
-                            colour.stroke_width(1),
-                        )))?;
-                        chart.draw_series(std::iter::once(Circle::new(
-                            (e.target, b.core_hours),
-                            4,
-                            colour.filled(),
-                        )))?;
+    Some(render(380, "Cost against target skill", |root| {
+        root.fill(&WHITE)?;
+        let (plot_area, legend_area) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
+        let x_desc = match lyapunov {
+            Some(l) => format!(
+                "target mean valid time (model time units; × {} for Lyapunov times)",
+                short(l)
+            ),
+            None => "target mean valid time (model time units)".to_string(),
+        };
+        let mut chart = chart_builder(&plot_area, 64)
+            .build_cartesian_2d(x_lo..x_hi, (y_lo..y_hi).log_scale())?;
+        chart
+            .configure_mesh()
+            .x_desc(x_desc)
+            .y_desc(format!("{hours} (log scale)"))
+            .axis_desc_style(("sans-serif", 14).into_font().color(&INK))
+            .label_style(("sans-serif", 13).into_font().color(&INK))
+            .x_labels(8)
+            .y_labels(6)
+            .x_label_formatter(&|v| short(*v))
+            .y_label_formatter(&|v| compact(*v))
+            .bold_line_style(GRID)
+            .light_line_style(TRANSPARENT)
+            .axis_style(INK.mix(0.6))
+            .draw()?;
+        let mut items = Vec::new();
+        for (name, colour, pts) in &series {
+            chart.draw_series(LineSeries::new(pts.clone(), colour.stroke_width(2)))?;
+            if let Some(m) = doc.models.iter().find(|m| &m.name == name) {
+                for e in &m.estimates {
+                    let Some(b) = e.budget else { continue };
+                    if !(x_lo..=x_hi).contains(&e.target) {
+                        continue;
                     }
+                    let lo = e
+                        .budget_low
+                        .map_or(b.core_hours, |x| x.core_hours)
+                        .max(y_lo);
+                    let hi = e.budget_high.map_or(y_hi, |x| x.core_hours).min(y_hi);
+                    chart.draw_series(std::iter::once(PathElement::new(
+                        vec![(e.target, lo), (e.target, hi)],
+                        colour.stroke_width(1),
+                    )))?;
+                    chart.draw_series(std::iter::once(Circle::new(
+                        (e.target, b.core_hours),
+                        4,
+                        colour.filled(),
+                    )))?;
                 }
-                items.push(LegendItem {
-                    swatch: Swatch::Line {
-                        colour: *colour,
-                        width: 2,
-                        dashed: false,
-                    },
-                    text: name.clone(),
-                    second_line: None,
-                });
             }
             items.push(LegendItem {
-                swatch: Swatch::Marker {
-                    colour: INK,
-                    filled: true,
-                    radius: 4,
+                swatch: Swatch::Line {
+                    colour: *colour,
+                    width: 2,
+                    dashed: false,
                 },
-                text: "estimate at a target".into(),
-                second_line: Some("bar: its interval".into()),
+                text: name.clone(),
+                second_line: None,
             });
-            draw_legend(&legend_area, &items)?;
-            Ok(())
-        })();
-        let p = root.present().map_err(|e| e.to_string());
-        r.map_err(|e| e.to_string()).and(p)
-    };
-    let svg = match drawn {
-        Ok(()) => buf,
-        Err(reason) => placeholder(&format!("chart not drawn: {reason}")),
-    };
-    Some(finish(&svg, "Cost against target skill"))
+        }
+        items.push(LegendItem {
+            swatch: Swatch::Marker {
+                colour: INK,
+                filled: true,
+                radius: 4,
+            },
+            text: "estimate at a target".into(),
+            second_line: Some("bar: its interval".into()),
+        });
+        draw_legend(&legend_area, &items)?;
+        Ok(())
+    }))
 }
 
 #[cfg(test)]
