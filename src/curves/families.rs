@@ -218,18 +218,9 @@ impl Family {
                     None
                 }
             }
-            Family::SaturatingPowerLaw => {
-                let (c, a, b) = (p[0], p[1], p[2]);
-                if a == 0.0 || b > 0.0 {
-                    Some(c)
-                } else if b == 0.0 {
-                    Some(c - a)
-                } else {
-                    None
-                }
-            }
             Family::ExponentialSaturation => (p[1] > 0.0).then_some(p[0]),
-            Family::ShiftedSaturatingPowerLaw => {
+            // c − a·(n + d)^(−b): the shift d does not move the limit.
+            Family::SaturatingPowerLaw | Family::ShiftedSaturatingPowerLaw => {
                 let (c, a, b) = (p[0], p[1], p[2]);
                 if a == 0.0 || b > 0.0 {
                     Some(c)

@@ -287,7 +287,6 @@ pub(crate) mod tests {
                 fits,
                 selected,
                 backtest: None,
-                trust_factor: 2.0,
                 estimates,
             });
         }

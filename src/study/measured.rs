@@ -280,7 +280,6 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
             fits: curve.fits,
             selected: curve.selected,
             backtest: curve.backtest,
-            trust_factor: options.trust_factor,
             estimates: curve.estimates,
         });
     }

@@ -115,9 +115,6 @@ pub struct ModelResult {
     pub selected: Option<Family>,
     /// Backtest cases and scores, and the family weights used by the bootstrap.
     pub backtest: Option<crate::curves::Backtest>,
-    /// Trust range: estimates beyond `trust_factor` × the largest measured size are flagged as
-    /// extrapolated.
-    pub trust_factor: f64,
     pub estimates: Vec<TargetEstimate>,
 }
 

@@ -546,7 +546,6 @@ fn model_result(
         fits: curve.fits,
         selected: curve.selected,
         backtest: curve.backtest,
-        trust_factor: plan.trust_factor,
         estimates: curve.estimates,
     }
 }
@@ -696,7 +695,7 @@ fn estimate(
     match (fit.invert(target), first_in_data) {
         (inv, Some(p)) => {
             let n = match inv {
-                Inversion::Reached { n } if n <= p.n => n.max(points[0].n.min(n)),
+                Inversion::Reached { n } if n <= p.n => n,
                 _ => p.n,
             };
             TargetEstimate {
