@@ -695,7 +695,8 @@ fn estimate(
     match (fit.invert(target), first_in_data) {
         (inv, Some(p)) => {
             let n = match inv {
-                Inversion::Reached { n } if n <= p.n => n,
+                // The curve below the smallest measured size is not evidence: report that size.
+                Inversion::Reached { n } if n <= p.n => n.max(points[0].n),
                 _ => p.n,
             };
             TargetEstimate {
@@ -748,5 +749,39 @@ fn estimate(
             },
             ..base
         },
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A target below the skill already measured at the smallest size is met there; the
+    /// estimate never reports fewer samples than were measured (the curve below the smallest
+    /// size is extrapolation, not evidence).
+    #[test]
+    fn targets_met_at_the_smallest_size_report_that_size() {
+        let grid: Vec<SkillGrid> = (0..6)
+            .map(|i| {
+                let n = 1000.0 * 2f64.powi(i);
+                let mean = 2.0 * (1.0 - (-n / 8000.0).exp());
+                SkillGrid {
+                    n,
+                    values: vec![vec![mean * 0.98], vec![mean], vec![mean * 1.02]],
+                    censored: false,
+                }
+            })
+            .collect();
+        let settings = CurveSettings {
+            scale: curves::FitScale::Linear,
+            draws: 50,
+            level: 0.9,
+            trust_factor: 2.0,
+            seed: 1,
+        };
+        let a = analyse_curve(&grid, &[0.05], &settings, None);
+        let e = &a.estimates[0];
+        assert_eq!(e.status, EstimateStatus::ReachedInData);
+        assert_eq!(e.samples, Some(1000.0), "{e:?}");
     }
 }
