@@ -35,6 +35,18 @@ fn pseudo_random(len: usize, seed: u64) -> Vec<f64> {
         .collect()
 }
 
+/// The default two-scale Lorenz-96 system saved every 0.01 time units.
+fn two_scale(dt: f64, spin_up: f64, samples: usize, seed: u64) -> SimulationSpec {
+    SimulationSpec {
+        system: SystemSpec::with_defaults("two-scale-lorenz-96").unwrap(),
+        dt,
+        sample_interval: 0.01,
+        spin_up,
+        samples,
+        seed,
+    }
+}
+
 fn gram(quick: bool) {
     use faer::MatRef;
     let (rows, f, d) = (if quick { 8192 } else { 32768 }, 901, 8);
@@ -104,15 +116,10 @@ fn gram(quick: bool) {
 }
 
 fn nested_curve(quick: bool) {
-    let spec = SimulationSpec {
-        system: SystemSpec::with_defaults("two-scale-lorenz-96").unwrap(),
-        dt: 0.005,
-        sample_interval: 0.01,
-        spin_up: 5.0,
-        samples: if quick { 16_000 } else { 64_000 },
-        seed: 1,
-    };
-    let data = simulate(&spec, None).unwrap().resolved;
+    let samples = if quick { 16_000 } else { 64_000 };
+    let data = simulate(&two_scale(0.005, 5.0, samples, 1), None)
+        .unwrap()
+        .resolved;
     let largest = data.nrows();
     let sizes: Vec<usize> = (0..7).map(|i| largest >> (6 - i)).collect();
     for size in [300, 600] {
@@ -135,15 +142,9 @@ fn nested_curve(quick: bool) {
 }
 
 fn forecasts(quick: bool) {
-    let spec = SimulationSpec {
-        system: SystemSpec::with_defaults("two-scale-lorenz-96").unwrap(),
-        dt: 0.005,
-        sample_interval: 0.01,
-        spin_up: 5.0,
-        samples: 12_000,
-        seed: 2,
-    };
-    let data = simulate(&spec, None).unwrap().resolved;
+    let data = simulate(&two_scale(0.005, 5.0, 12_000, 2), None)
+        .unwrap()
+        .resolved;
     for size in [300, 600] {
         let p = EsnParams {
             reservoir_size: size,
@@ -178,14 +179,7 @@ fn forecasts(quick: bool) {
 fn integrator(quick: bool) {
     let samples = if quick { 5_000 } else { 40_000 };
     let run = |dt: f64| {
-        let spec = SimulationSpec {
-            system: SystemSpec::with_defaults("two-scale-lorenz-96").unwrap(),
-            dt,
-            sample_interval: 0.01,
-            spin_up: 0.0,
-            samples,
-            seed: 3,
-        };
+        let spec = two_scale(dt, 0.0, samples, 3);
         best_of(3, || simulate(&spec, None).unwrap())
     };
     let (a, b) = (run(0.005), run(0.0025));
