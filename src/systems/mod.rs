@@ -44,7 +44,7 @@
 //!   Springer.
 
 mod lorenz63;
-mod lorenz96;
+pub(crate) mod lorenz96;
 mod lyapunov;
 mod rk4;
 mod two_scale;
