@@ -394,7 +394,10 @@ mod tests {
         fn coupling(&self, t: f64, _x: &[f64], out: &mut [f64]) {
             let pos = t / self.sample_interval;
             let i = pos.round();
-            assert!((pos - i).abs() < 1e-6, "stage time {t} is not a saved sample");
+            assert!(
+                (pos - i).abs() < 1e-6,
+                "stage time {t} is not a saved sample"
+            );
             for (o, v) in out.iter_mut().zip(self.u.row(self.start + i as usize)) {
                 *o = *v;
             }
@@ -436,7 +439,10 @@ mod tests {
         let x0 = sim.resolved.row(start).to_vec();
         let error_at = |coarse_dt: f64| {
             let oracle = Oracle {
-                u: sim.subgrid.clone().expect("two-scale exports the coupling term"),
+                u: sim
+                    .subgrid
+                    .clone()
+                    .expect("two-scale exports the coupling term"),
                 start,
                 sample_interval: si,
             };
@@ -458,7 +464,10 @@ mod tests {
         let fine = error_at(0.0025);
         assert!(coarse < 1e-3, "max error over one time unit {coarse:e}");
         let order = coarse / fine;
-        assert!((10.0..22.0).contains(&order), "error ratio {order} (coarse {coarse:e}, fine {fine:e})");
+        assert!(
+            (10.0..22.0).contains(&order),
+            "error ratio {order} (coarse {coarse:e}, fine {fine:e})"
+        );
     }
 
     /// Without a closure the coarse model is a different system: its forecast of the slow

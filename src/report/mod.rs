@@ -192,6 +192,8 @@ pub(crate) mod tests {
                         },
                         summary: summary(mean),
                         initial_conditions: ics,
+                        cost: Default::default(),
+                        closure: None,
                     });
                 }
                 points.push(PointResult {
@@ -205,6 +207,9 @@ pub(crate) mod tests {
                     blow_up_share: if mi == 1 && si == 0 { 0.125 } else { 0.0 },
                     ridge_penalty: Some(1e-6 * n as f64),
                     training_rmse: Some(0.05 / (1.0 + si as f64)),
+                    train_seconds: 0.5,
+                    forecast_seconds_per_step: 1e-5,
+                    closure: None,
                 });
             }
             let failed = FitResult {
@@ -282,6 +287,8 @@ pub(crate) mod tests {
             models.push(ModelResult {
                 name: name.to_string(),
                 kind: "esn".into(),
+                role: "emulator".into(),
+                closure_inputs: None,
                 settings: serde_json::json!({"reservoir": 500, "spectral-radius": 0.9}),
                 points,
                 fits,
@@ -330,6 +337,7 @@ pub(crate) mod tests {
                 seed: Some(3),
                 sigma: vec![3.5; 8],
                 effective_sample_size: None,
+                high_fidelity: None,
             }),
             skill: Some(SkillInfo {
                 definition: "valid prediction time, threshold 0.5".into(),

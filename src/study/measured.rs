@@ -262,6 +262,9 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
                     blow_up_share: 0.0,
                     ridge_penalty: None,
                     training_rmse: None,
+                    train_seconds: 0.0,
+                    forecast_seconds_per_step: 0.0,
+                    closure: None,
                 }
             })
             .collect();
@@ -275,6 +278,8 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
         models.push(ModelResult {
             name: name.clone(),
             kind: "measured outside the tool".into(),
+            role: "emulator".into(),
+            closure_inputs: None,
             settings: serde_json::Value::Null,
             points,
             fits: curve.fits,

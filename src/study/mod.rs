@@ -7,6 +7,7 @@ pub mod records;
 pub mod results;
 pub mod runner;
 pub mod schema;
+pub mod train;
 
 pub use plan::{load_plan, StudyPlan};
 pub use runner::{run_study, RunOptions};
@@ -49,6 +50,8 @@ pub enum StudyError {
         path: PathBuf,
         source: std::io::Error,
     },
+    #[error("closure models need {need}; {found}")]
+    ClosureData { need: String, found: String },
     #[error("cannot start {threads} worker threads: {message}")]
     Threads { threads: usize, message: String },
 }

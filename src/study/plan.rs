@@ -1,9 +1,10 @@
 //! A checked study: every value in range, every default resolved, time spans converted to
 //! samples once the sampling interval is known. Only a plan reaches the computing code.
 
-use super::schema::{DataSection, StudyFile};
+use super::schema::{DataSection, Role, StudyFile};
 use super::StudyError;
 use crate::cost::CostInputs;
+use crate::models::closure::ClosureInputs;
 use crate::models::esn::ValidEsnParams;
 use crate::systems::SystemSpec;
 use std::path::{Path, PathBuf};
@@ -32,6 +33,39 @@ pub enum DataSource {
 pub struct ModelPlan {
     pub name: String,
     pub kind: ModelKind,
+    pub usage: ModelUse,
+}
+
+/// How a model is used.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum ModelUse {
+    /// Forecasts the resolved state by itself.
+    Emulator,
+    /// Predicts the coupling term from these inputs, inside the coarse solver.
+    Closure(ClosureInputs),
+}
+
+impl ModelUse {
+    pub fn is_closure(&self) -> bool {
+        matches!(self, ModelUse::Closure(_))
+    }
+
+    /// "emulator" or "closure".
+    pub fn label(&self) -> &'static str {
+        match self {
+            ModelUse::Emulator => "emulator",
+            ModelUse::Closure(_) => "closure",
+        }
+    }
+}
+
+/// Coupled-run settings of closure models, in model time units.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ClosurePlan {
+    /// Coarse step; `None`: the pilot simulation's step, or half the sample interval.
+    pub coarse_dt: Option<f64>,
+    pub free_run_horizon: f64,
+    pub free_runs: usize,
 }
 
 /// The model families the study engine can train.
@@ -41,6 +75,15 @@ pub enum ModelKind {
 }
 
 impl ModelKind {
+    /// Why this family cannot serve as a closure, if it cannot.
+    pub fn closure_unsupported(&self) -> Option<&'static str> {
+        match self {
+            ModelKind::Esn(_) => Some(
+                "a closure must be a function of the coarse state at every RK stage; the echo state network carries internal memory — use it as an emulator",
+            ),
+        }
+    }
+
     /// Short label of the family.
     pub fn label(&self) -> &'static str {
         match self {
@@ -78,6 +121,7 @@ pub struct StudyPlan {
     pub sizes: Vec<usize>,
     pub replicates: usize,
     pub models: Vec<ModelPlan>,
+    pub closure: ClosurePlan,
     /// Target mean valid times, model time units, ascending.
     pub targets: Vec<f64>,
     pub confidence: f64,
@@ -300,8 +344,87 @@ fn check(
                     ))
                 }
             };
-        models.push(ModelPlan { name: m.name, kind });
+        let usage = match (m.role, m.inputs.as_deref()) {
+            (Role::Emulator, _) => {
+                if m.inputs.is_some() || m.half_width.is_some() {
+                    return Err(invalid(
+                        &format!("{key}.inputs"),
+                        "inputs or half-width on an emulator".into(),
+                        "`inputs` and `half-width` only with role = \"closure\"",
+                    ));
+                }
+                ModelUse::Emulator
+            }
+            (Role::Closure, None | Some("local")) => ModelUse::Closure(ClosureInputs::Local {
+                half_width: match m.half_width.unwrap_or(1) {
+                    h @ 0..=16 => h,
+                    h => {
+                        return Err(invalid(
+                            &format!("{key}.half-width"),
+                            h.to_string(),
+                            "0 to 16",
+                        ))
+                    }
+                },
+            }),
+            (Role::Closure, Some("global")) => {
+                if m.half_width.is_some() {
+                    return Err(invalid(
+                        &format!("{key}.half-width"),
+                        "half-width with global inputs".into(),
+                        "half-width only with inputs = \"local\"",
+                    ));
+                }
+                ModelUse::Closure(ClosureInputs::Global)
+            }
+            (Role::Closure, Some(other)) => {
+                return Err(invalid(
+                    &format!("{key}.inputs"),
+                    format!("'{other}'"),
+                    "\"local\" or \"global\"",
+                ))
+            }
+        };
+        if usage.is_closure() {
+            if let Some(reason) = kind.closure_unsupported() {
+                return Err(invalid(
+                    &format!("{key}.role"),
+                    format!("closure with a {}", kind.label()),
+                    reason,
+                ));
+            }
+            if let DataSource::Simulate { system, .. } = &data {
+                if !matches!(system, SystemSpec::TwoScaleLorenz96 { .. }) {
+                    return Err(invalid(
+                        &format!("{key}.role"),
+                        format!("closure on {} data", system.label()),
+                        "closures need two-scale Lorenz-96 data (the subgrid coupling term to learn)",
+                    ));
+                }
+            }
+        }
+        models.push(ModelPlan {
+            name: m.name,
+            kind,
+            usage,
+        });
     }
+
+    // Closure coupling.
+    let closure = ClosurePlan {
+        coarse_dt: match f.closure.coarse_dt {
+            Some(v) => Some(positive("closure.coarse-dt", v)?),
+            None => None,
+        },
+        free_run_horizon: positive(
+            "closure.free-run-horizon",
+            f.closure.free_run_horizon.unwrap_or(20.0),
+        )?,
+        free_runs: match f.closure.free_runs.unwrap_or(4) {
+            r @ 1..=1000 => r,
+            r => return Err(invalid("closure.free-runs", r.to_string(), "1 to 1000")),
+        },
+    };
 
     // Targets.
     let mut targets = f.plan.targets.clone();
@@ -365,6 +488,7 @@ fn check(
         sizes,
         replicates: f.subsets.replicates,
         models,
+        closure,
         targets,
         confidence: f.plan.confidence,
         bootstrap_draws: f.plan.bootstrap_draws,

@@ -24,6 +24,33 @@ pub struct SkillRecord {
     /// Per test initial condition, in split order.
     pub initial_conditions: Vec<IcSkill>,
     pub summary: SkillSummary,
+    /// Measured costs (wall-clock; they vary between runs, unlike everything above).
+    #[serde(default)]
+    pub cost: PointCost,
+    /// Closures: offline skill and long free runs.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub closure: Option<ClosureChecks>,
+}
+
+/// Measured cost of one point.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct PointCost {
+    /// Training wall-clock seconds of the (model, replicate) unit that produced this point.
+    pub train_seconds: f64,
+    /// Wall-clock seconds per forecast step, summed over initial conditions on their threads.
+    pub forecast_seconds_per_step: f64,
+}
+
+/// Offline and free-run checks of one trained closure.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct ClosureChecks {
+    /// R² of the coupling term on held-out data.
+    pub offline_r2: f64,
+    pub free_run: crate::models::closure::FreeRunCheck,
+    /// Wall-clock seconds per model time unit of the coupled coarse model (free runs).
+    pub coupled_seconds_per_time_unit: f64,
 }
 
 /// Append-only JSON-lines store; each record is one `write` of one line.

@@ -41,6 +41,29 @@ pub struct PlanDocument {
     pub timings: Timings,
 }
 
+impl PlanDocument {
+    /// Clears every wall-clock measurement (stage timings, training and forecast times, coupled
+    /// and high-fidelity run times), leaving what the seeds determine: two runs of one study
+    /// agree exactly after this.
+    pub fn clear_measured_times(&mut self) {
+        self.timings = Timings::default();
+        if let Some(d) = &mut self.data {
+            if let Some(h) = &mut d.high_fidelity {
+                h.seconds_per_time_unit = 0.0;
+            }
+        }
+        for m in &mut self.models {
+            for p in &mut m.points {
+                p.train_seconds = 0.0;
+                p.forecast_seconds_per_step = 0.0;
+                if let Some(c) = &mut p.closure {
+                    c.coupled_seconds_per_time_unit = 0.0;
+                }
+            }
+        }
+    }
+}
+
 /// The study file and its identity.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
@@ -88,6 +111,19 @@ pub struct DataInfo {
     /// Integrated autocorrelation times and effective sample sizes over the training pool,
     /// with the recommended saving interval; `None` when they could not be estimated.
     pub effective_sample_size: Option<crate::data::autocorr::EssReport>,
+    /// Measured cost of the built-in high-fidelity simulation (simulated data only).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub high_fidelity: Option<HighFidelityCost>,
+}
+
+/// Measured cost of the high-fidelity simulation on this machine (one core).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct HighFidelityCost {
+    /// Equations integrated (two-scale Lorenz-96: K + K·J).
+    pub equations: usize,
+    /// Wall-clock seconds per model time unit, including spin-up.
+    pub seconds_per_time_unit: f64,
 }
 
 /// How skill was measured.
@@ -107,6 +143,12 @@ pub struct SkillInfo {
 pub struct ModelResult {
     pub name: String,
     pub kind: String,
+    /// "emulator" or "closure".
+    #[serde(default = "emulator_role")]
+    pub role: String,
+    /// Closures: which resolved variables the closure sees.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub closure_inputs: Option<String>,
     /// The model's settings as given (defaults resolved).
     pub settings: serde_json::Value,
     pub points: Vec<PointResult>,
@@ -138,6 +180,39 @@ pub struct PointResult {
     pub ridge_penalty: Option<f64>,
     /// Mean one-step training residual over replicates (standardised units).
     pub training_rmse: Option<f64>,
+    /// Mean wall-clock seconds of training per replicate (a nested one-pass fit is charged in
+    /// full to every size it produced).
+    #[serde(default)]
+    pub train_seconds: f64,
+    /// Mean wall-clock seconds per forecast step (per initial condition).
+    #[serde(default)]
+    pub forecast_seconds_per_step: f64,
+    /// Closures: offline and online checks, averaged over replicates.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub closure: Option<ClosurePoint>,
+}
+
+fn emulator_role() -> String {
+    "emulator".into()
+}
+
+/// A closure's offline fit and long free runs at one subset size, mean over replicates.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct ClosurePoint {
+    /// R² of the predicted coupling term on held-out data (after the training pool).
+    pub offline_r2: f64,
+    /// Share of long free runs that stayed bounded.
+    pub stable_share: f64,
+    /// Wasserstein-1 distance of the resolved variables' distribution to the truth's, in σ
+    /// (mean over replicates with at least one bounded run).
+    pub climate_distance: Option<f64>,
+    /// Length of each free run, model time units.
+    pub horizon: f64,
+    /// Free runs per replicate.
+    pub runs: usize,
+    /// Wall-clock seconds per model time unit of the coupled coarse model.
+    pub coupled_seconds_per_time_unit: f64,
 }
 
 /// One fitted family.

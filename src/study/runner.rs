@@ -2,9 +2,10 @@
 //! conditions (in parallel, deterministic whatever the thread count), learning-curve fits,
 //! inversion for the targets, and costs. Writing the report is the caller's next step.
 
-use super::plan::{to_samples, DataSource, ModelKind, StudyPlan};
-use super::records::{RecordStore, SkillRecord};
+use super::plan::{to_samples, DataSource, ModelKind, ModelUse, StudyPlan};
+use super::records::{ClosureChecks, PointCost, RecordStore, SkillRecord};
 use super::results::*;
+use super::train::{train_unit, Coupling, Fitted};
 use super::StudyError;
 use crate::cost::campaign::Campaign;
 use crate::cost::runs::RunTable;
@@ -12,7 +13,8 @@ use crate::curves::{self, Family, Inversion, SizeSamples, SkillGrid};
 use crate::data::{
     column_stats, read_trajectory, Split, SplitSpec, Trajectory, TrajectoryMeta, SIDECAR_SCHEMA,
 };
-use crate::models::{esn, FitSummary, Forecaster, Persistence};
+use crate::models::closure::{free_run_check, offline_r2, CoupledModel};
+use crate::models::Persistence;
 use crate::skill::{self, IcSkill, SkillSpec};
 use crate::systems::{simulate, SimulationSpec};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
@@ -20,7 +22,6 @@ use rayon::prelude::*;
 use sha2::{Digest, Sha256};
 use std::collections::BTreeMap;
 use std::path::PathBuf;
-use std::sync::Arc;
 use std::time::Instant;
 
 /// How to run a study.
@@ -74,6 +75,68 @@ struct Prepared {
     skill: SkillSpec,
     cost: Campaign,
     source: String,
+    /// Coarse solver of closure models (when the plan has any).
+    coupling: Option<Coupling>,
+    /// Measured cost of the high-fidelity simulation (simulated data only).
+    high_fidelity: Option<HighFidelityCost>,
+}
+
+/// Resolves the coarse solver for closure models from the data, or says what is missing.
+fn coupling_for(plan: &StudyPlan, traj: &Trajectory) -> Result<Option<Coupling>, StudyError> {
+    if !plan.models.iter().any(|m| m.usage.is_closure()) {
+        return Ok(None);
+    }
+    let need = "two-scale Lorenz-96 data with the subgrid coupling term (`.subgrid.npy` beside a data file whose sidecar names the system)";
+    if traj.meta.system.as_deref() != Some("two-scale-lorenz-96") {
+        return Err(StudyError::ClosureData {
+            need: need.into(),
+            found: format!(
+                "the data's system is {}",
+                traj.meta.system.as_deref().unwrap_or("not stated")
+            ),
+        });
+    }
+    let Some(&forcing) = traj.meta.parameters.get("forcing") else {
+        return Err(StudyError::ClosureData {
+            need: need.into(),
+            found: "the sidecar gives no `forcing` parameter".into(),
+        });
+    };
+    match &traj.subgrid {
+        Some(u) if u.dim() == traj.values.dim() => {}
+        Some(u) => {
+            return Err(StudyError::ClosureData {
+                need: need.into(),
+                found: format!(
+                    "the subgrid array is {}×{} but the resolved data is {}×{}",
+                    u.nrows(),
+                    u.ncols(),
+                    traj.values.nrows(),
+                    traj.values.ncols()
+                ),
+            })
+        }
+        None => {
+            return Err(StudyError::ClosureData {
+                need: need.into(),
+                found: "the data has no subgrid coupling term".into(),
+            })
+        }
+    }
+    let sample_interval = traj.sample_interval();
+    let coarse_dt = plan
+        .closure
+        .coarse_dt
+        .or(match &plan.data {
+            DataSource::Simulate { dt, .. } => Some(*dt),
+            DataSource::File { .. } => None,
+        })
+        .unwrap_or(sample_interval / 2.0);
+    Ok(Some(Coupling {
+        forcing,
+        coarse_dt,
+        sample_interval,
+    }))
 }
 
 fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
@@ -86,6 +149,7 @@ fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
         warm_up: to_samples(t.warm_up, dt).max(1),
         max_lead: to_samples(t.max_lead, dt).max(1),
     };
+    let mut high_fidelity = None;
     let (traj, source) = match &plan.data {
         DataSource::Simulate {
             system,
@@ -98,6 +162,7 @@ fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
             let samples = split_for(*sample_interval).total_for_pool(*training_pool);
             let bar = bar(progress, samples as u64, "simulating pilot data");
             let tick = |done: usize, _total: usize| bar.set_position(done as u64);
+            let sim_started = Instant::now();
             let sim = simulate(
                 &SimulationSpec {
                     system: system.clone(),
@@ -110,6 +175,11 @@ fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
                 Some(&tick),
             )?;
             bar.finish_and_clear();
+            let simulated_time = *spin_up + samples as f64 * *sample_interval;
+            high_fidelity = Some(HighFidelityCost {
+                equations: system.full_dim(),
+                seconds_per_time_unit: sim_started.elapsed().as_secs_f64() / simulated_time,
+            });
             let meta = TrajectoryMeta {
                 schema: SIDECAR_SCHEMA.into(),
                 system: Some(system.label().into()),
@@ -157,12 +227,29 @@ fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
         sigma,
     };
     let cost = plan.cost.campaign(traj.dim(), dt)?;
+    let coupling = coupling_for(plan, &traj)?;
+    if let Some(c) = &coupling {
+        // Checked here so a bad step fails before any training.
+        crate::models::closure::CoupledModel::new(
+            std::sync::Arc::new(crate::models::closure::NoClosure),
+            c.forcing,
+            c.coarse_dt,
+            c.sample_interval,
+        )
+        .map_err(|source| StudyError::Model {
+            model: "closure".into(),
+            replicate: 0,
+            source,
+        })?;
+    }
     Ok(Prepared {
         traj,
         split,
         skill,
         cost,
         source,
+        coupling,
+        high_fidelity,
     })
 }
 
@@ -186,8 +273,8 @@ struct Trained {
     replicate: usize,
     seed: u64,
     window_start: usize,
-    summary: FitSummary,
-    forecaster: Arc<dyn Forecaster>,
+    train_seconds: f64,
+    fitted: Fitted,
 }
 
 fn run_in_pool(
@@ -235,28 +322,32 @@ fn run_in_pool(
             } else {
                 0
             };
-            let window = prep
-                .traj
-                .values
-                .slice(ndarray::s![window_start..window_start + largest, ..]);
-            let fitted = match &model.kind {
-                ModelKind::Esn(p) => esn::fit_nested(p, window, &plan.sizes, seed),
-            }
+            let rows = ndarray::s![window_start..window_start + largest, ..];
+            let started = Instant::now();
+            let fitted = train_unit(
+                model,
+                prep.traj.values.slice(rows),
+                prep.traj.subgrid.as_ref().map(|u| u.slice(rows)),
+                &plan.sizes,
+                seed,
+                prep.coupling,
+            )
             .map_err(|source| StudyError::Model {
                 model: model.name.clone(),
                 replicate: r,
                 source,
             })?;
+            let train_seconds = started.elapsed().as_secs_f64();
             train_bar.inc(1);
             Ok(fitted
                 .into_iter()
-                .map(|(f, summary)| Trained {
+                .map(|fitted| Trained {
                     model: m,
                     replicate: r,
                     seed,
                     window_start,
-                    summary,
-                    forecaster: Arc::new(f) as Arc<dyn Forecaster>,
+                    train_seconds,
+                    fitted,
                 })
                 .collect())
         })
@@ -273,23 +364,46 @@ fn run_in_pool(
         .map(|&ic| skill::valid_time(&Persistence, truth, ic, &prep.skill))
         .collect();
     let tasks: Vec<&Trained> = trained.iter().flatten().collect();
+    let checks = prep
+        .coupling
+        .map(|_| ClosureReference::new(&prep, &plan.closure));
     let fc_bar = bar(options.progress, tasks.len() as u64, "forecasting");
     let records: Vec<SkillRecord> = tasks
         .par_iter()
         .map(|t| {
-            let per_ic: Vec<IcSkill> = ics
+            let timed: Vec<(IcSkill, f64)> = ics
                 .par_iter()
-                .map(|&ic| skill::valid_time(t.forecaster.as_ref(), truth, ic, &prep.skill))
+                .map(|&ic| {
+                    let started = Instant::now();
+                    let s = skill::valid_time(t.fitted.forecaster.as_ref(), truth, ic, &prep.skill);
+                    (s, started.elapsed().as_secs_f64())
+                })
                 .collect();
+            let per_ic: Vec<IcSkill> = timed.iter().map(|(s, _)| *s).collect();
+            let si = prep.skill.sample_interval;
+            let steps: f64 = per_ic
+                .iter()
+                .map(|s| ((s.valid_time / si).round() + 1.0).min(prep.skill.max_lead as f64))
+                .sum();
+            let closure = match (&t.fitted.coupled, &checks) {
+                (Some(coupled), Some(reference)) => Some(reference.check(coupled)),
+                _ => None,
+            };
             let record = SkillRecord {
                 model: plan.models[t.model].name.clone(),
                 replicate: t.replicate,
-                n: t.summary.n,
+                n: t.fitted.summary.n,
                 seed: t.seed,
                 window_start: t.window_start,
-                fit: t.summary.clone(),
+                fit: t.fitted.summary.clone(),
                 summary: skill::summarise(&per_ic),
                 initial_conditions: per_ic,
+                cost: PointCost {
+                    train_seconds: t.train_seconds,
+                    forecast_seconds_per_step: timed.iter().map(|(_, s)| s).sum::<f64>()
+                        / steps.max(1.0),
+                },
+                closure,
             };
             store.append(&record).map_err(|source| StudyError::Write {
                 path: store.path().to_path_buf(),
@@ -398,6 +512,7 @@ fn run_in_pool(
             seed: d.meta.seed,
             sigma: prep.skill.sigma.clone(),
             effective_sample_size: ess.clone(),
+            high_fidelity: prep.high_fidelity,
         }),
         skill: Some(SkillInfo {
             definition: format!(
@@ -500,6 +615,10 @@ fn model_result(
             blow_up_share: s.blow_up_share,
             ridge_penalty: mean_of(&|r| r.fit.ridge_penalty),
             training_rmse: mean_of(&|r| r.fit.training_rmse),
+            train_seconds: mean_of(&|r| Some(r.cost.train_seconds)).unwrap_or(0.0),
+            forecast_seconds_per_step: mean_of(&|r| Some(r.cost.forecast_seconds_per_step))
+                .unwrap_or(0.0),
+            closure: closure_point(&at),
         });
         grid.push(cell);
     }
@@ -541,6 +660,11 @@ fn model_result(
     ModelResult {
         name: model.name.clone(),
         kind: model.kind.label().into(),
+        role: model.usage.label().into(),
+        closure_inputs: match model.usage {
+            ModelUse::Closure(inputs) => Some(inputs.describe()),
+            ModelUse::Emulator => None,
+        },
         settings,
         points,
         fits: curve.fits,
@@ -548,6 +672,36 @@ fn model_result(
         backtest: curve.backtest,
         estimates: curve.estimates,
     }
+}
+
+/// Closure checks at one size, averaged over replicates.
+fn closure_point(at: &[&SkillRecord]) -> Option<ClosurePoint> {
+    let checks: Vec<&ClosureChecks> = at.iter().filter_map(|r| r.closure.as_ref()).collect();
+    if checks.is_empty() {
+        return None;
+    }
+    let mean = |v: Vec<f64>| (!v.is_empty()).then(|| v.iter().sum::<f64>() / v.len() as f64);
+    let first = checks[0].free_run;
+    Some(ClosurePoint {
+        offline_r2: mean(checks.iter().map(|c| c.offline_r2).collect()).unwrap_or(f64::NAN),
+        stable_share: mean(checks.iter().map(|c| c.free_run.stable_share).collect())
+            .unwrap_or(f64::NAN),
+        climate_distance: mean(
+            checks
+                .iter()
+                .filter_map(|c| c.free_run.climate_distance)
+                .collect(),
+        ),
+        horizon: first.horizon,
+        runs: first.runs,
+        coupled_seconds_per_time_unit: mean(
+            checks
+                .iter()
+                .map(|c| c.coupled_seconds_per_time_unit)
+                .collect(),
+        )
+        .unwrap_or(f64::NAN),
+    })
 }
 
 /// Settings of the curve analysis.
@@ -783,5 +937,90 @@ mod tests {
         let e = &a.estimates[0];
         assert_eq!(e.status, EstimateStatus::ReachedInData);
         assert_eq!(e.samples, Some(1000.0), "{e:?}");
+    }
+}
+
+/// Held-out data the closure checks compare against: coupling terms after the training pool for
+/// the offline R², and free-run starts and the truth's pooled distribution for the long runs.
+struct ClosureReference {
+    x: ndarray::Array2<f64>,
+    u: ndarray::Array2<f64>,
+    starts: Vec<Vec<f64>>,
+    truth_values: Vec<f64>,
+    samples: usize,
+    sample_interval: f64,
+    mean: Vec<f64>,
+    sigma: Vec<f64>,
+}
+
+impl ClosureReference {
+    /// At most this many held-out samples enter the offline R² (evenly strided).
+    const OFFLINE_SAMPLES: usize = 4000;
+
+    fn new(prep: &Prepared, closure: &super::plan::ClosurePlan) -> Self {
+        let first = prep.split.pool.end + prep.split.spec.gap;
+        let total = prep.traj.samples();
+        let stride = ((total - first) / Self::OFFLINE_SAMPLES).max(1);
+        let rows = ndarray::s![first..total;stride, ..];
+        let u = prep
+            .traj
+            .subgrid
+            .as_ref()
+            .expect("checked by coupling_for")
+            .slice(rows)
+            .to_owned();
+        let x = prep.traj.values.slice(rows).to_owned();
+        let starts = prep
+            .split
+            .initial_conditions
+            .iter()
+            .take(closure.free_runs)
+            .map(|&ic| prep.traj.values.row(ic).to_vec())
+            .collect();
+        let truth_values = prep
+            .traj
+            .values
+            .slice(ndarray::s![first..total, ..])
+            .iter()
+            .copied()
+            .collect();
+        let si = prep.traj.sample_interval();
+        Self {
+            x,
+            u,
+            starts,
+            truth_values,
+            samples: (closure.free_run_horizon / si).round().max(1.0) as usize,
+            sample_interval: si,
+            mean: prep.skill.mean.clone(),
+            sigma: prep.skill.sigma.clone(),
+        }
+    }
+
+    fn check(&self, coupled: &CoupledModel) -> ClosureChecks {
+        let offline_r2 = offline_r2(coupled.closure.as_ref(), self.x.view(), self.u.view());
+        let started = Instant::now();
+        let free_run = free_run_check(
+            coupled,
+            &self.starts,
+            self.samples,
+            self.sample_interval,
+            &self.truth_values,
+            &self.mean,
+            &self.sigma,
+        );
+        let seconds = started.elapsed().as_secs_f64();
+        let simulated = match free_run.mean_time_to_blow_up {
+            None => free_run.runs as f64 * free_run.horizon,
+            Some(t) => {
+                let failed = ((1.0 - free_run.stable_share) * free_run.runs as f64).round();
+                (free_run.runs as f64 - failed) * free_run.horizon + failed * t
+            }
+        };
+        ClosureChecks {
+            offline_r2,
+            free_run,
+            coupled_seconds_per_time_unit: seconds / simulated.max(self.sample_interval),
+        }
     }
 }

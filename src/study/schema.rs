@@ -25,6 +25,9 @@ pub struct StudyFile {
     pub subsets: SubsetSection,
     #[serde(rename = "model")]
     pub models: Vec<ModelSection>,
+    /// Settings of the coupled coarse runs of closure models.
+    #[serde(default)]
+    pub closure: ClosureSection,
     pub plan: PlanSection,
     pub cost: CostInputs,
 }
@@ -148,8 +151,41 @@ pub struct GeometricSizes {
 pub struct ModelSection {
     /// Name used in outputs (letters, digits, `-`, `_`).
     pub name: String,
+    /// "emulator" (default: predicts the next resolved state) or "closure" (predicts the subgrid
+    /// coupling term and runs inside the coarse solver; two-scale Lorenz-96 data only).
+    #[serde(default)]
+    pub role: Role,
+    /// Closures only: "local" (default: one map from a stencil of neighbours to each U_k) or
+    /// "global" (all U from all X).
+    pub inputs: Option<String>,
+    /// Closures with local inputs: stencil half-width s, inputs X_(k−s) … X_(k+s) (default 1).
+    pub half_width: Option<usize>,
     /// Echo state network settings.
     pub esn: Option<EsnParams>,
+}
+
+/// What a model predicts.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Role {
+    /// The next resolved state (fully data-driven forecast).
+    #[default]
+    Emulator,
+    /// The subgrid coupling term, coupled online to the coarse solver.
+    Closure,
+}
+
+/// `[closure]`: how closure models are coupled and checked online.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct ClosureSection {
+    /// Coarse RK4 step, model time units; must divide the sample interval (default: the pilot
+    /// simulation's step, or half the sample interval for data files).
+    pub coarse_dt: Option<f64>,
+    /// Length of each long free run of the stability check, model time units (default 20).
+    pub free_run_horizon: Option<f64>,
+    /// Free runs per trained closure, started from the first test initial conditions (default 4).
+    pub free_runs: Option<usize>,
 }
 
 /// `[plan]`: what to solve for.

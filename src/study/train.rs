@@ -1,0 +1,110 @@
+//! Training of one (model, replicate) unit on every nested subset size, for both uses of a
+//! model: emulators forecast the resolved state themselves; closures learn the subgrid coupling
+//! term and are wrapped in the coarse solver ([`CoupledModel`]), so the forecasting stage scores
+//! both the same way.
+
+use super::plan::{ModelKind, ModelPlan, ModelUse};
+use crate::models::closure::{ClosureInputs, CoupledModel, LearnedClosure, Regressor};
+use crate::models::{esn, FitSummary, Forecaster, ModelError};
+use ndarray::ArrayView2;
+use std::sync::Arc;
+
+/// What the coarse solver of a closure needs.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Coupling {
+    /// Forcing F of the resolved equations.
+    pub forcing: f64,
+    /// Coarse RK4 step.
+    pub coarse_dt: f64,
+    /// Time between saved samples.
+    pub sample_interval: f64,
+}
+
+/// One trained model on one subset.
+pub struct Fitted {
+    pub summary: FitSummary,
+    pub forecaster: Arc<dyn Forecaster>,
+    /// For closures: the coupled coarse model (the same object as `forecaster`).
+    pub coupled: Option<Arc<CoupledModel>>,
+}
+
+/// Trains `model` on every prefix `sizes` of `x` (resolved states) and, for closures, `u` (the
+/// coupling term at the same samples).
+pub fn train_unit(
+    model: &ModelPlan,
+    x: ArrayView2<f64>,
+    u: Option<ArrayView2<f64>>,
+    sizes: &[usize],
+    seed: u64,
+    coupling: Option<Coupling>,
+) -> Result<Vec<Fitted>, ModelError> {
+    match model.usage {
+        ModelUse::Emulator => emulator(model, x, sizes, seed),
+        ModelUse::Closure(inputs) => {
+            let u = u.expect("closure plans are checked to have coupling data");
+            let coupling = coupling.expect("closure plans are checked to have a coarse solver");
+            sizes
+                .iter()
+                .map(|&n| {
+                    let (xs, us) = (x.slice(ndarray::s![..n, ..]), u.slice(ndarray::s![..n, ..]));
+                    let (rows_in, rows_out) = inputs.rows(xs, us);
+                    let (regressor, mut summary) =
+                        fit_regressor(model, inputs, rows_in.view(), rows_out.view(), seed)?;
+                    summary.n = n;
+                    let coupled = Arc::new(CoupledModel::new(
+                        Arc::new(LearnedClosure { regressor, inputs }),
+                        coupling.forcing,
+                        coupling.coarse_dt,
+                        coupling.sample_interval,
+                    )?);
+                    Ok(Fitted {
+                        summary,
+                        forecaster: coupled.clone(),
+                        coupled: Some(coupled),
+                    })
+                })
+                .collect()
+        }
+    }
+}
+
+fn emulator(
+    model: &ModelPlan,
+    x: ArrayView2<f64>,
+    sizes: &[usize],
+    seed: u64,
+) -> Result<Vec<Fitted>, ModelError> {
+    fn wrap<F: Forecaster + 'static>(v: Vec<(F, FitSummary)>) -> Vec<Fitted> {
+        v.into_iter()
+            .map(|(f, summary)| Fitted {
+                summary,
+                forecaster: Arc::new(f),
+                coupled: None,
+            })
+            .collect()
+    }
+    Ok(match &model.kind {
+        ModelKind::Esn(p) => wrap(esn::fit_nested(p, x, sizes, seed)?),
+    })
+}
+
+/// Fits the closure's regression from stencil (or global) inputs to coupling terms.
+fn fit_regressor(
+    model: &ModelPlan,
+    _inputs: ClosureInputs,
+    _rows_in: ArrayView2<f64>,
+    _rows_out: ArrayView2<f64>,
+    _seed: u64,
+) -> Result<(Arc<dyn Regressor>, FitSummary), ModelError> {
+    match &model.kind {
+        ModelKind::Esn(_) => Err(ModelError::InvalidParameter {
+            key: "role".into(),
+            value: "closure".into(),
+            allowed: model
+                .kind
+                .closure_unsupported()
+                .unwrap_or("emulator")
+                .into(),
+        }),
+    }
+}
