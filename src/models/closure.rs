@@ -176,7 +176,8 @@ impl CoupledModel {
     ) -> Result<Self, ModelError> {
         let ratio = sample_interval / dt;
         let substeps = ratio.round();
-        if !(dt > 0.0) || substeps < 1.0 || (ratio - substeps).abs() > 1e-9 * ratio {
+        if !dt.is_finite() || dt <= 0.0 || substeps < 1.0 || (ratio - substeps).abs() > 1e-9 * ratio
+        {
             return Err(ModelError::InvalidParameter {
                 key: "closure.coarse-dt".into(),
                 value: dt.to_string(),
@@ -311,10 +312,10 @@ pub fn free_run_check(
         let mut run_values = Vec::with_capacity(samples * x0.len());
         let mut failed_at = None;
         model.run(x0, samples, &mut |k, x| {
-            let bad = x
-                .iter()
-                .zip(mean.iter().zip(sigma))
-                .any(|(v, (m, s))| !((v - m).abs() <= BLOW_UP_SIGMAS * s));
+            let bad = x.iter().zip(mean.iter().zip(sigma)).any(|(v, (m, s))| {
+                let excursion = (v - m).abs();
+                excursion.is_nan() || excursion > BLOW_UP_SIGMAS * s
+            });
             if bad {
                 failed_at = Some(k as f64 * sample_interval);
                 return false;

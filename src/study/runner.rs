@@ -906,40 +906,6 @@ fn estimate(
     }
 }
 
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    /// A target below the skill already measured at the smallest size is met there; the
-    /// estimate never reports fewer samples than were measured (the curve below the smallest
-    /// size is extrapolation, not evidence).
-    #[test]
-    fn targets_met_at_the_smallest_size_report_that_size() {
-        let grid: Vec<SkillGrid> = (0..6)
-            .map(|i| {
-                let n = 1000.0 * 2f64.powi(i);
-                let mean = 2.0 * (1.0 - (-n / 8000.0).exp());
-                SkillGrid {
-                    n,
-                    values: vec![vec![mean * 0.98], vec![mean], vec![mean * 1.02]],
-                    censored: false,
-                }
-            })
-            .collect();
-        let settings = CurveSettings {
-            scale: curves::FitScale::Linear,
-            draws: 50,
-            level: 0.9,
-            trust_factor: 2.0,
-            seed: 1,
-        };
-        let a = analyse_curve(&grid, &[0.05], &settings, None);
-        let e = &a.estimates[0];
-        assert_eq!(e.status, EstimateStatus::ReachedInData);
-        assert_eq!(e.samples, Some(1000.0), "{e:?}");
-    }
-}
-
 /// Held-out data the closure checks compare against: coupling terms after the training pool for
 /// the offline R², and free-run starts and the truth's pooled distribution for the long runs.
 struct ClosureReference {
@@ -1022,5 +988,39 @@ impl ClosureReference {
             free_run,
             coupled_seconds_per_time_unit: seconds / simulated.max(self.sample_interval),
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A target below the skill already measured at the smallest size is met there; the
+    /// estimate never reports fewer samples than were measured (the curve below the smallest
+    /// size is extrapolation, not evidence).
+    #[test]
+    fn targets_met_at_the_smallest_size_report_that_size() {
+        let grid: Vec<SkillGrid> = (0..6)
+            .map(|i| {
+                let n = 1000.0 * 2f64.powi(i);
+                let mean = 2.0 * (1.0 - (-n / 8000.0).exp());
+                SkillGrid {
+                    n,
+                    values: vec![vec![mean * 0.98], vec![mean], vec![mean * 1.02]],
+                    censored: false,
+                }
+            })
+            .collect();
+        let settings = CurveSettings {
+            scale: curves::FitScale::Linear,
+            draws: 50,
+            level: 0.9,
+            trust_factor: 2.0,
+            seed: 1,
+        };
+        let a = analyse_curve(&grid, &[0.05], &settings, None);
+        let e = &a.estimates[0];
+        assert_eq!(e.status, EstimateStatus::ReachedInData);
+        assert_eq!(e.samples, Some(1000.0), "{e:?}");
     }
 }
