@@ -103,6 +103,7 @@ pub fn html(outcome: &StudyOutcome) -> String {
     fits(&mut out, doc);
     backtest(&mut out, doc);
     measured_points(&mut out, doc);
+    closures(&mut out, doc);
     assumptions(&mut out, doc);
     runs(&mut out, outcome);
     decorrelation(&mut out, doc);
@@ -335,9 +336,14 @@ fn answer(out: &mut String, doc: &PlanDocument) {
     for m in &doc.models {
         let _ = write!(
             out,
-            "<h3>{} <span class=\"muted\">({})</span></h3>\n<p class=\"muted\">Selected family: {}</p>\n",
+            "<h3>{} <span class=\"muted\">({}{})</span></h3>\n<p class=\"muted\">Selected family: {}</p>\n",
             escape(&m.name),
             escape(&m.kind),
+            if m.role == "closure" {
+                " as a closure in the coarse solver"
+            } else {
+                ""
+            },
             m.selected
                 .map(|f| format!("{} ({})", f.label(), escape(f.formula())))
                 .unwrap_or_else(|| "none (no family could be fitted)".into())
@@ -506,7 +512,8 @@ fn point_row(p: &PointResult) -> String {
     format!(
         "<tr><td class=\"num\">{}</td><td class=\"num\">{} ± {}</td><td class=\"mono\">{}</td>\
          <td class=\"num\">{}–{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
-         <td class=\"num\">{}</td><td class=\"num\">{}</td></tr>\n",
+         <td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
+         <td class=\"num\">{}</td></tr>\n",
         thousands(p.n as f64),
         sig3(p.mean),
         sig3(p.standard_error),
@@ -517,6 +524,8 @@ fn point_row(p: &PointResult) -> String {
         percent(p.blow_up_share),
         opt(p.ridge_penalty, number),
         opt(p.training_rmse, number),
+        sig3(p.train_seconds),
+        sig3(p.forecast_seconds_per_step * 1e6),
     )
 }
 
@@ -604,13 +613,80 @@ fn measured_points(out: &mut String, doc: &PlanDocument) {
              <th class=\"num\">Mean ± s.e.</th><th>Replicate means</th>\
              <th class=\"num\">10–90%</th><th class=\"num\">Censored</th>\
              <th class=\"num\">Blow-ups</th><th class=\"num\">Ridge penalty</th>\
-             <th class=\"num\">Training RMSE</th></tr></thead>\n<tbody>\n",
+             <th class=\"num\">Training RMSE</th><th class=\"num\">Training (s)</th>\
+             <th class=\"num\">µs per forecast step</th></tr></thead>\n<tbody>\n",
             escape(&m.name)
         );
         for p in &m.points {
             out.push_str(&point_row(p));
         }
         out.push_str("</tbody>\n</table>\n");
+    }
+    out.push_str("</section>\n");
+}
+
+/// Closures: offline fit beside online skill and long free runs, and the coupled model's cost
+/// against the high-fidelity solver's.
+fn closures(out: &mut String, doc: &PlanDocument) {
+    let closures: Vec<_> = doc.models.iter().filter(|m| m.role == "closure").collect();
+    if closures.is_empty() {
+        return;
+    }
+    out.push_str(
+        "<section id=\"closures\">\n<h2>Closures: offline against online</h2>\n<p>Each closure \
+         predicts the subgrid coupling term and runs inside the coarse solver of the resolved \
+         equations. <em>Offline</em>: R² of the predicted coupling term on held-out data after \
+         the training pool. <em>Online</em>: valid prediction time of the coupled coarse model, \
+         and long free runs from the first test initial conditions: the share that stayed \
+         bounded and the Wasserstein-1 distance of the resolved variables' distribution to the \
+         truth's (in standard deviations; 0 is a perfect climate). A closure can fit well \
+         offline and still drift or blow up online; this table is where that shows.</p>\n",
+    );
+    let hf = doc.data.as_ref().and_then(|d| d.high_fidelity);
+    for m in closures {
+        let _ = write!(
+            out,
+            "<h3>{} <span class=\"muted\">({}, {})</span></h3>\n<table>\n<thead><tr>\
+             <th class=\"num\">n</th><th class=\"num\">Online valid time</th>\
+             <th class=\"num\">Offline R²</th><th class=\"num\">Stable free runs</th>\
+             <th class=\"num\">Climate distance (σ)</th>\
+             <th class=\"num\">Coupled run (s per time unit)</th></tr></thead>\n<tbody>\n",
+            escape(&m.name),
+            escape(&m.kind),
+            escape(m.closure_inputs.as_deref().unwrap_or("")),
+        );
+        for p in &m.points {
+            let Some(c) = &p.closure else { continue };
+            let _ = writeln!(
+                out,
+                "<tr><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
+                 <td class=\"num\">{} of {} × {}</td><td class=\"num\">{}</td>\
+                 <td class=\"num\">{}</td></tr>",
+                thousands(p.n as f64),
+                sig3(p.mean),
+                format!("{:.3}", c.offline_r2),
+                percent(c.stable_share),
+                c.runs,
+                sig3(c.horizon),
+                opt(c.climate_distance, sig3),
+                number(c.coupled_seconds_per_time_unit),
+            );
+        }
+        out.push_str("</tbody>\n</table>\n");
+        if let (Some(hf), Some(c)) = (hf, m.points.last().and_then(|p| p.closure.as_ref())) {
+            let vars = doc.data.as_ref().map(|d| d.variables.len()).unwrap_or(0);
+            let _ = writeln!(
+                out,
+                "<p>Cost at the largest n: the coupled coarse model integrates {} equations at \
+                 {} s per model time unit; the high-fidelity system integrates {} equations at \
+                 {} s per time unit (measured on this machine, one core): {}× cheaper.</p>",
+                vars,
+                number(c.coupled_seconds_per_time_unit),
+                hf.equations,
+                number(hf.seconds_per_time_unit),
+                sig3(hf.seconds_per_time_unit / c.coupled_seconds_per_time_unit),
+            );
+        }
     }
     out.push_str("</section>\n");
 }
