@@ -173,6 +173,37 @@ fn forecasts(quick: bool) {
             t / (steps + 200) as f64 * 1e6,
             steps
         );
+        // Many initial conditions: one by one (the baseline) vs advanced together.
+        let ics: Vec<usize> = (0..60).map(|i| 10_200 + 25 * i).collect();
+        let histories: Vec<_> = ics
+            .iter()
+            .map(|&ic| data.slice(ndarray::s![ic - 200..=ic, ..]))
+            .collect();
+        let lead = if quick { 100 } else { 400 };
+        let single = best_of(3, || {
+            let mut last = 0.0;
+            for h in &histories {
+                esn.forecast(*h, lead, &mut |_, x| {
+                    last = x[0];
+                    true
+                });
+            }
+            last
+        });
+        let batched = best_of(3, || {
+            let mut last = 0.0;
+            esn.forecast_batch(&histories, lead, &mut |_, _, x| {
+                last = x[0];
+                true
+            });
+            last
+        });
+        println!(
+            "60 forecasts       D={size}, {lead} leads: one by one {:.3} s, batched {:.3} s; speed-up {:.2}",
+            single,
+            batched,
+            single / batched
+        );
     }
 }
 

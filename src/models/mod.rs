@@ -72,6 +72,21 @@ pub trait Forecaster: Send + Sync {
         steps: usize,
         sink: &mut dyn FnMut(usize, &[f64]) -> bool,
     );
+
+    /// [`Forecaster::forecast`] from many initial conditions at once: `sink(i, k, x̂)` for
+    /// history i and lead k; returning false stops forecast i only. Models override this to
+    /// advance all forecasts together as matrix products; the default runs them one by one.
+    /// Overrides must give exactly the values of `forecast`, bit for bit.
+    fn forecast_batch(
+        &self,
+        histories: &[ArrayView2<f64>],
+        steps: usize,
+        sink: &mut dyn FnMut(usize, usize, &[f64]) -> bool,
+    ) {
+        for (i, h) in histories.iter().enumerate() {
+            self.forecast(*h, steps, &mut |k, x| sink(i, k, x));
+        }
+    }
 }
 
 /// Persistence: x̂(t) = x(0) at every lead.

@@ -42,6 +42,50 @@ pub struct IcSkill {
     pub blew_up: bool,
 }
 
+/// Scores one forecast lead by lead against the truth.
+struct Scorer<'t, 'a> {
+    truth: ArrayView2<'t, f64>,
+    ic: usize,
+    spec: &'a SkillSpec,
+    inv_sigma: &'a [f64],
+    last_valid: usize,
+    exceeded: bool,
+    blew_up: bool,
+}
+
+impl Scorer<'_, '_> {
+    /// Scores lead k; false once the forecast is no longer valid.
+    fn lead(&mut self, k: usize, x: &[f64]) -> bool {
+        let d = self.truth.ncols();
+        let row = self.truth.row(self.ic + k);
+        let mut sq = 0.0;
+        for j in 0..d {
+            let z = (x[j] - row[j]) * self.inv_sigma[j];
+            sq += z * z;
+            let excursion = (x[j] - self.spec.mean[j]) * self.inv_sigma[j];
+            // NaN counts as a blow-up: a stated choice, not an accident of comparison.
+            if excursion.is_nan() || excursion.abs() > BLOW_UP_SIGMAS {
+                self.blew_up = true;
+            }
+        }
+        let err = (sq / d as f64).sqrt();
+        if self.blew_up || err.is_nan() || err > self.spec.threshold {
+            self.exceeded = true;
+            return false;
+        }
+        self.last_valid = k;
+        true
+    }
+
+    fn result(&self) -> IcSkill {
+        IcSkill {
+            valid_time: self.last_valid as f64 * self.spec.sample_interval,
+            censored: !self.exceeded && self.last_valid == self.spec.max_lead,
+            blew_up: self.blew_up,
+        }
+    }
+}
+
 /// Valid prediction time of `model` from the initial condition at sample `ic` of `truth`.
 ///
 /// The forecast stops at the first lead where the error exceeds θ, so poor models cost little.
@@ -51,37 +95,38 @@ pub fn valid_time(
     ic: usize,
     spec: &SkillSpec,
 ) -> IcSkill {
-    let d = truth.ncols();
-    let history = truth.slice(ndarray::s![ic - spec.warm_up..=ic, ..]);
-    let mut last_valid = 0usize;
-    let mut exceeded = false;
-    let mut blew_up = false;
+    valid_times(model, truth, &[ic], spec)[0]
+}
+
+/// [`valid_time`] from every initial condition in `ics`, forecast together through
+/// [`Forecaster::forecast_batch`] (identical values, faster for models that batch).
+pub fn valid_times(
+    model: &dyn Forecaster,
+    truth: ArrayView2<f64>,
+    ics: &[usize],
+    spec: &SkillSpec,
+) -> Vec<IcSkill> {
     let inv_sigma: Vec<f64> = spec.sigma.iter().map(|s| 1.0 / s).collect();
-    model.forecast(history, spec.max_lead, &mut |k, x| {
-        let row = truth.row(ic + k);
-        let mut sq = 0.0;
-        for j in 0..d {
-            let z = (x[j] - row[j]) * inv_sigma[j];
-            sq += z * z;
-            let excursion = (x[j] - spec.mean[j]) * inv_sigma[j];
-            // NaN counts as a blow-up: a stated choice, not an accident of comparison.
-            if excursion.is_nan() || excursion.abs() > BLOW_UP_SIGMAS {
-                blew_up = true;
-            }
-        }
-        let err = (sq / d as f64).sqrt();
-        if blew_up || err.is_nan() || err > spec.threshold {
-            exceeded = true;
-            return false;
-        }
-        last_valid = k;
-        true
+    let histories: Vec<ArrayView2<f64>> = ics
+        .iter()
+        .map(|&ic| truth.slice(ndarray::s![ic - spec.warm_up..=ic, ..]))
+        .collect();
+    let mut scorers: Vec<Scorer<'_, '_>> = ics
+        .iter()
+        .map(|&ic| Scorer {
+            truth,
+            ic,
+            spec,
+            inv_sigma: &inv_sigma,
+            last_valid: 0,
+            exceeded: false,
+            blew_up: false,
+        })
+        .collect();
+    model.forecast_batch(&histories, spec.max_lead, &mut |i, k, x| {
+        scorers[i].lead(k, x)
     });
-    IcSkill {
-        valid_time: last_valid as f64 * spec.sample_interval,
-        censored: !exceeded && last_valid == spec.max_lead,
-        blew_up,
-    }
+    scorers.iter().map(Scorer::result).collect()
 }
 
 /// Summary of valid times over initial conditions.

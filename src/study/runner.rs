@@ -45,6 +45,9 @@ pub struct StudyOutcome {
     pub run_tables: Vec<RunTable>,
 }
 
+/// Initial conditions forecast together in one batch (see [`crate::models::Forecaster::forecast_batch`]).
+pub const FORECAST_BATCH: usize = 16;
+
 /// Seed of a model's random parts, derived from the study seed, model name and replicate.
 pub fn derive_seed(study_seed: u64, model: &str, replicate: usize) -> u64 {
     let mut h = Sha256::new();
@@ -371,15 +374,18 @@ fn run_in_pool(
     let records: Vec<SkillRecord> = tasks
         .par_iter()
         .map(|t| {
-            let timed: Vec<(IcSkill, f64)> = ics
-                .par_iter()
-                .map(|&ic| {
+            // Initial conditions go in fixed batches (not thread-dependent), each forecast
+            // together; batches run in parallel.
+            let timed: Vec<(Vec<IcSkill>, f64)> = ics
+                .par_chunks(FORECAST_BATCH)
+                .map(|batch| {
                     let started = Instant::now();
-                    let s = skill::valid_time(t.fitted.forecaster.as_ref(), truth, ic, &prep.skill);
+                    let s =
+                        skill::valid_times(t.fitted.forecaster.as_ref(), truth, batch, &prep.skill);
                     (s, started.elapsed().as_secs_f64())
                 })
                 .collect();
-            let per_ic: Vec<IcSkill> = timed.iter().map(|(s, _)| *s).collect();
+            let per_ic: Vec<IcSkill> = timed.iter().flat_map(|(s, _)| s.iter().copied()).collect();
             let si = prep.skill.sample_interval;
             let steps: f64 = per_ic
                 .iter()
