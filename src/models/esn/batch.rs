@@ -77,11 +77,11 @@ impl Esn {
                         res.step(&mut ri, &ui, &mut scratch);
                     }
                 }
-                for i in 0..n {
-                    r.data[i * m + c] = ri[i];
+                for (i, v) in ri.iter().enumerate() {
+                    r.data[i * m + c] = *v;
                 }
-                for j in 0..d {
-                    u.data[j * m + c] = ui[j];
+                for (j, v) in ui.iter().enumerate() {
+                    u.data[j * m + c] = *v;
                 }
             }
         }
@@ -160,8 +160,8 @@ impl Esn {
             let mut c = w;
             while c > 0 {
                 c -= 1;
-                for j in 0..d {
-                    x[j] = u.data[j * m + c] * self.scale[j] + self.mean[j];
+                for (j, xj) in x.iter_mut().enumerate() {
+                    *xj = u.data[j * m + c] * self.scale[j] + self.mean[j];
                 }
                 if !sink(who[c], k, &x) {
                     let last = who.len() - 1;
