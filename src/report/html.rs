@@ -664,7 +664,7 @@ fn closures(out: &mut String, doc: &PlanDocument) {
                  <td class=\"num\">{}</td></tr>",
                 thousands(p.n as f64),
                 sig3(p.mean),
-                format!("{:.3}", c.offline_r2),
+                r2(c.offline_r2),
                 percent(c.stable_share),
                 c.runs,
                 sig3(c.horizon),
@@ -689,6 +689,15 @@ fn closures(out: &mut String, doc: &PlanDocument) {
         }
     }
     out.push_str("</section>\n");
+}
+
+/// R² with three decimals; very negative values (a closure worse than the mean) in e-notation.
+fn r2(v: f64) -> String {
+    if v.is_finite() && v > -100.0 {
+        format!("{v:.3}")
+    } else {
+        sig3(v)
+    }
 }
 
 fn assumptions(out: &mut String, doc: &PlanDocument) {
