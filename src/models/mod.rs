@@ -2,6 +2,7 @@
 //! nested prefix in one pass through streaming ridge normal equations) and persistence, the
 //! floor every report shows.
 
+pub mod climatology;
 pub mod esn;
 pub mod ridge;
 
