@@ -4,6 +4,7 @@
 
 pub mod climatology;
 pub mod esn;
+pub mod polynomial;
 pub mod ridge;
 
 use ndarray::ArrayView2;
