@@ -848,11 +848,18 @@ impl LocalClosure {
     }
 
     /// Writes the predicted coupling term U_k for every k of the resolved state `x` into `out`
-    /// (same length as `x`, which must be at least 2s + 1).
+    /// (same length as `x`).
+    ///
+    /// # Panics
+    /// If `x` is shorter than the stencil, 2s + 1.
     pub fn coupling(&self, x: &[f64], out: &mut [f64]) {
         let kk = x.len();
         debug_assert_eq!(out.len(), kk);
         let w = 2 * self.stencil + 1;
+        assert!(
+            kk >= w,
+            "a state of {kk} values is shorter than the stencil ({w})"
+        );
         let mut s = self.poly.scratch();
         let mut window = vec![0.0; w];
         let mut u = [0.0];
