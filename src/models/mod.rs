@@ -2,8 +2,10 @@
 //! nested prefix in one pass through streaming ridge normal equations) and persistence, the
 //! floor every report shows.
 
+pub mod climatology;
 pub mod closure;
 pub mod esn;
+pub mod polynomial;
 pub mod ridge;
 
 use ndarray::ArrayView2;
