@@ -142,6 +142,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     document: doc,
                     records: Vec::new(),
                     persistence: Vec::new(),
+                    climatology: Vec::new(),
                     run_tables: Vec::new(),
                 };
                 for p in report::write_report(&outcome, dir)? {

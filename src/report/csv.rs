@@ -22,6 +22,8 @@ pub const HEADER: [&str; 10] = [
 
 /// Model name used for the persistence rows.
 pub const PERSISTENCE: &str = "persistence";
+/// Model name used for the climatology rows.
+pub const CLIMATOLOGY: &str = "climatology";
 
 /// One row before formatting; `None` prints as an empty field.
 struct Row<'a> {
@@ -76,6 +78,15 @@ pub fn skill_csv(outcome: &StudyOutcome) -> Vec<u8> {
         ridge_penalty: None,
         training_rmse: None,
     }));
+    rows.extend(outcome.climatology.iter().enumerate().map(|(ic, s)| Row {
+        model: CLIMATOLOGY,
+        replicate: None,
+        n: None,
+        ic,
+        skill: *s,
+        ridge_penalty: None,
+        training_rmse: None,
+    }));
     rows.sort_by(|a, b| (a.model, a.n, a.replicate, a.ic).cmp(&(b.model, b.n, b.replicate, b.ic)));
 
     let mut w = ::csv::Writer::from_writer(Vec::new());
@@ -116,7 +127,8 @@ mod tests {
             .iter()
             .map(|r| r.initial_conditions.len())
             .sum::<usize>()
-            + outcome.persistence.len();
+            + outcome.persistence.len()
+            + outcome.climatology.len();
         assert_eq!(rows.len(), expected);
 
         let key = |r: &::csv::StringRecord| {

@@ -333,6 +333,14 @@ fn answer(out: &mut String, doc: &PlanDocument) {
             sig3(p.q90),
         );
     }
+    if let Some(c) = &doc.climatology {
+        let _ = writeln!(
+            out,
+            "<p class=\"floor\">Floor: climatology (forecasting the training mean) stays valid \
+             for <strong>{} time units</strong> on average.</p>",
+            sig3(c.mean),
+        );
+    }
     for m in &doc.models {
         let _ = write!(
             out,

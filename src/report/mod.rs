@@ -20,9 +20,9 @@
 //!
 //! | column | meaning |
 //! |---|---|
-//! | `model` | model name; `persistence` for the floor (x̂(t) = x(0)) |
-//! | `replicate` | replicate index (empty for persistence) |
-//! | `n` | training subset size in samples (empty for persistence) |
+//! | `model` | model name; `persistence` and `climatology` for the floors (x̂(t) = x(0), x̂(t) = training mean) |
+//! | `replicate` | replicate index (empty for the floors) |
+//! | `n` | training subset size in samples (empty for the floors) |
 //! | `initial_condition` | index 0..M−1 of the test initial condition, in split order |
 //! | `valid_time` | valid prediction time, model time units |
 //! | `valid_lyapunov_times` | `valid_time` × the largest Lyapunov exponent; empty when the study sets none |
@@ -347,6 +347,7 @@ pub(crate) mod tests {
                 lyapunov_exponent: Some(0.5),
             }),
             persistence: Some(crate::skill::summarise(&persistence)),
+            climatology: None,
             models,
             cost: Some(cost),
             campaign: None,
@@ -367,6 +368,7 @@ pub(crate) mod tests {
             document,
             records,
             persistence,
+            climatology: Vec::new(),
             run_tables: Vec::new(),
         }
     }

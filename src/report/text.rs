@@ -16,6 +16,13 @@ pub fn text_summary(doc: &PlanDocument) -> String {
             sig3(p.mean)
         );
     }
+    if let Some(c) = &doc.climatology {
+        let _ = writeln!(
+            s,
+            "climatology floor: mean valid time {} time units",
+            sig3(c.mean)
+        );
+    }
     let level = (doc.study.confidence * 100.0).round();
     for m in &doc.models {
         let selected = m.selected.map(|f| f.label()).unwrap_or("none");

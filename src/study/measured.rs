@@ -316,6 +316,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
         data: None,
         skill: None,
         persistence: None,
+        climatology: None,
         models,
         cost: None,
         campaign: None,

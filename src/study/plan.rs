@@ -6,6 +6,7 @@ use super::StudyError;
 use crate::cost::CostInputs;
 use crate::models::closure::ClosureInputs;
 use crate::models::esn::ValidEsnParams;
+use crate::models::polynomial::ValidPolynomialParams;
 use crate::systems::SystemSpec;
 use std::path::{Path, PathBuf};
 
@@ -72,6 +73,7 @@ pub struct ClosurePlan {
 #[derive(Debug, Clone, PartialEq)]
 pub enum ModelKind {
     Esn(ValidEsnParams),
+    Polynomial(ValidPolynomialParams),
 }
 
 impl ModelKind {
@@ -81,6 +83,7 @@ impl ModelKind {
             ModelKind::Esn(_) => Some(
                 "a closure must be a function of the coarse state at every RK stage; the echo state network carries internal memory — use it as an emulator",
             ),
+            ModelKind::Polynomial(_) => None,
         }
     }
 
@@ -88,7 +91,17 @@ impl ModelKind {
     pub fn label(&self) -> &'static str {
         match self {
             ModelKind::Esn(_) => "echo state network",
+            ModelKind::Polynomial(_) => "polynomial regression",
         }
+    }
+
+    /// The settings as given, defaults resolved.
+    pub fn settings(&self) -> serde_json::Value {
+        match self {
+            ModelKind::Esn(p) => serde_json::to_value(p.get()),
+            ModelKind::Polynomial(p) => serde_json::to_value(p.get()),
+        }
+        .expect("settings serialise")
     }
 }
 
@@ -331,19 +344,31 @@ fn check(
                 "a unique name other than 'persistence'",
             ));
         }
-        let kind =
-            match m.esn {
-                Some(p) => ModelKind::Esn(p.check().map_err(|e| {
-                    invalid(&format!("{key}.esn"), e.to_string(), "see the message")
-                })?),
-                None => {
-                    return Err(invalid(
-                        &key,
-                        "no model kind".into(),
-                        "one kind table, e.g. `esn = { reservoir-size = 300 }`",
-                    ))
-                }
-            };
+        let kinds = usize::from(m.esn.is_some()) + usize::from(m.polynomial.is_some());
+        if kinds != 1 {
+            return Err(invalid(
+                &key,
+                format!("{kinds} model kinds"),
+                "exactly one kind table: esn, polynomial",
+            ));
+        }
+        let bad = |kind: &str, e: crate::models::ModelError| {
+            invalid(&format!("{key}.{kind}"), e.to_string(), "see the message")
+        };
+        let kind = if let Some(p) = m.esn {
+            ModelKind::Esn(p.check().map_err(|e| bad("esn", e))?)
+        } else if let Some(p) = m.polynomial {
+            if p.stencil != 0 {
+                return Err(invalid(
+                    &format!("{key}.polynomial.stencil"),
+                    p.stencil.to_string(),
+                    "0 in a study: a closure's stencil is the model's `half-width`",
+                ));
+            }
+            ModelKind::Polynomial(p.check().map_err(|e| bad("polynomial", e))?)
+        } else {
+            unreachable!("exactly one kind is present")
+        };
         let usage = match (m.role, m.inputs.as_deref()) {
             (Role::Emulator, _) => {
                 if m.inputs.is_some() || m.half_width.is_some() {

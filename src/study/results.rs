@@ -30,6 +30,10 @@ pub struct PlanDocument {
     /// Persistence (x̂(t) = x(0)) on the same initial conditions: the floor; `null` for skill
     /// measured outside the tool.
     pub persistence: Option<SkillSummary>,
+    /// Climatology (x̂(t) = the training pool's mean) on the same initial conditions: the other
+    /// floor.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub climatology: Option<SkillSummary>,
     pub models: Vec<ModelResult>,
     /// The campaign cost model in brief; `null` when no cost inputs were given.
     pub cost: Option<CostModel>,

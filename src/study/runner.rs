@@ -2,7 +2,7 @@
 //! conditions (in parallel, deterministic whatever the thread count), learning-curve fits,
 //! inversion for the targets, and costs. Writing the report is the caller's next step.
 
-use super::plan::{to_samples, DataSource, ModelKind, ModelUse, StudyPlan};
+use super::plan::{to_samples, DataSource, ModelUse, StudyPlan};
 use super::records::{ClosureChecks, PointCost, RecordStore, SkillRecord};
 use super::results::*;
 use super::train::{train_unit, Coupling, Fitted};
@@ -13,6 +13,7 @@ use crate::curves::{self, Family, Inversion, SizeSamples, SkillGrid};
 use crate::data::{
     column_stats, read_trajectory, Split, SplitSpec, Trajectory, TrajectoryMeta, SIDECAR_SCHEMA,
 };
+use crate::models::climatology::Climatology;
 use crate::models::closure::{free_run_check, offline_r2, CoupledModel};
 use crate::models::Persistence;
 use crate::skill::{self, IcSkill, SkillSpec};
@@ -41,6 +42,8 @@ pub struct StudyOutcome {
     pub records: Vec<SkillRecord>,
     /// Persistence per initial condition.
     pub persistence: Vec<IcSkill>,
+    /// Climatology (the training pool's mean) per initial condition.
+    pub climatology: Vec<IcSkill>,
     /// Proposal-ready tables of runs, one per model and reachable target.
     pub run_tables: Vec<RunTable>,
 }
@@ -366,6 +369,15 @@ fn run_in_pool(
         .par_iter()
         .map(|&ic| skill::valid_time(&Persistence, truth, ic, &prep.skill))
         .collect();
+    let climatology_model = Climatology::fit(
+        prep.traj
+            .values
+            .slice(ndarray::s![prep.split.pool.clone(), ..]),
+    );
+    let climatology: Vec<IcSkill> = ics
+        .par_iter()
+        .map(|&ic| skill::valid_time(&climatology_model, truth, ic, &prep.skill))
+        .collect();
     let tasks: Vec<&Trained> = trained.iter().flatten().collect();
     let checks = prep
         .coupling
@@ -532,6 +544,7 @@ fn run_in_pool(
             lyapunov_exponent: t.lyapunov_exponent,
         }),
         persistence: Some(persistence_summary),
+        climatology: Some(skill::summarise(&climatology)),
         models,
         cost: Some(prep.cost.summary()),
         campaign: Some(prep.cost.clone()),
@@ -570,6 +583,7 @@ fn run_in_pool(
         document,
         records,
         persistence,
+        climatology,
         run_tables,
     })
 }
@@ -660,9 +674,7 @@ fn model_result(
             ));
         }
     }
-    let settings = match &model.kind {
-        ModelKind::Esn(p) => serde_json::to_value(p.get()).expect("settings serialise"),
-    };
+    let settings = model.kind.settings();
     ModelResult {
         name: model.name.clone(),
         kind: model.kind.label().into(),

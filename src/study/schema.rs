@@ -162,6 +162,8 @@ pub struct ModelSection {
     pub half_width: Option<usize>,
     /// Echo state network settings.
     pub esn: Option<EsnParams>,
+    /// Polynomial regression settings.
+    pub polynomial: Option<crate::models::polynomial::PolynomialParams>,
 }
 
 /// What a model predicts.

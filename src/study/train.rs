@@ -5,7 +5,7 @@
 
 use super::plan::{ModelKind, ModelPlan, ModelUse};
 use crate::models::closure::{ClosureInputs, CoupledModel, LearnedClosure, Regressor};
-use crate::models::{esn, FitSummary, Forecaster, ModelError};
+use crate::models::{esn, polynomial, FitSummary, Forecaster, ModelError};
 use ndarray::ArrayView2;
 use std::sync::Arc;
 
@@ -85,6 +85,7 @@ fn emulator(
     }
     Ok(match &model.kind {
         ModelKind::Esn(p) => wrap(esn::fit_nested(p, x, sizes, seed)?),
+        ModelKind::Polynomial(p) => wrap(polynomial::fit_emulator_nested(p, x, sizes)?),
     })
 }
 
@@ -92,11 +93,23 @@ fn emulator(
 fn fit_regressor(
     model: &ModelPlan,
     _inputs: ClosureInputs,
-    _rows_in: ArrayView2<f64>,
-    _rows_out: ArrayView2<f64>,
+    rows_in: ArrayView2<f64>,
+    rows_out: ArrayView2<f64>,
     _seed: u64,
 ) -> Result<(Arc<dyn Regressor>, FitSummary), ModelError> {
     match &model.kind {
+        ModelKind::Polynomial(p) => {
+            let (poly, info) = polynomial::fit_polynomial(p, rows_in, rows_out)?;
+            Ok((
+                Arc::new(poly),
+                FitSummary {
+                    n: 0,
+                    training_pairs: info.rows,
+                    ridge_penalty: Some(info.penalty),
+                    training_rmse: Some(info.training_rmse),
+                },
+            ))
+        }
         ModelKind::Esn(_) => Err(ModelError::InvalidParameter {
             key: "role".into(),
             value: "closure".into(),
@@ -106,5 +119,17 @@ fn fit_regressor(
                 .unwrap_or("emulator")
                 .into(),
         }),
+    }
+}
+
+impl Regressor for polynomial::Polynomial {
+    fn inputs(&self) -> usize {
+        polynomial::Polynomial::inputs(self)
+    }
+    fn outputs(&self) -> usize {
+        polynomial::Polynomial::outputs(self)
+    }
+    fn predict(&self, x: &[f64], out: &mut [f64]) {
+        polynomial::Polynomial::predict(self, x, out)
     }
 }
