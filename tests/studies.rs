@@ -135,11 +135,16 @@ fn quick_demo_runs_end_to_end() {
     }
     // The records store holds one record per (model, replicate, size), each with every IC.
     let records = read_records(&out.join("records.jsonl")).unwrap();
-    assert_eq!(records.len(), 3 * 4);
+    // Two models (an emulator and a closure), 3 replicates, 4 sizes.
+    assert_eq!(records.len(), 2 * 3 * 4);
     assert!(records.iter().all(|r| r.initial_conditions.len() == 16));
-    // skill.csv: header + one row per IC per record + persistence rows.
+    // Closure records carry their offline and free-run checks; emulator records do not.
+    for r in &records {
+        assert_eq!(r.closure.is_some(), r.model == "wilks-quartic", "{}", r.model);
+    }
+    // skill.csv: header + one row per IC per record + persistence and climatology rows.
     let csv = std::fs::read_to_string(out.join("skill.csv")).unwrap();
-    assert_eq!(csv.lines().count(), 1 + 3 * 4 * 16 + 16);
+    assert_eq!(csv.lines().count(), 1 + 2 * 3 * 4 * 16 + 2 * 16);
     let html = std::fs::read_to_string(out.join("report.html")).unwrap();
     assert!(html.contains("<svg") && html.contains("esn-tiny"));
     for section in [
@@ -147,6 +152,7 @@ fn quick_demo_runs_end_to_end() {
         "Every number and its source",
         "Tables of runs",
         "Decorrelation of the pilot data",
+        "Closures: offline against online",
         "id=\"backtest\"",
     ] {
         assert!(html.contains(section), "report lacks {section}");
