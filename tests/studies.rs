@@ -112,7 +112,15 @@ fn quick_demo_runs_end_to_end() {
         assert!(secs > 0.0, "{stage} time {secs}");
     }
     assert!(t.total >= t.data + t.training + t.forecasting + t.fitting + t.report - 1e-9);
-    assert_eq!(doc.models.len(), 1);
+    assert_eq!(doc.models.len(), 2);
+    // The classical closure, coupled online, beats both floors and stays bounded in free runs.
+    let closure = &doc.models[1];
+    assert_eq!(closure.role, "closure");
+    let last = closure.points.last().unwrap();
+    assert!(last.mean > doc.persistence.unwrap().mean);
+    let checks = last.closure.as_ref().unwrap();
+    assert!(checks.offline_r2 > 0.5, "{checks:?}");
+    assert_eq!(checks.stable_share, 1.0);
     let m = &doc.models[0];
     assert_eq!(m.points.len(), 4);
     assert_eq!(m.estimates.len(), 2);
