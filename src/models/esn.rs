@@ -9,7 +9,7 @@
 //! echo state networks", LNCS 7700; Pathak et al. (2018), Phys. Rev. Lett. 120, 024102 (squared
 //! half of the units in the readout).
 
-use super::ridge::{NormalEquations, BLOCK_ROWS};
+use super::ridge::{fit_readout, NormalEquations, Penalty, RidgeSelection, BLOCK_ROWS};
 use super::{FitSummary, Forecaster, ModelError, RidgeScaling};
 use crate::data::column_stats;
 use ndarray::ArrayView2;
@@ -29,6 +29,7 @@ use serde::{Deserialize, Serialize};
 /// | `leak-rate` | 1.0 | α | (0, 1] |
 /// | `ridge` | 1e-5 | λ (per training pair when `ridge-scaling = "per-sample"`) | (0, 1e3] |
 /// | `ridge-scaling` | per-sample | penalty λ·n (per-sample) or λ (fixed) | per-sample, fixed |
+/// | `ridge-selection` | fixed | `ridge` with `ridge-scaling`, or λ chosen per subset size by generalised cross-validation (`gcv`) | fixed, gcv |
 /// | `washout` | 100 | initial reservoir steps left out of the fit | 0 ..= 100000 |
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case", deny_unknown_fields, default)]
@@ -41,6 +42,7 @@ pub struct EsnParams {
     pub leak_rate: f64,
     pub ridge: f64,
     pub ridge_scaling: RidgeScaling,
+    pub ridge_selection: RidgeSelection,
     pub washout: usize,
 }
 
@@ -55,6 +57,7 @@ impl Default for EsnParams {
             leak_rate: 1.0,
             ridge: 1e-5,
             ridge_scaling: RidgeScaling::PerSample,
+            ridge_selection: RidgeSelection::Fixed,
             washout: 100,
         }
     }
@@ -394,36 +397,28 @@ fn solve_prefix(
     scale: &[f64],
     size: usize,
 ) -> Result<(Esn, FitSummary), ModelError> {
-    let base = match p.ridge_scaling {
-        RidgeScaling::PerSample => p.ridge * ne.count as f64,
-        RidgeScaling::Fixed => p.ridge,
-    };
-    // A degenerate Gram matrix at a tiny penalty gets the penalty raised tenfold, at most 6 times;
-    // the penalty actually used is recorded.
-    let mut lambda = base;
-    let mut attempt = 0;
-    let (readout, rmse) = loop {
-        match ne.solve(lambda) {
-            Ok(x) => break x,
-            Err(e) if attempt >= 6 => return Err(ModelError::Ridge { size, source: e }),
-            Err(_) => {
-                lambda *= 10.0;
-                attempt += 1;
-            }
-        }
-    };
+    let readout = fit_readout(
+        ne,
+        &Penalty {
+            ridge: p.ridge,
+            scaling: p.ridge_scaling,
+            selection: p.ridge_selection,
+        },
+    )
+    .map_err(|source| ModelError::Ridge { size, source })?;
     Ok((
         Esn {
             reservoir: reservoir.clone(),
             mean: mean.to_vec(),
             scale: scale.to_vec(),
-            readout,
+            readout: readout.weights,
         },
         FitSummary {
             n: size,
             training_pairs: ne.count,
-            ridge_penalty: Some(lambda),
-            training_rmse: Some(rmse),
+            ridge_penalty: Some(readout.lambda),
+            training_rmse: Some(readout.rmse),
+            ridge_selection: Some(readout.choice),
         },
     ))
 }
