@@ -1,10 +1,12 @@
 //! Benchmarks of the hot paths, each against a baseline measured in the same run:
 //! Gram accumulation (faer lower-triangular product vs a plain scalar loop), the whole nested
-//! learning curve vs one fit at the largest size, free-running forecasts, and the two-scale
+//! learning curve vs one fit at the largest size (echo state network with a fixed penalty and
+//! with GCV, next-generation reservoir computing), free-running forecasts, and the two-scale
 //! integrator. Run with `cargo bench --bench hot_paths` (add `-- quick` for a short run).
 
 use closure_budget::models::esn::{fit_nested, EsnParams};
-use closure_budget::models::ridge::NormalEquations;
+use closure_budget::models::ngrc::{self, NgrcParams};
+use closure_budget::models::ridge::{NormalEquations, RidgeSelection};
 use closure_budget::models::Forecaster;
 use closure_budget::systems::{simulate, SimulationSpec, SystemSpec};
 use std::hint::black_box;
@@ -123,19 +125,39 @@ fn nested_curve(quick: bool) {
     let largest = data.nrows();
     let sizes: Vec<usize> = (0..7).map(|i| largest >> (6 - i)).collect();
     for size in [300, 600] {
-        let p = EsnParams {
-            reservoir_size: size,
-            ridge: 1e-6,
-            ..EsnParams::default()
+        for selection in [RidgeSelection::Fixed, RidgeSelection::Gcv] {
+            let p = EsnParams {
+                reservoir_size: size,
+                ridge: 1e-6,
+                ridge_selection: selection,
+                ..EsnParams::default()
+            }
+            .check()
+            .unwrap();
+            let one = best_of(2, || {
+                fit_nested(&p, data.view(), &[sizes[0], largest], 5).unwrap()
+            });
+            let all = best_of(2, || fit_nested(&p, data.view(), &sizes, 5).unwrap());
+            println!(
+                "nested curve       ESN D={size} {selection:?}, sizes {:?}: all 7 sizes {:.3} s, one fit at n={largest} {:.3} s; ratio {:.3}",
+                sizes, all, one, all / one
+            );
+        }
+    }
+    // NG-RC on the resolved two-scale variables: K = 8, 2 delays, 1 + 16 + 136 = 153 features.
+    for selection in [RidgeSelection::Fixed, RidgeSelection::Gcv] {
+        let p = NgrcParams {
+            ridge_selection: selection,
+            ..NgrcParams::default()
         }
         .check()
         .unwrap();
-        let one = best_of(2, || {
-            fit_nested(&p, data.view(), &[sizes[0], largest], 5).unwrap()
+        let one = best_of(3, || {
+            ngrc::fit_nested(&p, data.view(), &[sizes[0], largest]).unwrap()
         });
-        let all = best_of(2, || fit_nested(&p, data.view(), &sizes, 5).unwrap());
+        let all = best_of(3, || ngrc::fit_nested(&p, data.view(), &sizes).unwrap());
         println!(
-            "nested curve       D={size} sizes {:?}: all 7 sizes {:.3} s, one fit at n={largest} {:.3} s; ratio {:.3}",
+            "nested curve       NG-RC F=153 {selection:?}, sizes {:?}: all 7 sizes {:.4} s, one fit at n={largest} {:.4} s; ratio {:.3}",
             sizes, all, one, all / one
         );
     }

@@ -148,7 +148,12 @@ fn quick_demo_runs_end_to_end() {
     assert!(records.iter().all(|r| r.initial_conditions.len() == 16));
     // Closure records carry their offline and free-run checks; emulator records do not.
     for r in &records {
-        assert_eq!(r.closure.is_some(), r.model == "wilks-quartic", "{}", r.model);
+        assert_eq!(
+            r.closure.is_some(),
+            r.model == "wilks-quartic",
+            "{}",
+            r.model
+        );
     }
     // skill.csv: header + one row per IC per record + persistence and climatology rows.
     let csv = std::fs::read_to_string(out.join("skill.csv")).unwrap();

@@ -11,7 +11,7 @@
 
 mod batch;
 
-use super::ridge::{NormalEquations, BLOCK_ROWS};
+use super::ridge::{fit_readout, NormalEquations, Penalty, RidgeSelection, BLOCK_ROWS};
 use super::{FitSummary, Forecaster, ModelError, RidgeScaling};
 use crate::data::column_stats;
 use ndarray::ArrayView2;
@@ -31,7 +31,15 @@ use serde::{Deserialize, Serialize};
 /// | `leak-rate` | 1.0 | α | (0, 1] |
 /// | `ridge` | 1e-5 | λ (per training pair when `ridge-scaling = "per-sample"`) | (0, 1e3] |
 /// | `ridge-scaling` | per-sample | penalty λ·n (per-sample) or λ (fixed) | per-sample, fixed |
+/// | `ridge-selection` | fixed | `ridge` with `ridge-scaling`, or λ chosen per subset size by generalised cross-validation (`gcv`) | fixed, gcv |
 /// | `washout` | 100 | initial reservoir steps left out of the fit | 0 ..= 100000 |
+///
+/// `ridge-selection` defaults to `fixed` by measurement (300 units, nested sizes 1000–16000,
+/// valid time over 20 initial conditions): GCV doubled the valid time on Lorenz-63 sampled every
+/// 0.01 (5.1–10.6 against 3.9–4.7 time units) but on the two-scale Lorenz-96 system and on
+/// Lorenz-96 (K = 8) it matched the fixed default from 4000 samples on and fell well short below
+/// (two-scale at 1000 samples: 0.04 against 0.35 time units), where it chose far too small a
+/// penalty.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case", deny_unknown_fields, default)]
 pub struct EsnParams {
@@ -43,6 +51,7 @@ pub struct EsnParams {
     pub leak_rate: f64,
     pub ridge: f64,
     pub ridge_scaling: RidgeScaling,
+    pub ridge_selection: RidgeSelection,
     pub washout: usize,
 }
 
@@ -57,6 +66,7 @@ impl Default for EsnParams {
             leak_rate: 1.0,
             ridge: 1e-5,
             ridge_scaling: RidgeScaling::PerSample,
+            ridge_selection: RidgeSelection::Fixed,
             washout: 100,
         }
     }
@@ -396,36 +406,28 @@ fn solve_prefix(
     scale: &[f64],
     size: usize,
 ) -> Result<(Esn, FitSummary), ModelError> {
-    let base = match p.ridge_scaling {
-        RidgeScaling::PerSample => p.ridge * ne.count as f64,
-        RidgeScaling::Fixed => p.ridge,
-    };
-    // A degenerate Gram matrix at a tiny penalty gets the penalty raised tenfold, at most 6 times;
-    // the penalty actually used is recorded.
-    let mut lambda = base;
-    let mut attempt = 0;
-    let (readout, rmse) = loop {
-        match ne.solve(lambda) {
-            Ok(x) => break x,
-            Err(e) if attempt >= 6 => return Err(ModelError::Ridge { size, source: e }),
-            Err(_) => {
-                lambda *= 10.0;
-                attempt += 1;
-            }
-        }
-    };
+    let readout = fit_readout(
+        ne,
+        &Penalty {
+            ridge: p.ridge,
+            scaling: p.ridge_scaling,
+            selection: p.ridge_selection,
+        },
+    )
+    .map_err(|source| ModelError::Ridge { size, source })?;
     Ok((
         Esn {
             reservoir: reservoir.clone(),
             mean: mean.to_vec(),
             scale: scale.to_vec(),
-            readout,
+            readout: readout.weights,
         },
         FitSummary {
             n: size,
             training_pairs: ne.count,
-            ridge_penalty: Some(lambda),
-            training_rmse: Some(rmse),
+            ridge_penalty: Some(readout.lambda),
+            training_rmse: Some(readout.rmse),
+            ridge_selection: Some(readout.choice),
         },
     ))
 }
@@ -631,5 +633,81 @@ mod tests {
             .unwrap_err()
             .to_string();
         assert!(e.contains("washout"), "{e}");
+    }
+
+    /// Teacher-forced one-step increment error over samples `start..start + len` (predicting
+    /// u(t + 1) − u(t) for t in that range), mean square in standardised units: the reservoir is
+    /// driven by the truth from sample 0, as in training.
+    fn held_out_one_step_mse(esn: &Esn, data: &Array2<f64>, start: usize, len: usize) -> f64 {
+        let res = &esn.reservoir;
+        let d = data.ncols();
+        let f = res.features();
+        let (mut r, mut scratch, mut phi) =
+            (vec![0.0; res.size], vec![0.0; res.size], vec![0.0; f]);
+        let u = |t: usize, j: usize| (data[[t, j]] - esn.mean[j]) / esn.scale[j];
+        let mut acc = 0.0;
+        for t in 0..start + len {
+            let ut: Vec<f64> = (0..d).map(|j| u(t, j)).collect();
+            res.step(&mut r, &ut, &mut scratch);
+            if t >= start {
+                res.write_features(&r, &mut phi);
+                for (j, (w, now)) in esn.readout.chunks(f).zip(&ut).enumerate() {
+                    let inc: f64 = w.iter().zip(&phi).map(|(a, b)| a * b).sum();
+                    acc += (inc - (u(t + 1, j) - now)).powi(2);
+                }
+            }
+        }
+        acc / (len * d) as f64
+    }
+
+    /// GCV per subset size never does worse than the fixed default (λ = 1e-5 per training pair)
+    /// on one-step increments over the 1000 samples right after each training subset, on
+    /// Lorenz-63 sampled every 0.01 time units. Tolerance 1.02×: GCV minimises an estimate of
+    /// the in-sample prediction error, so on a held-out window it may tie the fixed penalty up to
+    /// sampling noise of a few percent. Measured ratios GCV/fixed: see the assertion message.
+    ///
+    /// Not a general guarantee: GCV assumes independent residuals, and one-step residuals of a
+    /// chaotic series are autocorrelated; with about twice as many training pairs as features it
+    /// chose far too small a penalty on Lorenz-96 (K = 8) and the two-scale system (measured
+    /// with 300 units at 1000 samples: 2.3× and 55× the fixed default's held-out error). That is
+    /// why `fixed` stays the default.
+    #[test]
+    fn gcv_never_worse_than_fixed_on_held_out_increments() {
+        let data = crate::systems::simulate(
+            &crate::systems::SimulationSpec {
+                system: crate::systems::SystemSpec::with_defaults("lorenz-63").unwrap(),
+                dt: 0.0025,
+                sample_interval: 0.01,
+                spin_up: 50.0,
+                samples: 5000,
+                seed: 3,
+            },
+            None,
+        )
+        .unwrap()
+        .resolved;
+        let sizes = [1000, 2000, 4000];
+        let fit = |selection| {
+            let p = EsnParams {
+                reservoir_size: 100,
+                ridge_selection: selection,
+                ..EsnParams::default()
+            }
+            .check()
+            .unwrap();
+            fit_nested(&p, data.view(), &sizes, 7).unwrap()
+        };
+        let (fixed, gcv) = (fit(RidgeSelection::Fixed), fit(RidgeSelection::Gcv));
+        let ratios: Vec<f64> = fixed
+            .iter()
+            .zip(&gcv)
+            .map(|((f, s), (g, sg))| {
+                assert_eq!(sg.ridge_selection.unwrap().method, RidgeSelection::Gcv);
+                held_out_one_step_mse(g, &data, s.n, 999)
+                    / held_out_one_step_mse(f, &data, s.n, 999)
+            })
+            .collect();
+        eprintln!("held-out one-step MSE ratios GCV/fixed: {ratios:?}");
+        assert!(ratios.iter().all(|&r| r <= 1.02), "ratios {ratios:?}");
     }
 }

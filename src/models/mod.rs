@@ -5,6 +5,7 @@
 pub mod climatology;
 pub mod closure;
 pub mod esn;
+pub mod ngrc;
 pub mod polynomial;
 pub mod ridge;
 
@@ -60,6 +61,9 @@ pub struct FitSummary {
     pub ridge_penalty: Option<f64>,
     /// Root-mean-square one-step training residual in standardised units (offline fit quality).
     pub training_rmse: Option<f64>,
+    /// How the ridge penalty was chosen (fixed or by GCV, with its score), for ridge readouts.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub ridge_selection: Option<ridge::RidgeChoice>,
 }
 
 /// A trained model that forecasts autonomously from an initial condition.

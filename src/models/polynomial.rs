@@ -800,6 +800,7 @@ pub fn fit_emulator_nested(
                 training_pairs: n - 1,
                 ridge_penalty: Some(info.penalty),
                 training_rmse: Some(info.training_rmse),
+                ridge_selection: None,
             },
         ));
     }

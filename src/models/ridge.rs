@@ -1,14 +1,38 @@
 //! Streaming ridge regression: normal equations G = Σφφᵀ, B = Σφyᵀ accumulated block by block
-//! (the feature matrix is never materialised), snapshots at nested-prefix boundaries, and the
-//! penalised solve (G + λI)W = B by Cholesky.
+//! (the feature matrix is never materialised), snapshots at nested-prefix boundaries, the
+//! penalised solve (G + λI)W = B by Cholesky, and the penalty chosen by generalised
+//! cross-validation from one eigendecomposition of G.
 //!
 //! Gram updates use faer's lower-triangular matrix product (half the work of a full product);
-//! every product runs sequentially inside one fit, so results do not depend on the thread count.
-//! Reference: Hoerl & Kennard (1970), "Ridge regression", Technometrics 12(1).
+//! every product and factorisation runs sequentially inside one fit, so results do not depend on
+//! the thread count.
+//!
+//! # Generalised cross-validation from the normal equations
+//!
+//! With G = VEVᵀ and C = VᵀB, for any λ: W = V diag(1/(e + λ)) C; the residual sum of squares is
+//! RSS(λ) = Σy² − Σ_i Σ_k c_ik² (e_i + 2λ)/(e_i + λ)²; the effective degrees of freedom are
+//! df(λ) = tr H = Σ_i e_i/(e_i + λ); and GCV(λ) = N·RSS(λ)/(N − df(λ))², summed over outputs
+//! (every output shares df). One O(F³) decomposition makes each λ cost O(F·D).
+//!
+//! References: Hoerl & Kennard (1970), "Ridge regression", Technometrics 12(1); Golub, Heath &
+//! Wahba (1979), "Generalized cross-validation as a method for choosing a good ridge parameter",
+//! Technometrics 21(2).
 
+use super::RidgeScaling;
+use faer::dyn_stack::{MemBuffer, MemStack, StackReq};
+use faer::linalg::cholesky::llt::factor::{cholesky_in_place, cholesky_in_place_scratch};
+use faer::linalg::cholesky::llt::solve::solve_in_place;
+use faer::linalg::evd::tridiag::{tridiag_in_place, tridiag_in_place_scratch};
+use faer::linalg::householder::{
+    apply_block_householder_sequence_on_the_left_in_place_scratch,
+    apply_block_householder_sequence_on_the_left_in_place_with_conj,
+    apply_block_householder_sequence_transpose_on_the_left_in_place_scratch,
+    apply_block_householder_sequence_transpose_on_the_left_in_place_with_conj,
+};
 use faer::linalg::matmul::{matmul, triangular};
-use faer::linalg::solvers::Solve;
-use faer::{Accum, Mat, MatRef, Par, Side};
+use faer::linalg::qr::no_pivoting::factor::recommended_block_size;
+use faer::{Accum, Conj, Mat, MatRef, Par};
+use serde::{Deserialize, Serialize};
 
 /// Rows per Gram update: large enough for efficient matrix products, small enough to stay in cache.
 pub const BLOCK_ROWS: usize = 1024;
@@ -20,6 +44,10 @@ pub enum RidgeError {
     NotPositiveDefinite { features: usize, lambda: f64 },
     #[error("no training pairs: the subset is not longer than the washout")]
     Empty,
+    #[error("eigendecomposition of the {features} × {features} Gram matrix failed (non-finite features?); use `ridge-selection = \"fixed\"`")]
+    Eigen { features: usize },
+    #[error("generalised cross-validation gave no finite score on the penalty grid of {grid} values (non-finite or degenerate features); use `ridge-selection = \"fixed\"`")]
+    NoFiniteScore { grid: usize },
 }
 
 /// Clears the upper halves of the vector registers after faer's hand-written AVX-512 kernels.
@@ -139,13 +167,26 @@ impl NormalEquations {
             }
             a[(j, j)] += lambda;
         }
-        let llt = a
-            .llt(Side::Lower)
-            .map_err(|_| RidgeError::NotPositiveDefinite {
-                features: f,
-                lambda,
-            })?;
-        let w = llt.solve(&self.cross);
+        // Sequential factorisation (faer's default would follow the global thread count).
+        let mut l = a.clone();
+        let mut mem = MemBuffer::new(cholesky_in_place_scratch::<f64>(
+            f,
+            Par::Seq,
+            Default::default(),
+        ));
+        cholesky_in_place(
+            l.as_mut(),
+            Default::default(),
+            Par::Seq,
+            MemStack::new(&mut mem),
+            Default::default(),
+        )
+        .map_err(|_| RidgeError::NotPositiveDefinite {
+            features: f,
+            lambda,
+        })?;
+        let mut w = self.cross.clone();
+        solve_in_place(l.as_ref(), w.as_mut(), Par::Seq, MemStack::new(&mut mem));
         // Training RSS = Σ‖y‖² − 2 tr(WᵀB) + tr(WᵀGW), with G taken as the full symmetric matrix.
         let mut rss = self.target_sq.iter().sum::<f64>();
         let mut gw = Mat::<f64>::zeros(f, d);
@@ -175,6 +216,468 @@ impl NormalEquations {
             }
         }
         Ok((out, rmse))
+    }
+
+    /// Eigendecomposition G = VEVᵀ (from the lower triangle) and the projections C = VᵀB, from
+    /// which [`RidgeEigen`] evaluates the fit, its residual and its GCV score at any penalty.
+    ///
+    /// G is reduced to tridiagonal form T = QᵀGQ (faer's Householder reduction) and T is
+    /// diagonalised by the implicit symmetric QR algorithm with Wilkinson shifts (Golub & Van Loan
+    /// 2013, "Matrix Computations", 4th ed., §8.3), whose rotations are applied to the D columns
+    /// of QᵀB instead of accumulating the F × F eigenvectors: C costs O(F²D) on top of the
+    /// reduction, and solutions come from T by a tridiagonal solve. Measured (best of 7, with one
+    /// solve): 0.75× the time of faer's eigendecomposition with eigenvectors at F = 153 and 451,
+    /// 0.55× at F = 901 (1.9, 18 and 100 ms here), of which the reduction is about half.
+    pub fn eigen(&self) -> Result<RidgeEigen, RidgeError> {
+        if self.count == 0 {
+            return Err(RidgeError::Empty);
+        }
+        let f = self.features();
+        let d = self.outputs();
+        let mut reduced = Mat::<f64>::zeros(f, f);
+        for j in 0..f {
+            for i in j..f {
+                reduced[(i, j)] = self.gram[(i, j)];
+            }
+        }
+        let block = recommended_block_size::<f64>(f, f);
+        let mut factors = Mat::<f64>::zeros(block, f.saturating_sub(1));
+        let mut rotated = self.cross.clone();
+        if f > 1 {
+            let mut mem = MemBuffer::new(StackReq::any_of(&[
+                tridiag_in_place_scratch::<f64>(f, Par::Seq, Default::default()),
+                apply_block_householder_sequence_transpose_on_the_left_in_place_scratch::<f64>(
+                    f - 1,
+                    block,
+                    d,
+                ),
+            ]));
+            tridiag_in_place(
+                reduced.as_mut(),
+                factors.as_mut(),
+                Par::Seq,
+                MemStack::new(&mut mem),
+                Default::default(),
+            );
+            apply_block_householder_sequence_transpose_on_the_left_in_place_with_conj(
+                reduced.as_ref().submatrix(1, 0, f - 1, f - 1),
+                factors.as_ref(),
+                Conj::No,
+                rotated.as_mut().subrows_mut(1, f - 1),
+                Par::Seq,
+                MemStack::new(&mut mem),
+            );
+            clear_upper_simd_state();
+        }
+        let diag: Vec<f64> = (0..f).map(|i| reduced[(i, i)]).collect();
+        let offdiag: Vec<f64> = (1..f).map(|i| reduced[(i, i - 1)]).collect();
+        if !diag.iter().chain(&offdiag).all(|v| v.is_finite()) {
+            return Err(RidgeError::Eigen { features: f });
+        }
+        // Rows of QᵀB contiguous (row-major), for the rotations.
+        let mut rows: Vec<f64> = (0..f * d).map(|x| rotated[(x / d, x % d)]).collect();
+        let reduced_cross = rotated;
+        let mut values = diag.clone();
+        let mut off = offdiag.clone();
+        tridiagonal_qr(&mut values, &mut off, &mut rows, d)
+            .ok_or(RidgeError::Eigen { features: f })?;
+        // Ascending order; G is positive semi-definite, so negative eigenvalues are round-off.
+        let mut order: Vec<usize> = (0..f).collect();
+        order.sort_by(|&i, &j| values[i].total_cmp(&values[j]));
+        let mut proj = Mat::<f64>::zeros(f, d);
+        for (row, &i) in order.iter().enumerate() {
+            for k in 0..d {
+                proj[(row, k)] = rows[i * d + k];
+            }
+        }
+        let values = order.iter().map(|&i| values[i].max(0.0)).collect();
+        Ok(RidgeEigen {
+            values,
+            proj,
+            reflectors: reduced,
+            factors,
+            diag,
+            offdiag,
+            reduced_cross,
+            target_sq: self.target_sq.iter().sum(),
+            count: self.count,
+        })
+    }
+}
+
+/// Diagonalises the symmetric tridiagonal matrix with diagonal `a` and subdiagonal `b` in place
+/// (eigenvalues left in `a`, unsorted) by implicit QR steps with Wilkinson shifts, applying every
+/// rotation Gᵀ to the rows of `c` (n × `d`, row-major), so that `c` becomes Sᵀc for T = SΛSᵀ.
+/// Golub & Van Loan (2013), Algorithms 8.3.2–8.3.3. Returns `None` if some eigenvalue has not
+/// converged after 30·n steps.
+fn tridiagonal_qr(a: &mut [f64], b: &mut [f64], c: &mut [f64], d: usize) -> Option<()> {
+    let n = a.len();
+    let mut rotate_rows = |p: usize, cos: f64, sin: f64| {
+        let (upper, lower) = c[p * d..(p + 2) * d].split_at_mut(d);
+        for (x, y) in upper.iter_mut().zip(lower.iter_mut()) {
+            let (u, v) = (*x, *y);
+            *x = cos * u - sin * v;
+            *y = sin * u + cos * v;
+        }
+    };
+    let mut steps = 0;
+    let mut h = n.saturating_sub(1);
+    while h > 0 {
+        for i in 0..h {
+            if b[i].abs() <= f64::EPSILON * (a[i].abs() + a[i + 1].abs()) {
+                b[i] = 0.0;
+            }
+        }
+        if b[h - 1] == 0.0 {
+            h -= 1;
+            continue;
+        }
+        let mut l = h - 1;
+        while l > 0 && b[l - 1] != 0.0 {
+            l -= 1;
+        }
+        steps += 1;
+        if steps > 30 * n {
+            return None;
+        }
+        // Wilkinson shift: the eigenvalue of the trailing 2 × 2 block nearer a[h].
+        let half = (a[h - 1] - a[h]) / 2.0;
+        let e = b[h - 1];
+        let sign = if half >= 0.0 { 1.0 } else { -1.0 };
+        let shift = a[h] - e * e / (half + sign * half.hypot(e));
+        // Chase the bulge from (l + 1, l) down the block.
+        let mut x = a[l] - shift;
+        let mut z = b[l];
+        for p in l..h {
+            let r = x.hypot(z);
+            let (cos, sin) = if r == 0.0 {
+                (1.0, 0.0)
+            } else {
+                (x / r, -z / r)
+            };
+            if p > l {
+                b[p - 1] = cos * b[p - 1] - sin * z; // the bulge at (p + 1, p − 1) becomes 0
+            }
+            // The 2 × 2 block on rows/columns p, p + 1: Gᵀ M G.
+            let (ap, aq, bp) = (a[p], a[p + 1], b[p]);
+            let (n00, n01) = (ap * cos - bp * sin, ap * sin + bp * cos);
+            let (n10, n11) = (bp * cos - aq * sin, bp * sin + aq * cos);
+            a[p] = cos * n00 - sin * n10;
+            b[p] = sin * n00 + cos * n10;
+            a[p + 1] = sin * n01 + cos * n11;
+            if p + 1 < h {
+                z = -sin * b[p + 1]; // new bulge at (p + 2, p)
+                b[p + 1] *= cos;
+                x = b[p];
+            }
+            rotate_rows(p, cos, sin);
+        }
+    }
+    Some(())
+}
+
+/// Solves (T + λI)X = R in place for the symmetric tridiagonal T with diagonal `a` and
+/// subdiagonal `b` by Gaussian elimination without pivoting (stable for a positive definite
+/// matrix, as T + λI is for λ > 0).
+fn tridiagonal_solve(a: &[f64], b: &[f64], lambda: f64, r: &mut Mat<f64>) {
+    let n = a.len();
+    let mut pivot = vec![0.0; n];
+    pivot[0] = a[0] + lambda;
+    for i in 1..n {
+        pivot[i] = a[i] + lambda - b[i - 1] * b[i - 1] / pivot[i - 1];
+    }
+    for k in 0..r.ncols() {
+        for i in 1..n {
+            r[(i, k)] -= b[i - 1] / pivot[i - 1] * r[(i - 1, k)];
+        }
+        r[(n - 1, k)] /= pivot[n - 1];
+        for i in (0..n - 1).rev() {
+            r[(i, k)] = (r[(i, k)] - b[i] * r[(i + 1, k)]) / pivot[i];
+        }
+    }
+}
+
+/// Penalties tried by [`RidgeEigen::default_grid`], relative to the mean eigenvalue trace(G)/F:
+/// 10^−12, 10^−11.5, …, 10^0 (25 values, half a decade apart). Relative values make the grid
+/// follow the scale of the features; the lower end reaches the penalty of Gauthier et al. (2021)
+/// on unstandardised Lorenz-63 features (2.5e-6 absolute, of order 1e-12 relative).
+pub const GCV_GRID_DECADES: (f64, f64, usize) = (-12.0, 0.0, 25);
+
+/// The eigendecomposition of a ridge problem's normal equations: the fit at any penalty λ > 0 in
+/// O(F·D) operations after one O(F³) decomposition (see the module documentation).
+#[derive(Debug, Clone)]
+pub struct RidgeEigen {
+    /// Eigenvalues of G in ascending order, round-off negatives clamped to 0.
+    values: Vec<f64>,
+    /// C = VᵀB, F × D, rows in the order of `values`.
+    proj: Mat<f64>,
+    /// The Householder vectors of Q below the subdiagonal (faer's tridiagonal reduction).
+    reflectors: Mat<f64>,
+    /// The block Householder factors of Q.
+    factors: Mat<f64>,
+    /// T = QᵀGQ: diagonal and subdiagonal.
+    diag: Vec<f64>,
+    offdiag: Vec<f64>,
+    /// QᵀB.
+    reduced_cross: Mat<f64>,
+    /// Σy² over all outputs.
+    target_sq: f64,
+    /// Rows N.
+    count: usize,
+}
+
+/// The penalty GCV chose on a grid, with the score of every grid value.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Selection {
+    /// Chosen penalty λ.
+    pub lambda: f64,
+    /// GCV score at the chosen penalty.
+    pub score: f64,
+    /// Position of the chosen penalty in the grid.
+    pub index: usize,
+    /// GCV score at every grid value (+∞ where N ≤ df(λ)).
+    pub scores: Vec<f64>,
+}
+
+impl Selection {
+    /// The chosen penalty is the smallest or largest on the grid, so the best may lie beyond it.
+    pub fn at_grid_edge(&self) -> bool {
+        self.index == 0 || self.index + 1 == self.scores.len()
+    }
+}
+
+impl RidgeEigen {
+    /// Eigenvalues of G in ascending order (round-off negatives clamped to 0).
+    pub fn eigenvalues(&self) -> &[f64] {
+        &self.values
+    }
+
+    /// trace(G)/F, the scale of [`RidgeEigen::default_grid`].
+    pub fn mean_eigenvalue(&self) -> f64 {
+        self.values.iter().sum::<f64>() / self.values.len().max(1) as f64
+    }
+
+    /// Residual sum of squares Σ‖y − Wᵀφ‖² over all rows and outputs at penalty λ (clamped at
+    /// 0: it is a difference of two large sums when the fit is close).
+    pub fn rss(&self, lambda: f64) -> f64 {
+        let mut explained = 0.0;
+        for (i, &e) in self.values.iter().enumerate() {
+            let den = e + lambda;
+            if den <= 0.0 {
+                continue; // e = 0 with λ = 0: that direction carries no signal
+            }
+            let weight = (e + 2.0 * lambda) / (den * den);
+            let row = self.proj.row(i);
+            let c2: f64 = row.iter().map(|c| c * c).sum();
+            explained += c2 * weight;
+        }
+        (self.target_sq - explained).max(0.0)
+    }
+
+    /// Effective degrees of freedom df(λ) = tr H = Σ e_i/(e_i + λ).
+    pub fn effective_dof(&self, lambda: f64) -> f64 {
+        self.values
+            .iter()
+            .map(|&e| {
+                if e + lambda > 0.0 {
+                    e / (e + lambda)
+                } else {
+                    0.0
+                }
+            })
+            .sum()
+    }
+
+    /// GCV(λ) = N·RSS(λ)/(N − df(λ))², summed over outputs; +∞ when N ≤ df(λ) (a fit with no
+    /// residual degrees of freedom has no cross-validation estimate).
+    pub fn gcv(&self, lambda: f64) -> f64 {
+        let n = self.count as f64;
+        let spare = n - self.effective_dof(lambda);
+        if spare <= 0.0 {
+            return f64::INFINITY;
+        }
+        n * self.rss(lambda) / (spare * spare)
+    }
+
+    /// The documented default grid ([`GCV_GRID_DECADES`]) scaled by the mean eigenvalue (by 1 if
+    /// every eigenvalue is 0).
+    pub fn default_grid(&self) -> Vec<f64> {
+        let mean = self.mean_eigenvalue();
+        let scale = if mean > 0.0 { mean } else { 1.0 };
+        let (lo, hi, points) = GCV_GRID_DECADES;
+        (0..points)
+            .map(|i| {
+                let decade = lo + (hi - lo) * i as f64 / (points - 1) as f64;
+                scale * 10f64.powf(decade)
+            })
+            .collect()
+    }
+
+    /// The grid penalty with the smallest GCV score (the larger penalty on an exact tie).
+    /// Non-finite scores never win; an empty grid or one with no finite score is an error.
+    pub fn select(&self, grid: &[f64]) -> Result<Selection, RidgeError> {
+        let scores: Vec<f64> = grid.iter().map(|&l| self.gcv(l)).collect();
+        let mut best: Option<usize> = None;
+        for (i, &s) in scores.iter().enumerate() {
+            if s.is_finite() && best.is_none_or(|b| s <= scores[b]) {
+                best = Some(i);
+            }
+        }
+        let index = best.ok_or(RidgeError::NoFiniteScore { grid: grid.len() })?;
+        Ok(Selection {
+            lambda: grid[index],
+            score: scores[index],
+            index,
+            scores,
+        })
+    }
+
+    /// The ridge solution W = V diag(1/(e + λ)) C at λ > 0, in the layout of
+    /// [`NormalEquations::solve`] (outputs × features, row-major), and the root-mean-square
+    /// training residual over all outputs.
+    pub fn solve(&self, lambda: f64) -> (Vec<f64>, f64) {
+        let f = self.values.len();
+        let d = self.proj.ncols();
+        // W = Q (T + λI)⁻¹ QᵀB.
+        let mut w = self.reduced_cross.clone();
+        tridiagonal_solve(&self.diag, &self.offdiag, lambda, &mut w);
+        if f > 1 {
+            let block = self.factors.nrows();
+            let mut mem = MemBuffer::new(
+                apply_block_householder_sequence_on_the_left_in_place_scratch::<f64>(
+                    f - 1,
+                    block,
+                    d,
+                ),
+            );
+            apply_block_householder_sequence_on_the_left_in_place_with_conj(
+                self.reflectors.as_ref().submatrix(1, 0, f - 1, f - 1),
+                self.factors.as_ref(),
+                Conj::No,
+                w.as_mut().subrows_mut(1, f - 1),
+                Par::Seq,
+                MemStack::new(&mut mem),
+            );
+            clear_upper_simd_state();
+        }
+        let mut out = vec![0.0; d * f];
+        for k in 0..d {
+            for i in 0..f {
+                out[k * f + i] = w[(i, k)];
+            }
+        }
+        let rmse = (self.rss(lambda) / (self.count * d).max(1) as f64).sqrt();
+        (out, rmse)
+    }
+}
+
+/// How a ridge readout's penalty is chosen.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum RidgeSelection {
+    /// The configured `ridge`, scaled by `ridge-scaling`.
+    #[default]
+    Fixed,
+    /// Generalised cross-validation on [`RidgeEigen::default_grid`], separately for every
+    /// subset size; `ridge` and `ridge-scaling` are not used.
+    ///
+    /// GCV targets one-step (in-sample) prediction error and assumes independent residuals.
+    /// One-step residuals of a time series are autocorrelated, under which GCV tends to choose
+    /// too small a penalty (Opsomer, Wang & Yang 2001, "Nonparametric regression with correlated
+    /// errors", Statistical Science); and the smallest
+    /// one-step error need not give the most stable autonomous forecast (measured for the
+    /// next-generation reservoir computer on Lorenz-63, see `ngrc`).
+    Gcv,
+}
+
+/// A readout's penalty setting, resolved from model parameters.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Penalty {
+    /// λ (per training pair under [`RidgeScaling::PerSample`]); used by [`RidgeSelection::Fixed`].
+    pub ridge: f64,
+    /// How λ follows the number of training pairs; used by [`RidgeSelection::Fixed`].
+    pub scaling: RidgeScaling,
+    /// Fixed penalty or GCV.
+    pub selection: RidgeSelection,
+}
+
+/// How the penalty of one fit was chosen, as recorded in its fit summary.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct RidgeChoice {
+    /// Fixed penalty or GCV.
+    pub method: RidgeSelection,
+    /// GCV score at the chosen penalty (squared target units; GCV only).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub gcv_score: Option<f64>,
+    /// GCV chose the smallest or largest grid penalty: the best may lie beyond the grid.
+    #[serde(default)]
+    pub at_grid_edge: bool,
+}
+
+/// A solved readout.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Readout {
+    /// Outputs × features, row-major.
+    pub weights: Vec<f64>,
+    /// Root-mean-square training residual over all outputs.
+    pub rmse: f64,
+    /// Penalty actually used.
+    pub lambda: f64,
+    /// How it was chosen.
+    pub choice: RidgeChoice,
+}
+
+/// Solves the readout of `ne` with the penalty `penalty` asks for.
+///
+/// Fixed: λ (times the number of rows under per-sample scaling), raised tenfold at most 6 times
+/// while the penalised Gram matrix is not positive definite (the penalty used is recorded).
+/// GCV: one eigendecomposition, the best penalty on the default grid, and the solution from the
+/// same decomposition.
+pub fn fit_readout(ne: &NormalEquations, penalty: &Penalty) -> Result<Readout, RidgeError> {
+    match penalty.selection {
+        RidgeSelection::Fixed => {
+            let mut lambda = match penalty.scaling {
+                RidgeScaling::PerSample => penalty.ridge * ne.count as f64,
+                RidgeScaling::Fixed => penalty.ridge,
+            };
+            let mut attempt = 0;
+            let (weights, rmse) = loop {
+                match ne.solve(lambda) {
+                    Ok(x) => break x,
+                    Err(RidgeError::NotPositiveDefinite { .. }) if attempt < 6 => {
+                        lambda *= 10.0;
+                        attempt += 1;
+                    }
+                    Err(e) => return Err(e),
+                }
+            };
+            Ok(Readout {
+                weights,
+                rmse,
+                lambda,
+                choice: RidgeChoice {
+                    method: RidgeSelection::Fixed,
+                    gcv_score: None,
+                    at_grid_edge: false,
+                },
+            })
+        }
+        RidgeSelection::Gcv => {
+            let eig = ne.eigen()?;
+            let sel = eig.select(&eig.default_grid())?;
+            let (weights, rmse) = eig.solve(sel.lambda);
+            Ok(Readout {
+                weights,
+                rmse,
+                lambda: sel.lambda,
+                choice: RidgeChoice {
+                    method: RidgeSelection::Gcv,
+                    gcv_score: Some(sel.score),
+                    at_grid_edge: sel.at_grid_edge(),
+                },
+            })
+        }
     }
 }
 
@@ -291,9 +794,239 @@ mod tests {
         assert!((rmse - direct).abs() < 1e-9, "{rmse} vs {direct}");
     }
 
+    /// GCV by the explicit hat matrix H = Φ(ΦᵀΦ + λI)⁻¹Φᵀ (Golub, Heath & Wahba 1979, eq. 1.4):
+    /// N‖(I − H)y‖²/tr(I − H)², summed over outputs; dense nalgebra LU, independent of faer.
+    fn brute_force_gcv(
+        phi: &[f64],
+        y: &[f64],
+        rows: usize,
+        f: usize,
+        d: usize,
+        lambda: f64,
+    ) -> f64 {
+        let x = nalgebra::DMatrix::from_row_slice(rows, f, phi);
+        let a = x.transpose() * &x + nalgebra::DMatrix::identity(f, f) * lambda;
+        let h = &x * a.lu().try_inverse().unwrap() * x.transpose();
+        let i_h = nalgebra::DMatrix::identity(rows, rows) - h;
+        let tr = i_h.trace();
+        (0..d)
+            .map(|k| {
+                let yk = nalgebra::DVector::from_iterator(rows, (0..rows).map(|r| y[r * d + k]));
+                let res = &i_h * yk;
+                rows as f64 * res.norm_squared() / (tr * tr)
+            })
+            .sum()
+    }
+
+    /// GCV from the eigendecomposition equals the hat-matrix definition to 1e-10 relative, over
+    /// penalties spanning five decades, with more rows than features and fewer.
+    #[test]
+    fn gcv_matches_hat_matrix_definition() {
+        for (rows, f, d, seed) in [(60, 8, 2, 11), (25, 12, 3, 12), (10, 16, 1, 13)] {
+            let (phi, y) = random_problem(rows, f, d, seed);
+            let mut ne = NormalEquations::zeros(f, d);
+            ne.add_rows(&phi, &y, rows);
+            let eig = ne.eigen().unwrap();
+            for lambda in [1e-2, 1e-1, 1.0, 10.0, 1e3] {
+                let fast = eig.gcv(lambda);
+                let slow = brute_force_gcv(&phi, &y, rows, f, d, lambda);
+                assert!(
+                    (fast - slow).abs() <= 1e-10 * slow,
+                    "N={rows} F={f} λ={lambda}: {fast} vs {slow}"
+                );
+            }
+        }
+    }
+
+    /// The residual sum of squares from the eigendecomposition equals the residual of the
+    /// solution computed row by row, and the degrees of freedom equal tr H from its definition.
+    #[test]
+    fn rss_and_dof_match_direct_computation() {
+        let (rows, f, d) = (50, 9, 2);
+        let (phi, y) = random_problem(rows, f, d, 21);
+        let mut ne = NormalEquations::zeros(f, d);
+        ne.add_rows(&phi, &y, rows);
+        let eig = ne.eigen().unwrap();
+        let x = nalgebra::DMatrix::from_row_slice(rows, f, &phi);
+        for lambda in [0.05, 2.0, 40.0] {
+            let (w, _) = eig.solve(lambda);
+            let mut rss = 0.0;
+            for r in 0..rows {
+                for k in 0..d {
+                    let pred: f64 = (0..f).map(|i| phi[r * f + i] * w[k * f + i]).sum();
+                    rss += (pred - y[r * d + k]).powi(2);
+                }
+            }
+            assert!(
+                (eig.rss(lambda) - rss).abs() <= 1e-10 * rss,
+                "λ={lambda}: {} vs {rss}",
+                eig.rss(lambda)
+            );
+            let a = x.transpose() * &x + nalgebra::DMatrix::identity(f, f) * lambda;
+            let tr_h = (&x * a.lu().try_inverse().unwrap() * x.transpose()).trace();
+            assert!((eig.effective_dof(lambda) - tr_h).abs() <= 1e-10 * tr_h);
+        }
+    }
+
+    /// The eigen solution equals the Cholesky solution to a size-scaled tolerance (both solve
+    /// (G + λI)W = B; their round-off grows with F and with the condition number, here small).
+    #[test]
+    fn eigen_solution_equals_cholesky_solution() {
+        for (rows, f, d, seed) in [(400, 20, 2, 31), (30, 45, 3, 32)] {
+            let (phi, y) = random_problem(rows, f, d, seed);
+            let mut ne = NormalEquations::zeros(f, d);
+            ne.add_rows(&phi, &y, rows);
+            let eig = ne.eigen().unwrap();
+            for lambda in [1e-3, 0.3, 30.0] {
+                let (a, ra) = ne.solve(lambda).unwrap();
+                let (b, rb) = eig.solve(lambda);
+                let norm = a.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+                let cond = (eig.eigenvalues()[f - 1] + lambda) / (eig.eigenvalues()[0] + lambda);
+                let tol = f64::EPSILON * 64.0 * f as f64 * cond * norm;
+                for (x, z) in a.iter().zip(&b) {
+                    assert!(
+                        (x - z).abs() <= tol,
+                        "F={f} λ={lambda}: {x} vs {z} (tol {tol})"
+                    );
+                }
+                assert!((ra - rb).abs() <= 1e-8 * ra.max(1e-12), "{ra} vs {rb}");
+            }
+        }
+    }
+
+    /// Eigenvalues from the tridiagonal QR iteration equal nalgebra's symmetric eigensolver (an
+    /// independent implementation) to 1e-12 of the largest, and ‖C‖ per output equals ‖B‖ (V is
+    /// orthogonal), for a random Gram matrix, one with a 20-fold repeated eigenvalue (identity
+    /// plus rank 5: a case where QR deflation matters) and a 1 × 1 one.
+    #[test]
+    fn tridiagonal_qr_matches_a_dense_eigensolver() {
+        let (rows, f, d) = (300, 120, 2);
+        let (phi, y) = random_problem(rows, f, d, 71);
+        let mut random = NormalEquations::zeros(f, d);
+        random.add_rows(&phi, &y, rows);
+        let mut repeated = NormalEquations::zeros(20, 1);
+        let (low, ys) = random_problem(5, 20, 1, 72);
+        repeated.add_rows(&low, &ys, 5);
+        for i in 0..20 {
+            repeated.gram[(i, i)] += 1.0;
+        }
+        let mut single = NormalEquations::zeros(1, 1);
+        single.add_rows(&[3.0], &[2.0], 1);
+        for ne in [random, repeated, single] {
+            let f = ne.features();
+            let full = nalgebra::DMatrix::from_fn(f, f, |i, j| ne.gram[(i.max(j), i.min(j))]);
+            let mut reference: Vec<f64> =
+                full.symmetric_eigen().eigenvalues.iter().copied().collect();
+            reference.sort_by(f64::total_cmp);
+            let eig = ne.eigen().unwrap();
+            let top = reference[f - 1];
+            for (a, b) in eig.eigenvalues().iter().zip(&reference) {
+                assert!((a - b.max(0.0)).abs() <= 1e-12 * top, "F={f}: {a} vs {b}");
+            }
+            for k in 0..ne.outputs() {
+                let b2: f64 = (0..f).map(|i| ne.cross[(i, k)].powi(2)).sum();
+                let c2: f64 = (0..f).map(|i| eig.proj[(i, k)].powi(2)).sum();
+                assert!((b2 - c2).abs() <= 1e-12 * b2, "F={f}: {b2} vs {c2}");
+            }
+        }
+    }
+
+    /// Only the lower triangle of the Gram matrix is read: junk above the diagonal changes
+    /// nothing; a repeated feature column (a zero eigenvalue) gives no negative eigenvalue.
+    #[test]
+    fn eigen_reads_the_lower_triangle_and_clamps_round_off() {
+        let (rows, f, d) = (40, 6, 1);
+        let (mut phi, y) = random_problem(rows, f, d, 41);
+        for r in 0..rows {
+            phi[r * f + 5] = phi[r * f + 4];
+        }
+        let mut ne = NormalEquations::zeros(f, d);
+        ne.add_rows(&phi, &y, rows);
+        let clean = ne.eigen().unwrap();
+        for j in 0..f {
+            for i in 0..j {
+                ne.gram[(i, j)] = 1e3 * (i + 2 * j) as f64;
+            }
+        }
+        let junk = ne.eigen().unwrap();
+        assert_eq!(clean.eigenvalues(), junk.eigenvalues());
+        assert!(clean.eigenvalues().iter().all(|&e| e >= 0.0));
+        assert!(clean.eigenvalues()[0] <= 1e-12 * clean.eigenvalues()[f - 1]);
+        assert!(clean.gcv(1e-6).is_finite());
+    }
+
+    /// The selected penalty is the grid's GCV minimiser; the default grid spans 1e-12 to 1 times
+    /// the mean eigenvalue; noisier targets of the same signal get a larger penalty (GCV trades
+    /// variance against bias).
+    #[test]
+    fn selection_minimises_gcv_and_follows_the_noise() {
+        let (rows, f) = (80, 10);
+        let (phi, noise) = random_problem(rows, f, 1, 51);
+        let chosen = |noise_level: f64| {
+            let y: Vec<f64> = (0..rows)
+                .map(|r| {
+                    let signal: f64 = (0..f)
+                        .map(|i| phi[r * f + i] * (i as f64 - 4.5) * 0.2)
+                        .sum();
+                    signal + noise_level * noise[r]
+                })
+                .collect();
+            let mut ne = NormalEquations::zeros(f, 1);
+            ne.add_rows(&phi, &y, rows);
+            let eig = ne.eigen().unwrap();
+            let grid = eig.default_grid();
+            assert_eq!(grid.len(), 25);
+            assert!((grid[0] / eig.mean_eigenvalue() - 1e-12).abs() < 1e-24);
+            assert!((grid[24] / eig.mean_eigenvalue() - 1.0).abs() < 1e-12);
+            let sel = eig.select(&grid).unwrap();
+            assert!(sel.scores.iter().all(|&s| s >= sel.score));
+            assert_eq!(sel.scores[sel.index], eig.gcv(sel.lambda));
+            sel.lambda
+        };
+        let (quiet, loud) = (chosen(0.01), chosen(3.0));
+        assert!(loud > quiet, "λ: quiet {quiet}, loud {loud}");
+    }
+
+    /// Fixed selection reproduces the Cholesky solve at λ·n (per-sample scaling); GCV records its
+    /// score and solves at the penalty it chose.
+    #[test]
+    fn fit_readout_follows_the_selection_setting() {
+        let (rows, f, d) = (120, 7, 2);
+        let (phi, y) = random_problem(rows, f, d, 61);
+        let mut ne = NormalEquations::zeros(f, d);
+        ne.add_rows(&phi, &y, rows);
+        let fixed = fit_readout(
+            &ne,
+            &Penalty {
+                ridge: 1e-3,
+                scaling: RidgeScaling::PerSample,
+                selection: RidgeSelection::Fixed,
+            },
+        )
+        .unwrap();
+        assert_eq!(fixed.lambda, 1e-3 * rows as f64);
+        assert_eq!(fixed.weights, ne.solve(1e-3 * rows as f64).unwrap().0);
+        assert_eq!(fixed.choice.gcv_score, None);
+        let gcv = fit_readout(
+            &ne,
+            &Penalty {
+                ridge: 1e-3,
+                scaling: RidgeScaling::PerSample,
+                selection: RidgeSelection::Gcv,
+            },
+        )
+        .unwrap();
+        let eig = ne.eigen().unwrap();
+        let sel = eig.select(&eig.default_grid()).unwrap();
+        assert_eq!(gcv.lambda, sel.lambda);
+        assert_eq!(gcv.choice.gcv_score, Some(sel.score));
+        assert_eq!(gcv.weights, eig.solve(sel.lambda).0);
+    }
+
     #[test]
     fn empty_equations_are_an_error() {
         let ne = NormalEquations::zeros(3, 1);
         assert!(matches!(ne.solve(1.0), Err(RidgeError::Empty)));
+        assert!(matches!(ne.eigen(), Err(RidgeError::Empty)));
     }
 }

@@ -189,6 +189,7 @@ pub(crate) mod tests {
                             training_pairs: n - 1,
                             ridge_penalty: Some(1e-6 * n as f64),
                             training_rmse: Some(0.05 / (1.0 + si as f64)),
+                            ridge_selection: None,
                         },
                         summary: summary(mean),
                         initial_conditions: ics,

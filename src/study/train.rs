@@ -107,6 +107,7 @@ fn fit_regressor(
                     training_pairs: info.rows,
                     ridge_penalty: Some(info.penalty),
                     training_rmse: Some(info.training_rmse),
+                    ridge_selection: None,
                 },
             ))
         }

@@ -1,0 +1,739 @@
+//! Next-generation reservoir computing (NG-RC): a ridge readout on time-delay features and their
+//! unique quadratic monomials, predicting the increment of the state. One pass over the largest
+//! training subset yields the readout of every nested prefix.
+//!
+//! Features at time t: φ(t) = [1, O_lin(t), O_lin(t)_i·O_lin(t)_j for i ≤ j], with
+//! O_lin(t) = [u(t), u(t − s), …, u(t − (k − 1)s)] (k delays, stride s, u the possibly
+//! standardised state); prediction û(t + 1) = u(t) + W φ(t). With L = k·d linear features there
+//! are F = 1 + L + L(L + 1)/2 features.
+//! Reference: Gauthier, Bollt, Griffith & Barbosa (2021), "Next generation reservoir computing",
+//! Nat. Commun. 12, 5564.
+
+use super::ridge::{fit_readout, NormalEquations, Penalty, RidgeSelection, BLOCK_ROWS};
+use super::{FitSummary, Forecaster, ModelError, RidgeScaling};
+use crate::data::column_stats;
+use ndarray::ArrayView2;
+use serde::{Deserialize, Serialize};
+
+/// Largest feature count F accepted: the Gram matrix is F × F and GCV decomposes it once per
+/// subset size.
+pub const MAX_FEATURES: usize = 5000;
+
+/// NG-RC settings as written in a study file.
+///
+/// | key | default | meaning | valid |
+/// |---|---|---|---|
+/// | `delays` | 2 | k, states in the linear part (the current one and k − 1 delayed) | 1 ..= 100 |
+/// | `stride` | 1 | s, samples between delayed states | 1 ..= 10000 |
+/// | `ridge` | 2.5e-6 | λ (Gauthier et al. 2021; per training pair when `ridge-scaling = "per-sample"`) | (0, 1e3] |
+/// | `ridge-scaling` | fixed | penalty λ (fixed) or λ·n (per-sample) | fixed, per-sample |
+/// | `ridge-selection` | fixed | `ridge` with `ridge-scaling`, or λ chosen per subset size by generalised cross-validation (`gcv`) | fixed, gcv |
+/// | `standardise` | true | standardise every variable by the mean and standard deviation of the smallest subset | true, false |
+///
+/// The defaults of `delays`, `stride`, `ridge` and `ridge-scaling` are the published Lorenz-63
+/// setting, stated there for raw variables. Measured defaults (Lorenz-63, 400 training pairs
+/// every 0.025 time units, 40 test initial conditions):
+/// * `standardise = true`: raw variables gave under 1 Lyapunov time of valid forecast for every
+///   training seed 1–8 (also with a QR least-squares solve, so not round-off), standardised ones
+///   1.9–5.3; on the two-scale Lorenz-96 system both matched.
+/// * `ridge-selection = "fixed"`: GCV chose the smallest penalty on its grid and, although its
+///   one-step error was lower, its forecasts stayed valid for 0.6–0.9 time units against
+///   6.6–8.2 for the fixed penalty (Lorenz-63 every 0.01, 1000–16000 samples); on the two-scale
+///   system they matched.
+///
+/// Caution: with two or more delays, the weakest penalised directions of the readout include
+/// the differences between delayed states, and too small a penalty can leave an unstable mode in
+/// the autonomous forecast. On Lorenz-96 (K = 8, every 0.02) the default penalty gave valid times
+/// of 0.12–0.15 time units against 2.9 with `ridge = 1e-2` (and 1.4–1.6 with one delay at any
+/// penalty).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields, default)]
+pub struct NgrcParams {
+    pub delays: usize,
+    pub stride: usize,
+    pub ridge: f64,
+    pub ridge_scaling: RidgeScaling,
+    pub ridge_selection: RidgeSelection,
+    pub standardise: bool,
+}
+
+impl Default for NgrcParams {
+    fn default() -> Self {
+        Self {
+            delays: 2,
+            stride: 1,
+            ridge: 2.5e-6,
+            ridge_scaling: RidgeScaling::Fixed,
+            ridge_selection: RidgeSelection::Fixed,
+            standardise: true,
+        }
+    }
+}
+
+/// Checked NG-RC settings; only [`NgrcParams::check`] makes one.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ValidNgrcParams(NgrcParams);
+
+impl ValidNgrcParams {
+    /// The checked settings.
+    pub fn get(&self) -> &NgrcParams {
+        &self.0
+    }
+}
+
+fn out_of_range(key: &str, value: String, allowed: &str) -> ModelError {
+    ModelError::InvalidParameter {
+        key: key.to_string(),
+        value,
+        allowed: allowed.to_string(),
+    }
+}
+
+impl NgrcParams {
+    /// Checks every setting against its valid range (see the table on [`NgrcParams`]).
+    pub fn check(self) -> Result<ValidNgrcParams, ModelError> {
+        let p = &self;
+        if !(1..=100).contains(&p.delays) {
+            return Err(out_of_range("delays", p.delays.to_string(), "1 to 100"));
+        }
+        if !(1..=10_000).contains(&p.stride) {
+            return Err(out_of_range("stride", p.stride.to_string(), "1 to 10000"));
+        }
+        if !(p.ridge.is_finite() && p.ridge > 0.0 && p.ridge <= 1e3) {
+            return Err(out_of_range(
+                "ridge",
+                p.ridge.to_string(),
+                "greater than 0 and at most 1000",
+            ));
+        }
+        Ok(ValidNgrcParams(self))
+    }
+}
+
+/// Number of features for `linear` linear features: 1 + L + L(L + 1)/2.
+pub fn feature_count(linear: usize) -> usize {
+    1 + linear + linear * (linear + 1) / 2
+}
+
+/// A trained NG-RC model: delay layout, standardisation and readout.
+#[derive(Debug, Clone)]
+pub struct Ngrc {
+    delays: usize,
+    stride: usize,
+    mean: Vec<f64>,
+    scale: Vec<f64>,
+    /// outputs × features, row-major.
+    readout: Vec<f64>,
+}
+
+impl Ngrc {
+    /// Number of features F.
+    pub fn features(&self) -> usize {
+        feature_count(self.delays * self.mean.len())
+    }
+
+    /// Samples of history the features reach back: (k − 1)s + 1.
+    pub fn history_needed(&self) -> usize {
+        (self.delays - 1) * self.stride + 1
+    }
+
+    /// The readout W, outputs × features, row-major (features ordered as in the module docs:
+    /// constant, linear part by delay then variable, then monomials (i, j) with i ≤ j in
+    /// row-major order of the upper triangle).
+    pub fn readout(&self) -> &[f64] {
+        &self.readout
+    }
+}
+
+/// φ from the linear part `lin` into `out` (length [`feature_count`]).
+#[inline]
+fn write_features(lin: &[f64], out: &mut [f64]) {
+    let l = lin.len();
+    out[0] = 1.0;
+    out[1..=l].copy_from_slice(lin);
+    let mut q = 1 + l;
+    for i in 0..l {
+        let a = lin[i];
+        for &b in &lin[i..] {
+            out[q] = a * b;
+            q += 1;
+        }
+    }
+}
+
+/// Trains the readout on every nested prefix of `train` at once.
+///
+/// `sizes` are prefix lengths in samples, ascending, each at most `train.nrows()`; a prefix of n
+/// samples gives n − 1 − (k − 1)s training pairs (the first (k − 1)s samples only feed delays).
+/// With `standardise`, the mean and standard deviation come from the smallest prefix, which
+/// every larger prefix contains, so all prefixes share one feature map.
+pub fn fit_nested(
+    params: &ValidNgrcParams,
+    train: ArrayView2<f64>,
+    sizes: &[usize],
+) -> Result<Vec<(Ngrc, FitSummary)>, ModelError> {
+    let p = params.get();
+    let d = train.ncols();
+    let smallest = *sizes.first().ok_or(ModelError::NoSizes)?;
+    let largest = *sizes.last().expect("non-empty");
+    debug_assert!(sizes.windows(2).all(|w| w[0] <= w[1]), "sizes ascending");
+    if largest > train.nrows() {
+        return Err(ModelError::SubsetTooLarge {
+            size: largest,
+            available: train.nrows(),
+        });
+    }
+    let span = (p.delays - 1) * p.stride;
+    if smallest <= span + 1 {
+        return Err(out_of_range(
+            "delays",
+            format!(
+                "{} (with stride {}, spanning {span} samples)",
+                p.delays, p.stride
+            ),
+            &format!(
+                "(delays − 1) × stride below {} so that the smallest subset of {smallest} samples \
+                 leaves a training pair; lower `delays` or `stride`, or use larger subsets",
+                smallest - 1
+            ),
+        ));
+    }
+    let linear = p.delays * d;
+    let f = feature_count(linear);
+    if f > MAX_FEATURES {
+        return Err(out_of_range(
+            "delays",
+            format!("{} (with {d} variables: {f} features)", p.delays),
+            &format!(
+                "at most {MAX_FEATURES} features (1 + L + L(L + 1)/2 for L = delays × variables)"
+            ),
+        ));
+    }
+    let (mean, scale) = if p.standardise {
+        let (mean, mut scale) = column_stats(train.slice(ndarray::s![..smallest, ..]));
+        scale.iter_mut().for_each(|s| {
+            if s.is_nan() || *s <= 0.0 {
+                *s = 1.0;
+            }
+        });
+        (mean, scale)
+    } else {
+        (vec![0.0; d], vec![1.0; d])
+    };
+    // Standardised states of the largest prefix, row-major.
+    let mut u = vec![0.0; largest * d];
+    for t in 0..largest {
+        for j in 0..d {
+            u[t * d + j] = (train[[t, j]] - mean[j]) / scale[j];
+        }
+    }
+    let penalty = Penalty {
+        ridge: p.ridge,
+        scaling: p.ridge_scaling,
+        selection: p.ridge_selection,
+    };
+    let mut ne = NormalEquations::zeros(f, d);
+    // Column-major feature block: feature c of row i at c · BLOCK_ROWS + i (see `add`).
+    let mut phi = vec![0.0; BLOCK_ROWS * f];
+    phi[..BLOCK_ROWS].fill(1.0);
+    let mut y = vec![0.0; BLOCK_ROWS * d];
+    let mut out = Vec::with_capacity(sizes.len());
+    let mut next_size = 0;
+    // Pair t (span ≤ t ≤ n − 2): features at t, target u(t + 1) − u(t).
+    let mut t0 = span;
+    while next_size < sizes.len() {
+        let end = sizes[next_size] - 1; // pairs of this prefix: t < end
+        while t0 < end {
+            let rows = BLOCK_ROWS.min(end - t0);
+            for lag in 0..p.delays {
+                for j in 0..d {
+                    let col = &mut phi[(1 + lag * d + j) * BLOCK_ROWS..][..rows];
+                    for (i, c) in col.iter_mut().enumerate() {
+                        *c = u[(t0 + i - lag * p.stride) * d + j];
+                    }
+                }
+            }
+            let mut q = 1 + linear;
+            for a in 0..linear {
+                for b in a..linear {
+                    let (head, tail) = phi.split_at_mut(q * BLOCK_ROWS);
+                    let ca = &head[(1 + a) * BLOCK_ROWS..][..rows];
+                    let cb = &head[(1 + b) * BLOCK_ROWS..][..rows];
+                    for ((o, x), z) in tail[..rows].iter_mut().zip(ca).zip(cb) {
+                        *o = x * z;
+                    }
+                    q += 1;
+                }
+            }
+            for i in 0..rows {
+                let t = t0 + i;
+                for j in 0..d {
+                    y[i * d + j] = u[(t + 1) * d + j] - u[t * d + j];
+                }
+            }
+            ne.add(
+                faer::MatRef::from_column_major_slice_with_stride(&phi, rows, f, BLOCK_ROWS),
+                faer::MatRef::from_row_major_slice(&y[..rows * d], rows, d),
+            );
+            t0 += rows;
+        }
+        let size = sizes[next_size];
+        let readout =
+            fit_readout(&ne, &penalty).map_err(|source| ModelError::Ridge { size, source })?;
+        out.push((
+            Ngrc {
+                delays: p.delays,
+                stride: p.stride,
+                mean: mean.clone(),
+                scale: scale.clone(),
+                readout: readout.weights,
+            },
+            FitSummary {
+                n: size,
+                training_pairs: ne.count,
+                ridge_penalty: Some(readout.lambda),
+                training_rmse: Some(readout.rmse),
+                ridge_selection: Some(readout.choice),
+            },
+        ));
+        next_size += 1;
+    }
+    Ok(out)
+}
+
+impl Forecaster for Ngrc {
+    /// Warms up from the last (k − 1)s + 1 rows of `history` (the delayed states the features
+    /// need; with fewer rows, the earliest row given stands in for the missing ones), then
+    /// iterates û(t + 1) = û(t) + W φ(t). A diverging forecast turns non-finite and is passed on.
+    fn forecast(
+        &self,
+        history: ArrayView2<f64>,
+        steps: usize,
+        sink: &mut dyn FnMut(usize, &[f64]) -> bool,
+    ) {
+        super::ridge::clear_upper_simd_state();
+        let h = history.nrows();
+        if h == 0 {
+            return;
+        }
+        let d = self.mean.len();
+        let f = self.features();
+        let window = self.history_needed();
+        // Ring of the last `window` standardised states; slot of lag l (samples back from the
+        // newest) is (head + window − l) % window.
+        let mut ring = vec![0.0; window * d];
+        for slot in 0..window {
+            let row = (h + slot).saturating_sub(window);
+            for j in 0..d {
+                ring[slot * d + j] = (history[[row, j]] - self.mean[j]) / self.scale[j];
+            }
+        }
+        let mut head = window - 1;
+        let mut lin = vec![0.0; self.delays * d];
+        let mut phi = vec![0.0; f];
+        let mut x = vec![0.0; d];
+        for k in 1..=steps {
+            for lag in 0..self.delays {
+                let slot = (head + window - lag * self.stride) % window;
+                lin[lag * d..(lag + 1) * d].copy_from_slice(&ring[slot * d..(slot + 1) * d]);
+            }
+            write_features(&lin, &mut phi);
+            let next = (head + 1) % window;
+            for j in 0..d {
+                let w = &self.readout[j * f..(j + 1) * f];
+                let inc: f64 = w.iter().zip(&phi).map(|(a, b)| a * b).sum();
+                let v = lin[j] + inc;
+                ring[next * d + j] = v;
+                x[j] = v * self.scale[j] + self.mean[j];
+            }
+            head = next;
+            if !sink(k, &x) {
+                return;
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::ridge::NormalEquations;
+    use super::*;
+    use crate::skill::{summarise, valid_time, SkillSpec};
+    use crate::systems::{simulate, SimulationSpec, SystemSpec};
+    use ndarray::{s, Array2};
+
+    /// Hénon (1976) map in delay form, x(t+1) = 1 − a·x(t)² + b·x(t−1), a = 1.4, b = 0.3, from
+    /// (0.1, 0.1) with the first 100 iterates dropped (transient).
+    fn henon(n: usize) -> Array2<f64> {
+        let (a, b) = (1.4, 0.3);
+        let (mut prev, mut cur) = (0.1, 0.1);
+        let mut out = Array2::zeros((n, 1));
+        for t in 0..n + 100 {
+            let next = 1.0 - a * cur * cur + b * prev;
+            prev = cur;
+            cur = next;
+            if t >= 100 {
+                out[[t - 100, 0]] = cur;
+            }
+        }
+        out
+    }
+
+    fn params(p: NgrcParams) -> ValidNgrcParams {
+        p.check().unwrap()
+    }
+
+    fn lorenz63(dt_sample: f64, samples: usize, seed: u64) -> Array2<f64> {
+        simulate(
+            &SimulationSpec {
+                system: SystemSpec::with_defaults("lorenz-63").unwrap(),
+                dt: dt_sample / 10.0,
+                sample_interval: dt_sample,
+                spin_up: 50.0,
+                samples,
+                seed,
+            },
+            None,
+        )
+        .unwrap()
+        .resolved
+    }
+
+    /// The Hénon increment 1 − x(t) − 1.4·x(t)² + 0.3·x(t−1) lies in the feature span of two
+    /// delays, so an almost unpenalised fit on raw data recovers it: W = [1, −1, 0.3, −1.4, 0, 0]
+    /// over [1, x(t), x(t−1), x(t)², x(t)x(t−1), x(t−1)²]. Tolerance 1e-6: the penalty 1e-10
+    /// biases the solution by about λ‖W‖/e_min, far below it, and round-off is near 1e-12.
+    #[test]
+    fn recovers_the_henon_map() {
+        let data = henon(500);
+        let p = params(NgrcParams {
+            ridge: 1e-10,
+            standardise: false,
+            ..NgrcParams::default()
+        });
+        let fitted = fit_nested(&p, data.view(), &[500]).unwrap();
+        let (m, summary) = &fitted[0];
+        assert_eq!(summary.training_pairs, 498);
+        let expected = [1.0, -1.0, 0.3, -1.4, 0.0, 0.0];
+        for (w, e) in m.readout().iter().zip(expected) {
+            assert!((w - e).abs() < 1e-6, "readout {:?}", m.readout());
+        }
+    }
+
+    /// Standardisation is an affine change of variables, under which a quadratic map stays
+    /// quadratic: the standardised model still reproduces the chaotic Hénon orbit. Its error
+    /// grows by about e^0.42 per step (largest Lyapunov exponent of the Hénon map ≈ 0.42, from
+    /// memory), so 20 steps amplify an initial 1e-12 to about 1e-8; the bound is 1e-6.
+    #[test]
+    fn standardised_model_forecasts_the_henon_orbit() {
+        let data = henon(700);
+        let p = params(NgrcParams {
+            ridge: 1e-12,
+            ..NgrcParams::default()
+        });
+        let fitted = fit_nested(&p, data.view(), &[500]).unwrap();
+        let m = &fitted[0].0;
+        let ic = 600;
+        let mut max_err: f64 = 0.0;
+        let mut steps = 0;
+        m.forecast(data.slice(s![ic - 5..=ic, ..]), 20, &mut |k, x| {
+            max_err = max_err.max((x[0] - data[[ic + k, 0]]).abs());
+            steps = k;
+            true
+        });
+        assert_eq!(steps, 20);
+        assert!(max_err < 1e-6, "max error over 20 steps: {max_err}");
+    }
+
+    /// Noisy Lorenz-63 observations: the state sampled every 0.02 time units plus uniform noise
+    /// of ±0.1 (standard deviations are about 8), which keeps GCV's penalty inside its grid.
+    fn noisy_lorenz63(samples: usize) -> Array2<f64> {
+        use rand::{RngExt, SeedableRng};
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(8);
+        let mut data = lorenz63(0.02, samples, 4);
+        data.iter_mut()
+            .for_each(|x| *x += rng.random_range(-0.1..0.1));
+        data
+    }
+
+    /// Normal equations of the first n samples built row by row from the definition of the
+    /// features (no column-major blocks), with the model's standardisation.
+    fn row_by_row(m: &Ngrc, data: &Array2<f64>, n: usize) -> NormalEquations {
+        let d = data.ncols();
+        let u = |t: usize, j: usize| (data[[t, j]] - m.mean[j]) / m.scale[j];
+        let mut ne = NormalEquations::zeros(m.features(), d);
+        let mut lin = vec![0.0; m.delays * d];
+        let mut phi = vec![0.0; m.features()];
+        for t in m.history_needed() - 1..n - 1 {
+            for lag in 0..m.delays {
+                for j in 0..d {
+                    lin[lag * d + j] = u(t - lag * m.stride, j);
+                }
+            }
+            write_features(&lin, &mut phi);
+            let y: Vec<f64> = (0..d).map(|j| u(t + 1, j) - u(t, j)).collect();
+            ne.add_rows(&phi, &y, 1);
+        }
+        ne
+    }
+
+    /// Largest absolute difference between two readouts, relative to the largest weight.
+    fn relative_difference(a: &[f64], b: &[f64]) -> f64 {
+        let scale = a.iter().fold(0.0f64, |m, x| m.max(x.abs()));
+        a.iter()
+            .zip(b)
+            .map(|(x, y)| (x - y).abs())
+            .fold(0.0, f64::max)
+            / scale
+    }
+
+    /// The column-major blocks hold the features of the definition: the readout equals the one
+    /// from normal equations accumulated row by row, to 64·ε·cond(G + λI) relative (the forward
+    /// error bound of a symmetric solve, Higham 2002, "Accuracy and Stability of Numerical
+    /// Algorithms", §10.1; from memory), with 3 delays at stride 2 and 3 variables.
+    #[test]
+    fn blocks_hold_the_defined_features() {
+        let data = noisy_lorenz63(2600);
+        let p = params(NgrcParams {
+            delays: 3,
+            stride: 2,
+            ridge: 1e-2,
+            ..NgrcParams::default()
+        });
+        let fitted = fit_nested(&p, data.view(), &[800, 2600]).unwrap();
+        for (m, summary) in &fitted {
+            let ne = row_by_row(m, &data, summary.n);
+            assert_eq!(ne.count, summary.training_pairs);
+            let eig = ne.eigen().unwrap();
+            let e = eig.eigenvalues();
+            let cond = (e[e.len() - 1] + 1e-2) / (e[0] + 1e-2);
+            let (w, _) = ne.solve(1e-2).unwrap();
+            let diff = relative_difference(&m.readout, &w);
+            assert!(
+                diff <= 64.0 * f64::EPSILON * cond,
+                "n={}: {diff:e}, cond {cond:e}",
+                summary.n
+            );
+        }
+    }
+
+    /// Every prefix's model from one nested pass equals a separate fit on that prefix alone, for a
+    /// fixed penalty and for GCV (which must pick the same penalty, to round-off of trace(G)).
+    /// Blocks split at different rows, so the normal equations agree only to round-off; the
+    /// readouts must agree to 64·ε·cond(G + λI) relative (see `blocks_hold_the_defined_features`).
+    #[test]
+    fn nested_pass_equals_separate_fits() {
+        let data = noisy_lorenz63(3000);
+        let sizes = [700, 1500, 3000];
+        for selection in [RidgeSelection::Fixed, RidgeSelection::Gcv] {
+            let p = params(NgrcParams {
+                delays: 3,
+                stride: 2,
+                ridge: 1e-4,
+                ridge_selection: selection,
+                ..NgrcParams::default()
+            });
+            let nested = fit_nested(&p, data.view(), &sizes).unwrap();
+            for (i, &n) in sizes.iter().enumerate() {
+                let single = fit_nested(&p, data.view(), &[sizes[0], n]).unwrap();
+                let (a, sa) = &nested[i];
+                let (b, sb) = single.last().unwrap();
+                assert_eq!(sa.training_pairs, n - 1 - 4);
+                assert_eq!(sa.training_pairs, sb.training_pairs);
+                assert_eq!(sa.ridge_selection.unwrap().method, selection);
+                let (la, lb) = (sa.ridge_penalty.unwrap(), sb.ridge_penalty.unwrap());
+                assert!((la - lb).abs() <= 1e-12 * la, "penalty {la} vs {lb}");
+                let e = row_by_row(a, &data, n).eigen().unwrap();
+                let cond =
+                    (e.eigenvalues()[e.eigenvalues().len() - 1] + la) / (e.eigenvalues()[0] + la);
+                let diff = relative_difference(&a.readout, &b.readout);
+                assert!(
+                    diff <= 64.0 * f64::EPSILON * cond,
+                    "{selection:?} prefix {n}: readouts differ by {diff:e} relative, cond {cond:e}"
+                );
+            }
+        }
+    }
+
+    /// Lorenz-63 (σ = 10, ρ = 28, β = 8/3) with the published NG-RC setting of Gauthier et al.
+    /// (2021): k = 2, s = 1, samples every 0.025 time units, ridge 2.5e-6, 400 training pairs.
+    /// Mean valid prediction time (normalised error ≤ 0.5, σ from a long run) over 25 initial
+    /// conditions 10 time units apart, in Lyapunov times (λ₁ ≈ 0.9056, Sprott 2003).
+    /// Measured here: 4.5 Lyapunov times with the default standardisation (training seeds 1–8:
+    /// 1.9–5.3 on 40 initial conditions). Floor: 3 Lyapunov times.
+    ///
+    /// The published setting is for raw (unstandardised) variables; on this data it gave under 1
+    /// Lyapunov time for every training seed 1–8 (and the same with a QR least-squares solve, so
+    /// not from the normal equations' round-off): the two-delay model then has a weakly penalised
+    /// unstable mode. Standardisation is therefore the default.
+    #[test]
+    fn lorenz63_forecasts_several_lyapunov_times() {
+        const LYAPUNOV: f64 = 0.9056; // Sprott (2003), Chaos and Time-Series Analysis
+        let (ics, spacing) = (25, 400);
+        let train = lorenz63(0.025, 402, 1);
+        let test = lorenz63(0.025, ics * spacing + 1200, 2);
+        let (mean, sigma) = crate::data::column_stats(test.view());
+        let p = params(NgrcParams::default());
+        let fitted = fit_nested(&p, train.view(), &[402]).unwrap();
+        let (m, summary) = &fitted[0];
+        assert_eq!(summary.training_pairs, 400);
+        assert_eq!(summary.ridge_penalty, Some(2.5e-6));
+        let spec = SkillSpec {
+            threshold: 0.5,
+            warm_up: 1,
+            max_lead: 1100,
+            sample_interval: 0.025,
+            mean,
+            sigma,
+        };
+        let skill: Vec<_> = (0..ics)
+            .map(|i| valid_time(m, test.view(), 10 + i * spacing, &spec))
+            .collect();
+        let s = summarise(&skill);
+        let lyapunov_times = s.mean * LYAPUNOV;
+        eprintln!("mean valid time {lyapunov_times:.2} Lyapunov times, {s:?}");
+        assert!(lyapunov_times >= 3.0, "{lyapunov_times} Lyapunov times");
+        assert_eq!(s.blow_up_share, 0.0);
+    }
+
+    /// GCV per subset size never does worse than the fixed default on one-step increments over
+    /// the 1000 samples right after each training subset (Lorenz-63 sampled every 0.01).
+    /// Tolerance 1.02×: GCV minimises an estimate of the in-sample prediction error, so on a
+    /// held-out window it may tie the fixed penalty up to sampling noise of a few percent.
+    /// Measured ratios GCV/fixed: see the assertion message (about 0.02–0.1 here).
+    #[test]
+    fn gcv_never_worse_than_fixed_on_held_out_increments() {
+        let data = lorenz63(0.01, 9000, 3);
+        let sizes = [1000, 2000, 4000, 8000];
+        let window = 1000;
+        let fit = |selection| {
+            fit_nested(
+                &params(NgrcParams {
+                    ridge_selection: selection,
+                    ..NgrcParams::default()
+                }),
+                data.view(),
+                &sizes,
+            )
+            .unwrap()
+        };
+        let mse = |m: &Ngrc, n: usize| {
+            let mut acc = 0.0;
+            for t in n..n + window - 1 {
+                m.forecast(data.slice(s![t - 1..=t, ..]), 1, &mut |_, x| {
+                    for j in 0..3 {
+                        let truth = (data[[t + 1, j]] - data[[t, j]]) / m.scale[j];
+                        let pred = (x[j] - data[[t, j]]) / m.scale[j];
+                        acc += (pred - truth).powi(2);
+                    }
+                    false
+                });
+            }
+            acc / (3 * (window - 1)) as f64
+        };
+        let (fixed, gcv) = (fit(RidgeSelection::Fixed), fit(RidgeSelection::Gcv));
+        let ratios: Vec<f64> = fixed
+            .iter()
+            .zip(&gcv)
+            .map(|((f, s), (g, _))| mse(g, s.n) / mse(f, s.n))
+            .collect();
+        eprintln!("held-out one-step MSE ratios GCV/fixed: {ratios:?}");
+        assert!(ratios.iter().all(|&r| r <= 1.02), "ratios {ratios:?}");
+    }
+
+    /// A forecast that diverges turns non-finite and is passed on, never a panic; a history
+    /// shorter than the delays need, or empty, is accepted too.
+    #[test]
+    fn diverging_forecasts_and_short_histories_do_not_panic() {
+        let m = Ngrc {
+            delays: 2,
+            stride: 3,
+            mean: vec![0.0; 2],
+            scale: vec![1.0; 2],
+            readout: vec![10.0; 2 * feature_count(4)],
+        };
+        let history = Array2::from_elem((2, 2), 1.0);
+        let mut last = vec![];
+        m.forecast(history.view(), 200, &mut |_, x| {
+            last = x.to_vec();
+            true
+        });
+        assert!(last.iter().all(|v| !v.is_finite()), "{last:?}");
+        let mut calls = 0;
+        m.forecast(history.slice(s![..0, ..]), 5, &mut |_, _| {
+            calls += 1;
+            true
+        });
+        assert_eq!(calls, 0);
+    }
+
+    #[test]
+    fn invalid_settings_name_the_key() {
+        for (p, key, value) in [
+            (
+                NgrcParams {
+                    delays: 0,
+                    ..NgrcParams::default()
+                },
+                "delays",
+                "0",
+            ),
+            (
+                NgrcParams {
+                    stride: 0,
+                    ..NgrcParams::default()
+                },
+                "stride",
+                "0",
+            ),
+            (
+                NgrcParams {
+                    ridge: -1.0,
+                    ..NgrcParams::default()
+                },
+                "ridge",
+                "-1",
+            ),
+        ] {
+            let e = p.check().unwrap_err().to_string();
+            assert!(e.contains(key) && e.contains(value), "{e}");
+        }
+        let e = toml::from_str::<NgrcParams>("delay = 3")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("delay"), "{e}");
+        let p: NgrcParams =
+            toml::from_str("ridge-selection = \"gcv\"\nstandardise = false").unwrap();
+        assert_eq!(p.ridge_selection, RidgeSelection::Gcv);
+        assert!(!p.standardise && p.delays == 2);
+    }
+
+    /// Subsets too short for the delay span, and too many features, are refused naming `delays`.
+    #[test]
+    fn subsets_shorter_than_the_delay_span_are_refused() {
+        let refused = |p: &ValidNgrcParams, data: &Array2<f64>, sizes: &[usize]| match fit_nested(
+            p,
+            data.view(),
+            sizes,
+        ) {
+            Err(e) => e.to_string(),
+            Ok(_) => panic!("sizes {sizes:?} accepted"),
+        };
+        let data = henon(300);
+        let p = params(NgrcParams {
+            delays: 4,
+            stride: 10,
+            ..NgrcParams::default()
+        });
+        let e = refused(&p, &data, &[31, 200]);
+        assert!(e.contains("delays") && e.contains("31"), "{e}");
+        assert!(fit_nested(&p, data.view(), &[32, 200]).is_ok());
+        // 60 variables, 2 delays: L = 120, F = 1 + 120 + 7260.
+        let e = refused(
+            &params(NgrcParams::default()),
+            &Array2::zeros((100, 60)),
+            &[100],
+        );
+        assert!(e.contains("delays") && e.contains("7381 features"), "{e}");
+    }
+}
