@@ -3,6 +3,7 @@
 //! floor every report shows.
 
 pub mod esn;
+pub mod nn;
 pub mod ridge;
 
 use ndarray::ArrayView2;
