@@ -255,9 +255,9 @@ mod tests {
         err
     }
 
-    /// On the circle (period ≈ 63 steps) the MLP emulator stays within 0.05 of the truth over
-    /// 50 steps (persistence is off by up to 2 over the same horizon), each size gets its own
-    /// summary, and repeating a size reproduces it exactly.
+    /// On the circle (period ≈ 63 steps) the MLP emulator stays within 0.02 of the truth over
+    /// 50 steps (measured 0.0033; persistence is off by up to 1.9 over the same horizon), each
+    /// size gets its own summary, and repeating a size reproduces it exactly.
     #[test]
     fn mlp_emulator_forecasts_a_periodic_orbit() {
         let data = circle(1500);
@@ -284,7 +284,7 @@ mod tests {
         );
         let err = max_error(&fitted[1].0, &data, 1200, 50);
         assert!(
-            err < 0.05,
+            err < 0.02,
             "max error over 50 steps {err}, {:?}",
             fitted[1].1
         );
@@ -299,6 +299,7 @@ mod tests {
         assert_eq!(calls, 4);
     }
 
+    /// The LSTM emulator on the same circle: within 0.02 over 50 steps (measured 0.0017).
     #[test]
     fn lstm_emulator_forecasts_a_periodic_orbit() {
         let data = circle(1200);
@@ -315,10 +316,47 @@ mod tests {
         assert_eq!(fitted[0].1.training_pairs, 996);
         let err = max_error(&fitted[0].0, &data, 1100, 50);
         assert!(
-            err < 0.05,
+            err < 0.02,
             "max error over 50 steps {err}, {:?}",
             fitted[0].1
         );
+    }
+
+    /// A forecast from an absurd initial condition overflows; the non-finite states reach the
+    /// sink and nothing panics, for both emulators.
+    #[test]
+    fn diverging_forecasts_reach_the_sink_without_panicking() {
+        let data = circle(300);
+        let mp = MlpParams {
+            hidden: vec![4],
+            activation: super::super::Activation::Relu,
+            gradient_steps: 20,
+            ..MlpParams::default()
+        }
+        .check()
+        .unwrap();
+        let lp = LstmParams {
+            hidden: 4,
+            window: 2,
+            gradient_steps: 20,
+            ..LstmParams::default()
+        }
+        .check()
+        .unwrap();
+        let mlp = fit_mlp_emulator(&mp, data.view(), &[300], 1).unwrap();
+        let lstm = fit_lstm_emulator(&lp, data.view(), &[300], 1).unwrap();
+        let wild = ndarray::array![[f64::MAX, -f64::MAX], [f64::NAN, f64::INFINITY]];
+        for f in [&mlp[0].0 as &dyn Forecaster, &lstm[0].0] {
+            let mut seen = 0;
+            let mut finite = true;
+            f.forecast(wild.view(), 20, &mut |_, x| {
+                seen += 1;
+                finite &= x.iter().all(|v| v.is_finite());
+                true
+            });
+            assert_eq!(seen, 20);
+            assert!(!finite);
+        }
     }
 
     #[test]

@@ -8,21 +8,20 @@
 //! References: Hochreiter & Schmidhuber (1997); Gers, Schmidhuber & Cummins (2000) (forget gate,
 //! initialised open with bias 1 as in Jozefowicz, Zaremba & Sutskever 2015, ICML); Werbos (1990).
 
+use super::kernels::{self, gemm, sigmoid, simd_dispatch, transpose};
 use super::mlp::check_shapes;
-use super::train::{self, Network, Samples, TrainReport};
-use super::{axpy, dot, glorot, ModelError, Scaling, ValidLstmParams};
+use super::train::{self, Network, Samples, TrainReport, CHUNK_ROWS};
+use super::{glorot, ModelError, Scaling, ValidLstmParams};
 use ndarray::ArrayView2;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
-use serde::{Deserialize, Serialize};
 use std::cell::RefCell;
 
 /// A trained sequence-to-one LSTM with its input and output standardisation.
 ///
 /// Parameters are one flat vector: W_x (`inputs × 4·hidden`, row-major, gate blocks i, f, g, o
 /// along a row), W_h (`hidden × 4·hidden`), b (`4·hidden`), W_y (`hidden × outputs`), b_y.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(rename_all = "kebab-case")]
+#[derive(Debug, Clone, PartialEq)]
 pub struct Lstm {
     inputs: usize,
     hidden: usize,
@@ -32,27 +31,30 @@ pub struct Lstm {
     scaling: Scaling,
 }
 
-/// Working memory for [`Lstm::predict_with`]; make one per thread with [`Lstm::scratch`].
-#[derive(Debug, Clone)]
+/// Working memory for [`Lstm::predict_with`] and training; make one per thread with
+/// [`Lstm::scratch`]. Buffers grow to the largest number of rows seen, then stay. Per-step
+/// buffers hold one rows × width block per step.
+#[derive(Debug, Clone, Default)]
 pub struct LstmScratch {
+    /// Standardised inputs per step (window × rows × inputs).
     x: Vec<f64>,
-    /// Gate activations per step (window × 4·hidden).
+    /// Gate activations i, f, g, o per step (window × rows × 4·hidden).
     gates: Vec<f64>,
-    /// Cell states c₀ = 0, c₁, …, c_window ((window + 1) × hidden).
+    /// Cell states c₀ = 0, c₁, …, c_window ((window + 1) × rows × hidden).
     c: Vec<f64>,
     /// Hidden states h₀ = 0, h₁, …, h_window.
     h: Vec<f64>,
     /// tanh(c_t) for t = 1..=window.
     tc: Vec<f64>,
+    /// Outputs (rows × outputs).
     y: Vec<f64>,
+    dy: Vec<f64>,
     dz: Vec<f64>,
     dh: Vec<f64>,
     dc: Vec<f64>,
-}
-
-#[inline]
-fn sigmoid(x: f64) -> f64 {
-    1.0 / (1.0 + (-x).exp())
+    /// W_h transposed (4·hidden × hidden) and W_y transposed (outputs × hidden).
+    wh_t: Vec<f64>,
+    wy_t: Vec<f64>,
 }
 
 struct Offsets {
@@ -140,27 +142,48 @@ impl Lstm {
 
     /// Working memory for [`Lstm::predict_with`].
     pub fn scratch(&self) -> LstmScratch {
-        let (p, h, w) = (self.inputs, self.hidden, self.window);
-        LstmScratch {
-            x: vec![0.0; w * p],
-            gates: vec![0.0; w * 4 * h],
-            c: vec![0.0; (w + 1) * h],
-            h: vec![0.0; (w + 1) * h],
-            tc: vec![0.0; w * h],
-            y: vec![0.0; self.outputs],
-            dz: vec![0.0; 4 * h],
-            dh: vec![0.0; h],
-            dc: vec![0.0; h],
+        let mut s = LstmScratch::default();
+        self.reserve(&mut s, 1);
+        s
+    }
+
+    /// Grows `s` to hold `rows` rows of this network.
+    fn reserve(&self, s: &mut LstmScratch, rows: usize) {
+        let (p, h, q, w) = (self.inputs, self.hidden, self.outputs, self.window);
+        for (buf, len) in [
+            (&mut s.x, w * rows * p),
+            (&mut s.gates, w * rows * 4 * h),
+            (&mut s.c, (w + 1) * rows * h),
+            (&mut s.h, (w + 1) * rows * h),
+            (&mut s.tc, w * rows * h),
+            (&mut s.y, rows * q),
+            (&mut s.dy, rows * q),
+            (&mut s.dz, rows * 4 * h),
+            (&mut s.dh, rows * h),
+            (&mut s.dc, rows * h),
+            (&mut s.wh_t, 4 * h * h),
+            (&mut s.wy_t, q * h),
+        ] {
+            if buf.len() < len {
+                buf.resize(len, 0.0);
+            }
         }
     }
 
     /// Predicts `out` (length [`Lstm::outputs`]) from `window` ([`Lstm::window`] input vectors of
-    /// length [`Lstm::inputs`], oldest first, concatenated) in the original units, without
-    /// allocating.
+    /// length [`Lstm::inputs`], oldest first, concatenated) in the original units; allocates
+    /// nothing once `scratch` has been used with this network.
     pub fn predict_with(&self, scratch: &mut LstmScratch, window: &[f64], out: &mut [f64]) {
+        simd_dispatch!(Lstm, self.predict_impl(scratch: &mut LstmScratch, window: &[f64], out: &mut [f64]) -> ())
+    }
+
+    #[inline(always)]
+    fn predict_impl(&self, scratch: &mut LstmScratch, window: &[f64], out: &mut [f64]) {
+        self.reserve(scratch, 1);
         let s = &self.scaling;
         let p = self.inputs;
-        for (t, chunk) in scratch.x.chunks_exact_mut(p).enumerate() {
+        // With one row, step t's block of `x` is window[t·p..(t + 1)·p].
+        for (t, chunk) in scratch.x[..self.window * p].chunks_exact_mut(p).enumerate() {
             for (((z, v), m), sd) in chunk
                 .iter_mut()
                 .zip(&window[t * p..(t + 1) * p])
@@ -170,9 +193,7 @@ impl Lstm {
                 *z = (v - m) / sd;
             }
         }
-        let x = std::mem::take(&mut scratch.x);
-        self.forward(&x, scratch);
-        scratch.x = x;
+        self.forward(1, scratch);
         for (((o, v), m), sd) in out
             .iter_mut()
             .zip(&scratch.y)
@@ -184,68 +205,68 @@ impl Lstm {
     }
 
     /// Like [`Lstm::predict_with`], with a per-thread scratch buffer allocated on a thread's
-    /// first call (and again when a network of another shape needs it).
+    /// first call (and grown when a larger network needs it).
     pub fn predict(&self, window: &[f64], out: &mut [f64]) {
         thread_local! {
-            static SCRATCH: RefCell<Option<LstmScratch>> = const { RefCell::new(None) };
+            static SCRATCH: RefCell<LstmScratch> = RefCell::new(LstmScratch::default());
         }
-        SCRATCH.with(|cell| {
-            let mut slot = cell.borrow_mut();
-            let fits = slot.as_ref().is_some_and(|s| {
-                s.x.len() == self.window * self.inputs
-                    && s.gates.len() == self.window * 4 * self.hidden
-                    && s.y.len() == self.outputs
-            });
-            if !fits {
-                *slot = Some(self.scratch());
-            }
-            self.predict_with(slot.as_mut().expect("just set"), window, out);
-        });
+        SCRATCH.with(|cell| self.predict_with(&mut cell.borrow_mut(), window, out));
     }
 
-    /// Standardised forward pass over one window `x` (window × inputs); keeps every step's
-    /// gates and states in `s` and the output in `s.y`.
-    fn forward(&self, x: &[f64], s: &mut LstmScratch) {
-        let (p, h) = (self.inputs, self.hidden);
-        let g4 = 4 * h;
+    /// Standardised forward pass of `rows` windows held in `s.x`; keeps every step's gates and
+    /// states in `s` and the outputs in `s.y`.
+    #[inline(always)]
+    fn forward(&self, rows: usize, s: &mut LstmScratch) {
+        let (p, h, q) = (self.inputs, self.hidden, self.outputs);
+        let (g4, rh) = (4 * h, rows * h);
         let o = self.offsets();
         let (wx, wh) = (&self.params[..o.wh], &self.params[o.wh..o.b]);
         let b = &self.params[o.b..o.wy];
-        s.c[..h].fill(0.0);
-        s.h[..h].fill(0.0);
+        s.c[..rh].fill(0.0);
+        s.h[..rh].fill(0.0);
         for t in 0..self.window {
-            let z = &mut s.gates[t * g4..(t + 1) * g4];
-            z.copy_from_slice(b);
-            for (k, &xk) in x[t * p..(t + 1) * p].iter().enumerate() {
-                axpy(xk, &wx[k * g4..(k + 1) * g4], z);
+            let z = &mut s.gates[t * rows * g4..(t + 1) * rows * g4];
+            for row in z.chunks_exact_mut(g4) {
+                row.copy_from_slice(b);
             }
+            gemm::<false>(rows, g4, p, &s.x[t * rows * p..(t + 1) * rows * p], wx, z);
             if t > 0 {
-                for (j, &hj) in s.h[t * h..(t + 1) * h].iter().enumerate() {
-                    axpy(hj, &wh[j * g4..(j + 1) * g4], z);
+                gemm::<false>(rows, g4, h, &s.h[t * rh..(t + 1) * rh], wh, z);
+            }
+            for row in z.chunks_exact_mut(g4) {
+                let (zi, rest) = row.split_at_mut(h);
+                let (zf, rest) = rest.split_at_mut(h);
+                let (zg, zo) = rest.split_at_mut(h);
+                zi.iter_mut().for_each(|v| *v = sigmoid(*v));
+                zf.iter_mut().for_each(|v| *v = sigmoid(*v));
+                zg.iter_mut().for_each(|v| *v = kernels::tanh(*v));
+                zo.iter_mut().for_each(|v| *v = sigmoid(*v));
+            }
+            let (c_old, c_new) = s.c[t * rh..(t + 2) * rh].split_at_mut(rh);
+            let h_new = &mut s.h[(t + 1) * rh..(t + 2) * rh];
+            let tc = &mut s.tc[t * rh..(t + 1) * rh];
+            for (r, gates) in z.chunks_exact(g4).enumerate() {
+                let (i, f) = (&gates[..h], &gates[h..2 * h]);
+                let (g, og) = (&gates[2 * h..3 * h], &gates[3 * h..]);
+                let span = r * h..(r + 1) * h;
+                for (j, ((cn, co), (th, hn))) in c_new[span.clone()]
+                    .iter_mut()
+                    .zip(&c_old[span.clone()])
+                    .zip(tc[span.clone()].iter_mut().zip(&mut h_new[span.clone()]))
+                    .enumerate()
+                {
+                    *cn = f[j] * co + i[j] * g[j];
+                    *th = kernels::tanh(*cn);
+                    *hn = og[j] * *th;
                 }
             }
-            let (zi, rest) = z.split_at_mut(h);
-            let (zf, rest) = rest.split_at_mut(h);
-            let (zg, zo) = rest.split_at_mut(h);
-            zi.iter_mut().for_each(|v| *v = sigmoid(*v));
-            zf.iter_mut().for_each(|v| *v = sigmoid(*v));
-            zg.iter_mut().for_each(|v| *v = v.tanh());
-            zo.iter_mut().for_each(|v| *v = sigmoid(*v));
-            let (c_old, c_new) = s.c[t * h..(t + 2) * h].split_at_mut(h);
-            let h_new = &mut s.h[(t + 1) * h..(t + 2) * h];
-            let tc = &mut s.tc[t * h..(t + 1) * h];
-            for j in 0..h {
-                c_new[j] = zf[j] * c_old[j] + zi[j] * zg[j];
-                tc[j] = c_new[j].tanh();
-                h_new[j] = zo[j] * tc[j];
-            }
         }
-        let last = &s.h[self.window * h..];
-        s.y.copy_from_slice(&self.params[o.by..]);
-        let wy = &self.params[o.wy..o.by];
-        for (j, &hj) in last.iter().enumerate() {
-            axpy(hj, &wy[j * self.outputs..(j + 1) * self.outputs], &mut s.y);
+        let y = &mut s.y[..rows * q];
+        for row in y.chunks_exact_mut(q) {
+            row.copy_from_slice(&self.params[o.by..]);
         }
+        let last = &s.h[self.window * rh..(self.window + 1) * rh];
+        gemm::<false>(rows, q, h, last, &self.params[o.wy..o.by], y);
     }
 }
 
@@ -253,7 +274,9 @@ impl Network for Lstm {
     type Scratch = LstmScratch;
 
     fn scratch(&self) -> LstmScratch {
-        Lstm::scratch(self)
+        let mut s = LstmScratch::default();
+        self.reserve(&mut s, CHUNK_ROWS);
+        s
     }
 
     fn params(&self) -> &[f64] {
@@ -277,64 +300,95 @@ impl Network for Lstm {
         data: &Samples,
         samples: &[usize],
         s: &mut LstmScratch,
-        mut grad: Option<&mut [f64]>,
+        grad: Option<&mut [f64]>,
     ) -> f64 {
-        let (p, h, q) = (self.inputs, self.hidden, self.outputs);
-        let g4 = 4 * h;
-        let o = self.offsets();
+        simd_dispatch!(Lstm, self.squared_error_impl(data: &Samples, samples: &[usize], s: &mut LstmScratch, grad: Option<&mut [f64]>) -> f64)
+    }
+}
+
+impl Lstm {
+    /// Body of [`Network::squared_error`], inlined into each vector-width copy: the samples run
+    /// through the window together as one rows × width matrix per step.
+    #[inline(always)]
+    fn squared_error_impl(
+        &self,
+        data: &Samples,
+        samples: &[usize],
+        s: &mut LstmScratch,
+        grad: Option<&mut [f64]>,
+    ) -> f64 {
+        let c = samples.len();
+        if c == 0 {
+            return 0.0;
+        }
+        self.reserve(s, c);
+        let (p, h, q, w) = (self.inputs, self.hidden, self.outputs, self.window);
+        let (g4, ch) = (4 * h, c * h);
+        for t in 0..w {
+            let block = &mut s.x[t * c * p..(t + 1) * c * p];
+            for (row, &smp) in block.chunks_exact_mut(p).zip(samples) {
+                row.copy_from_slice(&data.input(smp)[t * p..(t + 1) * p]);
+            }
+        }
+        self.forward(c, s);
         let mut sse = 0.0;
-        let mut dy = vec![0.0; q];
-        for &smp in samples {
-            let x = data.input(smp);
-            self.forward(x, s);
-            for ((d, y_hat), y) in dy.iter_mut().zip(&s.y).zip(data.target(smp)) {
-                let r = y_hat - y;
-                sse += r * r;
-                *d = 2.0 * r;
+        for (r, &smp) in samples.iter().enumerate() {
+            for (k, y) in data.target(smp).iter().enumerate() {
+                let res = s.y[r * q + k] - y;
+                sse += res * res;
+                s.dy[r * q + k] = 2.0 * res;
             }
-            let Some(grad) = grad.as_deref_mut() else {
-                continue;
-            };
-            let (g_wx, rest) = grad.split_at_mut(o.wh);
-            let (g_wh, rest) = rest.split_at_mut(o.b - o.wh);
-            let (g_b, rest) = rest.split_at_mut(o.wy - o.b);
-            let (g_wy, g_by) = rest.split_at_mut(o.by - o.wy);
-            let wh = &self.params[o.wh..o.b];
-            let wy = &self.params[o.wy..o.by];
-            // Readout.
-            g_by.iter_mut().zip(&dy).for_each(|(g, d)| *g += d);
-            let last = &s.h[self.window * h..];
-            for (j, &hj) in last.iter().enumerate() {
-                axpy(hj, &dy, &mut g_wy[j * q..(j + 1) * q]);
-                s.dh[j] = dot(&wy[j * q..(j + 1) * q], &dy);
-            }
-            s.dc.fill(0.0);
-            // Backpropagation through time over the window, last step first.
-            for t in (0..self.window).rev() {
-                let gates = &s.gates[t * g4..(t + 1) * g4];
-                let c_old = &s.c[t * h..(t + 1) * h];
-                let tc = &s.tc[t * h..(t + 1) * h];
+        }
+        let Some(grad) = grad else {
+            return sse;
+        };
+        let o = self.offsets();
+        let (g_wx, rest) = grad.split_at_mut(o.wh);
+        let (g_wh, rest) = rest.split_at_mut(o.b - o.wh);
+        let (g_b, rest) = rest.split_at_mut(o.wy - o.b);
+        let (g_wy, g_by) = rest.split_at_mut(o.by - o.wy);
+        let dy = &s.dy[..c * q];
+        // Readout.
+        for row in dy.chunks_exact(q) {
+            g_by.iter_mut().zip(row).for_each(|(g, d)| *g += d);
+        }
+        let last = &s.h[w * ch..(w + 1) * ch];
+        gemm::<true>(h, q, c, last, dy, g_wy);
+        transpose(h, q, &self.params[o.wy..o.by], &mut s.wy_t);
+        let dh = &mut s.dh[..ch];
+        dh.fill(0.0);
+        gemm::<false>(c, h, q, dy, &s.wy_t, dh);
+        s.dc[..ch].fill(0.0);
+        transpose(h, g4, &self.params[o.wh..o.b], &mut s.wh_t);
+        // Backpropagation through time over the window, last step first.
+        for t in (0..w).rev() {
+            let gates = &s.gates[t * c * g4..(t + 1) * c * g4];
+            let c_old = &s.c[t * ch..(t + 1) * ch];
+            let tc = &s.tc[t * ch..(t + 1) * ch];
+            let dz = &mut s.dz[..c * g4];
+            for r in 0..c {
+                let gr = &gates[r * g4..(r + 1) * g4];
+                let dzr = &mut dz[r * g4..(r + 1) * g4];
                 for j in 0..h {
-                    let (i, f, g, og) =
-                        (gates[j], gates[h + j], gates[2 * h + j], gates[3 * h + j]);
-                    let dc = s.dc[j] + s.dh[j] * og * (1.0 - tc[j] * tc[j]);
-                    s.dz[j] = dc * g * i * (1.0 - i);
-                    s.dz[h + j] = dc * c_old[j] * f * (1.0 - f);
-                    s.dz[2 * h + j] = dc * i * (1.0 - g * g);
-                    s.dz[3 * h + j] = s.dh[j] * tc[j] * og * (1.0 - og);
-                    s.dc[j] = dc * f;
+                    let k = r * h + j;
+                    let (i, f, g, og) = (gr[j], gr[h + j], gr[2 * h + j], gr[3 * h + j]);
+                    let dc = s.dc[k] + s.dh[k] * og * (1.0 - tc[k] * tc[k]);
+                    dzr[j] = dc * g * i * (1.0 - i);
+                    dzr[h + j] = dc * c_old[k] * f * (1.0 - f);
+                    dzr[2 * h + j] = dc * i * (1.0 - g * g);
+                    dzr[3 * h + j] = s.dh[k] * tc[k] * og * (1.0 - og);
+                    s.dc[k] = dc * f;
                 }
-                g_b.iter_mut().zip(&s.dz).for_each(|(gb, d)| *gb += d);
-                for (k, &xk) in x[t * p..(t + 1) * p].iter().enumerate() {
-                    axpy(xk, &s.dz, &mut g_wx[k * g4..(k + 1) * g4]);
-                }
-                if t > 0 {
-                    let h_old = &s.h[t * h..(t + 1) * h];
-                    for (j, &hj) in h_old.iter().enumerate() {
-                        axpy(hj, &s.dz, &mut g_wh[j * g4..(j + 1) * g4]);
-                        s.dh[j] = dot(&wh[j * g4..(j + 1) * g4], &s.dz);
-                    }
-                }
+            }
+            for row in dz.chunks_exact(g4) {
+                g_b.iter_mut().zip(row).for_each(|(gb, d)| *gb += d);
+            }
+            gemm::<true>(p, g4, c, &s.x[t * c * p..(t + 1) * c * p], dz, g_wx);
+            if t > 0 {
+                gemm::<true>(h, g4, c, &s.h[t * ch..(t + 1) * ch], dz, g_wh);
+                let dh = &mut s.dh[..ch];
+                dh.fill(0.0);
+                gemm::<false>(c, h, g4, dz, &s.wh_t, dh);
             }
         }
         sse
@@ -352,8 +406,11 @@ impl Network for Lstm {
 /// With `init` (warm start) its weights and standardisation are reused; its inputs, outputs,
 /// `hidden` and `window` must match.
 ///
-/// Measured (release, one core, this machine's 2-core AVX-512 CPU): hidden 32, window 8,
-/// 8 inputs, 64,000 rows, default training settings (5 epochs, 4,500 steps): about 10 s.
+/// Cost: hidden 32, window 8, 8 inputs and targets, 64,000 rows, default training settings
+/// (budget 5 epochs, 4,500 steps) trained in 7–9 s on one thread of a 2-core AVX-512 machine that
+/// was running other work (release build; the ignored `nn_lstm_training_budget` test). A step
+/// costs about window × (inputs + hidden) × 4·hidden × 6 flops per sample, so lower `hidden`,
+/// `window` or `gradient-steps` for quick studies.
 pub fn train_lstm(
     params: &ValidLstmParams,
     inputs: ArrayView2<f64>,
@@ -499,9 +556,37 @@ mod tests {
             assert!(norm > 1e-6, "{name}: zero gradient");
             assert!(diff / norm < 1e-6, "{name}: relative error {}", diff / norm);
         }
-        // The recurrence matters: the gradient reaches the first step's input weights through
-        // every later step, so W_h gets a gradient only because the window has several steps.
+        // W_h acts only through the recurrence (h₀ = 0): its block matching above checks
+        // backpropagation through time, provided its gradient is not negligible.
         assert!(grad[o.wh..o.b].iter().any(|g| g.abs() > 1e-3));
+    }
+
+    /// The vector-width copy chosen at run time gives the same bits as the baseline build.
+    #[test]
+    fn dispatched_kernels_equal_the_baseline_build() {
+        let (p, h, q, w) = (3, 19, 2, 4);
+        let scaling = Scaling {
+            input_mean: vec![0.0; p],
+            input_scale: vec![1.0; p],
+            output_mean: vec![0.0; q],
+            output_scale: vec![1.0; q],
+        };
+        let m = Lstm::glorot(p, h, q, w, scaling, &mut ChaCha8Rng::seed_from_u64(1));
+        let data = Samples {
+            x: uniform(24, p, 2).iter().copied().collect(),
+            y: uniform(21, q, 3).iter().copied().collect(),
+            inputs: p,
+            outputs: q,
+            span: w,
+        };
+        let rows: Vec<usize> = (0..21).collect();
+        let (mut s1, mut s2) = (m.scratch(), m.scratch());
+        let mut g1 = vec![0.0; m.params.len()];
+        let mut g2 = g1.clone();
+        let e1 = m.squared_error(&data, &rows, &mut s1, Some(&mut g1));
+        let e2 = m.squared_error_impl(&data, &rows, &mut s2, Some(&mut g2));
+        assert_eq!(e1.to_bits(), e2.to_bits());
+        assert!(g1.iter().zip(&g2).all(|(a, b)| a.to_bits() == b.to_bits()));
     }
 
     fn delay_task(n: usize, lag: usize, seed: u64) -> (Array2<f64>, Array2<f64>) {
@@ -602,5 +687,34 @@ mod tests {
             .unwrap_err()
             .to_string();
         assert!(e.contains("`window`"), "{e}");
+    }
+
+    /// Training time on 64,000 rows of 8 inputs, default settings (hidden 32, window 8); run
+    /// with `cargo test --release --lib nn_lstm_training_budget -- --ignored --nocapture`.
+    #[test]
+    #[ignore]
+    fn nn_lstm_training_budget() {
+        let x = uniform(64_000, 8, 50);
+        let y = Array2::from_shape_fn((64_000, 8), |(t, j)| {
+            if t > 0 {
+                (x[[t, j]] * 2.0).sin() * x[[t - 1, (j + 1) % 8]]
+            } else {
+                0.0
+            }
+        });
+        let p = LstmParams::default().check().unwrap();
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(1)
+            .build()
+            .unwrap();
+        let t = std::time::Instant::now();
+        let (_, r) = pool.install(|| train_lstm(&p, x.view(), y.view(), 1, None).unwrap());
+        println!(
+            "1 thread: {:.2} s, {} epochs, {} steps, validation MSE {:.4}",
+            t.elapsed().as_secs_f64(),
+            r.epochs,
+            r.gradient_steps,
+            r.validation_mse
+        );
     }
 }

@@ -11,6 +11,7 @@
 //! Proc. IEEE 78(10) (backpropagation through time).
 
 mod emulator;
+mod kernels;
 mod lstm;
 mod mlp;
 mod optim;
@@ -45,7 +46,7 @@ impl Activation {
     }
 }
 
-/// Fewest samples in the validation window and fewest samples left to fit.
+/// Fewest samples in the validation window.
 pub const MIN_VALIDATION_SAMPLES: usize = 4;
 /// Fewest samples left to fit after the validation window.
 pub const MIN_FIT_SAMPLES: usize = 4;
@@ -419,32 +420,6 @@ fn standardise(a: ndarray::ArrayView2<f64>, mean: &[f64], scale: &[f64]) -> Vec<
     out
 }
 
-/// Σ aᵢbᵢ with four interleaved partial sums (a fixed order, so results are reproducible).
-#[inline]
-pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
-    let mut acc = [0.0; 4];
-    let (ca, cb) = (a.chunks_exact(4), b.chunks_exact(4));
-    let (ra, rb) = (ca.remainder(), cb.remainder());
-    for (x, y) in ca.zip(cb) {
-        for ((s, u), v) in acc.iter_mut().zip(x).zip(y) {
-            *s += u * v;
-        }
-    }
-    let mut s = (acc[0] + acc[1]) + (acc[2] + acc[3]);
-    for (u, v) in ra.iter().zip(rb) {
-        s += u * v;
-    }
-    s
-}
-
-/// y += a·x.
-#[inline]
-pub(crate) fn axpy(a: f64, x: &[f64], y: &mut [f64]) {
-    for (yi, xi) in y.iter_mut().zip(x) {
-        *yi += a * xi;
-    }
-}
-
 /// Glorot/Xavier uniform draws U(−l, l), l = √(6 / (fan_in + fan_out)) (Glorot & Bengio 2010).
 pub(crate) fn glorot(
     rng: &mut rand_chacha::ChaCha8Rng,
@@ -460,7 +435,7 @@ pub(crate) fn glorot(
 
 /// A seed for one subset size, derived from the study seed and the size by two rounds of the
 /// SplitMix64 finaliser (Steele, Lea & Flood 2014), so every size trains from its own stream.
-pub(crate) fn derive_seed(seed: u64, n: usize) -> u64 {
+pub fn derive_seed(seed: u64, n: usize) -> u64 {
     fn mix(mut z: u64) -> u64 {
         z = z.wrapping_add(0x9E37_79B9_7F4A_7C15);
         z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
@@ -609,14 +584,6 @@ mod tests {
         // Huge sets get min-epochs, tiny ones max-epochs.
         assert_eq!(t.epoch_budget(10_000_000), 2);
         assert_eq!(t.epoch_budget(10), 1000);
-    }
-
-    #[test]
-    fn dot_matches_a_plain_sum() {
-        let a: Vec<f64> = (0..11).map(|i| i as f64 * 0.5 - 2.0).collect();
-        let b: Vec<f64> = (0..11).map(|i| 1.0 / (1.0 + i as f64)).collect();
-        let plain: f64 = a.iter().zip(&b).map(|(x, y)| x * y).sum();
-        assert!((dot(&a, &b) - plain).abs() < 1e-14);
     }
 
     #[test]

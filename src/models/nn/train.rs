@@ -93,7 +93,7 @@ pub(crate) fn mean_squared_error<N: Network>(net: &N, data: &Samples, samples: &
         return f64::NAN;
     }
     let parts: Vec<f64> = samples
-        .par_chunks(4 * CHUNK_ROWS)
+        .par_chunks(CHUNK_ROWS)
         .map_init(
             || net.scratch(),
             |scratch, chunk| {
