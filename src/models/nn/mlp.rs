@@ -320,14 +320,18 @@ impl Mlp {
 /// - the epoch budget is `clamp(ceil(gradient-steps · batch-size / fitted rows), min-epochs,
 ///   max-epochs)`; training stops early after `patience` epochs without a strictly lower
 ///   validation error, or when the training error turns non-finite, and the weights of the best
-///   epoch (possibly the initial ones, epoch 0) are returned;
+///   epoch (possibly the initial ones, epoch 0) are returned. With the defaults (S = 4000,
+///   batch 64, 2 to 1000 epochs) 900 fitted rows get 285 epochs and 57,600 get 5 (4,500 steps):
+///   small subsets are trained to convergence, large ones at a bounded cost;
+/// - `weight-decay` λ is decoupled (AdamW): each step also subtracts learning-rate · λ · w from
+///   every weight (not from biases);
 /// - each minibatch is cut into chunks of [`super::CHUNK_ROWS`] rows whose gradients are computed
 ///   in parallel and summed in chunk order: the result is bit-identical at any thread count.
 ///
 /// Without `init` the weights are Glorot-uniform from `seed` (biases zero) and the network has
 /// the `hidden` layers and `activation` of `params`. With `init` (a warm start, e.g. to
-/// fine-tune), training starts from its weights and reuses its standardisation; its shape must
-/// match the data and `params`. The `window` setting is not used here: rows are already the
+/// fine-tune), training starts from its weights and reuses its standardisation, with fresh Adam
+/// moments; its shape must match the data and `params`. The `window` setting is not used here: rows are already the
 /// network's inputs.
 ///
 /// Cost: 64,000 rows of 8 inputs and 8 targets, hidden [64, 64], default settings (budget 5
