@@ -1,8 +1,9 @@
 //! Benchmarks of the hot paths, each against a baseline measured in the same run:
 //! Gram accumulation (faer lower-triangular product vs a plain scalar loop), the whole nested
 //! learning curve vs one fit at the largest size (echo state network with a fixed penalty and
-//! with GCV, next-generation reservoir computing), free-running forecasts, and the two-scale
-//! integrator. Run with `cargo bench --bench hot_paths` (add `-- quick` for a short run).
+//! with GCV, next-generation reservoir computing), free-running forecasts (one by one vs
+//! batched), the two-scale integrator, and feed-forward network training (one thread vs two).
+//! Run with `cargo bench --bench hot_paths` (add `-- quick` for a short run).
 
 use closure_budget::models::esn::{fit_nested, EsnParams};
 use closure_budget::models::ngrc::{self, NgrcParams};
@@ -245,10 +246,46 @@ fn integrator(quick: bool) {
     );
 }
 
+fn network_training(quick: bool) {
+    use closure_budget::models::nn::{train_mlp, MlpParams};
+    let rows = if quick { 16_000 } else { 64_000 };
+    let x = ndarray::Array2::from_shape_vec((rows, 8), pseudo_random(rows * 8, 4)).unwrap();
+    let y = ndarray::Array2::from_shape_fn((rows, 8), |(r, j)| {
+        (2.0 * x[[r, j]]).sin() * x[[r, (j + 1) % 8]]
+    });
+    let p = MlpParams::default().check().unwrap();
+    let mut report = None;
+    let mut weights = Vec::new();
+    let mut time = |threads: usize| {
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap();
+        best_of(2, || {
+            let (m, r) = pool.install(|| train_mlp(&p, x.view(), y.view(), 1, None).unwrap());
+            weights.push(m.parameters().to_vec());
+            report = Some(r);
+        })
+    };
+    let (one, two) = (time(1), time(2));
+    let r = report.unwrap();
+    println!(
+        "network training   MLP 8-64-64-8, {rows} rows, defaults ({} epochs, {} steps): 1 thread {:.2} s, \
+         2 threads {:.2} s; speed-up {:.2}x; identical weights: {}",
+        r.epochs,
+        r.gradient_steps,
+        one,
+        two,
+        one / two,
+        weights.windows(2).all(|w| w[0] == w[1])
+    );
+}
+
 fn main() {
     let quick = std::env::args().any(|a| a == "quick");
     gram(quick);
     nested_curve(quick);
     forecasts(quick);
     integrator(quick);
+    network_training(quick);
 }

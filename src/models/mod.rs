@@ -1,11 +1,13 @@
-//! Candidate models behind one [`Forecaster`] trait: the echo state network (trained on every
-//! nested prefix in one pass through streaming ridge normal equations) and persistence, the
-//! floor every report shows.
+//! Candidate models behind one [`Forecaster`] trait: the echo state network and next-generation
+//! reservoir computing (trained on every nested prefix in one pass through streaming ridge
+//! normal equations), polynomial regression, feed-forward and LSTM networks, closures coupled
+//! to the coarse solver, and the floors every report shows (persistence, climatology).
 
 pub mod climatology;
 pub mod closure;
 pub mod esn;
 pub mod ngrc;
+pub mod nn;
 pub mod polynomial;
 pub mod ridge;
 

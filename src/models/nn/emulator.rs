@@ -1,0 +1,400 @@
+//! Network emulators: predict the increment x(t+1) − x(t) from the last `window` states and
+//! iterate autonomously. Each subset size is an independent training on the first n samples.
+
+use super::lstm::{train_lstm, Lstm};
+use super::mlp::{train_mlp, Mlp};
+use super::{
+    derive_seed, ValidLstmParams, ValidMlpParams, MIN_FIT_SAMPLES, MIN_VALIDATION_SAMPLES,
+};
+use crate::models::{FitSummary, Forecaster, ModelError};
+use ndarray::{s, Array2, ArrayView2};
+use rayon::prelude::*;
+
+/// A feed-forward emulator: x(t+1) = x(t) + f(x(t − window + 1), …, x(t)).
+#[derive(Debug, Clone)]
+pub struct MlpEmulator {
+    net: Mlp,
+    window: usize,
+}
+
+impl MlpEmulator {
+    /// The network (inputs: `window` states, oldest first, concatenated; outputs: the increment).
+    pub fn network(&self) -> &Mlp {
+        &self.net
+    }
+
+    /// Past states per prediction.
+    pub fn window(&self) -> usize {
+        self.window
+    }
+}
+
+/// An LSTM emulator: x(t+1) = x(t) + LSTM(x(t − window + 1), …, x(t)).
+#[derive(Debug, Clone)]
+pub struct LstmEmulator {
+    net: Lstm,
+}
+
+impl LstmEmulator {
+    /// The network (window and inputs as in [`Lstm::predict`]; outputs: the increment).
+    pub fn network(&self) -> &Lstm {
+        &self.net
+    }
+}
+
+/// Checks the sizes and returns the smallest subset that leaves enough pairs.
+fn check_sizes(train: ArrayView2<f64>, sizes: &[usize], window: usize) -> Result<(), ModelError> {
+    if sizes.is_empty() {
+        return Err(ModelError::NoSizes);
+    }
+    let least = window + MIN_FIT_SAMPLES + MIN_VALIDATION_SAMPLES;
+    for &n in sizes {
+        if n > train.nrows() {
+            return Err(ModelError::SubsetTooLarge {
+                size: n,
+                available: train.nrows(),
+            });
+        }
+        if n < least {
+            return Err(super::out_of_range(
+                "subset size",
+                n.to_string(),
+                &format!(
+                    "at least {least} samples for window = {window} (window + {} training pairs)",
+                    MIN_FIT_SAMPLES + MIN_VALIDATION_SAMPLES
+                ),
+            ));
+        }
+    }
+    Ok(())
+}
+
+/// Increments x(t+1) − x(t) for t = 0 .. n − 2.
+fn increments(x: ArrayView2<f64>) -> Array2<f64> {
+    &x.slice(s![1.., ..]) - &x.slice(s![..-1, ..])
+}
+
+/// Trains one feed-forward emulator per subset size n on the first n samples of `train`.
+///
+/// A prefix of n samples gives n − window pairs: inputs x(t − window + 1), …, x(t) (oldest
+/// first, concatenated), target x(t+1) − x(t), for t = window − 1, …, n − 2; the last pairs form
+/// the validation window (see [`train_mlp`]). Sizes train independently (in parallel) from the
+/// seed [`derive_seed`]`(seed, n)`, so a size's network does not depend on the other sizes.
+/// `training_rmse` in the summary is the root-mean-square increment error on the fitted pairs in
+/// standardised units (each increment component divided by its standard deviation).
+pub fn fit_mlp_emulator(
+    params: &ValidMlpParams,
+    train: ArrayView2<f64>,
+    sizes: &[usize],
+    seed: u64,
+) -> Result<Vec<(MlpEmulator, FitSummary)>, ModelError> {
+    let w = params.get().window;
+    let d = train.ncols();
+    check_sizes(train, sizes, w)?;
+    sizes
+        .par_iter()
+        .map(|&n| {
+            let x = train.slice(s![..n, ..]);
+            let pairs = n - w;
+            let inputs = Array2::from_shape_fn((pairs, w * d), |(r, c)| x[[r + c / d, c % d]]);
+            let targets = increments(x.slice(s![w - 1.., ..]));
+            let (net, report) = train_mlp(
+                params,
+                inputs.view(),
+                targets.view(),
+                derive_seed(seed, n),
+                None,
+            )?;
+            Ok((
+                MlpEmulator { net, window: w },
+                FitSummary {
+                    n,
+                    training_pairs: pairs,
+                    ridge_penalty: None,
+                    training_rmse: Some(report.training_mse.sqrt()),
+                    ridge_selection: None,
+                },
+            ))
+        })
+        .collect()
+}
+
+/// Trains one LSTM emulator per subset size n on the first n samples of `train`.
+///
+/// Layout as in [`train_lstm`] with inputs x(0), …, x(n − 2) and targets x(t+1) − x(t): a prefix
+/// of n samples gives n − window pairs. Seeds and the summary as in [`fit_mlp_emulator`].
+pub fn fit_lstm_emulator(
+    params: &ValidLstmParams,
+    train: ArrayView2<f64>,
+    sizes: &[usize],
+    seed: u64,
+) -> Result<Vec<(LstmEmulator, FitSummary)>, ModelError> {
+    let w = params.get().window;
+    check_sizes(train, sizes, w)?;
+    sizes
+        .par_iter()
+        .map(|&n| {
+            let x = train.slice(s![..n, ..]);
+            let targets = increments(x);
+            let (net, report) = train_lstm(
+                params,
+                x.slice(s![..n - 1, ..]),
+                targets.view(),
+                derive_seed(seed, n),
+                None,
+            )?;
+            Ok((
+                LstmEmulator { net },
+                FitSummary {
+                    n,
+                    training_pairs: n - w,
+                    ridge_penalty: None,
+                    training_rmse: Some(report.training_mse.sqrt()),
+                    ridge_selection: None,
+                },
+            ))
+        })
+        .collect()
+}
+
+/// The last `window` rows of `history` (oldest first) as one row-major buffer; a shorter history
+/// is padded at the front with its first row.
+fn last_window(history: ArrayView2<f64>, window: usize) -> Vec<f64> {
+    let h = history.nrows();
+    let mut buf = Vec::with_capacity(window * history.ncols());
+    for k in 0..window {
+        let t = (h + k).saturating_sub(window);
+        buf.extend(history.row(t).iter());
+    }
+    buf
+}
+
+/// Shared autonomous loop: `step(window, increment)` predicts, the new state joins the window.
+fn iterate(
+    history: ArrayView2<f64>,
+    window: usize,
+    steps: usize,
+    sink: &mut dyn FnMut(usize, &[f64]) -> bool,
+    mut step: impl FnMut(&[f64], &mut [f64]),
+) {
+    if history.nrows() == 0 {
+        return;
+    }
+    crate::models::ridge::clear_upper_simd_state();
+    let d = history.ncols();
+    let mut buf = last_window(history, window);
+    let mut inc = vec![0.0; d];
+    let mut x = vec![0.0; d];
+    for k in 1..=steps {
+        step(&buf, &mut inc);
+        for ((xi, last), di) in x.iter_mut().zip(&buf[(window - 1) * d..]).zip(&inc) {
+            *xi = last + di;
+        }
+        if !sink(k, &x) {
+            return;
+        }
+        buf.copy_within(d.., 0);
+        buf[(window - 1) * d..].copy_from_slice(&x);
+    }
+}
+
+impl Forecaster for MlpEmulator {
+    /// Uses the last `window` rows of `history` (padded with its first row when shorter).
+    fn forecast(
+        &self,
+        history: ArrayView2<f64>,
+        steps: usize,
+        sink: &mut dyn FnMut(usize, &[f64]) -> bool,
+    ) {
+        let mut scratch = self.net.scratch();
+        iterate(history, self.window, steps, sink, |w, inc| {
+            self.net.predict_with(&mut scratch, w, inc)
+        });
+    }
+}
+
+impl Forecaster for LstmEmulator {
+    /// Uses the last `window` rows of `history` (padded with its first row when shorter); each
+    /// step reruns the LSTM over the window from a zero state, as in training.
+    fn forecast(
+        &self,
+        history: ArrayView2<f64>,
+        steps: usize,
+        sink: &mut dyn FnMut(usize, &[f64]) -> bool,
+    ) {
+        let mut scratch = self.net.scratch();
+        iterate(history, self.net.window(), steps, sink, |w, inc| {
+            self.net.predict_with(&mut scratch, w, inc)
+        });
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::{LstmParams, MlpParams};
+    use super::*;
+
+    /// A circle x = (sin 0.1t, cos 0.1t): the state determines its own future.
+    fn circle(n: usize) -> Array2<f64> {
+        Array2::from_shape_fn((n, 2), |(t, j)| {
+            let a = 0.1 * t as f64;
+            if j == 0 {
+                a.sin()
+            } else {
+                a.cos()
+            }
+        })
+    }
+
+    fn max_error(f: &dyn Forecaster, data: &Array2<f64>, ic: usize, steps: usize) -> f64 {
+        let mut err: f64 = 0.0;
+        f.forecast(data.slice(s![ic - 20..=ic, ..]), steps, &mut |k, x| {
+            for j in 0..2 {
+                err = err.max((x[j] - data[[ic + k, j]]).abs());
+            }
+            true
+        });
+        err
+    }
+
+    /// On the circle (period ≈ 63 steps) the MLP emulator stays within 0.02 of the truth over
+    /// 50 steps (measured 0.0033; persistence is off by up to 1.9 over the same horizon), each
+    /// size gets its own summary, and repeating a size reproduces it exactly.
+    #[test]
+    fn mlp_emulator_forecasts_a_periodic_orbit() {
+        let data = circle(1500);
+        let p = MlpParams {
+            hidden: vec![16],
+            window: 2,
+            learning_rate: 5e-3,
+            gradient_steps: 1500,
+            ..MlpParams::default()
+        }
+        .check()
+        .unwrap();
+        let fitted = fit_mlp_emulator(&p, data.view(), &[400, 1000, 1000], 7).unwrap();
+        assert_eq!(fitted.len(), 3);
+        assert_eq!(fitted[0].1.n, 400);
+        assert_eq!(fitted[1].1.training_pairs, 998);
+        assert_eq!(
+            fitted[1].0.network().parameters(),
+            fitted[2].0.network().parameters()
+        );
+        assert_ne!(
+            fitted[0].0.network().parameters(),
+            fitted[1].0.network().parameters()
+        );
+        let err = max_error(&fitted[1].0, &data, 1200, 50);
+        assert!(
+            err < 0.02,
+            "max error over 50 steps {err}, {:?}",
+            fitted[1].1
+        );
+        // Stops on request and survives a one-row history (padded).
+        let mut calls = 0;
+        fitted[1]
+            .0
+            .forecast(data.slice(s![5..6, ..]), 10, &mut |k, _| {
+                calls += 1;
+                k < 4
+            });
+        assert_eq!(calls, 4);
+    }
+
+    /// The LSTM emulator on the same circle: within 0.02 over 50 steps (measured 0.0017).
+    #[test]
+    fn lstm_emulator_forecasts_a_periodic_orbit() {
+        let data = circle(1200);
+        let p = LstmParams {
+            hidden: 8,
+            window: 4,
+            learning_rate: 5e-3,
+            gradient_steps: 1500,
+            ..LstmParams::default()
+        }
+        .check()
+        .unwrap();
+        let fitted = fit_lstm_emulator(&p, data.view(), &[1000], 3).unwrap();
+        assert_eq!(fitted[0].1.training_pairs, 996);
+        let err = max_error(&fitted[0].0, &data, 1100, 50);
+        assert!(
+            err < 0.02,
+            "max error over 50 steps {err}, {:?}",
+            fitted[0].1
+        );
+    }
+
+    /// A forecast from an absurd initial condition overflows; the non-finite states reach the
+    /// sink and nothing panics, for both emulators.
+    #[test]
+    fn diverging_forecasts_reach_the_sink_without_panicking() {
+        let data = circle(300);
+        let mp = MlpParams {
+            hidden: vec![4],
+            activation: super::super::Activation::Relu,
+            gradient_steps: 20,
+            ..MlpParams::default()
+        }
+        .check()
+        .unwrap();
+        let lp = LstmParams {
+            hidden: 4,
+            window: 2,
+            gradient_steps: 20,
+            ..LstmParams::default()
+        }
+        .check()
+        .unwrap();
+        let mlp = fit_mlp_emulator(&mp, data.view(), &[300], 1).unwrap();
+        let lstm = fit_lstm_emulator(&lp, data.view(), &[300], 1).unwrap();
+        let wild = ndarray::array![[f64::MAX, -f64::MAX], [f64::NAN, f64::INFINITY]];
+        for f in [&mlp[0].0 as &dyn Forecaster, &lstm[0].0] {
+            let mut seen = 0;
+            let mut finite = true;
+            f.forecast(wild.view(), 20, &mut |_, x| {
+                seen += 1;
+                finite &= x.iter().all(|v| v.is_finite());
+                true
+            });
+            assert_eq!(seen, 20);
+            assert!(!finite);
+        }
+    }
+
+    #[test]
+    fn sizes_are_checked() {
+        let data = circle(100);
+        let p = MlpParams {
+            window: 5,
+            ..MlpParams::default()
+        }
+        .check()
+        .unwrap();
+        assert!(matches!(
+            fit_mlp_emulator(&p, data.view(), &[], 1),
+            Err(ModelError::NoSizes)
+        ));
+        assert!(matches!(
+            fit_mlp_emulator(&p, data.view(), &[200], 1),
+            Err(ModelError::SubsetTooLarge { size: 200, .. })
+        ));
+        let e = fit_mlp_emulator(&p, data.view(), &[12], 1)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("subset size") && e.contains("at least 13"),
+            "{e}"
+        );
+    }
+
+    /// The window buffer holds the last rows, oldest first, padded with the first row.
+    #[test]
+    fn window_is_taken_from_the_end_of_the_history() {
+        let h = ndarray::array![[1.0, 2.0], [3.0, 4.0], [5.0, 6.0]];
+        assert_eq!(last_window(h.view(), 2), vec![3.0, 4.0, 5.0, 6.0]);
+        assert_eq!(
+            last_window(h.view(), 4),
+            vec![1.0, 2.0, 1.0, 2.0, 3.0, 4.0, 5.0, 6.0]
+        );
+    }
+}
