@@ -737,3 +737,130 @@ mod tests {
         assert!(e.contains("delays") && e.contains("7381 features"), "{e}");
     }
 }
+
+/// The NG-RC feature map without delays (constant, linear, unique quadratic monomials of the
+/// standardised inputs) with a ridge readout, as a memoryless regression: the form NG-RC takes
+/// as a closure, where the coarse solver needs the coupling term from the current state at
+/// every RK stage.
+#[derive(Debug, Clone)]
+pub struct NgrcRegression {
+    mean: Vec<f64>,
+    scale: Vec<f64>,
+    outputs: usize,
+    /// outputs × features, row-major.
+    readout: Vec<f64>,
+}
+
+/// Fits [`NgrcRegression`] on rows of `inputs` → `targets` with the streaming normal equations
+/// and the params' penalty (`delays` must be 1: a closure has no past to delay).
+pub fn fit_regression(
+    params: &ValidNgrcParams,
+    inputs: ArrayView2<f64>,
+    targets: ArrayView2<f64>,
+) -> Result<(NgrcRegression, FitSummary), ModelError> {
+    let p = params.get();
+    if p.delays != 1 {
+        return Err(out_of_range(
+            "delays",
+            p.delays.to_string(),
+            "1 for a closure (it sees only the current coarse state)",
+        ));
+    }
+    let (rows, l) = inputs.dim();
+    let outputs = targets.ncols();
+    let (mean, mut scale) = if p.standardise {
+        column_stats(inputs)
+    } else {
+        (vec![0.0; l], vec![1.0; l])
+    };
+    scale.iter_mut().for_each(|s| {
+        if s.is_nan() || *s <= 0.0 {
+            *s = 1.0;
+        }
+    });
+    let f = feature_count(l);
+    let mut ne = NormalEquations::zeros(f, outputs);
+    let mut phi = vec![0.0; BLOCK_ROWS * f];
+    let mut y = vec![0.0; BLOCK_ROWS * outputs];
+    let mut lin = vec![0.0; l];
+    let mut row_phi = vec![0.0; f];
+    let mut start = 0;
+    while start < rows {
+        let block = BLOCK_ROWS.min(rows - start);
+        for i in 0..block {
+            for (j, v) in lin.iter_mut().enumerate() {
+                *v = (inputs[[start + i, j]] - mean[j]) / scale[j];
+            }
+            write_features(&lin, &mut row_phi);
+            for (j, v) in row_phi.iter().enumerate() {
+                phi[j * BLOCK_ROWS + i] = *v;
+            }
+            for o in 0..outputs {
+                y[i * outputs + o] = targets[[start + i, o]];
+            }
+        }
+        ne.add(
+            faer::MatRef::from_column_major_slice_with_stride(&phi, block, f, BLOCK_ROWS),
+            faer::MatRef::from_row_major_slice(&y[..block * outputs], block, outputs),
+        );
+        start += block;
+    }
+    let readout = fit_readout(
+        &ne,
+        &Penalty {
+            ridge: p.ridge,
+            scaling: p.ridge_scaling,
+            selection: p.ridge_selection,
+        },
+    )
+    .map_err(|source| ModelError::Ridge { size: rows, source })?;
+    Ok((
+        NgrcRegression {
+            mean,
+            scale,
+            outputs,
+            readout: readout.weights,
+        },
+        FitSummary {
+            n: rows,
+            training_pairs: rows,
+            ridge_penalty: Some(readout.lambda),
+            training_rmse: Some(readout.rmse),
+            ridge_selection: Some(readout.choice),
+        },
+    ))
+}
+
+impl NgrcRegression {
+    pub fn inputs(&self) -> usize {
+        self.mean.len()
+    }
+
+    pub fn outputs(&self) -> usize {
+        self.outputs
+    }
+
+    /// Prediction for one input row.
+    pub fn predict(&self, x: &[f64], out: &mut [f64]) {
+        let l = self.mean.len();
+        let f = feature_count(l);
+        let mut lin = [0.0f64; 64];
+        let mut feats = vec![0.0; f];
+        let lin = &mut lin[..l.min(64)];
+        if l > 64 {
+            // Closure stencils are short; a wider input takes the allocating path.
+            let lin: Vec<f64> = (0..l)
+                .map(|j| (x[j] - self.mean[j]) / self.scale[j])
+                .collect();
+            write_features(&lin, &mut feats);
+        } else {
+            for (j, v) in lin.iter_mut().enumerate() {
+                *v = (x[j] - self.mean[j]) / self.scale[j];
+            }
+            write_features(lin, &mut feats);
+        }
+        for (o, w) in out.iter_mut().zip(self.readout.chunks_exact(f)) {
+            *o = w.iter().zip(&feats).map(|(a, b)| a * b).sum();
+        }
+    }
+}

@@ -6,6 +6,8 @@ use super::StudyError;
 use crate::cost::CostInputs;
 use crate::models::closure::ClosureInputs;
 use crate::models::esn::ValidEsnParams;
+use crate::models::ngrc::ValidNgrcParams;
+use crate::models::nn::{ValidLstmParams, ValidMlpParams};
 use crate::models::polynomial::ValidPolynomialParams;
 use crate::systems::SystemSpec;
 use std::path::{Path, PathBuf};
@@ -73,6 +75,9 @@ pub struct ClosurePlan {
 #[derive(Debug, Clone, PartialEq)]
 pub enum ModelKind {
     Esn(ValidEsnParams),
+    Ngrc(ValidNgrcParams),
+    Mlp(ValidMlpParams),
+    Lstm(ValidLstmParams),
     Polynomial(ValidPolynomialParams),
 }
 
@@ -83,7 +88,16 @@ impl ModelKind {
             ModelKind::Esn(_) => Some(
                 "a closure must be a function of the coarse state at every RK stage; the echo state network carries internal memory — use it as an emulator",
             ),
-            ModelKind::Polynomial(_) => None,
+            ModelKind::Ngrc(p) if p.get().delays != 1 => Some(
+                "delays = 1 for an NG-RC closure: the coarse solver asks for the coupling term from the current state at every RK stage, with no past to delay",
+            ),
+            ModelKind::Mlp(p) if p.get().window != 1 => Some(
+                "window = 1 for a feed-forward closure: the coarse solver asks for the coupling term from the current state at every RK stage",
+            ),
+            ModelKind::Lstm(_) => Some(
+                "a closure must be a function of the coarse state at every RK stage; the LSTM carries internal memory — use it as an emulator",
+            ),
+            ModelKind::Ngrc(_) | ModelKind::Mlp(_) | ModelKind::Polynomial(_) => None,
         }
     }
 
@@ -91,6 +105,9 @@ impl ModelKind {
     pub fn label(&self) -> &'static str {
         match self {
             ModelKind::Esn(_) => "echo state network",
+            ModelKind::Ngrc(_) => "next-generation reservoir computer",
+            ModelKind::Mlp(_) => "feed-forward network",
+            ModelKind::Lstm(_) => "LSTM network",
             ModelKind::Polynomial(_) => "polynomial regression",
         }
     }
@@ -99,6 +116,9 @@ impl ModelKind {
     pub fn settings(&self) -> serde_json::Value {
         match self {
             ModelKind::Esn(p) => serde_json::to_value(p.get()),
+            ModelKind::Ngrc(p) => serde_json::to_value(p.get()),
+            ModelKind::Mlp(p) => serde_json::to_value(p.get()),
+            ModelKind::Lstm(p) => serde_json::to_value(p.get()),
             ModelKind::Polynomial(p) => serde_json::to_value(p.get()),
         }
         .expect("settings serialise")
@@ -344,12 +364,16 @@ fn check(
                 "a unique name other than 'persistence'",
             ));
         }
-        let kinds = usize::from(m.esn.is_some()) + usize::from(m.polynomial.is_some());
+        let kinds = usize::from(m.esn.is_some())
+            + usize::from(m.ngrc.is_some())
+            + usize::from(m.mlp.is_some())
+            + usize::from(m.lstm.is_some())
+            + usize::from(m.polynomial.is_some());
         if kinds != 1 {
             return Err(invalid(
                 &key,
                 format!("{kinds} model kinds"),
-                "exactly one kind table: esn, polynomial",
+                "exactly one kind table: esn, ngrc, mlp, lstm or polynomial, e.g. `esn = { reservoir-size = 300 }`",
             ));
         }
         let bad = |kind: &str, e: crate::models::ModelError| {
@@ -357,6 +381,12 @@ fn check(
         };
         let kind = if let Some(p) = m.esn {
             ModelKind::Esn(p.check().map_err(|e| bad("esn", e))?)
+        } else if let Some(p) = m.ngrc {
+            ModelKind::Ngrc(p.check().map_err(|e| bad("ngrc", e))?)
+        } else if let Some(p) = m.mlp {
+            ModelKind::Mlp(p.check().map_err(|e| bad("mlp", e))?)
+        } else if let Some(p) = m.lstm {
+            ModelKind::Lstm(p.check().map_err(|e| bad("lstm", e))?)
         } else if let Some(p) = m.polynomial {
             if p.stencil != 0 {
                 return Err(invalid(

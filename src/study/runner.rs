@@ -838,7 +838,11 @@ fn estimate(
     cost: Option<&Campaign>,
 ) -> TargetEstimate {
     let largest = points.last().map(|p| p.n).unwrap_or(f64::NAN);
-    let interval = [draws.lower, draws.upper];
+    // Bootstrap curves crossing the target below the smallest measured size are not evidence of
+    // fewer samples: such draws count at the smallest size.
+    let smallest = points.first().map(|p| p.n).unwrap_or(f64::NAN);
+    let floor = |v: Option<f64>| v.map(|v| v.max(smallest));
+    let interval = [floor(draws.lower), floor(draws.upper)];
     let price = |n: Option<f64>| n.and_then(|n| cost.map(|c| c.budget(n)));
     let pct = |p: f64| format!("{:.0}%", 100.0 * p);
     let unreachable_note = if draws.p_unreachable > 0.0 {
@@ -854,7 +858,7 @@ fn estimate(
         target,
         status: EstimateStatus::Unreachable,
         samples: None,
-        median_samples: draws.median,
+        median_samples: floor(draws.median),
         samples_interval: interval,
         p_unreachable: draws.p_unreachable,
         budget: None,
@@ -876,10 +880,17 @@ fn estimate(
                 samples: Some(n),
                 budget: price(Some(n)),
                 extrapolation: Some(n / largest),
-                note: format!(
-                    "the measured mean reaches the target at {} samples{unreachable_note}",
-                    p.n
-                ),
+                note: if p.n == smallest {
+                    format!(
+                        "already reached at the smallest measured size ({} samples): fewer may do; measure smaller subsets to find out{unreachable_note}",
+                        p.n
+                    )
+                } else {
+                    format!(
+                        "the measured mean reaches the target at {} samples{unreachable_note}",
+                        p.n
+                    )
+                },
                 ..base
             }
         }
@@ -1040,5 +1051,12 @@ mod tests {
         let e = &a.estimates[0];
         assert_eq!(e.status, EstimateStatus::ReachedInData);
         assert_eq!(e.samples, Some(1000.0), "{e:?}");
+        // Nor do the interval's ends or the bootstrap median go below it.
+        assert!(
+            e.samples_interval.iter().flatten().all(|&v| v >= 1000.0),
+            "{e:?}"
+        );
+        assert!(e.median_samples.is_none_or(|m| m >= 1000.0), "{e:?}");
+        assert!(e.note.contains("smallest measured size"), "{}", e.note);
     }
 }

@@ -164,6 +164,12 @@ pub struct ModelSection {
     pub esn: Option<EsnParams>,
     /// Polynomial regression settings.
     pub polynomial: Option<crate::models::polynomial::PolynomialParams>,
+    /// Next-generation reservoir computing settings.
+    pub ngrc: Option<crate::models::ngrc::NgrcParams>,
+    /// Feed-forward network settings.
+    pub mlp: Option<crate::models::nn::MlpParams>,
+    /// LSTM network settings.
+    pub lstm: Option<crate::models::nn::LstmParams>,
 }
 
 /// What a model predicts.

@@ -5,7 +5,7 @@
 
 use super::plan::{ModelKind, ModelPlan, ModelUse};
 use crate::models::closure::{ClosureInputs, CoupledModel, LearnedClosure, Regressor};
-use crate::models::{esn, polynomial, FitSummary, Forecaster, ModelError};
+use crate::models::{esn, ngrc, nn, polynomial, FitSummary, Forecaster, ModelError};
 use ndarray::ArrayView2;
 use std::sync::Arc;
 
@@ -85,6 +85,9 @@ fn emulator(
     }
     Ok(match &model.kind {
         ModelKind::Esn(p) => wrap(esn::fit_nested(p, x, sizes, seed)?),
+        ModelKind::Ngrc(p) => wrap(ngrc::fit_nested(p, x, sizes)?),
+        ModelKind::Mlp(p) => wrap(nn::fit_mlp_emulator(p, x, sizes, seed)?),
+        ModelKind::Lstm(p) => wrap(nn::fit_lstm_emulator(p, x, sizes, seed)?),
         ModelKind::Polynomial(p) => wrap(polynomial::fit_emulator_nested(p, x, sizes)?),
     })
 }
@@ -95,9 +98,26 @@ fn fit_regressor(
     _inputs: ClosureInputs,
     rows_in: ArrayView2<f64>,
     rows_out: ArrayView2<f64>,
-    _seed: u64,
+    seed: u64,
 ) -> Result<(Arc<dyn Regressor>, FitSummary), ModelError> {
     match &model.kind {
+        ModelKind::Ngrc(p) => {
+            let (r, summary) = ngrc::fit_regression(p, rows_in, rows_out)?;
+            Ok((Arc::new(r), summary))
+        }
+        ModelKind::Mlp(p) => {
+            let (net, report) = nn::train_mlp(p, rows_in, rows_out, seed, None)?;
+            Ok((
+                Arc::new(net),
+                FitSummary {
+                    n: 0,
+                    training_pairs: rows_in.nrows(),
+                    ridge_penalty: None,
+                    training_rmse: Some(report.training_mse.sqrt()),
+                    ridge_selection: None,
+                },
+            ))
+        }
         ModelKind::Polynomial(p) => {
             let (poly, info) = polynomial::fit_polynomial(p, rows_in, rows_out)?;
             Ok((
@@ -111,7 +131,7 @@ fn fit_regressor(
                 },
             ))
         }
-        ModelKind::Esn(_) => Err(ModelError::InvalidParameter {
+        ModelKind::Esn(_) | ModelKind::Lstm(_) => Err(ModelError::InvalidParameter {
             key: "role".into(),
             value: "closure".into(),
             allowed: model
@@ -132,5 +152,29 @@ impl Regressor for polynomial::Polynomial {
     }
     fn predict(&self, x: &[f64], out: &mut [f64]) {
         polynomial::Polynomial::predict(self, x, out)
+    }
+}
+
+impl Regressor for ngrc::NgrcRegression {
+    fn inputs(&self) -> usize {
+        ngrc::NgrcRegression::inputs(self)
+    }
+    fn outputs(&self) -> usize {
+        ngrc::NgrcRegression::outputs(self)
+    }
+    fn predict(&self, x: &[f64], out: &mut [f64]) {
+        ngrc::NgrcRegression::predict(self, x, out)
+    }
+}
+
+impl Regressor for nn::Mlp {
+    fn inputs(&self) -> usize {
+        nn::Mlp::inputs(self)
+    }
+    fn outputs(&self) -> usize {
+        nn::Mlp::outputs(self)
+    }
+    fn predict(&self, x: &[f64], out: &mut [f64]) {
+        nn::Mlp::predict(self, x, out)
     }
 }
