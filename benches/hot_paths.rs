@@ -153,10 +153,10 @@ fn nested_curve(quick: bool) {
         }
         .check()
         .unwrap();
-        let one = best_of(3, || {
+        let one = best_of(7, || {
             ngrc::fit_nested(&p, data.view(), &[sizes[0], largest]).unwrap()
         });
-        let all = best_of(3, || ngrc::fit_nested(&p, data.view(), &sizes).unwrap());
+        let all = best_of(7, || ngrc::fit_nested(&p, data.view(), &sizes).unwrap());
         println!(
             "nested curve       NG-RC F=153 {selection:?}, sizes {:?}: all 7 sizes {:.4} s, one fit at n={largest} {:.4} s; ratio {:.3}",
             sizes, all, one, all / one

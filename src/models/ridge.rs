@@ -399,8 +399,8 @@ fn tridiagonal_solve(a: &[f64], b: &[f64], lambda: f64, r: &mut Mat<f64>) {
 
 /// Penalties tried by [`RidgeEigen::default_grid`], relative to the mean eigenvalue trace(G)/F:
 /// 10^−12, 10^−11.5, …, 10^0 (25 values, half a decade apart). Relative values make the grid
-/// follow the scale of the features; the lower end reaches the penalty of Gauthier et al. (2021)
-/// on unstandardised Lorenz-63 features (2.5e-6 absolute, of order 1e-12 relative).
+/// follow the scale of the features. For scale: the penalty of Gauthier et al. (2021) on raw
+/// Lorenz-63 features, 2.5e-6 with 400 training pairs, is 8e-14 relative (measured).
 pub const GCV_GRID_DECADES: (f64, f64, usize) = (-12.0, 0.0, 25);
 
 /// The eigendecomposition of a ridge problem's normal equations: the fit at any penalty λ > 0 in
