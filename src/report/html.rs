@@ -622,7 +622,7 @@ fn measured_points(out: &mut String, doc: &PlanDocument) {
              <th class=\"num\">10–90%</th><th class=\"num\">Censored</th>\
              <th class=\"num\">Blow-ups</th><th class=\"num\">Ridge penalty</th>\
              <th class=\"num\">Training RMSE</th><th class=\"num\">Training (s)</th>\
-             <th class=\"num\">µs per forecast step</th></tr></thead>\n<tbody>\n",
+             <th class=\"num\">µs per model step</th></tr></thead>\n<tbody>\n",
             escape(&m.name)
         );
         for p in &m.points {

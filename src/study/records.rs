@@ -38,7 +38,8 @@ pub struct SkillRecord {
 pub struct PointCost {
     /// Training wall-clock seconds of the (model, replicate) unit that produced this point.
     pub train_seconds: f64,
-    /// Wall-clock seconds per forecast step, summed over initial conditions on their threads.
+    /// Wall-clock seconds per model step (warm-up steps and forecast leads), over the initial
+    /// conditions on their threads.
     pub forecast_seconds_per_step: f64,
 }
 

@@ -188,7 +188,8 @@ pub struct PointResult {
     /// full to every size it produced).
     #[serde(default)]
     pub train_seconds: f64,
-    /// Mean wall-clock seconds per forecast step (per initial condition).
+    /// Mean wall-clock seconds per model step (warm-up and forecast leads, per initial
+    /// condition).
     #[serde(default)]
     pub forecast_seconds_per_step: f64,
     /// Closures: offline and online checks, averaged over replicates.

@@ -399,9 +399,13 @@ fn run_in_pool(
                 .collect();
             let per_ic: Vec<IcSkill> = timed.iter().flat_map(|(s, _)| s.iter().copied()).collect();
             let si = prep.skill.sample_interval;
+            // Steps driven per initial condition: the warm-up plus the leads forecast.
             let steps: f64 = per_ic
                 .iter()
-                .map(|s| ((s.valid_time / si).round() + 1.0).min(prep.skill.max_lead as f64))
+                .map(|s| {
+                    prep.skill.warm_up as f64
+                        + ((s.valid_time / si).round() + 1.0).min(prep.skill.max_lead as f64)
+                })
                 .sum();
             let closure = match (&t.fitted.coupled, &checks) {
                 (Some(coupled), Some(reference)) => Some(reference.check(coupled)),
