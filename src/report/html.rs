@@ -182,9 +182,12 @@ fn header(out: &mut String, doc: &PlanDocument, title: &str) {
     }
     out.push_str(
         "<nav class=\"toc\"><a href=\"#answer\">Answer</a><a href=\"#curves\">Learning curves</a>\
-         <a href=\"#fits\">Fits</a><a href=\"#backtest\">Backtest</a><a href=\"#points\">Measured points</a>\
-         <a href=\"#assumptions\">Budget assumptions</a>",
+         <a href=\"#fits\">Fits</a><a href=\"#backtest\">Backtest</a><a href=\"#points\">Measured points</a>",
     );
+    if doc.models.iter().any(|m| m.role == "closure") {
+        out.push_str("<a href=\"#closures\">Closures</a>");
+    }
+    out.push_str("<a href=\"#assumptions\">Budget assumptions</a>");
     if !doc.warnings.is_empty() {
         out.push_str("<a href=\"#warnings\">Warnings</a>");
     }
