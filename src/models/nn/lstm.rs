@@ -408,7 +408,7 @@ impl Lstm {
 ///
 /// Cost: hidden 32, window 8, 8 inputs and targets, 64,000 rows, default training settings
 /// (budget 5 epochs, 4,500 steps) trained in 7–9 s on one thread of a 2-core AVX-512 machine that
-/// was running other work (release build; the ignored `nn_lstm_training_budget` test). A step
+/// was running other work (release build, measured by hand). A step
 /// costs about window × (inputs + hidden) × 4·hidden × 6 flops per sample, so lower `hidden`,
 /// `window` or `gradient-steps` for quick studies.
 pub fn train_lstm(
@@ -687,34 +687,5 @@ mod tests {
             .unwrap_err()
             .to_string();
         assert!(e.contains("`window`"), "{e}");
-    }
-
-    /// Training time on 64,000 rows of 8 inputs, default settings (hidden 32, window 8); run
-    /// with `cargo test --release --lib nn_lstm_training_budget -- --ignored --nocapture`.
-    #[test]
-    #[ignore]
-    fn nn_lstm_training_budget() {
-        let x = uniform(64_000, 8, 50);
-        let y = Array2::from_shape_fn((64_000, 8), |(t, j)| {
-            if t > 0 {
-                (x[[t, j]] * 2.0).sin() * x[[t - 1, (j + 1) % 8]]
-            } else {
-                0.0
-            }
-        });
-        let p = LstmParams::default().check().unwrap();
-        let pool = rayon::ThreadPoolBuilder::new()
-            .num_threads(1)
-            .build()
-            .unwrap();
-        let t = std::time::Instant::now();
-        let (_, r) = pool.install(|| train_lstm(&p, x.view(), y.view(), 1, None).unwrap());
-        println!(
-            "1 thread: {:.2} s, {} epochs, {} steps, validation MSE {:.4}",
-            t.elapsed().as_secs_f64(),
-            r.epochs,
-            r.gradient_steps,
-            r.validation_mse
-        );
     }
 }

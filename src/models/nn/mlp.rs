@@ -336,8 +336,7 @@ impl Mlp {
 ///
 /// Cost: 64,000 rows of 8 inputs and 8 targets, hidden [64, 64], default settings (budget 5
 /// epochs, 4,500 steps) trained in 0.8–1.1 s on one thread of a 2-core AVX-512 machine that was
-/// running other work (release build; the ignored `nn_training_budget` test and the
-/// `hot_paths` benchmark measure it). The kernels reach about 12–18 GFLOP/s there.
+/// running other work (release build; the `hot_paths` benchmark measures it). The kernels reach about 12–18 GFLOP/s there.
 pub fn train_mlp(
     params: &ValidMlpParams,
     inputs: ArrayView2<f64>,
@@ -756,65 +755,5 @@ mod tests {
             .unwrap_err()
             .to_string();
         assert!(e.contains("training rows"), "{e}");
-    }
-
-    /// Gradient cost per sample for 8-64-64-8 (best of 30 trials, robust to a loaded machine);
-    /// run with `cargo test --release --lib nn_gradient_speed -- --ignored --nocapture`.
-    #[test]
-    #[ignore]
-    fn nn_gradient_speed() {
-        let m = net(&[8, 64, 64, 8], Activation::Tanh, 1);
-        let x = uniform(64, 8, -1.0, 1.0, 2);
-        let y = uniform(64, 8, -1.0, 1.0, 3);
-        let data = samples(&x, &y);
-        let rows: Vec<usize> = (0..64).collect();
-        let mut scratch = m.scratch();
-        let mut grad = vec![0.0; m.params.len()];
-        let reps = 100;
-        let best = (0..30)
-            .map(|_| {
-                let t = std::time::Instant::now();
-                for _ in 0..reps {
-                    m.squared_error(&data, &rows, &mut scratch, Some(&mut grad));
-                }
-                t.elapsed().as_secs_f64()
-            })
-            .fold(f64::INFINITY, f64::min);
-        let per = best / (reps * 64) as f64;
-        // Multiply-adds per sample: forward 8·64 + 64·64 + 64·8, backward twice that less the
-        // first layer's input gradient.
-        let flops = 2.0 * (3.0 * 5120.0 - 512.0);
-        println!(
-            "{:.2} µs per sample, {:.2} GFLOP/s",
-            per * 1e6,
-            flops / per / 1e9
-        );
-    }
-
-    /// Training budget on 64,000 rows of 8 inputs, hidden [64, 64], default settings; run with
-    /// `cargo test --release --lib nn_training_budget -- --ignored --nocapture`.
-    #[test]
-    #[ignore]
-    fn nn_training_budget() {
-        let x = uniform(64_000, 8, -1.0, 1.0, 50);
-        let y = Array2::from_shape_fn((64_000, 8), |(r, j)| {
-            (x[[r, j]] * 2.0).sin() * x[[r, (j + 1) % 8]]
-        });
-        let p = MlpParams::default().check().unwrap();
-        for threads in [1, 2] {
-            let pool = rayon::ThreadPoolBuilder::new()
-                .num_threads(threads)
-                .build()
-                .unwrap();
-            let t = std::time::Instant::now();
-            let (_, r) = pool.install(|| train_mlp(&p, x.view(), y.view(), 1, None).unwrap());
-            println!(
-                "{threads} thread(s): {:.2} s, {} epochs, {} steps, validation MSE {:.4}",
-                t.elapsed().as_secs_f64(),
-                r.epochs,
-                r.gradient_steps,
-                r.validation_mse
-            );
-        }
     }
 }
