@@ -87,17 +87,31 @@ impl ClosureInputs {
                 let mut targets = Array2::zeros((t_len * k, 1));
                 for t in 0..t_len {
                     let xr = x.row(t);
+                    let xs = xr.to_vec();
                     for kk in 0..k {
                         let row = t * k + kk;
-                        for (i, o) in inputs.row_mut(row).iter_mut().enumerate() {
-                            *o = xr[(kk + k * (half_width + 1) + i - half_width) % k];
-                        }
+                        let mut r = inputs.row_mut(row);
+                        stencil(
+                            &xs,
+                            kk,
+                            half_width,
+                            r.as_slice_mut().expect("standard layout"),
+                        );
                         targets[[row, 0]] = u[[t, kk]];
                     }
                 }
                 (inputs, targets)
             }
         }
+    }
+}
+
+/// Writes the cyclic stencil X_{k−s}, …, X_{k+s} of `x` into `out` (length 2s + 1).
+#[inline]
+pub fn stencil(x: &[f64], k: usize, half_width: usize, out: &mut [f64]) {
+    let n = x.len();
+    for (i, o) in out.iter_mut().enumerate() {
+        *o = x[(k + n * (half_width + 1) + i - half_width) % n];
     }
 }
 
@@ -117,7 +131,6 @@ pub struct LearnedClosure {
 
 impl Closure for LearnedClosure {
     fn coupling(&self, _t: f64, x: &[f64], out: &mut [f64]) {
-        let k = x.len();
         match self.inputs {
             ClosureInputs::Global => self.regressor.predict(x, out),
             ClosureInputs::Local { half_width } => {
@@ -133,9 +146,7 @@ impl Closure for LearnedClosure {
                     &mut heap
                 };
                 for (kk, o) in out.iter_mut().enumerate() {
-                    for (i, s) in stencil.iter_mut().enumerate() {
-                        *s = x[(kk + k * (half_width + 1) + i - half_width) % k];
-                    }
+                    self::stencil(x, kk, half_width, stencil);
                     let mut y = [0.0];
                     self.regressor.predict(stencil, &mut y);
                     *o = y[0];
