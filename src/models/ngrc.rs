@@ -840,27 +840,24 @@ impl NgrcRegression {
         self.outputs
     }
 
-    /// Prediction for one input row.
+    /// Prediction for one input row (a per-thread scratch buffer: closures call this at every
+    /// RK stage).
     pub fn predict(&self, x: &[f64], out: &mut [f64]) {
+        thread_local! {
+            static SCRATCH: std::cell::RefCell<(Vec<f64>, Vec<f64>)> =
+                const { std::cell::RefCell::new((Vec::new(), Vec::new())) };
+        }
         let l = self.mean.len();
         let f = feature_count(l);
-        let mut lin = [0.0f64; 64];
-        let mut feats = vec![0.0; f];
-        let lin = &mut lin[..l.min(64)];
-        if l > 64 {
-            // Closure stencils are short; a wider input takes the allocating path.
-            let lin: Vec<f64> = (0..l)
-                .map(|j| (x[j] - self.mean[j]) / self.scale[j])
-                .collect();
-            write_features(&lin, &mut feats);
-        } else {
-            for (j, v) in lin.iter_mut().enumerate() {
-                *v = (x[j] - self.mean[j]) / self.scale[j];
+        SCRATCH.with(|cell| {
+            let (lin, feats) = &mut *cell.borrow_mut();
+            lin.clear();
+            lin.extend((0..l).map(|j| (x[j] - self.mean[j]) / self.scale[j]));
+            feats.resize(f, 0.0);
+            write_features(lin, feats);
+            for (o, w) in out.iter_mut().zip(self.readout.chunks_exact(f)) {
+                *o = w.iter().zip(feats.iter()).map(|(a, b)| a * b).sum();
             }
-            write_features(lin, &mut feats);
-        }
-        for (o, w) in out.iter_mut().zip(self.readout.chunks_exact(f)) {
-            *o = w.iter().zip(&feats).map(|(a, b)| a * b).sum();
-        }
+        });
     }
 }

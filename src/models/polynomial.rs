@@ -8,6 +8,7 @@
 //! Soc. 131, 389–407 (the polynomial closure U(X)); NIST StRD linear regression datasets
 //! (Longley, Norris, Filip) for the least-squares checks.
 
+use super::closure::{stencil, ClosureInputs};
 use super::ridge::RidgeError;
 use super::{FitSummary, Forecaster, ModelError};
 use crate::data::column_stats;
@@ -462,11 +463,21 @@ impl Polynomial {
 
     /// Evaluates the polynomial at `x` (length [`Polynomial::inputs`]) into `out` (length
     /// [`Polynomial::outputs`]). Non-finite inputs give non-finite outputs, never a panic.
+    ///
+    /// Uses a per-thread scratch buffer (closures call this at every RK stage).
     pub fn predict(&self, x: &[f64], out: &mut [f64]) {
         debug_assert_eq!(x.len(), self.inputs());
         debug_assert_eq!(out.len(), self.outputs());
-        let mut s = self.scratch();
-        self.predict_with(x, &mut s, out);
+        thread_local! {
+            static SCRATCH: std::cell::RefCell<Scratch> =
+                const { std::cell::RefCell::new(Scratch { z: Vec::new(), phi: Vec::new() }) };
+        }
+        SCRATCH.with(|cell| {
+            let s = &mut *cell.borrow_mut();
+            s.z.resize(self.map.inputs, 0.0);
+            s.phi.resize(self.map.len(), 0.0);
+            self.predict_with(x, s, out);
+        });
     }
 }
 
@@ -865,19 +876,10 @@ impl LocalClosure {
         let mut window = vec![0.0; w];
         let mut u = [0.0];
         for (k, o) in out.iter_mut().enumerate() {
-            fill_window(x, k, self.stencil, &mut window);
+            stencil(x, k, self.stencil, &mut window);
             self.poly.predict_with(&window, &mut s, &mut u);
             *o = u[0];
         }
-    }
-}
-
-/// window[i] = x[(k − s + i) mod K] for i = 0..2s.
-#[inline]
-fn fill_window(x: &[f64], k: usize, s: usize, window: &mut [f64]) {
-    let kk = x.len();
-    for (i, wv) in window.iter_mut().enumerate() {
-        *wv = x[(k + kk - s + i) % kk];
     }
 }
 
@@ -903,24 +905,7 @@ pub fn fit_local_closure(
             ),
         ));
     }
-    let mut inputs = Array2::<f64>::zeros((t * kk, w));
-    let mut targets = Array2::<f64>::zeros((t * kk, 1));
-    let mut row = vec![0.0; kk];
-    for ti in 0..t {
-        for (r, v) in row.iter_mut().zip(x.row(ti)) {
-            *r = *v;
-        }
-        for k in 0..kk {
-            let i = ti * kk + k;
-            fill_window(
-                &row,
-                k,
-                s,
-                inputs.row_mut(i).as_slice_mut().expect("standard layout"),
-            );
-            targets[[i, 0]] = u[[ti, k]];
-        }
-    }
+    let (inputs, targets) = ClosureInputs::Local { half_width: s }.rows(x, u);
     let (poly, info) = fit_polynomial(params, inputs.view(), targets.view())?;
     Ok((LocalClosure { poly, stencil: s }, info))
 }
