@@ -180,28 +180,14 @@ impl Lstm {
     #[inline(always)]
     fn predict_impl(&self, scratch: &mut LstmScratch, window: &[f64], out: &mut [f64]) {
         self.reserve(scratch, 1);
-        let s = &self.scaling;
         let p = self.inputs;
         // With one row, step t's block of `x` is window[t·p..(t + 1)·p].
         for (t, chunk) in scratch.x[..self.window * p].chunks_exact_mut(p).enumerate() {
-            for (((z, v), m), sd) in chunk
-                .iter_mut()
-                .zip(&window[t * p..(t + 1) * p])
-                .zip(&s.input_mean)
-                .zip(&s.input_scale)
-            {
-                *z = (v - m) / sd;
-            }
+            self.scaling
+                .standardise_input(&window[t * p..(t + 1) * p], chunk);
         }
         self.forward(1, scratch);
-        for (((o, v), m), sd) in out
-            .iter_mut()
-            .zip(&scratch.y)
-            .zip(&s.output_mean)
-            .zip(&s.output_scale)
-        {
-            *o = v * sd + m;
-        }
+        self.scaling.restore_output(&scratch.y, out);
     }
 
     /// Like [`Lstm::predict_with`], with a per-thread scratch buffer allocated on a thread's

@@ -128,25 +128,9 @@ impl Mlp {
     #[inline(always)]
     fn predict_impl(&self, scratch: &mut MlpScratch, x: &[f64], out: &mut [f64]) {
         self.reserve(scratch, 1);
-        let s = &self.scaling;
-        for (((z, v), m), sd) in scratch
-            .x
-            .iter_mut()
-            .zip(x)
-            .zip(&s.input_mean)
-            .zip(&s.input_scale)
-        {
-            *z = (v - m) / sd;
-        }
+        self.scaling.standardise_input(x, &mut scratch.x);
         let y = self.forward(1, scratch);
-        for (((o, v), m), sd) in out
-            .iter_mut()
-            .zip(y)
-            .zip(&s.output_mean)
-            .zip(&s.output_scale)
-        {
-            *o = v * sd + m;
-        }
+        self.scaling.restore_output(y, out);
     }
 
     /// Predicts `out` from `x` in the original units, using a per-thread scratch buffer that is

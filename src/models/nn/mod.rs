@@ -399,6 +399,32 @@ impl Scaling {
         }
     }
 
+    /// Standardises one input vector `x` into `z` ((x − mean) / scale, element by element).
+    #[inline(always)]
+    pub(crate) fn standardise_input(&self, x: &[f64], z: &mut [f64]) {
+        for (((z, v), m), sd) in z
+            .iter_mut()
+            .zip(x)
+            .zip(&self.input_mean)
+            .zip(&self.input_scale)
+        {
+            *z = (v - m) / sd;
+        }
+    }
+
+    /// Writes standardised outputs `y` back in original units into `out`.
+    #[inline(always)]
+    pub(crate) fn restore_output(&self, y: &[f64], out: &mut [f64]) {
+        for (((o, v), m), sd) in out
+            .iter_mut()
+            .zip(y)
+            .zip(&self.output_mean)
+            .zip(&self.output_scale)
+        {
+            *o = v * sd + m;
+        }
+    }
+
     /// Standardises the rows of `a` (columns matched to the inputs) into a row-major vector.
     pub(crate) fn inputs(&self, a: ndarray::ArrayView2<f64>) -> Vec<f64> {
         standardise(a, &self.input_mean, &self.input_scale)
