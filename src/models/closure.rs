@@ -137,12 +137,11 @@ impl Closure for LearnedClosure {
                 // Stencils are short (2s + 1); a stack buffer keeps the RK stage allocation-free.
                 let p = 2 * half_width + 1;
                 let mut buf = [0.0f64; 33];
-                let stencil = &mut buf[..p.min(33)];
-                let mut heap;
-                let stencil: &mut [f64] = if p <= 33 {
-                    stencil
+                let mut heap = Vec::new();
+                let stencil: &mut [f64] = if p <= buf.len() {
+                    &mut buf[..p]
                 } else {
-                    heap = vec![0.0; p];
+                    heap.resize(p, 0.0);
                     &mut heap
                 };
                 for (kk, o) in out.iter_mut().enumerate() {
@@ -185,6 +184,17 @@ impl CoupledModel {
         dt: f64,
         sample_interval: f64,
     ) -> Result<Self, ModelError> {
+        Ok(Self {
+            closure,
+            forcing,
+            dt,
+            substeps: Self::substeps(dt, sample_interval)?,
+        })
+    }
+
+    /// Coarse steps `dt` per saved sample; an error unless `dt` divides `sample_interval` a whole
+    /// number of times.
+    pub fn substeps(dt: f64, sample_interval: f64) -> Result<usize, ModelError> {
         let ratio = sample_interval / dt;
         let substeps = ratio.round();
         if !dt.is_finite() || dt <= 0.0 || substeps < 1.0 || (ratio - substeps).abs() > 1e-9 * ratio
@@ -197,12 +207,7 @@ impl CoupledModel {
                 ),
             });
         }
-        Ok(Self {
-            closure,
-            forcing,
-            dt,
-            substeps: substeps as usize,
-        })
+        Ok(substeps as usize)
     }
 
     /// Runs from `x0` for `samples` saved samples, calling `sink(k, x)` after each (k = 1…);
@@ -298,6 +303,9 @@ pub struct FreeRunCheck {
     pub stable_share: f64,
     /// Mean time to blow-up over the runs that blew up, model time units.
     pub mean_time_to_blow_up: Option<f64>,
+    /// Model time integrated over all runs (each up to its horizon or its blow-up).
+    #[serde(default)]
+    pub simulated_time: f64,
     /// Wasserstein-1 distance between the pooled distribution of the resolved variables in the
     /// stable runs and in the truth, in units of the truth's standard deviation (pooled over
     /// variables, which are statistically identical by the system's symmetry). `None` when no run
@@ -354,6 +362,8 @@ pub fn free_run_check(
         } else {
             stable as f64 / runs as f64
         },
+        simulated_time: stable as f64 * samples as f64 * sample_interval
+            + blow_up_times.iter().sum::<f64>(),
         mean_time_to_blow_up: (!blow_up_times.is_empty())
             .then(|| blow_up_times.iter().sum::<f64>() / blow_up_times.len() as f64),
         climate_distance: (!pooled.is_empty())

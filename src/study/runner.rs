@@ -236,16 +236,12 @@ fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
     let coupling = coupling_for(plan, &traj)?;
     if let Some(c) = &coupling {
         // Checked here so a bad step fails before any training.
-        crate::models::closure::CoupledModel::new(
-            std::sync::Arc::new(crate::models::closure::NoClosure),
-            c.forcing,
-            c.coarse_dt,
-            c.sample_interval,
-        )
-        .map_err(|source| StudyError::Model {
-            model: "closure".into(),
-            replicate: 0,
-            source,
+        CoupledModel::substeps(c.coarse_dt, c.sample_interval).map_err(|source| {
+            StudyError::Model {
+                model: "closure".into(),
+                replicate: 0,
+                source,
+            }
         })?;
     }
     Ok(Prepared {
@@ -1009,17 +1005,11 @@ impl ClosureReference {
             &self.sigma,
         );
         let seconds = started.elapsed().as_secs_f64();
-        let simulated = match free_run.mean_time_to_blow_up {
-            None => free_run.runs as f64 * free_run.horizon,
-            Some(t) => {
-                let failed = ((1.0 - free_run.stable_share) * free_run.runs as f64).round();
-                (free_run.runs as f64 - failed) * free_run.horizon + failed * t
-            }
-        };
         ClosureChecks {
             offline_r2,
             free_run,
-            coupled_seconds_per_time_unit: seconds / simulated.max(self.sample_interval),
+            coupled_seconds_per_time_unit: seconds
+                / free_run.simulated_time.max(self.sample_interval),
         }
     }
 }
