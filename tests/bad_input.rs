@@ -215,7 +215,7 @@ fn simulated_file_round_trip_through_a_file_study() {
         &[
             "simulate",
             "--system",
-            "lorenz-63",
+            "{ name = \"lorenz-63\", sigma = 10.0, rho = 28.0, beta = 2.6666666666666665 }",
             "--samples",
             "3000",
             "--sample-interval",
@@ -263,7 +263,7 @@ fn lyapunov_command_prints_the_exponent() {
         .args([
             "lyapunov",
             "--system",
-            "lorenz-63",
+            "{ name = \"lorenz-63\", sigma = 10.0, rho = 28.0, beta = 2.6666666666666665 }",
             "--duration",
             "200",
             "--json",
@@ -410,4 +410,69 @@ fn cost_command_prices_samples() {
         "{}",
         stderr(&o)
     );
+}
+
+const TWO_SCALE: &str =
+    "{ name = \"two-scale-lorenz-96\", k = 8, j = 32, h = 1.0, c = 10.0, b = 10.0, forcing = 20.0 }";
+
+/// Closures the coarse solver cannot use are refused before any work, naming the setting and
+/// what would work instead.
+#[test]
+fn closures_the_coarse_solver_cannot_use() {
+    let dir = tempfile::tempdir().unwrap();
+    let study = |model: &str, system: &str| {
+        let text = format!(
+            r#"title = "closure checks"
+[data.simulate]
+system = {system}
+dt = 0.005
+sample-interval = 0.01
+training-pool = 3000
+[split]
+initial-conditions = 8
+gap = 0.5
+[skill]
+max-lead = 1.0
+[subsets]
+sizes = [500, 1000, 2000]
+[[model]]
+name = "c"
+role = "closure"
+{model}
+[plan]
+targets = [0.3]
+[cost]
+core-hours-per-time-unit = 10.0
+"#
+        );
+        let p = dir.path().join("study.toml");
+        std::fs::write(&p, text).unwrap();
+        p
+    };
+    let cases = [
+        (
+            "half-width = 1\nlstm = { hidden = 8 }",
+            TWO_SCALE,
+            vec!["`model[0].role` = closure (LSTM network)", "inputs = \"global\" for an LSTM closure"],
+        ),
+        (
+            "ngrc = { delays = 2 }",
+            TWO_SCALE,
+            vec!["delays = 1 for an NG-RC closure"],
+        ),
+        (
+            "mlp = { window = 3 }",
+            TWO_SCALE,
+            vec!["window = 1 for a feed-forward closure"],
+        ),
+        (
+            "esn = { reservoir-size = 40 }",
+            "{ name = \"lorenz-63\", sigma = 10.0, rho = 28.0, beta = 2.6666666666666665 }",
+            vec!["closures need two-scale Lorenz-96 data"],
+        ),
+    ];
+    for (model, system, needles) in cases {
+        let p = study(model, system);
+        expect_failure(dir.path(), &p, &needles);
+    }
 }

@@ -63,6 +63,14 @@ impl ClosureInputs {
         }
     }
 
+    /// Independent channels of a closure with memory: one per k for local inputs, one for global.
+    pub fn channels(&self, k: usize) -> usize {
+        match self {
+            ClosureInputs::Local { .. } => k,
+            ClosureInputs::Global => 1,
+        }
+    }
+
     /// Short description for reports.
     pub fn describe(&self) -> String {
         match self {
@@ -165,9 +173,156 @@ impl Closure for NoClosure {
     }
 }
 
+/// A learned map with memory: from a sequence of input rows to an output row, with independent
+/// channels that share the map (one per k for local closure inputs, one for global inputs).
+pub trait SequenceRegressor: Send + Sync {
+    /// Input length per row.
+    fn inputs(&self) -> usize;
+    /// Output length.
+    fn outputs(&self) -> usize;
+    /// Fresh memory (no past) for `channels` channels.
+    fn memory(&self, channels: usize) -> Box<dyn SequenceMemory + '_>;
+}
+
+/// The committed past of a [`SequenceRegressor`]'s channels.
+pub trait SequenceMemory {
+    /// The prediction for channel `c` from its committed rows followed by `z`, which is not
+    /// committed (the coarse solver asks at every RK stage).
+    fn predict(&mut self, c: usize, z: &[f64], out: &mut [f64]);
+    /// Appends the row `z` to channel `c`'s past (once per saved sample).
+    fn commit(&mut self, c: usize, z: &[f64]);
+}
+
+/// A closure with memory of the saved samples before the current one.
+///
+/// Inside the coarse solver, the stage at time τ in [t_j, t_{j+1}) gets Û = g(x_{j−m}, …,
+/// x_{j−1}, x(τ)): the committed samples before t_j and the stage state itself, so the closure
+/// still responds to the state at every RK stage; x_j is committed once the step to t_{j+1} is
+/// done. At τ = t_j this is exactly the training relation Û_j = g(x_{j−m}, …, x_j); later in the
+/// interval the memory lags by up to one sample interval (an O(Δ) timing error, Δ the sample
+/// interval, like any closure with memory advanced at the data's sampling rate).
+pub trait MemoryClosure: Send + Sync {
+    /// Fresh memory (no past).
+    fn start(&self) -> Box<dyn ClosureMemory + '_>;
+}
+
+/// Running memory of a [`MemoryClosure`].
+pub trait ClosureMemory {
+    /// Û for the stage state `x` given the committed samples.
+    fn coupling(&mut self, x: &[f64], out: &mut [f64]);
+    /// Commits the saved sample `x`.
+    fn commit(&mut self, x: &[f64]);
+}
+
+/// A [`SequenceRegressor`] used as a closure through [`ClosureInputs`] (one channel per k for
+/// local inputs).
+pub struct LearnedMemoryClosure {
+    pub regressor: Arc<dyn SequenceRegressor>,
+    pub inputs: ClosureInputs,
+    /// Resolved variables K.
+    pub k: usize,
+}
+
+impl MemoryClosure for LearnedMemoryClosure {
+    fn start(&self) -> Box<dyn ClosureMemory + '_> {
+        Box::new(LearnedMemory {
+            memory: self.regressor.memory(self.inputs.channels(self.k)),
+            inputs: self.inputs,
+            row: vec![0.0; self.inputs.input_len(self.k)],
+        })
+    }
+}
+
+struct LearnedMemory<'a> {
+    memory: Box<dyn SequenceMemory + 'a>,
+    inputs: ClosureInputs,
+    row: Vec<f64>,
+}
+
+impl ClosureMemory for LearnedMemory<'_> {
+    fn coupling(&mut self, x: &[f64], out: &mut [f64]) {
+        match self.inputs {
+            ClosureInputs::Global => self.memory.predict(0, x, out),
+            ClosureInputs::Local { half_width } => {
+                for (kk, o) in out.iter_mut().enumerate() {
+                    stencil(x, kk, half_width, &mut self.row);
+                    self.memory.predict(kk, &self.row, std::slice::from_mut(o));
+                }
+            }
+        }
+    }
+
+    fn commit(&mut self, x: &[f64]) {
+        match self.inputs {
+            ClosureInputs::Global => self.memory.commit(0, x),
+            ClosureInputs::Local { half_width } => {
+                for kk in 0..x.len() {
+                    stencil(x, kk, half_width, &mut self.row);
+                    self.memory.commit(kk, &self.row);
+                }
+            }
+        }
+    }
+}
+
+/// A closure as the coarse solver uses it: a function of the stage state, or one with memory.
+#[derive(Clone)]
+pub enum ClosureForm {
+    /// Û from the stage state (and time) alone.
+    Instant(Arc<dyn Closure>),
+    /// Û from the stage state and the saved samples before it.
+    Memory(Arc<dyn MemoryClosure>),
+}
+
+impl<C: Closure + 'static> From<Arc<C>> for ClosureForm {
+    fn from(c: Arc<C>) -> Self {
+        ClosureForm::Instant(c)
+    }
+}
+
+impl ClosureForm {
+    /// A running session: memory primed by every row of `history` but the last (the initial
+    /// condition, which is committed at the end of the first interval).
+    fn session(&self, history: ArrayView2<f64>) -> Session<'_> {
+        match self {
+            ClosureForm::Instant(c) => Session::Instant(c.as_ref()),
+            ClosureForm::Memory(m) => {
+                let mut memory = m.start();
+                let h = history.nrows();
+                for t in 0..h.saturating_sub(1) {
+                    memory.commit(&history.row(t).to_vec());
+                }
+                Session::Memory(memory)
+            }
+        }
+    }
+}
+
+enum Session<'a> {
+    Instant(&'a dyn Closure),
+    Memory(Box<dyn ClosureMemory + 'a>),
+}
+
+impl Session<'_> {
+    #[inline]
+    fn coupling(&mut self, t: f64, x: &[f64], out: &mut [f64]) {
+        match self {
+            Session::Instant(c) => c.coupling(t, x, out),
+            Session::Memory(m) => m.coupling(x, out),
+        }
+    }
+
+    #[inline]
+    fn commit(&mut self, x: &[f64]) {
+        if let Session::Memory(m) = self {
+            m.commit(x);
+        }
+    }
+}
+
 /// The coarse Lorenz-96 solver coupled to a closure; forecasts the resolved variables.
 pub struct CoupledModel {
-    pub closure: Arc<dyn Closure>,
+    pub closure: ClosureForm,
     /// Forcing F of the resolved equations.
     pub forcing: f64,
     /// Coarse RK4 step, model time units.
@@ -179,13 +334,13 @@ pub struct CoupledModel {
 impl CoupledModel {
     /// Checks that `sample_interval` is a whole number of coarse steps `dt`.
     pub fn new(
-        closure: Arc<dyn Closure>,
+        closure: impl Into<ClosureForm>,
         forcing: f64,
         dt: f64,
         sample_interval: f64,
     ) -> Result<Self, ModelError> {
         Ok(Self {
-            closure,
+            closure: closure.into(),
             forcing,
             dt,
             substeps: Self::substeps(dt, sample_interval)?,
@@ -210,11 +365,22 @@ impl CoupledModel {
         Ok(substeps as usize)
     }
 
-    /// Runs from `x0` for `samples` saved samples, calling `sink(k, x)` after each (k = 1…);
-    /// stops early when `sink` returns false. Non-finite states are passed on, never a panic.
-    pub fn run(&self, x0: &[f64], samples: usize, sink: &mut dyn FnMut(usize, &[f64]) -> bool) {
-        let k = x0.len();
-        let mut x = x0.to_vec();
+    /// Runs from the last row of `history` for `samples` saved samples, calling `sink(k, x)`
+    /// after each (k = 1…); the rows before it prime a closure's memory (see [`MemoryClosure`]).
+    /// Stops early when `sink` returns false. Non-finite states are passed on, never a panic.
+    pub fn run(
+        &self,
+        history: ArrayView2<f64>,
+        samples: usize,
+        sink: &mut dyn FnMut(usize, &[f64]) -> bool,
+    ) {
+        let Some(last) = history.nrows().checked_sub(1) else {
+            return;
+        };
+        let mut session = self.closure.session(history);
+        let k = history.ncols();
+        let mut x = history.row(last).to_vec();
+        let mut start = x.clone();
         let mut stage = vec![0.0; k];
         let mut u = vec![0.0; k];
         let mut k1 = vec![0.0; k];
@@ -222,9 +388,10 @@ impl CoupledModel {
         let mut k3 = vec![0.0; k];
         let mut k4 = vec![0.0; k];
         let h = self.dt;
-        let rhs = |t: f64, s: &[f64], u: &mut [f64], out: &mut [f64]| {
-            l96_tendency(s, self.forcing, out);
-            self.closure.coupling(t, s, u);
+        let forcing = self.forcing;
+        let rhs = |session: &mut Session, t: f64, s: &[f64], u: &mut [f64], out: &mut [f64]| {
+            l96_tendency(s, forcing, out);
+            session.coupling(t, s, u);
             for (o, c) in out.iter_mut().zip(u.iter()) {
                 *o += *c;
             }
@@ -233,24 +400,26 @@ impl CoupledModel {
         for sample in 1..=samples {
             for _ in 0..self.substeps {
                 let t = step as f64 * h;
-                rhs(t, &x, &mut u, &mut k1);
+                rhs(&mut session, t, &x, &mut u, &mut k1);
                 for i in 0..k {
                     stage[i] = x[i] + 0.5 * h * k1[i];
                 }
-                rhs(t + 0.5 * h, &stage, &mut u, &mut k2);
+                rhs(&mut session, t + 0.5 * h, &stage, &mut u, &mut k2);
                 for i in 0..k {
                     stage[i] = x[i] + 0.5 * h * k2[i];
                 }
-                rhs(t + 0.5 * h, &stage, &mut u, &mut k3);
+                rhs(&mut session, t + 0.5 * h, &stage, &mut u, &mut k3);
                 for i in 0..k {
                     stage[i] = x[i] + h * k3[i];
                 }
-                rhs(t + h, &stage, &mut u, &mut k4);
+                rhs(&mut session, t + h, &stage, &mut u, &mut k4);
                 for i in 0..k {
                     x[i] += h / 6.0 * (k1[i] + 2.0 * k2[i] + 2.0 * k3[i] + k4[i]);
                 }
                 step += 1;
             }
+            session.commit(&start);
+            start.copy_from_slice(&x);
             if !sink(sample, &x) {
                 return;
             }
@@ -266,21 +435,24 @@ impl Forecaster for CoupledModel {
         sink: &mut dyn FnMut(usize, &[f64]) -> bool,
     ) {
         super::ridge::clear_upper_simd_state();
-        let x0 = history.row(history.nrows() - 1).to_vec();
-        self.run(&x0, steps, sink);
+        self.run(history, steps, sink);
     }
 }
 
 /// R² of predicted coupling terms against the truth, pooled over variables and samples:
-/// 1 − Σ(Û − U)² / Σ(U − Ū)², Ū the pooled mean of the truth.
-pub fn offline_r2(closure: &dyn Closure, x: ArrayView2<f64>, u: ArrayView2<f64>) -> f64 {
+/// 1 − Σ(Û − U)² / Σ(U − Ū)², Ū the pooled mean of the truth. `x` and `u` are consecutive saved
+/// samples: a closure with memory is driven along them (cold at the first rows, as in a run
+/// without warm-up).
+pub fn offline_r2(closure: &ClosureForm, x: ArrayView2<f64>, u: ArrayView2<f64>) -> f64 {
     let (t_len, k) = x.dim();
     let mean = u.iter().sum::<f64>() / (t_len * k).max(1) as f64;
     let mut pred = vec![0.0; k];
     let (mut sse, mut sst) = (0.0, 0.0);
+    let mut session = closure.session(x.slice(ndarray::s![..0, ..]));
     for t in 0..t_len {
         let xr = x.row(t).to_vec();
-        closure.coupling(0.0, &xr, &mut pred);
+        session.coupling(0.0, &xr, &mut pred);
+        session.commit(&xr);
         for kk in 0..k {
             let e = pred[kk] - u[[t, kk]];
             sse += e * e;
@@ -313,12 +485,13 @@ pub struct FreeRunCheck {
     pub climate_distance: Option<f64>,
 }
 
-/// Runs `model` freely from each of `starts` for `samples` saved samples and compares the pooled
-/// distribution of the resolved variables with `truth_values` (pooled samples of the truth).
-/// `mean` and `sigma` define the blow-up bound (per variable).
+/// Runs `model` freely from each of `starts` (histories: the last row is the initial condition,
+/// the rows before it prime a closure's memory) for `samples` saved samples and compares the
+/// pooled distribution of the resolved variables with `truth_values` (pooled samples of the
+/// truth). `mean` and `sigma` define the blow-up bound (per variable).
 pub fn free_run_check(
     model: &CoupledModel,
-    starts: &[Vec<f64>],
+    starts: &[Array2<f64>],
     samples: usize,
     sample_interval: f64,
     truth_values: &[f64],
@@ -328,9 +501,9 @@ pub fn free_run_check(
     let mut pooled = Vec::new();
     let mut blow_up_times = Vec::new();
     for x0 in starts {
-        let mut run_values = Vec::with_capacity(samples * x0.len());
+        let mut run_values = Vec::with_capacity(samples * x0.ncols());
         let mut failed_at = None;
-        model.run(x0, samples, &mut |k, x| {
+        model.run(x0.view(), samples, &mut |k, x| {
             let bad = x.iter().zip(mean.iter().zip(sigma)).any(|(v, (m, s))| {
                 let excursion = (v - m).abs();
                 excursion.is_nan() || excursion > BLOW_UP_SIGMAS * s
@@ -458,7 +631,7 @@ mod tests {
         let si = 0.00125;
         let sim = two_scale(1200, 0.000125, si);
         let start = 50;
-        let x0 = sim.resolved.row(start).to_vec();
+        let x0 = sim.resolved.slice(ndarray::s![start..=start, ..]);
         let error_at = |coarse_dt: f64| {
             let oracle = Oracle {
                 u: sim
@@ -473,7 +646,7 @@ mod tests {
             let steps = (1.0 / (2.0 * coarse_dt)).round() as usize;
             let stride = (2.0 * coarse_dt / si).round() as usize;
             let mut err: f64 = 0.0;
-            model.run(&x0, steps, &mut |k, x| {
+            model.run(x0.view(), steps, &mut |k, x| {
                 let row = sim.resolved.row(start + k * stride);
                 for (a, b) in x.iter().zip(row) {
                     err = err.max((a - b).abs());
@@ -498,14 +671,17 @@ mod tests {
     fn dropping_the_coupling_term_loses_the_trajectory() {
         let sim = two_scale(800, 0.005, 0.01);
         let model = CoupledModel::new(Arc::new(NoClosure), 20.0, 0.005, 0.01).unwrap();
-        let x0 = sim.resolved.row(0).to_vec();
         let mut err: f64 = 0.0;
-        model.run(&x0, 200, &mut |k, x| {
-            for (a, b) in x.iter().zip(sim.resolved.row(k)) {
-                err = err.max((a - b).abs());
-            }
-            true
-        });
+        model.run(
+            sim.resolved.slice(ndarray::s![..1, ..]),
+            200,
+            &mut |k, x| {
+                for (a, b) in x.iter().zip(sim.resolved.row(k)) {
+                    err = err.max((a - b).abs());
+                }
+                true
+            },
+        );
         assert!(err > 1.0, "max error {err}");
     }
 
@@ -554,8 +730,10 @@ mod tests {
             let row = xs.row(t).to_vec();
             c.coupling(0.0, &row, us.row_mut(t).as_slice_mut().unwrap());
         }
+        let c = ClosureForm::from(Arc::new(c));
         assert!((offline_r2(&c, xs.view(), us.view()) - 1.0).abs() < 1e-12);
-        assert!(offline_r2(&NoClosure, xs.view(), us.view()) < 0.9);
+        let none = ClosureForm::from(Arc::new(NoClosure));
+        assert!(offline_r2(&none, xs.view(), us.view()) < 0.9);
     }
 
     /// Wasserstein-1 between point masses is the distance between them, and between a sample
@@ -575,7 +753,13 @@ mod tests {
         let sim = two_scale(2000, 0.005, 0.01);
         let truth: Vec<f64> = sim.resolved.iter().copied().collect();
         let (mean, sigma) = crate::data::column_stats(sim.resolved.view());
-        let starts: Vec<Vec<f64>> = (0..3).map(|i| sim.resolved.row(100 * i).to_vec()).collect();
+        let starts: Vec<Array2<f64>> = (0..3)
+            .map(|i| {
+                sim.resolved
+                    .slice(ndarray::s![100 * i..=100 * i, ..])
+                    .to_owned()
+            })
+            .collect();
         // A closure that pumps energy in (Û = +5 X) blows up; the truncated model stays bounded
         // but has a different climate.
         struct Pump;
@@ -594,6 +778,125 @@ mod tests {
         let c = free_run_check(&none, &starts, 1000, 0.01, &truth, &mean, &sigma);
         assert_eq!(c.stable_share, 1.0);
         assert!(c.climate_distance.unwrap() > 0.1, "{c:?}");
+    }
+
+    /// A memory closure is primed with the history before the initial condition, then commits
+    /// each saved sample's state once its interval is integrated, in order; stages see the
+    /// committed past only.
+    #[test]
+    fn memory_closures_commit_each_saved_sample_once_in_order() {
+        use std::sync::Mutex;
+        struct Recorder(Mutex<Vec<f64>>);
+        struct Rec<'a>(&'a Mutex<Vec<f64>>);
+        impl ClosureMemory for Rec<'_> {
+            fn coupling(&mut self, _x: &[f64], out: &mut [f64]) {
+                out.fill(0.0);
+            }
+            fn commit(&mut self, x: &[f64]) {
+                self.0.lock().unwrap().push(x[0]);
+            }
+        }
+        impl MemoryClosure for Recorder {
+            fn start(&self) -> Box<dyn ClosureMemory + '_> {
+                Box::new(Rec(&self.0))
+            }
+        }
+        let rec = Arc::new(Recorder(Mutex::new(Vec::new())));
+        let model = CoupledModel::new(ClosureForm::Memory(rec.clone()), 20.0, 0.005, 0.01).unwrap();
+        let sim = two_scale(20, 0.005, 0.01);
+        let history = sim.resolved.slice(ndarray::s![..3, ..]);
+        let mut states = vec![history[[0, 0]], history[[1, 0]], history[[2, 0]]];
+        model.run(history, 4, &mut |_, x| {
+            states.push(x[0]);
+            true
+        });
+        // History rows 0 and 1, then the start of each of the 4 intervals (row 2 and the states
+        // reached after intervals 1–3); the state after the last interval is not yet committed.
+        assert_eq!(*rec.0.lock().unwrap(), states[..6].to_vec());
+    }
+
+    /// An echo state network closure (local stencil, one reservoir state per k) learns the
+    /// coupling term with memory of the past resolved states: online it stays bounded and
+    /// follows the truth far longer than the truncated model, and offline it beats the
+    /// memoryless quartic polynomial fitted to the same samples (the coupling term depends on
+    /// the fast variables' recent history, not on X_k alone). Measured here: R² 0.885 against
+    /// 0.850 (asserted: a margin of 0.01), mean valid time 1.52 against 0.35 for the truncated
+    /// model (asserted: at least 1 and twice the truncated model's).
+    #[test]
+    fn echo_state_closure_with_memory_runs_online() {
+        let sim = two_scale(7000, 0.005, 0.01);
+        let u = sim.subgrid.clone().unwrap();
+        let (train, test) = (ndarray::s![..5000, ..], ndarray::s![5000.., ..]);
+        let inputs = ClosureInputs::Local { half_width: 1 };
+        let (rows_in, rows_out) = inputs.rows(sim.resolved.slice(train), u.slice(train));
+        let params = crate::models::esn::EsnParams {
+            reservoir_size: 100,
+            washout: 50,
+            ..Default::default()
+        }
+        .check()
+        .unwrap();
+        let (esn, _) = crate::models::esn::fit_sequence_nested(
+            &params,
+            rows_in.view(),
+            rows_out.view(),
+            8,
+            &[5000],
+            3,
+        )
+        .unwrap()
+        .remove(0);
+        let form = ClosureForm::Memory(Arc::new(LearnedMemoryClosure {
+            regressor: Arc::new(esn),
+            inputs,
+            k: 8,
+        }));
+        let r2_esn = offline_r2(&form, sim.resolved.slice(test), u.slice(test));
+        let quartic = crate::models::polynomial::PolynomialParams {
+            degree: 4,
+            ..Default::default()
+        }
+        .check()
+        .unwrap();
+        let (poly, _) = crate::models::polynomial::fit_local_closure(
+            &quartic,
+            sim.resolved.slice(train),
+            u.slice(train),
+        )
+        .unwrap();
+        let poly = LearnedClosure {
+            regressor: Arc::new(poly.polynomial().clone()),
+            inputs: ClosureInputs::Local { half_width: 0 },
+        };
+        let r2_poly = offline_r2(
+            &ClosureForm::from(Arc::new(poly)),
+            sim.resolved.slice(test),
+            u.slice(test),
+        );
+        assert!(r2_esn > r2_poly + 0.01, "ESN {r2_esn}, quartic {r2_poly}");
+        // Online: mean valid prediction time (normalised error threshold 0.5) from 8 warmed-up
+        // initial conditions in the test part; the truncated model is the floor.
+        let (mean, sigma) = crate::data::column_stats(sim.resolved.slice(train));
+        let spec = crate::skill::SkillSpec {
+            threshold: 0.5,
+            warm_up: 100,
+            max_lead: 300,
+            sample_interval: 0.01,
+            mean,
+            sigma,
+        };
+        let ics: Vec<usize> = (0..8).map(|i| 5200 + 200 * i).collect();
+        let mean_valid = |m: &CoupledModel| {
+            let v = crate::skill::valid_times(m, sim.resolved.view(), &ics, &spec);
+            v.iter().map(|s| s.valid_time).sum::<f64>() / v.len() as f64
+        };
+        let coupled = CoupledModel::new(form, 20.0, 0.005, 0.01).unwrap();
+        let truncated = CoupledModel::new(Arc::new(NoClosure), 20.0, 0.005, 0.01).unwrap();
+        let (t_esn, t_none) = (mean_valid(&coupled), mean_valid(&truncated));
+        assert!(
+            t_esn >= 1.0 && t_esn > 2.0 * t_none,
+            "ESN {t_esn}, none {t_none}"
+        );
     }
 
     #[test]

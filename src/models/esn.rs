@@ -10,6 +10,9 @@
 //! half of the units in the readout).
 
 mod batch;
+mod sequence;
+
+pub use sequence::{fit_sequence_nested, EsnSequence};
 
 use super::ridge::{fit_readout, NormalEquations, Penalty, RidgeSelection, BLOCK_ROWS};
 use super::{FitSummary, Forecaster, ModelError, RidgeScaling};

@@ -651,7 +651,10 @@ fn closures(out: &mut String, doc: &PlanDocument) {
          and long free runs from the first test initial conditions: the share that stayed \
          bounded and the Wasserstein-1 distance of the resolved variables' distribution to the \
          truth's (in standard deviations; 0 is a perfect climate). A closure can fit well \
-         offline and still drift or blow up online; this table is where that shows.</p>\n",
+         offline and still drift or blow up online; this table is where that shows. Closures \
+         with memory (echo state network, LSTM) see the saved samples before the current one \
+         as well as the state at each solver stage; their memory advances once per saved \
+         sample.</p>\n",
     );
     let hf = doc.data.as_ref().and_then(|d| d.high_fidelity);
     for m in closures {

@@ -53,6 +53,14 @@ impl ModelUse {
         matches!(self, ModelUse::Closure(_))
     }
 
+    /// The closure's inputs, for closures.
+    pub fn closure_inputs(&self) -> Option<ClosureInputs> {
+        match self {
+            ModelUse::Closure(inputs) => Some(*inputs),
+            ModelUse::Emulator => None,
+        }
+    }
+
     /// "emulator" or "closure".
     pub fn label(&self) -> &'static str {
         match self {
@@ -83,22 +91,27 @@ pub enum ModelKind {
 
 impl ModelKind {
     /// Why this family cannot serve as a closure, if it cannot.
-    pub fn closure_unsupported(&self) -> Option<&'static str> {
+    pub fn closure_unsupported(&self, inputs: ClosureInputs) -> Option<&'static str> {
         match self {
-            ModelKind::Esn(_) => Some(
-                "a closure must be a function of the coarse state at every RK stage; the echo state network carries internal memory — use it as an emulator",
-            ),
             ModelKind::Ngrc(p) if p.get().delays != 1 => Some(
-                "delays = 1 for an NG-RC closure: the coarse solver asks for the coupling term from the current state at every RK stage, with no past to delay",
+                "delays = 1 for an NG-RC closure: the coarse solver asks for the coupling term from the current state at every RK stage, with no past to delay (for memory, use an echo state network or LSTM closure)",
             ),
             ModelKind::Mlp(p) if p.get().window != 1 => Some(
-                "window = 1 for a feed-forward closure: the coarse solver asks for the coupling term from the current state at every RK stage",
+                "window = 1 for a feed-forward closure: the coarse solver asks for the coupling term from the current state at every RK stage (for memory, use an LSTM closure)",
             ),
-            ModelKind::Lstm(_) => Some(
-                "a closure must be a function of the coarse state at every RK stage; the LSTM carries internal memory — use it as an emulator",
+            ModelKind::Lstm(_) if inputs != ClosureInputs::Global => Some(
+                "inputs = \"global\" for an LSTM closure: it is trained on the windows of consecutive saved samples of all resolved variables",
             ),
-            ModelKind::Ngrc(_) | ModelKind::Mlp(_) | ModelKind::Polynomial(_) => None,
+            ModelKind::Esn(_) | ModelKind::Ngrc(_) | ModelKind::Mlp(_) | ModelKind::Lstm(_) | ModelKind::Polynomial(_) => None,
         }
+    }
+
+    /// Whether the family carries memory of past samples (as a closure: a [`MemoryClosure`],
+    /// whose memory advances once per saved sample).
+    ///
+    /// [`MemoryClosure`]: crate::models::closure::MemoryClosure
+    pub fn has_memory(&self) -> bool {
+        matches!(self, ModelKind::Esn(_) | ModelKind::Lstm(_))
     }
 
     /// Short label of the family.
@@ -441,10 +454,13 @@ fn check(
             }
         };
         if usage.is_closure() {
-            if let Some(reason) = kind.closure_unsupported() {
+            if let Some(reason) = usage
+                .closure_inputs()
+                .and_then(|inputs| kind.closure_unsupported(inputs))
+            {
                 return Err(invalid(
                     &format!("{key}.role"),
-                    format!("closure with a {}", kind.label()),
+                    format!("closure ({})", kind.label()),
                     reason,
                 ));
             }

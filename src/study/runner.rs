@@ -680,6 +680,10 @@ fn model_result(
         kind: model.kind.label().into(),
         role: model.usage.label().into(),
         closure_inputs: match model.usage {
+            ModelUse::Closure(inputs) if model.kind.has_memory() => Some(format!(
+                "{}; with memory of past saved samples",
+                inputs.describe()
+            )),
             ModelUse::Closure(inputs) => Some(inputs.describe()),
             ModelUse::Emulator => None,
         },
@@ -940,7 +944,8 @@ fn estimate(
 struct ClosureReference {
     x: ndarray::Array2<f64>,
     u: ndarray::Array2<f64>,
-    starts: Vec<Vec<f64>>,
+    /// Free-run starts: the warm-up rows before an initial condition, then the condition.
+    starts: Vec<ndarray::Array2<f64>>,
     truth_values: Vec<f64>,
     samples: usize,
     sample_interval: f64,
@@ -949,14 +954,14 @@ struct ClosureReference {
 }
 
 impl ClosureReference {
-    /// At most this many held-out samples enter the offline R² (evenly strided).
+    /// At most this many held-out samples enter the offline R² (consecutive, after the pool).
     const OFFLINE_SAMPLES: usize = 4000;
 
     fn new(prep: &Prepared, closure: &super::plan::ClosurePlan) -> Self {
         let first = prep.split.pool.end + prep.split.spec.gap;
         let total = prep.traj.samples();
-        let stride = ((total - first) / Self::OFFLINE_SAMPLES).max(1);
-        let rows = ndarray::s![first..total;stride, ..];
+        // Consecutive samples, so closures with memory are driven along the true trajectory.
+        let rows = ndarray::s![first..total.min(first + Self::OFFLINE_SAMPLES), ..];
         let u = prep
             .traj
             .subgrid
@@ -970,7 +975,13 @@ impl ClosureReference {
             .initial_conditions
             .iter()
             .take(closure.free_runs)
-            .map(|&ic| prep.traj.values.row(ic).to_vec())
+            .map(|&ic| {
+                let w = prep.skill.warm_up;
+                prep.traj
+                    .values
+                    .slice(ndarray::s![ic - w..=ic, ..])
+                    .to_owned()
+            })
             .collect();
         let truth_values = prep
             .traj
@@ -993,7 +1004,7 @@ impl ClosureReference {
     }
 
     fn check(&self, coupled: &CoupledModel) -> ClosureChecks {
-        let offline_r2 = offline_r2(coupled.closure.as_ref(), self.x.view(), self.u.view());
+        let offline_r2 = offline_r2(&coupled.closure, self.x.view(), self.u.view());
         let started = Instant::now();
         let free_run = free_run_check(
             coupled,

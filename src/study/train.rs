@@ -4,7 +4,9 @@
 //! both the same way.
 
 use super::plan::{ModelKind, ModelPlan, ModelUse};
-use crate::models::closure::{ClosureInputs, CoupledModel, LearnedClosure, Regressor};
+use crate::models::closure::{
+    ClosureForm, CoupledModel, LearnedClosure, LearnedMemoryClosure, Regressor, SequenceRegressor,
+};
 use crate::models::{esn, ngrc, nn, polynomial, FitSummary, Forecaster, ModelError};
 use ndarray::ArrayView2;
 use std::sync::Arc;
@@ -43,27 +45,65 @@ pub fn train_unit(
         ModelUse::Closure(inputs) => {
             let u = u.expect("closure plans are checked to have coupling data");
             let coupling = coupling.expect("closure plans are checked to have a coarse solver");
-            sizes
-                .iter()
-                .map(|&n| {
-                    let (xs, us) = (x.slice(ndarray::s![..n, ..]), u.slice(ndarray::s![..n, ..]));
-                    let (rows_in, rows_out) = inputs.rows(xs, us);
-                    let (regressor, mut summary) =
-                        fit_regressor(model, inputs, rows_in.view(), rows_out.view(), seed)?;
-                    summary.n = n;
-                    let coupled = Arc::new(CoupledModel::new(
-                        Arc::new(LearnedClosure { regressor, inputs }),
-                        coupling.forcing,
-                        coupling.coarse_dt,
-                        coupling.sample_interval,
-                    )?);
-                    Ok(Fitted {
-                        summary,
-                        forecaster: coupled.clone(),
-                        coupled: Some(coupled),
-                    })
+            let couple = |form: ClosureForm, summary: FitSummary| -> Result<Fitted, ModelError> {
+                let coupled = Arc::new(CoupledModel::new(
+                    form,
+                    coupling.forcing,
+                    coupling.coarse_dt,
+                    coupling.sample_interval,
+                )?);
+                Ok(Fitted {
+                    summary,
+                    forecaster: coupled.clone(),
+                    coupled: Some(coupled),
                 })
-                .collect()
+            };
+            let k = x.ncols();
+            let memory = |regressor: Arc<dyn SequenceRegressor>| {
+                ClosureForm::Memory(Arc::new(LearnedMemoryClosure {
+                    regressor,
+                    inputs,
+                    k,
+                }))
+            };
+            let largest = *sizes.last().ok_or(ModelError::NoSizes)?;
+            let prefix = ndarray::s![..largest.min(x.nrows()), ..];
+            match &model.kind {
+                ModelKind::Esn(p) => {
+                    let (rows_in, rows_out) = inputs.rows(x.slice(prefix), u.slice(prefix));
+                    let channels = inputs.channels(k);
+                    esn::fit_sequence_nested(
+                        p,
+                        rows_in.view(),
+                        rows_out.view(),
+                        channels,
+                        sizes,
+                        seed,
+                    )?
+                    .into_iter()
+                    .map(|(m, summary)| couple(memory(Arc::new(m)), summary))
+                    .collect()
+                }
+                ModelKind::Lstm(p) => nn::fit_lstm_sequence(p, x, u, sizes, seed)?
+                    .into_iter()
+                    .map(|(m, summary)| couple(memory(Arc::new(m)), summary))
+                    .collect(),
+                _ => sizes
+                    .iter()
+                    .map(|&n| {
+                        let (xs, us) =
+                            (x.slice(ndarray::s![..n, ..]), u.slice(ndarray::s![..n, ..]));
+                        let (rows_in, rows_out) = inputs.rows(xs, us);
+                        let (regressor, mut summary) =
+                            fit_regressor(model, rows_in.view(), rows_out.view(), seed)?;
+                        summary.n = n;
+                        couple(
+                            ClosureForm::Instant(Arc::new(LearnedClosure { regressor, inputs })),
+                            summary,
+                        )
+                    })
+                    .collect(),
+            }
         }
     }
 }
@@ -92,10 +132,9 @@ fn emulator(
     })
 }
 
-/// Fits the closure's regression from stencil (or global) inputs to coupling terms.
+/// Fits a memoryless closure's regression from stencil (or global) inputs to coupling terms.
 fn fit_regressor(
     model: &ModelPlan,
-    _inputs: ClosureInputs,
     rows_in: ArrayView2<f64>,
     rows_out: ArrayView2<f64>,
     seed: u64,
@@ -131,15 +170,9 @@ fn fit_regressor(
                 },
             ))
         }
-        ModelKind::Esn(_) | ModelKind::Lstm(_) => Err(ModelError::InvalidParameter {
-            key: "role".into(),
-            value: "closure".into(),
-            allowed: model
-                .kind
-                .closure_unsupported()
-                .unwrap_or("emulator")
-                .into(),
-        }),
+        ModelKind::Esn(_) | ModelKind::Lstm(_) => {
+            unreachable!("models with memory are fitted as sequence regressions")
+        }
     }
 }
 

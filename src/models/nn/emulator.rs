@@ -43,7 +43,11 @@ impl LstmEmulator {
 }
 
 /// Checks the sizes and returns the smallest subset that leaves enough pairs.
-fn check_sizes(train: ArrayView2<f64>, sizes: &[usize], window: usize) -> Result<(), ModelError> {
+pub(super) fn check_sizes(
+    train: ArrayView2<f64>,
+    sizes: &[usize],
+    window: usize,
+) -> Result<(), ModelError> {
     if sizes.is_empty() {
         return Err(ModelError::NoSizes);
     }

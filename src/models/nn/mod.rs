@@ -15,11 +15,13 @@ mod kernels;
 mod lstm;
 mod mlp;
 mod optim;
+mod sequence;
 mod train;
 
 pub use emulator::{fit_lstm_emulator, fit_mlp_emulator, LstmEmulator, MlpEmulator};
 pub use lstm::{train_lstm, Lstm, LstmScratch};
 pub use mlp::{train_mlp, Mlp, MlpScratch};
+pub use sequence::{fit_lstm_sequence, LstmSequence};
 pub use train::{TrainReport, CHUNK_ROWS};
 
 use super::ModelError;
