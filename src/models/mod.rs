@@ -6,6 +6,7 @@
 pub mod climatology;
 pub mod closure;
 pub mod esn;
+pub mod finetune;
 pub mod ngrc;
 pub mod nn;
 pub mod polynomial;

@@ -18,7 +18,10 @@ mod optim;
 mod sequence;
 mod train;
 
-pub use emulator::{fit_lstm_emulator, fit_mlp_emulator, LstmEmulator, MlpEmulator};
+pub use emulator::{
+    fine_tune_lstm_emulator, fine_tune_mlp_emulator, fit_lstm_emulator, fit_mlp_emulator,
+    LstmEmulator, MlpEmulator,
+};
 pub use lstm::{train_lstm, Lstm, LstmScratch};
 pub use mlp::{train_mlp, Mlp, MlpScratch};
 pub use sequence::{fit_lstm_sequence, LstmSequence};
