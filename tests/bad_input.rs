@@ -453,7 +453,10 @@ core-hours-per-time-unit = 10.0
         (
             "half-width = 1\nlstm = { hidden = 8 }",
             TWO_SCALE,
-            vec!["`model[0].role` = closure (LSTM network)", "inputs = \"global\" for an LSTM closure"],
+            vec![
+                "`model[0].role` = closure (LSTM network)",
+                "inputs = \"global\" for an LSTM closure",
+            ],
         ),
         (
             "ngrc = { delays = 2 }",

@@ -296,6 +296,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
         .unwrap_or_default();
     let fitting = started.elapsed().as_secs_f64();
     Ok(PlanDocument {
+        transfer: None,
         schema: PLAN_SCHEMA.into(),
         tool_version: env!("CARGO_PKG_VERSION").into(),
         study: StudyInfo {

@@ -175,6 +175,33 @@ pub struct StudyPlan {
     pub trust_factor: f64,
     pub fit_scale: crate::curves::FitScale,
     pub cost: CostInputs,
+    /// Fine-tuning for a new regime, when the study asks for it.
+    pub transfer: Option<TransferPlan>,
+}
+
+/// What the new regime's targets are.
+#[derive(Debug, Clone, PartialEq)]
+pub enum TransferGoal {
+    /// Mean valid times in the new regime, model time units (ascending).
+    Absolute(Vec<f64>),
+    /// Fractions of what each base model reaches in its own regime at the largest pilot size
+    /// (ascending).
+    FractionOfBase(Vec<f64>),
+}
+
+/// A checked `[transfer]` section.
+#[derive(Debug, Clone)]
+pub struct TransferPlan {
+    pub data: DataSource,
+    /// Fine-tuning sizes k (ascending).
+    pub sizes: Vec<usize>,
+    pub replicates: usize,
+    pub goal: TransferGoal,
+    /// Indices into [`StudyPlan::models`] (emulators only).
+    pub models: Vec<usize>,
+    pub fine_tune: crate::models::finetune::ValidFineTuneParams,
+    /// Cost inputs of the new regime: `[cost]` with `[transfer.cost]` laid over it.
+    pub cost: CostInputs,
 }
 
 /// Reads and checks a study file. Nothing is written.
@@ -219,43 +246,7 @@ fn check(
     };
 
     // Subset sizes.
-    let sizes = match (&f.subsets.sizes, &f.subsets.geometric) {
-        (Some(s), None) => s.clone(),
-        (None, Some(g)) => {
-            if g.count < 2 || g.smallest == 0 || g.largest <= g.smallest {
-                return Err(invalid(
-                    "subsets.geometric",
-                    format!(
-                        "smallest {} largest {} count {}",
-                        g.smallest, g.largest, g.count
-                    ),
-                    "0 < smallest < largest and count >= 2",
-                ));
-            }
-            geometric_sizes(g.smallest, g.largest, g.count)
-        }
-        _ => {
-            return Err(invalid(
-                "subsets",
-                "both or neither of `sizes` and `geometric`".into(),
-                "exactly one of `sizes = [..]` or `geometric = { smallest, largest, count }`",
-            ))
-        }
-    };
-    if sizes.len() < 3 {
-        return Err(invalid(
-            "subsets.sizes",
-            format!("{sizes:?}"),
-            "at least 3 distinct sizes (a learning curve needs more points than parameters)",
-        ));
-    }
-    if sizes.windows(2).any(|w| w[1] <= w[0]) || sizes[0] < 2 {
-        return Err(invalid(
-            "subsets.sizes",
-            format!("{sizes:?}"),
-            "strictly increasing whole numbers of samples, each at least 2",
-        ));
-    }
+    let sizes = sizes_from(&f.subsets.sizes, &f.subsets.geometric, "subsets", &invalid)?;
     if f.subsets.replicates == 0 || f.subsets.replicates > 1000 {
         return Err(invalid(
             "subsets.replicates",
@@ -266,69 +257,7 @@ fn check(
     let largest = *sizes.last().expect("checked non-empty");
 
     // Data.
-    let data = match f.data {
-        DataSection {
-            simulate: Some(s),
-            file: None,
-        } => {
-            s.system
-                .validate()
-                .map_err(|e| invalid("data.simulate.system", e.to_string(), "see the message"))?;
-            positive("data.simulate.dt", s.dt)?;
-            positive("data.simulate.sample-interval", s.sample_interval)?;
-            let ratio = s.sample_interval / s.dt;
-            if (ratio - ratio.round()).abs() > 1e-9 * ratio.max(1.0) || ratio.round() < 1.0 {
-                return Err(invalid(
-                    "data.simulate.sample-interval",
-                    s.sample_interval.to_string(),
-                    "a whole multiple of `dt`",
-                ));
-            }
-            if !(s.spin_up.is_finite() && s.spin_up >= 0.0) {
-                return Err(invalid(
-                    "data.simulate.spin-up",
-                    s.spin_up.to_string(),
-                    "zero or a positive number",
-                ));
-            }
-            let training_pool = s.training_pool.unwrap_or(largest + largest / 5);
-            if training_pool < largest {
-                return Err(invalid(
-                    "data.simulate.training-pool",
-                    training_pool.to_string(),
-                    &format!("at least the largest subset size ({largest})"),
-                ));
-            }
-            DataSource::Simulate {
-                system: s.system,
-                dt: s.dt,
-                sample_interval: s.sample_interval,
-                spin_up: s.spin_up,
-                training_pool,
-                seed: s.seed.unwrap_or(f.seed),
-            }
-        }
-        DataSection {
-            simulate: None,
-            file: Some(file),
-        } => {
-            if let Some(dt) = file.sample_interval {
-                positive("data.file.sample-interval", dt)?;
-            }
-            let base = path.parent().unwrap_or(Path::new("."));
-            DataSource::File {
-                path: base.join(&file.path),
-                sample_interval: file.sample_interval,
-            }
-        }
-        _ => {
-            return Err(invalid(
-                "data",
-                "both or neither of [data.simulate] and [data.file]".into(),
-                "exactly one of the tables [data.simulate] or [data.file]",
-            ))
-        }
-    };
+    let data = data_source(f.data, "data", largest, f.seed, path, &invalid)?;
 
     // Split and skill.
     if f.split.initial_conditions == 0 || f.split.initial_conditions > 100_000 {
@@ -537,6 +466,20 @@ fn check(
         .check(1, 1.0)
         .map_err(|e| invalid("cost", e.to_string(), "see the message"))?;
 
+    let transfer = match f.transfer {
+        Some(t) => Some(check_transfer(
+            t,
+            &f.cost,
+            &models,
+            &data,
+            f.seed,
+            f.subsets.replicates,
+            path,
+            &invalid,
+        )?),
+        None => None,
+    };
+
     Ok(StudyPlan {
         name,
         title: f
@@ -566,6 +509,273 @@ fn check(
         trust_factor: f.plan.trust_factor,
         fit_scale: f.plan.fit_scale,
         cost: f.cost,
+        transfer,
+    })
+}
+
+type Invalid<'a> = dyn Fn(&str, String, &str) -> StudyError + 'a;
+
+/// Sizes from an explicit list or a geometric range (`key`: the table, for messages).
+fn sizes_from(
+    sizes: &Option<Vec<usize>>,
+    geometric: &Option<super::schema::GeometricSizes>,
+    key: &str,
+    invalid: &Invalid,
+) -> Result<Vec<usize>, StudyError> {
+    let sizes = match (sizes, geometric) {
+        (Some(s), None) => s.clone(),
+        (None, Some(g)) => {
+            if g.count < 2 || g.smallest == 0 || g.largest <= g.smallest {
+                return Err(invalid(
+                    &format!("{key}.geometric"),
+                    format!(
+                        "smallest {} largest {} count {}",
+                        g.smallest, g.largest, g.count
+                    ),
+                    "0 < smallest < largest and count >= 2",
+                ));
+            }
+            geometric_sizes(g.smallest, g.largest, g.count)
+        }
+        _ => {
+            return Err(invalid(
+                key,
+                "both or neither of `sizes` and `geometric`".into(),
+                "exactly one of `sizes = [..]` or `geometric = { smallest, largest, count }`",
+            ))
+        }
+    };
+    if sizes.len() < 3 {
+        return Err(invalid(
+            &format!("{key}.sizes"),
+            format!("{sizes:?}"),
+            "at least 3 distinct sizes (a learning curve needs more points than parameters)",
+        ));
+    }
+    if sizes.windows(2).any(|w| w[1] <= w[0]) || sizes[0] < 2 {
+        return Err(invalid(
+            &format!("{key}.sizes"),
+            format!("{sizes:?}"),
+            "strictly increasing whole numbers of samples, each at least 2",
+        ));
+    }
+    Ok(sizes)
+}
+
+/// The data source of a `[data]`-shaped table (`key`: its name, for messages).
+fn data_source(
+    section: DataSection,
+    key: &str,
+    largest: usize,
+    seed: u64,
+    path: &Path,
+    invalid: &Invalid,
+) -> Result<DataSource, StudyError> {
+    let positive = |k: &str, v: f64| {
+        if v.is_finite() && v > 0.0 {
+            Ok(v)
+        } else {
+            Err(invalid(k, v.to_string(), "a positive number"))
+        }
+    };
+    Ok(match section {
+        DataSection {
+            simulate: Some(s),
+            file: None,
+        } => {
+            s.system.validate().map_err(|e| {
+                invalid(
+                    &format!("{key}.simulate.system"),
+                    e.to_string(),
+                    "see the message",
+                )
+            })?;
+            positive(&format!("{key}.simulate.dt"), s.dt)?;
+            positive(
+                &format!("{key}.simulate.sample-interval"),
+                s.sample_interval,
+            )?;
+            let ratio = s.sample_interval / s.dt;
+            if (ratio - ratio.round()).abs() > 1e-9 * ratio.max(1.0) || ratio.round() < 1.0 {
+                return Err(invalid(
+                    &format!("{key}.simulate.sample-interval"),
+                    s.sample_interval.to_string(),
+                    "a whole multiple of `dt`",
+                ));
+            }
+            if !(s.spin_up.is_finite() && s.spin_up >= 0.0) {
+                return Err(invalid(
+                    &format!("{key}.simulate.spin-up"),
+                    s.spin_up.to_string(),
+                    "zero or a positive number",
+                ));
+            }
+            let training_pool = s.training_pool.unwrap_or(largest + largest / 5);
+            if training_pool < largest {
+                return Err(invalid(
+                    &format!("{key}.simulate.training-pool"),
+                    training_pool.to_string(),
+                    &format!("at least the largest size ({largest})"),
+                ));
+            }
+            DataSource::Simulate {
+                system: s.system,
+                dt: s.dt,
+                sample_interval: s.sample_interval,
+                spin_up: s.spin_up,
+                training_pool,
+                seed: s.seed.unwrap_or(seed),
+            }
+        }
+        DataSection {
+            simulate: None,
+            file: Some(file),
+        } => {
+            if let Some(dt) = file.sample_interval {
+                positive(&format!("{key}.file.sample-interval"), dt)?;
+            }
+            let base = path.parent().unwrap_or(Path::new("."));
+            DataSource::File {
+                path: base.join(&file.path),
+                sample_interval: file.sample_interval,
+            }
+        }
+        _ => {
+            return Err(invalid(
+                key,
+                format!("both or neither of [{key}.simulate] and [{key}.file]"),
+                &format!("exactly one of the tables [{key}.simulate] or [{key}.file]"),
+            ))
+        }
+    })
+}
+
+/// Checks `[transfer]` against the rest of the study.
+#[allow(clippy::too_many_arguments)]
+fn check_transfer(
+    t: super::schema::TransferSection,
+    base_cost: &CostInputs,
+    models: &[ModelPlan],
+    base_data: &DataSource,
+    seed: u64,
+    base_replicates: usize,
+    path: &Path,
+    invalid: &Invalid,
+) -> Result<TransferPlan, StudyError> {
+    let sizes = sizes_from(&t.sizes, &t.geometric, "transfer", invalid)?;
+    let largest = *sizes.last().expect("checked non-empty");
+    let replicates = t.replicates.unwrap_or(base_replicates);
+    if !(1..=1000).contains(&replicates) {
+        return Err(invalid(
+            "transfer.replicates",
+            replicates.to_string(),
+            "1 to 1000",
+        ));
+    }
+    let values = |key: &str, v: &[f64], upper: Option<f64>| -> Result<Vec<f64>, StudyError> {
+        let mut v = v.to_vec();
+        if v.is_empty()
+            || v.iter()
+                .any(|x| !(x.is_finite() && *x > 0.0 && upper.is_none_or(|u| *x <= u)))
+        {
+            return Err(invalid(
+                key,
+                format!("{v:?}"),
+                if upper.is_some() {
+                    "one or more fractions greater than 0 and at most 1"
+                } else {
+                    "one or more positive valid times (model time units)"
+                },
+            ));
+        }
+        v.sort_by(f64::total_cmp);
+        v.dedup();
+        Ok(v)
+    };
+    let goal = match (&t.targets, &t.fraction_of_base) {
+        (Some(v), None) => TransferGoal::Absolute(values("transfer.targets", v, None)?),
+        (None, Some(v)) => {
+            TransferGoal::FractionOfBase(values("transfer.fraction-of-base", v, Some(1.0))?)
+        }
+        _ => {
+            return Err(invalid(
+                "transfer",
+                "both or neither of `targets` and `fraction-of-base`".into(),
+                "exactly one of `targets = [..]` (valid times in the new regime) or `fraction-of-base = [..]`",
+            ))
+        }
+    };
+    let chosen: Vec<usize> = match &t.models {
+        None => (0..models.len())
+            .filter(|&i| !models[i].usage.is_closure())
+            .collect(),
+        Some(names) => names
+            .iter()
+            .map(|n| match models.iter().position(|m| &m.name == n) {
+                Some(i) if !models[i].usage.is_closure() => Ok(i),
+                Some(_) => Err(invalid(
+                    "transfer.models",
+                    format!("'{n}'"),
+                    "emulators only: fine-tuning closures is not supported yet",
+                )),
+                None => Err(invalid(
+                    "transfer.models",
+                    format!("'{n}'"),
+                    "names of [[model]] tables",
+                )),
+            })
+            .collect::<Result<_, _>>()?,
+    };
+    if chosen.is_empty() {
+        return Err(invalid(
+            "transfer.models",
+            "no emulators".into(),
+            "at least one emulator (role = \"emulator\") to transfer",
+        ));
+    }
+    let fine_tune = t
+        .fine_tune
+        .check()
+        .map_err(|e| invalid("transfer.fine-tune", e.to_string(), "see the message"))?;
+    let data = data_source(t.data, "transfer.data", largest, seed, path, invalid)?;
+    if let (DataSource::Simulate { system: a, .. }, DataSource::Simulate { system: b, .. }) =
+        (base_data, &data)
+    {
+        if a.resolved_dim() != b.resolved_dim() {
+            return Err(invalid(
+                "transfer.data.simulate.system",
+                format!("{} resolved variables", b.resolved_dim()),
+                &format!(
+                    "the pilot's {} resolved variables: a model transfers between regimes of one system",
+                    a.resolved_dim()
+                ),
+            ));
+        }
+    }
+    let cost = match t.cost {
+        None => base_cost.clone(),
+        Some(overrides) => {
+            let mut table = toml::Table::try_from(base_cost)
+                .map_err(|e| invalid("cost", e.to_string(), "see the message"))?;
+            for (k, v) in overrides {
+                table.insert(k, v);
+            }
+            let cost: CostInputs = table
+                .try_into()
+                .map_err(|e| invalid("transfer.cost", e.to_string(), "keys of [cost]"))?;
+            cost.check(1, 1.0)
+                .map_err(|e| invalid("transfer.cost", e.to_string(), "see the message"))?;
+            cost
+        }
+    };
+    Ok(TransferPlan {
+        data,
+        sizes,
+        replicates,
+        goal,
+        models: chosen,
+        fine_tune,
+        cost,
     })
 }
 

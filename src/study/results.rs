@@ -43,6 +43,81 @@ pub struct PlanDocument {
     pub campaign: Option<crate::cost::campaign::Campaign>,
     pub warnings: Vec<String>,
     pub timings: Timings,
+    /// Fine-tuning for a new regime; absent when the study has no `[transfer]`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub transfer: Option<TransferResult>,
+}
+
+/// The new regime: its data, floors and cost, and per model the zero-shot gap and the two
+/// curves over the fine-tuning size k (from scratch and fine-tuned from the base).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct TransferResult {
+    /// The target regime's data (its own test initial conditions and σ).
+    pub data: DataInfo,
+    /// Fine-tuning sizes k in target-regime samples.
+    pub sizes: Vec<usize>,
+    pub replicates: usize,
+    /// "absolute" or "fraction-of-base".
+    pub goal: String,
+    /// The goal's values: valid times, or fractions of each base model's own-regime skill.
+    pub goal_values: Vec<f64>,
+    /// Fine-tuning settings as used.
+    pub fine_tune: serde_json::Value,
+    /// Persistence in the new regime.
+    pub persistence: SkillSummary,
+    /// Cost model of the new regime.
+    pub cost: Option<CostModel>,
+    pub campaign: Option<crate::cost::campaign::Campaign>,
+    pub models: Vec<TransferModel>,
+}
+
+/// One model's transfer to the new regime.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct TransferModel {
+    pub name: String,
+    pub kind: String,
+    /// Pilot samples the base model was trained on (the largest pilot size).
+    pub base_samples: usize,
+    /// Mean valid time of the base model in its own regime (the pilot's test initial
+    /// conditions), over replicates.
+    pub base_skill: f64,
+    /// Mean valid time of the same base model on the new regime's test initial conditions,
+    /// per replicate and over replicates.
+    pub zero_shot_replicates: Vec<f64>,
+    pub zero_shot: f64,
+    /// Generalisation gap: `base-skill` − `zero-shot`.
+    pub gap: f64,
+    /// Targets in the new regime (valid times), resolved from the goal.
+    pub targets: Vec<f64>,
+    /// Trained on the first k new-regime samples only.
+    pub scratch: ModelResult,
+    /// The base model adapted with the first k new-regime samples.
+    pub fine_tuned: ModelResult,
+    /// Per target: samples and core-hours transfer saves.
+    pub savings: Vec<TransferSaving>,
+}
+
+/// What fine-tuning saves against training from scratch, for one target.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct TransferSaving {
+    pub target: f64,
+    /// k* fine-tuned and from scratch (`None`: no estimate, see the statuses).
+    pub fine_tuned_samples: Option<f64>,
+    pub scratch_samples: Option<f64>,
+    pub fine_tuned_status: EstimateStatus,
+    pub scratch_status: EstimateStatus,
+    /// k*(scratch) − k*(fine-tuned).
+    pub samples_saved: Option<f64>,
+    /// Conservative interval of the saving: scratch's lower end minus fine-tuned's upper end,
+    /// and scratch's upper end minus fine-tuned's lower end (`None`: unbounded side).
+    pub samples_saved_interval: [Option<f64>; 2],
+    /// Core-hours at k*(scratch) minus at k*(fine-tuned), in the new regime's cost model.
+    pub core_hours_saved: Option<f64>,
+    pub core_hours_saved_interval: [Option<f64>; 2],
+    pub note: String,
 }
 
 impl PlanDocument {
@@ -56,7 +131,17 @@ impl PlanDocument {
                 h.seconds_per_time_unit = 0.0;
             }
         }
-        for m in &mut self.models {
+        if let Some(t) = &mut self.transfer {
+            if let Some(h) = &mut t.data.high_fidelity {
+                h.seconds_per_time_unit = 0.0;
+            }
+        }
+        let transfer_models = self.transfer.iter_mut().flat_map(|t| {
+            t.models
+                .iter_mut()
+                .flat_map(|m| [&mut m.scratch, &mut m.fine_tuned])
+        });
+        for m in self.models.iter_mut().chain(transfer_models) {
             for p in &mut m.points {
                 p.train_seconds = 0.0;
                 p.forecast_seconds_per_step = 0.0;

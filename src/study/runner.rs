@@ -549,6 +549,7 @@ fn run_in_pool(
         cost: Some(prep.cost.summary()),
         campaign: Some(prep.cost.clone()),
         warnings,
+        transfer: None,
         timings: Timings {
             total: started.elapsed().as_secs_f64(),
             ..timings

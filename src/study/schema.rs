@@ -30,6 +30,36 @@ pub struct StudyFile {
     pub closure: ClosureSection,
     pub plan: PlanSection,
     pub cost: CostInputs,
+    /// A new regime to transfer to (optional).
+    pub transfer: Option<TransferSection>,
+}
+
+/// `[transfer]`: fine-tuning for a new regime (stronger forcing, higher Reynolds number).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct TransferSection {
+    /// The target regime's data: `[transfer.data.simulate]` or `[transfer.data.file]`, with the
+    /// same keys as `[data]`.
+    pub data: DataSection,
+    /// Fine-tuning sizes k in target-regime samples (ascending).
+    pub sizes: Option<Vec<usize>>,
+    /// Or a geometric range.
+    pub geometric: Option<GeometricSizes>,
+    /// Replicates per k (default: the study's `subsets.replicates`).
+    pub replicates: Option<usize>,
+    /// Target mean valid times in the new regime, model time units.
+    pub targets: Option<Vec<f64>>,
+    /// Or targets as fractions of what each base model reaches in its own regime.
+    pub fraction_of_base: Option<Vec<f64>>,
+    /// Models to transfer (names of emulators); default: every emulator.
+    pub models: Option<Vec<String>>,
+    /// How base models are adapted.
+    #[serde(default)]
+    pub fine_tune: crate::models::finetune::FineTuneParams,
+    /// Cost keys that differ in the new regime (any key of `[cost]`, e.g. a dearer
+    /// `core-hours-per-time-unit`, or `scaling-law` with `pilot-reynolds` and `target-reynolds`);
+    /// the rest is taken from `[cost]`.
+    pub cost: Option<toml::Table>,
 }
 
 /// `[data]`: exactly one of `[data.simulate]` and `[data.file]`.
