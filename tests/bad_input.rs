@@ -215,7 +215,7 @@ fn simulated_file_round_trip_through_a_file_study() {
         &[
             "simulate",
             "--system",
-            "{ name = \"lorenz-63\", sigma = 10.0, rho = 28.0, beta = 2.6666666666666665 }",
+            "lorenz-63",
             "--samples",
             "3000",
             "--sample-interval",
@@ -263,7 +263,7 @@ fn lyapunov_command_prints_the_exponent() {
         .args([
             "lyapunov",
             "--system",
-            "{ name = \"lorenz-63\", sigma = 10.0, rho = 28.0, beta = 2.6666666666666665 }",
+            "lorenz-63",
             "--duration",
             "200",
             "--json",
@@ -478,4 +478,56 @@ core-hours-per-time-unit = 10.0
         let p = study(model, system);
         expect_failure(dir.path(), &p, &needles);
     }
+}
+
+/// A new regime that does not fit the pilot, or is not there, fails with one clear message and
+/// leaves nothing behind, even though the pilot study itself could run.
+#[test]
+fn new_regime_data_that_does_not_fit() {
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("d.csv"), lorenz63_csv(3000)).unwrap();
+    let data = r#"path = "d.csv"
+sample-interval = 0.01"#;
+    let with_transfer = |target: &str, sizes: &str| {
+        let study = file_study(dir.path(), data, "[200, 400, 800]", 5);
+        let mut text = std::fs::read_to_string(&study).unwrap();
+        text.push_str(&format!(
+            r#"
+[transfer]
+sizes = {sizes}
+targets = [0.2]
+[transfer.data.file]
+path = "{target}"
+sample-interval = 0.01
+"#
+        ));
+        std::fs::write(&study, text).unwrap();
+        study
+    };
+    // Missing file.
+    let study = with_transfer("gone.csv", "[100, 200, 400]");
+    expect_failure(
+        dir.path(),
+        &study,
+        &["new regime ([transfer])", "cannot read", "gone.csv"],
+    );
+    // k larger than the new regime's data.
+    std::fs::write(dir.path().join("t.csv"), lorenz63_csv(600)).unwrap();
+    let study = with_transfer("t.csv", "[100, 200, 4000]");
+    expect_failure(dir.path(), &study, &["600 samples", "4000"]);
+    // A different number of variables.
+    let two: String = lorenz63_csv(3000)
+        .lines()
+        .map(|l| l.rsplit_once(',').unwrap().0.to_string() + "\n")
+        .collect();
+    std::fs::write(dir.path().join("t2.csv"), two).unwrap();
+    let study = with_transfer("t2.csv", "[100, 200, 400]");
+    expect_failure(
+        dir.path(),
+        &study,
+        &[
+            "new regime's data have 2 resolved variables",
+            "pilot's have 3",
+        ],
+    );
 }

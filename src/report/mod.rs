@@ -360,10 +360,12 @@ pub(crate) mod tests {
                 training: 2.0,
                 forecasting: 3.0,
                 fitting: 0.5,
+                transfer: 0.0,
                 report: 0.0,
                 total: 6.5,
                 threads: 2,
             },
+            transfer: None,
         };
         StudyOutcome {
             document,

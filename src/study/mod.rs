@@ -8,6 +8,7 @@ pub mod results;
 pub mod runner;
 pub mod schema;
 pub mod train;
+mod transfer;
 
 pub use plan::{load_plan, StudyPlan};
 pub use runner::{run_study, RunOptions};
@@ -52,6 +53,10 @@ pub enum StudyError {
     },
     #[error("closure models need {need}; {found}")]
     ClosureData { need: String, found: String },
+    #[error("new regime ([transfer]): {0}")]
+    NewRegime(Box<StudyError>),
+    #[error("the new regime's data have {target} resolved variables but the pilot's have {pilot}; a model transfers between regimes of one system")]
+    TransferMismatch { pilot: usize, target: usize },
     #[error("cannot start {threads} worker threads: {message}")]
     Threads { threads: usize, message: String },
 }

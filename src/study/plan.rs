@@ -848,6 +848,37 @@ pub fn describe(plan: &StudyPlan) -> String {
         "work: {} nested training passes, {forecasts} forecasts",
         plan.models.len() * plan.replicates
     );
+    if let Some(tp) = &plan.transfer {
+        let names: Vec<&str> = tp
+            .models
+            .iter()
+            .map(|&i| plan.models[i].name.as_str())
+            .collect();
+        let data = match &tp.data {
+            DataSource::Simulate { system, .. } => {
+                let params: Vec<String> = system
+                    .parameters()
+                    .iter()
+                    .map(|(k, v)| format!("{k}={v}"))
+                    .collect();
+                format!("simulated {} {}", system.label(), params.join(" "))
+            }
+            DataSource::File { path, .. } => format!("file {}", path.display()),
+        };
+        let goal = match &tp.goal {
+            TransferGoal::Absolute(v) => format!("targets (mean valid time) {v:?}"),
+            TransferGoal::FractionOfBase(v) => {
+                format!("targets {v:?} × each base model's own skill")
+            }
+        };
+        let _ = writeln!(
+            s,
+            "new regime: {data}; fine-tuning sizes {:?} × {} replicates; {goal}; models {}",
+            tp.sizes,
+            tp.replicates,
+            names.join(", ")
+        );
+    }
     s
 }
 

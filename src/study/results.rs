@@ -395,6 +395,9 @@ pub struct Timings {
     pub training: f64,
     pub forecasting: f64,
     pub fitting: f64,
+    /// The new regime (transfer), when the study has one.
+    #[serde(default)]
+    pub transfer: f64,
     pub report: f64,
     pub total: f64,
     pub threads: usize,

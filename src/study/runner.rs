@@ -87,6 +87,27 @@ struct Prepared {
     high_fidelity: Option<HighFidelityCost>,
 }
 
+/// Valid times of `model` from every initial condition, in fixed batches of [`FORECAST_BATCH`]
+/// (not thread-dependent), each forecast together; batches run in parallel. Also returns the
+/// summed forecasting wall time.
+pub(super) fn score_batched(
+    model: &dyn crate::models::Forecaster,
+    truth: ndarray::ArrayView2<f64>,
+    ics: &[usize],
+    spec: &SkillSpec,
+) -> (Vec<IcSkill>, f64) {
+    let timed: Vec<(Vec<IcSkill>, f64)> = ics
+        .par_chunks(FORECAST_BATCH)
+        .map(|batch| {
+            let started = Instant::now();
+            let s = skill::valid_times(model, truth, batch, spec);
+            (s, started.elapsed().as_secs_f64())
+        })
+        .collect();
+    let seconds = timed.iter().map(|(_, s)| s).sum();
+    (timed.into_iter().flat_map(|(s, _)| s).collect(), seconds)
+}
+
 /// Resolves the coarse solver for closure models from the data, or says what is missing.
 fn coupling_for(plan: &StudyPlan, traj: &Trajectory) -> Result<Option<Coupling>, StudyError> {
     if !plan.models.iter().any(|m| m.usage.is_closure()) {
@@ -146,8 +167,61 @@ fn coupling_for(plan: &StudyPlan, traj: &Trajectory) -> Result<Option<Coupling>,
 }
 
 fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
-    let t = &plan.timing;
     let largest = *plan.sizes.last().expect("plan has sizes");
+    let Regime {
+        traj,
+        split,
+        skill,
+        source,
+        high_fidelity,
+    } = load_regime(
+        &plan.data,
+        &plan.timing,
+        largest,
+        progress,
+        "simulating pilot data",
+    )?;
+    let dt = traj.sample_interval();
+    let cost = plan.cost.campaign(traj.dim(), dt)?;
+    let coupling = coupling_for(plan, &traj)?;
+    if let Some(c) = &coupling {
+        // Checked here so a bad step fails before any training.
+        CoupledModel::substeps(c.coarse_dt, c.sample_interval).map_err(|source| {
+            StudyError::Model {
+                model: "closure".into(),
+                replicate: 0,
+                source,
+            }
+        })?;
+    }
+    Ok(Prepared {
+        traj,
+        split,
+        skill,
+        cost,
+        source,
+        coupling,
+        high_fidelity,
+    })
+}
+
+/// One regime's data, split and skill definition.
+pub(super) struct Regime {
+    pub traj: Trajectory,
+    pub split: Split,
+    pub skill: SkillSpec,
+    pub source: String,
+    pub high_fidelity: Option<HighFidelityCost>,
+}
+
+/// Simulates or reads a regime's data and splits it for training prefixes up to `largest`.
+pub(super) fn load_regime(
+    data: &DataSource,
+    t: &super::plan::Timing,
+    largest: usize,
+    progress: bool,
+    message: &'static str,
+) -> Result<Regime, StudyError> {
     let split_for = |dt: f64| SplitSpec {
         initial_conditions: t.initial_conditions,
         gap: to_samples(t.gap, dt),
@@ -156,7 +230,7 @@ fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
         max_lead: to_samples(t.max_lead, dt).max(1),
     };
     let mut high_fidelity = None;
-    let (traj, source) = match &plan.data {
+    let (traj, source) = match data {
         DataSource::Simulate {
             system,
             dt,
@@ -166,7 +240,7 @@ fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
             seed,
         } => {
             let samples = split_for(*sample_interval).total_for_pool(*training_pool);
-            let bar = bar(progress, samples as u64, "simulating pilot data");
+            let bar = bar(progress, samples as u64, message);
             let tick = |done: usize, _total: usize| bar.set_position(done as u64);
             let sim_started = Instant::now();
             let sim = simulate(
@@ -232,30 +306,16 @@ fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
         mean,
         sigma,
     };
-    let cost = plan.cost.campaign(traj.dim(), dt)?;
-    let coupling = coupling_for(plan, &traj)?;
-    if let Some(c) = &coupling {
-        // Checked here so a bad step fails before any training.
-        CoupledModel::substeps(c.coarse_dt, c.sample_interval).map_err(|source| {
-            StudyError::Model {
-                model: "closure".into(),
-                replicate: 0,
-                source,
-            }
-        })?;
-    }
-    Ok(Prepared {
+    Ok(Regime {
         traj,
         split,
         skill,
-        cost,
         source,
-        coupling,
         high_fidelity,
     })
 }
 
-fn bar(enabled: bool, len: u64, message: &'static str) -> ProgressBar {
+pub(super) fn bar(enabled: bool, len: u64, message: &'static str) -> ProgressBar {
     if !enabled {
         return ProgressBar::hidden();
     }
@@ -293,6 +353,16 @@ fn run_in_pool(
     // Data.
     let t0 = Instant::now();
     let prep = prepare(plan, options.progress)?;
+    // The new regime's data are read and checked now, so a bad file fails before any work.
+    let new_regime = match &plan.transfer {
+        Some(tp) => Some(super::transfer::load_new_regime(
+            plan,
+            tp,
+            &prep.traj,
+            options.progress,
+        )?),
+        None => None,
+    };
     timings.data = t0.elapsed().as_secs_f64();
     let store = RecordStore::create(&options.out_dir.join("records.jsonl")).map_err(|source| {
         StudyError::Write {
@@ -382,18 +452,8 @@ fn run_in_pool(
     let records: Vec<SkillRecord> = tasks
         .par_iter()
         .map(|t| {
-            // Initial conditions go in fixed batches (not thread-dependent), each forecast
-            // together; batches run in parallel.
-            let timed: Vec<(Vec<IcSkill>, f64)> = ics
-                .par_chunks(FORECAST_BATCH)
-                .map(|batch| {
-                    let started = Instant::now();
-                    let s =
-                        skill::valid_times(t.fitted.forecaster.as_ref(), truth, batch, &prep.skill);
-                    (s, started.elapsed().as_secs_f64())
-                })
-                .collect();
-            let per_ic: Vec<IcSkill> = timed.iter().flat_map(|(s, _)| s.iter().copied()).collect();
+            let (per_ic, seconds) =
+                score_batched(t.fitted.forecaster.as_ref(), truth, ics, &prep.skill);
             let si = prep.skill.sample_interval;
             // Steps driven per initial condition: the warm-up plus the leads forecast.
             let steps: f64 = per_ic
@@ -418,8 +478,7 @@ fn run_in_pool(
                 initial_conditions: per_ic,
                 cost: PointCost {
                     train_seconds: t.train_seconds,
-                    forecast_seconds_per_step: timed.iter().map(|(_, s)| s).sum::<f64>()
-                        / steps.max(1.0),
+                    forecast_seconds_per_step: seconds / steps.max(1.0),
                 },
                 closure,
             };
@@ -448,6 +507,35 @@ fn run_in_pool(
         })
         .collect();
     timings.fitting = t0.elapsed().as_secs_f64();
+
+    // A new regime: zero-shot, from scratch and fine-tuned.
+    let transfer = match (&plan.transfer, new_regime) {
+        (Some(tp), Some(regime)) => {
+            let t0 = Instant::now();
+            let base_skill = |m: usize, r: usize| {
+                let name = &plan.models[m].name;
+                records
+                    .iter()
+                    .find(|rec| &rec.model == name && rec.replicate == r && rec.n == largest)
+                    .map(|rec| rec.summary.mean)
+            };
+            let result = super::transfer::run_transfer(
+                plan,
+                tp,
+                regime,
+                &super::transfer::PilotSide {
+                    traj: &prep.traj,
+                    pool_len,
+                    base_skill: &base_skill,
+                },
+                options.progress,
+                &mut warnings,
+            )?;
+            timings.transfer = t0.elapsed().as_secs_f64();
+            Some(result)
+        }
+        _ => None,
+    };
 
     let persistence_summary = skill::summarise(&persistence);
     // Decorrelation of the pilot data (Sokal's automatic window, c = 5).
@@ -496,7 +584,6 @@ fn run_in_pool(
             ));
         }
     }
-    let d = &prep.traj;
     let document = PlanDocument {
         schema: PLAN_SCHEMA.into(),
         tool_version: env!("CARGO_PKG_VERSION").into(),
@@ -515,23 +602,14 @@ fn run_in_pool(
             trust_factor: plan.trust_factor,
             fit_scale: plan.fit_scale,
         },
-        data: Some(DataInfo {
-            source: prep.source.clone(),
-            system: d.meta.system.clone(),
-            parameters: d.meta.parameters.clone(),
-            dt: d.meta.dt,
-            sample_interval: d.sample_interval(),
-            samples: d.samples(),
-            variables: d.meta.variables.clone(),
-            content_sha256: d.content_hash(),
-            training_pool: pool_len,
-            test_initial_conditions: ics.len(),
-            test_range: [ics[0], *ics.last().expect("at least one IC")],
-            seed: d.meta.seed,
-            sigma: prep.skill.sigma.clone(),
-            effective_sample_size: ess.clone(),
-            high_fidelity: prep.high_fidelity,
-        }),
+        data: Some(data_info(
+            &prep.traj,
+            &prep.split,
+            &prep.skill,
+            &prep.source,
+            prep.high_fidelity,
+            ess.clone(),
+        )),
         skill: Some(SkillInfo {
             definition: format!(
                 "valid prediction time: largest lead at which sqrt(mean_j ((x̂_j − x_j)/σ_j)²) has stayed ≤ {}, σ_j the training-pool standard deviation; mean over {} test initial conditions",
@@ -549,7 +627,7 @@ fn run_in_pool(
         cost: Some(prep.cost.summary()),
         campaign: Some(prep.cost.clone()),
         warnings,
-        transfer: None,
+        transfer,
         timings: Timings {
             total: started.elapsed().as_secs_f64(),
             ..timings
@@ -589,6 +667,35 @@ fn run_in_pool(
     })
 }
 
+/// What the plan document says about one regime's data.
+pub(super) fn data_info(
+    d: &Trajectory,
+    split: &Split,
+    skill: &SkillSpec,
+    source: &str,
+    high_fidelity: Option<HighFidelityCost>,
+    effective_sample_size: Option<crate::data::autocorr::EssReport>,
+) -> DataInfo {
+    let ics = &split.initial_conditions;
+    DataInfo {
+        source: source.to_string(),
+        system: d.meta.system.clone(),
+        parameters: d.meta.parameters.clone(),
+        dt: d.meta.dt,
+        sample_interval: d.sample_interval(),
+        samples: d.samples(),
+        variables: d.meta.variables.clone(),
+        content_sha256: d.content_hash(),
+        training_pool: split.pool.len(),
+        test_initial_conditions: ics.len(),
+        test_range: [ics[0], *ics.last().expect("at least one IC")],
+        seed: d.meta.seed,
+        sigma: skill.sigma.clone(),
+        effective_sample_size,
+        high_fidelity,
+    }
+}
+
 fn model_result(
     plan: &StudyPlan,
     m: usize,
@@ -597,9 +704,42 @@ fn model_result(
     warnings: &mut Vec<String>,
 ) -> ModelResult {
     let model = &plan.models[m];
+    curve_result(
+        plan,
+        &CurveSubject {
+            name: model.name.clone(),
+            model,
+            sizes: &plan.sizes,
+            targets: &plan.targets,
+        },
+        records,
+        cost,
+        warnings,
+    )
+}
+
+/// What one learning curve is measured for: a model under a name, over sizes, for targets.
+pub(super) struct CurveSubject<'a> {
+    /// Name in results and warnings (also seeds the curve's bootstrap).
+    pub name: String,
+    pub model: &'a super::plan::ModelPlan,
+    pub sizes: &'a [usize],
+    pub targets: &'a [f64],
+}
+
+/// Points, fitted curves and estimates from the records of one subject (one per size and
+/// replicate).
+pub(super) fn curve_result(
+    plan: &StudyPlan,
+    subject: &CurveSubject,
+    records: &[&SkillRecord],
+    cost: &Campaign,
+    warnings: &mut Vec<String>,
+) -> ModelResult {
+    let model = subject.model;
     let mut points = Vec::new();
     let mut grid = Vec::new();
-    for &n in &plan.sizes {
+    for &n in subject.sizes {
         let mut at: Vec<&SkillRecord> = records.iter().copied().filter(|r| r.n == n).collect();
         at.sort_by_key(|r| r.replicate);
         let all: Vec<IcSkill> = at
@@ -645,13 +785,13 @@ fn model_result(
     }
     let curve = analyse_curve(
         &grid,
-        &plan.targets,
+        subject.targets,
         &CurveSettings {
             scale: plan.fit_scale,
             draws: plan.bootstrap_draws,
             level: plan.confidence,
             trust_factor: plan.trust_factor,
-            seed: derive_seed(plan.seed, &model.name, usize::MAX),
+            seed: derive_seed(plan.seed, &subject.name, usize::MAX),
         },
         Some(cost),
     );
@@ -661,14 +801,14 @@ fn model_result(
     if curve.selected.is_none() {
         warnings.push(format!(
             "{}: no learning-curve family could be fitted; no budget is given for this model",
-            model.name
+            subject.name
         ));
     }
     for e in &curve.estimates {
         if e.status == EstimateStatus::Extrapolated {
             warnings.push(format!(
                 "{}: reaching {} needs {:.1}× the largest measured subset, beyond the trust range ({}×); measure larger subsets before relying on it",
-                model.name,
+                subject.name,
                 e.target,
                 e.extrapolation.unwrap_or(f64::NAN),
                 plan.trust_factor
@@ -677,7 +817,7 @@ fn model_result(
     }
     let settings = model.kind.settings();
     ModelResult {
-        name: model.name.clone(),
+        name: subject.name.clone(),
         kind: model.kind.label().into(),
         role: model.usage.label().into(),
         closure_inputs: match model.usage {

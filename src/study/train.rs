@@ -7,6 +7,7 @@ use super::plan::{ModelKind, ModelPlan, ModelUse};
 use crate::models::closure::{
     ClosureForm, CoupledModel, LearnedClosure, LearnedMemoryClosure, Regressor, SequenceRegressor,
 };
+use crate::models::finetune::{FineTuneMethod, ValidFineTuneParams};
 use crate::models::{esn, ngrc, nn, polynomial, FitSummary, Forecaster, ModelError};
 use ndarray::ArrayView2;
 use std::sync::Arc;
@@ -210,4 +211,123 @@ impl Regressor for nn::Mlp {
     fn predict(&self, x: &[f64], out: &mut [f64]) {
         nn::Mlp::predict(self, x, out)
     }
+}
+
+/// A base model and, for every fine-tuning size k, a model trained from scratch on the first k
+/// new-regime samples and the base adapted with them.
+pub struct TransferFits {
+    pub base: Arc<dyn Forecaster>,
+    pub scratch: Vec<(Arc<dyn Forecaster>, FitSummary)>,
+    pub fine_tuned: Vec<(Arc<dyn Forecaster>, FitSummary)>,
+}
+
+/// Trains an emulator's base on the pilot prefix of the largest of the study's `sizes` (exactly
+/// the model the study measures at that size with this seed: reservoir models take their
+/// standardisation from the smallest prefix, so they run the same nested pass), then trains
+/// from scratch on and fine-tunes with every prefix `ks` of `target`. Scratch models use the
+/// same seed, so a reservoir model keeps its reservoir and only the data differ.
+pub fn train_transfer_unit(
+    model: &ModelPlan,
+    tune: &ValidFineTuneParams,
+    pilot: ArrayView2<f64>,
+    sizes: &[usize],
+    target: ArrayView2<f64>,
+    ks: &[usize],
+    seed: u64,
+) -> Result<TransferFits, ModelError> {
+    fn arc<F: Forecaster + 'static>(
+        v: Vec<(F, FitSummary)>,
+    ) -> Vec<(Arc<dyn Forecaster>, FitSummary)> {
+        v.into_iter()
+            .map(|(f, s)| (Arc::new(f) as Arc<dyn Forecaster>, s))
+            .collect()
+    }
+    fn base_of<F>(v: Vec<(F, FitSummary)>) -> F {
+        v.into_iter().last().expect("one fit per size").0
+    }
+    let pooled = tune.get().method == FineTuneMethod::Pooled;
+    let base_n = *sizes.last().ok_or(ModelError::NoSizes)?;
+    let pilot = pilot.slice(ndarray::s![..base_n, ..]);
+    Ok(match &model.kind {
+        ModelKind::Esn(p) => {
+            let base = base_of(esn::fit_nested(p, pilot, sizes, seed)?);
+            let eq = if pooled {
+                Some(base.normal_equations(pilot, p.get().washout)?)
+            } else {
+                None
+            };
+            TransferFits {
+                fine_tuned: arc(esn::fine_tune_nested(
+                    &base,
+                    p,
+                    tune,
+                    eq.as_ref(),
+                    target,
+                    ks,
+                )?),
+                scratch: arc(esn::fit_nested(p, target, ks, seed)?),
+                base: Arc::new(base),
+            }
+        }
+        ModelKind::Ngrc(p) => {
+            let base = base_of(ngrc::fit_nested(p, pilot, sizes)?);
+            let eq = if pooled {
+                Some(base.normal_equations(pilot)?)
+            } else {
+                None
+            };
+            TransferFits {
+                fine_tuned: arc(ngrc::fine_tune_nested(
+                    &base,
+                    p,
+                    tune,
+                    eq.as_ref(),
+                    target,
+                    ks,
+                )?),
+                scratch: arc(ngrc::fit_nested(p, target, ks)?),
+                base: Arc::new(base),
+            }
+        }
+        ModelKind::Polynomial(p) => {
+            let base = base_of(polynomial::fit_emulator_nested(p, pilot, sizes)?);
+            let eq = if pooled {
+                Some(base.normal_equations(pilot)?)
+            } else {
+                None
+            };
+            TransferFits {
+                fine_tuned: arc(polynomial::fine_tune_emulator_nested(
+                    &base,
+                    p,
+                    tune,
+                    eq.as_ref(),
+                    target,
+                    ks,
+                )?),
+                scratch: arc(polynomial::fit_emulator_nested(p, target, ks)?),
+                base: Arc::new(base),
+            }
+        }
+        ModelKind::Mlp(p) => {
+            let base = base_of(nn::fit_mlp_emulator(p, pilot, &[base_n], seed)?);
+            TransferFits {
+                fine_tuned: arc(nn::fine_tune_mlp_emulator(
+                    &base, p, tune, target, ks, seed,
+                )?),
+                scratch: arc(nn::fit_mlp_emulator(p, target, ks, seed)?),
+                base: Arc::new(base),
+            }
+        }
+        ModelKind::Lstm(p) => {
+            let base = base_of(nn::fit_lstm_emulator(p, pilot, &[base_n], seed)?);
+            TransferFits {
+                fine_tuned: arc(nn::fine_tune_lstm_emulator(
+                    &base, p, tune, target, ks, seed,
+                )?),
+                scratch: arc(nn::fit_lstm_emulator(p, target, ks, seed)?),
+                base: Arc::new(base),
+            }
+        }
+    })
 }

@@ -1,0 +1,335 @@
+//! A new regime (stronger forcing, higher Reynolds number): how much of its data a model needs
+//! after training on the pilot, measured rather than guessed.
+//!
+//! For every transferred emulator and replicate: the base model (exactly the study's model at
+//! the largest pilot size) is scored zero-shot on the new regime's test initial conditions, and
+//! for every fine-tuning size k a model trained from scratch on the first k new-regime samples
+//! and the base fine-tuned with them ([`crate::models::finetune`]) are scored there too. Both
+//! curves over k go through the same curve machinery as the pilot study (families, backtest,
+//! bootstrap), and their inversions give the samples each needs for the new regime's targets,
+//! and so the samples and core-hours transfer saves.
+
+use super::plan::{StudyPlan, TransferGoal, TransferPlan};
+use super::records::{PointCost, SkillRecord};
+use super::results::{
+    EstimateStatus, TargetEstimate, TransferModel, TransferResult, TransferSaving,
+};
+use super::runner::{
+    bar, curve_result, data_info, derive_seed, load_regime, score_batched, CurveSubject, Regime,
+};
+use super::train::train_transfer_unit;
+use super::StudyError;
+use crate::cost::campaign::Campaign;
+use crate::models::Persistence;
+use crate::skill::{self, IcSkill};
+use rayon::prelude::*;
+use std::time::Instant;
+
+/// What the pilot study hands over: its data window scheme and the skill of its models at the
+/// largest size in their own regime.
+pub(super) struct PilotSide<'a> {
+    pub traj: &'a crate::data::Trajectory,
+    pub pool_len: usize,
+    /// Mean valid time per model (index into the plan's models) and replicate at the largest
+    /// pilot size.
+    pub base_skill: &'a dyn Fn(usize, usize) -> Option<f64>,
+}
+
+/// Simulates or reads the new regime's data and checks it against the pilot's.
+pub(super) fn load_new_regime(
+    plan: &StudyPlan,
+    tp: &TransferPlan,
+    pilot: &crate::data::Trajectory,
+    progress: bool,
+) -> Result<Regime, StudyError> {
+    let largest_k = *tp.sizes.last().expect("checked sizes");
+    let regime = load_regime(
+        &tp.data,
+        &plan.timing,
+        largest_k,
+        progress,
+        "simulating new-regime data",
+    )
+    .map_err(|e| StudyError::NewRegime(Box::new(e)))?;
+    if regime.traj.dim() != pilot.dim() {
+        return Err(StudyError::TransferMismatch {
+            pilot: pilot.dim(),
+            target: regime.traj.dim(),
+        });
+    }
+    tp.cost
+        .campaign(regime.traj.dim(), regime.traj.sample_interval())
+        .map_err(|e| StudyError::NewRegime(Box::new(e.into())))?;
+    Ok(regime)
+}
+
+/// Runs the transfer part of a study on the new regime's data ([`load_new_regime`]).
+pub(super) fn run_transfer(
+    plan: &StudyPlan,
+    tp: &TransferPlan,
+    regime: Regime,
+    pilot: &PilotSide,
+    progress: bool,
+    warnings: &mut Vec<String>,
+) -> Result<TransferResult, StudyError> {
+    let largest_k = *tp.sizes.last().expect("checked sizes");
+    let Regime {
+        traj,
+        split,
+        skill: spec,
+        source,
+        high_fidelity,
+    } = regime;
+    let campaign: Campaign = tp.cost.campaign(traj.dim(), traj.sample_interval())?;
+    let truth = traj.values.view();
+    let ics = &split.initial_conditions;
+    let persistence: Vec<IcSkill> = ics
+        .par_iter()
+        .map(|&ic| skill::valid_time(&Persistence, truth, ic, &spec))
+        .collect();
+
+    // Training and scoring: one unit per (model, replicate).
+    let largest = *plan.sizes.last().expect("sizes");
+    let pilot_slack = pilot.pool_len - largest;
+    let target_slack = split.pool.len() - largest_k;
+    let window = |r: usize, replicates: usize, slack: usize| {
+        if replicates > 1 {
+            r * slack / (replicates - 1)
+        } else {
+            0
+        }
+    };
+    let units: Vec<(usize, usize)> = tp
+        .models
+        .iter()
+        .flat_map(|&m| (0..tp.replicates).map(move |r| (m, r)))
+        .collect();
+    let progress_bar = bar(progress, units.len() as u64, "new regime: fine-tuning");
+    struct Unit {
+        model: usize,
+        zero_shot: f64,
+        scratch: Vec<SkillRecord>,
+        fine_tuned: Vec<SkillRecord>,
+    }
+    let done: Vec<Unit> = units
+        .par_iter()
+        .map(|&(m, r)| {
+            let model = &plan.models[m];
+            // The base is the pilot study's replicate r (cycled when the new regime asks for
+            // more replicates than the pilot study ran).
+            let rb = r % plan.replicates;
+            let seed = derive_seed(plan.seed, &model.name, rb);
+            let pw = window(rb, plan.replicates, pilot_slack);
+            let tw = window(r, tp.replicates, target_slack);
+            let started = Instant::now();
+            let fits = train_transfer_unit(
+                model,
+                &tp.fine_tune,
+                pilot.traj.values.slice(ndarray::s![pw..pw + largest, ..]),
+                &plan.sizes,
+                traj.values.slice(ndarray::s![tw..tw + largest_k, ..]),
+                &tp.sizes,
+                seed,
+            )
+            .map_err(|source| StudyError::Model {
+                model: format!("{} (new regime)", model.name),
+                replicate: r,
+                source,
+            })?;
+            let train_seconds = started.elapsed().as_secs_f64();
+            let (zero, _) = score_batched(fits.base.as_ref(), truth, ics, &spec);
+            let records = |side: &[(
+                std::sync::Arc<dyn crate::models::Forecaster>,
+                crate::models::FitSummary,
+            )],
+                           label: &str| {
+                side.iter()
+                    .map(|(f, summary)| {
+                        let (per_ic, seconds) = score_batched(f.as_ref(), truth, ics, &spec);
+                        let steps: f64 = per_ic
+                            .iter()
+                            .map(|s| {
+                                spec.warm_up as f64
+                                    + ((s.valid_time / spec.sample_interval).round() + 1.0)
+                                        .min(spec.max_lead as f64)
+                            })
+                            .sum();
+                        SkillRecord {
+                            model: format!("{}:{label}", model.name),
+                            replicate: r,
+                            n: summary.n,
+                            seed,
+                            window_start: tw,
+                            fit: summary.clone(),
+                            summary: skill::summarise(&per_ic),
+                            initial_conditions: per_ic,
+                            cost: PointCost {
+                                train_seconds,
+                                forecast_seconds_per_step: seconds / steps.max(1.0),
+                            },
+                            closure: None,
+                        }
+                    })
+                    .collect::<Vec<_>>()
+            };
+            let unit = Unit {
+                model: m,
+                zero_shot: skill::summarise(&zero).mean,
+                scratch: records(&fits.scratch, "scratch"),
+                fine_tuned: records(&fits.fine_tuned, "fine-tuned"),
+            };
+            progress_bar.inc(1);
+            Ok(unit)
+        })
+        .collect::<Result<_, StudyError>>()?;
+    progress_bar.finish_and_clear();
+
+    // Curves, inversions and savings per model.
+    let models = tp
+        .models
+        .iter()
+        .map(|&m| {
+            let model = &plan.models[m];
+            let mine: Vec<&Unit> = done.iter().filter(|u| u.model == m).collect();
+            let zero_shot_replicates: Vec<f64> = mine.iter().map(|u| u.zero_shot).collect();
+            let zero_shot = mean(&zero_shot_replicates);
+            let base_values: Vec<f64> = (0..plan.replicates)
+                .filter_map(|r| (pilot.base_skill)(m, r))
+                .collect();
+            let base_skill = mean(&base_values);
+            let targets = match &tp.goal {
+                TransferGoal::Absolute(v) => v.clone(),
+                TransferGoal::FractionOfBase(f) => f.iter().map(|x| x * base_skill).collect(),
+            };
+            let mut side = |label: &str, pick: &dyn Fn(&Unit) -> &Vec<SkillRecord>| {
+                let records: Vec<&SkillRecord> = mine.iter().flat_map(|u| pick(u).iter()).collect();
+                curve_result(
+                    plan,
+                    &CurveSubject {
+                        name: format!("{} ({label})", model.name),
+                        model,
+                        sizes: &tp.sizes,
+                        targets: &targets,
+                    },
+                    &records,
+                    &campaign,
+                    warnings,
+                )
+            };
+            let scratch = side("from scratch, new regime", &|u| &u.scratch);
+            let fine_tuned = side("fine-tuned, new regime", &|u| &u.fine_tuned);
+            let savings = targets
+                .iter()
+                .zip(scratch.estimates.iter().zip(&fine_tuned.estimates))
+                .map(|(&target, (s, f))| saving(target, s, f, &campaign))
+                .collect();
+            TransferModel {
+                name: model.name.clone(),
+                kind: model.kind.label().into(),
+                base_samples: largest,
+                base_skill,
+                zero_shot_replicates,
+                zero_shot,
+                gap: base_skill - zero_shot,
+                targets,
+                scratch,
+                fine_tuned,
+                savings,
+            }
+        })
+        .collect::<Vec<_>>();
+    for m in &models {
+        if m.fine_tuned
+            .points
+            .iter()
+            .zip(&m.scratch.points)
+            .all(|(f, s)| f.mean < s.mean)
+        {
+            warnings.push(format!(
+                "{}: in the new regime the fine-tuned model did worse than training from scratch at every k; check the fine-tuning settings",
+                m.name
+            ));
+        }
+    }
+    Ok(TransferResult {
+        data: data_info(&traj, &split, &spec, &source, high_fidelity, None),
+        sizes: tp.sizes.clone(),
+        replicates: tp.replicates,
+        goal: match tp.goal {
+            TransferGoal::Absolute(_) => "absolute".into(),
+            TransferGoal::FractionOfBase(_) => "fraction-of-base".into(),
+        },
+        goal_values: match &tp.goal {
+            TransferGoal::Absolute(v) | TransferGoal::FractionOfBase(v) => v.clone(),
+        },
+        fine_tune: serde_json::to_value(tp.fine_tune.get()).unwrap_or(serde_json::Value::Null),
+        persistence: skill::summarise(&persistence),
+        cost: Some(campaign.summary()),
+        campaign: Some(campaign),
+        models,
+    })
+}
+
+fn mean(v: &[f64]) -> f64 {
+    if v.is_empty() {
+        f64::NAN
+    } else {
+        v.iter().sum::<f64>() / v.len() as f64
+    }
+}
+
+/// The saving of fine-tuning over training from scratch for one target.
+fn saving(
+    target: f64,
+    scratch: &TargetEstimate,
+    tuned: &TargetEstimate,
+    campaign: &Campaign,
+) -> TransferSaving {
+    let has = |e: &TargetEstimate| e.status.has_budget();
+    let core_hours = |k: f64| campaign.budget(k).core_hours;
+    let (s, f) = (
+        scratch.samples.filter(|_| has(scratch)),
+        tuned.samples.filter(|_| has(tuned)),
+    );
+    let [s_lo, s_hi] = scratch.samples_interval;
+    let [f_lo, f_hi] = tuned.samples_interval;
+    let diff = |a: Option<f64>, b: Option<f64>| Some(a? - b?);
+    let samples_saved_interval = if has(scratch) && has(tuned) {
+        [diff(s_lo, f_hi), diff(s_hi, f_lo)]
+    } else {
+        [None, None]
+    };
+    let hours = |a: Option<f64>, b: Option<f64>| Some(core_hours(a?) - core_hours(b?));
+    let core_hours_saved_interval = if has(scratch) && has(tuned) {
+        [hours(s_lo, f_hi), hours(s_hi, f_lo)]
+    } else {
+        [None, None]
+    };
+    let note = match (has(tuned), has(scratch)) {
+        (true, true) => String::new(),
+        (true, false) if scratch.status == EstimateStatus::Unreachable => {
+            "training from scratch does not reach this target on its fitted curve; fine-tuning does"
+                .into()
+        }
+        (false, _) if tuned.status == EstimateStatus::Unreachable => {
+            "even the fine-tuned curve saturates below this target".into()
+        }
+        _ => format!(
+            "no saving given: fine-tuned estimate {}, from scratch {}",
+            tuned.status.label(),
+            scratch.status.label()
+        ),
+    };
+    TransferSaving {
+        target,
+        fine_tuned_samples: f,
+        scratch_samples: s,
+        fine_tuned_status: tuned.status,
+        scratch_status: scratch.status,
+        samples_saved: diff(s, f),
+        samples_saved_interval,
+        core_hours_saved: hours(s, f),
+        core_hours_saved_interval,
+        note,
+    }
+}
