@@ -364,6 +364,7 @@ pub(crate) mod tests {
                 total: 6.5,
                 threads: 2,
             },
+            transfer: None,
         };
         StudyOutcome {
             document,
