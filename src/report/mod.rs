@@ -8,7 +8,8 @@
 //! # `report.html`
 //! One self-contained page: inline CSS and inline SVG charts, no scripts, no network
 //! references, printable. Sections: the answer (samples and cost per model and target), learning
-//! curves, fits, measured points, budget assumptions, warnings, provenance, cautions.
+//! curves, fits, measured points, the transfer to a new regime (when the study has one), budget
+//! assumptions, warnings, provenance, cautions.
 //!
 //! # `plan.json`
 //! The [`PlanDocument`] contract, pretty-printed, with a trailing newline.
@@ -44,7 +45,7 @@ pub use text::text_summary;
 
 use crate::atomic::write_atomic;
 use crate::study::results::{
-    ModelResult, PlanDocument, TargetEstimate, TransferModel, TransferSaving,
+    ModelResult, PlanDocument, TargetEstimate, TransferModel, TransferResult, TransferSaving,
 };
 use crate::study::runner::StudyOutcome;
 use std::path::{Path, PathBuf};
@@ -143,6 +144,30 @@ pub(crate) fn saving_estimates<'a>(
             .find(|e| (e.target - saving.target).abs() <= 1e-9 * saving.target.abs().max(1.0))
     };
     (find(&model.fine_tuned), find(&model.scratch))
+}
+
+/// The model that transfers best to the `i`-th goal: among models whose fine-tuned estimate
+/// has a budget, the largest saving in device-hours, then in samples (an unknown saving ranks
+/// last; the first model wins a tie). `None` when no fine-tuned estimate has a budget.
+pub(crate) fn best_transfer(
+    transfer: &TransferResult,
+    i: usize,
+) -> Option<(&TransferModel, &TransferSaving)> {
+    let key = |s: &TransferSaving| {
+        (
+            s.core_hours_saved.unwrap_or(f64::NEG_INFINITY),
+            s.samples_saved.unwrap_or(f64::NEG_INFINITY),
+        )
+    };
+    transfer
+        .models
+        .iter()
+        .filter_map(|m| m.savings.get(i).map(|s| (m, s)))
+        .filter(|(_, s)| s.fine_tuned_status.has_budget())
+        .fold(None, |best, (m, s)| match best {
+            Some((_, b)) if key(b) >= key(s) => best,
+            _ => Some((m, s)),
+        })
 }
 
 #[cfg(test)]
@@ -702,6 +727,86 @@ pub(crate) mod tests {
             models: vec![first, second],
         });
         outcome
+    }
+
+    /// The transfer section of a page, from its opening tag to its closing one.
+    fn transfer_section(page: &str) -> &str {
+        let start = page
+            .find("<section id=\"transfer\">")
+            .expect("transfer section");
+        let len = page[start..].find("</section>\n").unwrap() + "</section>\n".len();
+        &page[start..start + len]
+    }
+
+    #[test]
+    fn transfer_section_answers_first_and_sits_before_the_budget() {
+        let outcome = transfer_fixture();
+        let page = html(&outcome);
+        let order = ["id=\"points\"", "id=\"transfer\"", "id=\"assumptions\""];
+        let at: Vec<usize> = order.iter().map(|s| page.find(s).unwrap()).collect();
+        assert!(at.windows(2).all(|w| w[0] < w[1]), "sections in order");
+        assert!(page.contains(
+            "<a href=\"#points\">Measured points</a><a href=\"#transfer\">Transfer</a>\
+             <a href=\"#assumptions\">"
+        ));
+        let section = transfer_section(&page);
+        let lead = "With <strong>esn-500</strong>, fine-tuning needs about <strong>1,200 \
+                    samples</strong> (90% 800–2,000) of the new regime to reach 2.50 time units, \
+                    saving <strong>340 core-hours</strong> (120–unbounded) against training from \
+                    scratch.";
+        assert!(section.contains(lead), "{section}");
+        assert!(
+            section.contains(
+                "No model reaches 3.50 time units in the new regime by fine-tuning: with \
+                 <strong>esn-500</strong>, even the fine-tuned curve saturates below the target \
+                 (fitted asymptote 3.10 time units); with <strong>esn &lt;b&gt;tiny&lt;/b&gt;\
+                 </strong>, no curve could be fitted to the fine-tuned skill."
+            ),
+            "{section}"
+        );
+        let zero_shot = section.find("Zero-shot").unwrap();
+        assert!(
+            section.find(lead).unwrap() < zero_shot,
+            "the answer comes first"
+        );
+        assert!(section.contains("simulated <strong>two-scale-lorenz96</strong> (F = 24, h = 1)"));
+        assert!(section.contains("Floor in the new regime: persistence"));
+        // Zero-shot rows: base skill, zero-shot skill, gap.
+        assert!(section.contains("2.85 time units</td><td class=\"num\">1.30 time units"));
+        assert!(section.contains("1.55</span> time units"));
+        // One k* row per model and target.
+        let table = &section[section
+            .find("Samples and cost per model and target")
+            .unwrap()..];
+        let table = &table[..table.find("</table>").unwrap()];
+        assert_eq!(table.matches("<tr><td>").count(), 4, "{table}");
+        assert!(table.contains("<span class=\"big\">3,800</span> samples<span class=\"sub\">conservative interval 1,000–unbounded</span>"));
+        assert!(table.contains("<span class=\"big\">340</span><span class=\"sub\">conservative interval 120–unbounded</span>"));
+        assert!(table.contains("<span class=\"badge extrapolated\">extrapolated</span>"));
+        assert!(table.contains("90% interval k* ≥ 3,000"), "{table}");
+        assert_eq!(
+            table.matches("<span class=\"badge unreachable\">").count(),
+            3
+        );
+        assert!(section.contains("this pair of regimes") && section.contains("small pilot"));
+        // One chart per model and one per transfer model; user text escaped.
+        assert_eq!(page.matches("<svg").count(), 4);
+        assert!(section.contains("<title>Transfer curves of model esn-500</title>"));
+        assert!(!page.contains("<b>tiny") && !page.contains("<below>"));
+    }
+
+    #[test]
+    fn without_transfer_the_page_and_files_are_unchanged() {
+        let without = html(&fixture());
+        assert!(!without.contains("transfer") && !without.contains("new regime"));
+        let with = html(&transfer_fixture());
+        let rest = with
+            .replace(transfer_section(&with), "")
+            .replace("<a href=\"#transfer\">Transfer</a>", "");
+        assert_eq!(
+            rest, without,
+            "the transfer adds its section and link, nothing else"
+        );
     }
 
     #[test]
