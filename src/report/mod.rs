@@ -8,7 +8,8 @@
 //! # `report.html`
 //! One self-contained page: inline CSS and inline SVG charts, no scripts, no network
 //! references, printable. Sections: the answer (samples and cost per model and target), learning
-//! curves, fits, measured points, budget assumptions, warnings, provenance, cautions.
+//! curves, fits, measured points, the transfer to a new regime (when the study has one), budget
+//! assumptions, warnings, provenance, cautions.
 //!
 //! # `plan.json`
 //! The [`PlanDocument`] contract, pretty-printed, with a trailing newline.
@@ -43,7 +44,9 @@ mod text;
 pub use text::text_summary;
 
 use crate::atomic::write_atomic;
-use crate::study::results::PlanDocument;
+use crate::study::results::{
+    ModelResult, PlanDocument, TargetEstimate, TransferModel, TransferResult, TransferSaving,
+};
 use crate::study::runner::StudyOutcome;
 use std::path::{Path, PathBuf};
 
@@ -65,7 +68,8 @@ pub enum ReportError {
 }
 
 /// Writes report.html, plan.json and skill.csv into `out_dir` (created if missing; each file
-/// atomically). Returns the paths written, in that order.
+/// atomically), then the run tables and, for a new regime, the transfer tables under `tables/`
+/// (see [`tables`]). Returns the paths written, in that order.
 pub fn write_report(outcome: &StudyOutcome, out_dir: &Path) -> Result<Vec<PathBuf>, ReportError> {
     // The report stage's own time (rendering the page and the CSV) is known only after the
     // page exists, so it reaches plan.json but not the page.
@@ -83,6 +87,13 @@ pub fn write_report(outcome: &StudyOutcome, out_dir: &Path) -> Result<Vec<PathBu
     let mut written = write_files(out_dir, files)?;
     if !outcome.run_tables.is_empty() {
         written.extend(tables::write_run_tables(&outcome.run_tables, out_dir)?);
+    }
+    if let Some(t) = &outcome.document.transfer {
+        written.extend(tables::write_transfer_tables(
+            t,
+            outcome.document.study.confidence,
+            out_dir,
+        )?);
     }
     Ok(written)
 }
@@ -119,6 +130,44 @@ pub fn plan_json(doc: &PlanDocument) -> Vec<u8> {
 /// `skill.csv` (columns in the module docs). Pure.
 pub fn skill_csv(outcome: &StudyOutcome) -> Vec<u8> {
     csv::skill_csv(outcome)
+}
+
+/// The fine-tuned and from-scratch estimates behind one saving of a transfer model (matched by
+/// target; `None` when the curve carries no estimate for it).
+pub(crate) fn saving_estimates<'a>(
+    model: &'a TransferModel,
+    saving: &TransferSaving,
+) -> (Option<&'a TargetEstimate>, Option<&'a TargetEstimate>) {
+    let find = |m: &'a ModelResult| {
+        m.estimates
+            .iter()
+            .find(|e| (e.target - saving.target).abs() <= 1e-9 * saving.target.abs().max(1.0))
+    };
+    (find(&model.fine_tuned), find(&model.scratch))
+}
+
+/// The model that transfers best to the `i`-th goal: among models whose fine-tuned estimate
+/// has a budget, the largest saving in device-hours, then in samples (an unknown saving ranks
+/// last; the first model wins a tie). `None` when no fine-tuned estimate has a budget.
+pub(crate) fn best_transfer(
+    transfer: &TransferResult,
+    i: usize,
+) -> Option<(&TransferModel, &TransferSaving)> {
+    let key = |s: &TransferSaving| {
+        (
+            s.core_hours_saved.unwrap_or(f64::NEG_INFINITY),
+            s.samples_saved.unwrap_or(f64::NEG_INFINITY),
+        )
+    };
+    transfer
+        .models
+        .iter()
+        .filter_map(|m| m.savings.get(i).map(|s| (m, s)))
+        .filter(|(_, s)| s.fine_tuned_status.has_budget())
+        .fold(None, |best, (m, s)| match best {
+            Some((_, b)) if key(b) >= key(s) => best,
+            _ => Some((m, s)),
+        })
 }
 
 #[cfg(test)]
@@ -493,6 +542,303 @@ pub(crate) mod tests {
         std::fs::write(&blocker, b"x").unwrap();
         let err = write_report(&fixture(), &blocker).unwrap_err();
         assert!(err.to_string().contains("report.html"), "{err}");
+    }
+
+    fn transfer_estimate(
+        target: f64,
+        status: EstimateStatus,
+        samples: Option<f64>,
+        interval: [Option<f64>; 2],
+        asymptote: Option<f64>,
+    ) -> TargetEstimate {
+        TargetEstimate {
+            target,
+            status,
+            samples,
+            median_samples: None,
+            samples_interval: interval,
+            p_unreachable: if status.has_budget() { 0.0 } else { 1.0 },
+            budget: None,
+            budget_low: None,
+            budget_high: None,
+            asymptote,
+            extrapolation: (status == EstimateStatus::Extrapolated).then_some(3.75),
+            note: String::new(),
+        }
+    }
+
+    /// A learning curve over the fine-tuning sizes 50, 200 and 800, shaped like `base`'s,
+    /// raised by `shift`, with the given estimates.
+    fn transfer_curve(
+        base: &ModelResult,
+        shift: f64,
+        estimates: Vec<TargetEstimate>,
+    ) -> ModelResult {
+        let mut m = base.clone();
+        for (p, k) in m.points.iter_mut().zip([50, 200, 800]) {
+            p.n = k;
+            p.mean += shift;
+            p.q10 += shift;
+            p.q90 += shift;
+            p.replicate_means.iter_mut().for_each(|v| *v += shift);
+        }
+        m.estimates = estimates;
+        m
+    }
+
+    fn transfer_saving(
+        target: f64,
+        statuses: [EstimateStatus; 2],
+        samples: [Option<f64>; 2],
+        note: &str,
+    ) -> TransferSaving {
+        TransferSaving {
+            target,
+            fine_tuned_samples: samples[0],
+            scratch_samples: samples[1],
+            fine_tuned_status: statuses[0],
+            scratch_status: statuses[1],
+            samples_saved: None,
+            samples_saved_interval: [None, None],
+            core_hours_saved: None,
+            core_hours_saved_interval: [None, None],
+            note: note.into(),
+        }
+    }
+
+    /// The fixture with a new regime (F = 24) for both models, targets 2.5 and 3.5 valid time.
+    /// esn-500 at 2.5: fine-tuned 1,200 [800–2,000], from scratch 5,000 [3,000–unbounded],
+    /// saving 3,800 [1,000–unbounded] samples and 340 [120–unbounded] core-hours; at 3.5
+    /// unreachable both ways. The second model at 2.5: fine-tuned extrapolated, unreachable from
+    /// scratch; at 3.5 no fit.
+    pub(crate) fn transfer_fixture() -> StudyOutcome {
+        use EstimateStatus::*;
+        let mut outcome = fixture();
+        let doc = &mut outcome.document;
+        let mut data = doc.data.clone().unwrap();
+        data.parameters = params(&[("F", 24.0), ("h", 1.0)]);
+        data.samples = 5000;
+        data.test_initial_conditions = 3;
+        let targets = vec![2.5, 3.5];
+        let a = &doc.models[0];
+        let first = TransferModel {
+            name: a.name.clone(),
+            kind: a.kind.clone(),
+            base_samples: 16000,
+            base_skill: 2.85,
+            zero_shot_replicates: vec![1.2, 1.4],
+            zero_shot: 1.3,
+            gap: 1.55,
+            targets: targets.clone(),
+            scratch: transfer_curve(
+                a,
+                -0.6,
+                vec![
+                    transfer_estimate(2.5, Reachable, Some(5000.0), [Some(3000.0), None], None),
+                    transfer_estimate(3.5, Unreachable, None, [None, None], Some(2.9)),
+                ],
+            ),
+            fine_tuned: transfer_curve(
+                a,
+                0.0,
+                vec![
+                    transfer_estimate(
+                        2.5,
+                        Reachable,
+                        Some(1200.0),
+                        [Some(800.0), Some(2000.0)],
+                        None,
+                    ),
+                    transfer_estimate(3.5, Unreachable, None, [None, None], Some(3.1)),
+                ],
+            ),
+            savings: vec![
+                TransferSaving {
+                    samples_saved: Some(3800.0),
+                    samples_saved_interval: [Some(1000.0), None],
+                    core_hours_saved: Some(340.0),
+                    core_hours_saved_interval: [Some(120.0), None],
+                    ..transfer_saving(
+                        2.5,
+                        [Reachable, Reachable],
+                        [Some(1200.0), Some(5000.0)],
+                        "fine-tuning needs a quarter of the samples",
+                    )
+                },
+                transfer_saving(
+                    3.5,
+                    [Unreachable, Unreachable],
+                    [None, None],
+                    "both curves saturate below 3.5",
+                ),
+            ],
+        };
+        let b = &doc.models[1];
+        let second = TransferModel {
+            name: b.name.clone(),
+            kind: b.kind.clone(),
+            base_samples: 16000,
+            base_skill: 1.6,
+            zero_shot_replicates: vec![0.9, 1.1],
+            zero_shot: 1.0,
+            gap: 0.6,
+            targets: targets.clone(),
+            scratch: transfer_curve(
+                b,
+                0.0,
+                vec![
+                    transfer_estimate(2.5, Unreachable, None, [None, None], Some(2.1)),
+                    transfer_estimate(3.5, NoFit, None, [None, None], None),
+                ],
+            ),
+            fine_tuned: transfer_curve(
+                b,
+                0.4,
+                vec![
+                    transfer_estimate(
+                        2.5,
+                        Extrapolated,
+                        Some(3000.0),
+                        [Some(2000.0), Some(6000.0)],
+                        None,
+                    ),
+                    transfer_estimate(3.5, NoFit, None, [None, None], None),
+                ],
+            ),
+            savings: vec![
+                transfer_saving(
+                    2.5,
+                    [Extrapolated, Unreachable],
+                    [Some(3000.0), None],
+                    "from scratch saturates at 2.1 <below>",
+                ),
+                transfer_saving(3.5, [NoFit, NoFit], [None, None], "no fit"),
+            ],
+        };
+        doc.transfer = Some(TransferResult {
+            data,
+            sizes: vec![50, 200, 800],
+            replicates: 2,
+            goal: "absolute".into(),
+            goal_values: targets,
+            fine_tune: serde_json::json!({"learning-rate-scale": 0.1}),
+            persistence: summary(0.07),
+            cost: doc.cost.clone(),
+            campaign: None,
+            models: vec![first, second],
+        });
+        outcome
+    }
+
+    /// The transfer section of a page, from its opening tag to its closing one.
+    fn transfer_section(page: &str) -> &str {
+        let start = page
+            .find("<section id=\"transfer\">")
+            .expect("transfer section");
+        let len = page[start..].find("</section>\n").unwrap() + "</section>\n".len();
+        &page[start..start + len]
+    }
+
+    #[test]
+    fn transfer_section_answers_first_and_sits_before_the_budget() {
+        let outcome = transfer_fixture();
+        let page = html(&outcome);
+        let order = ["id=\"points\"", "id=\"transfer\"", "id=\"assumptions\""];
+        let at: Vec<usize> = order.iter().map(|s| page.find(s).unwrap()).collect();
+        assert!(at.windows(2).all(|w| w[0] < w[1]), "sections in order");
+        assert!(page.contains(
+            "<a href=\"#points\">Measured points</a><a href=\"#transfer\">Transfer</a>\
+             <a href=\"#assumptions\">"
+        ));
+        let section = transfer_section(&page);
+        let lead = "With <strong>esn-500</strong>, fine-tuning needs about <strong>1,200 \
+                    samples</strong> (90% 800–2,000) of the new regime to reach 2.50 time units, \
+                    saving <strong>340 core-hours</strong> (120–unbounded) against training from \
+                    scratch.";
+        assert!(section.contains(lead), "{section}");
+        assert!(
+            section.contains(
+                "No model reaches 3.50 time units in the new regime by fine-tuning: with \
+                 <strong>esn-500</strong>, even the fine-tuned curve saturates below the target \
+                 (fitted asymptote 3.10 time units); with <strong>esn &lt;b&gt;tiny&lt;/b&gt;\
+                 </strong>, no curve could be fitted to the fine-tuned skill."
+            ),
+            "{section}"
+        );
+        let zero_shot = section.find("Zero-shot").unwrap();
+        assert!(
+            section.find(lead).unwrap() < zero_shot,
+            "the answer comes first"
+        );
+        assert!(section.contains("simulated <strong>two-scale-lorenz96</strong> (F = 24, h = 1)"));
+        assert!(section.contains("Floor in the new regime: persistence"));
+        // Zero-shot rows: base skill, zero-shot skill, gap.
+        assert!(section.contains("2.85 time units</td><td class=\"num\">1.30 time units"));
+        assert!(section.contains("1.55</span> time units"));
+        // One k* row per model and target.
+        let table = &section[section
+            .find("Samples and cost per model and target")
+            .unwrap()..];
+        let table = &table[..table.find("</table>").unwrap()];
+        assert_eq!(table.matches("<tr><td>").count(), 4, "{table}");
+        assert!(table.contains("<span class=\"big\">3,800</span> samples<span class=\"sub\">conservative interval 1,000–unbounded</span>"));
+        assert!(table.contains("<span class=\"big\">340</span><span class=\"sub\">conservative interval 120–unbounded</span>"));
+        assert!(table.contains("<span class=\"badge extrapolated\">extrapolated</span>"));
+        assert!(table.contains("90% interval k* ≥ 3,000"), "{table}");
+        assert_eq!(
+            table.matches("<span class=\"badge unreachable\">").count(),
+            3
+        );
+        assert!(section.contains("this pair of regimes") && section.contains("small pilot"));
+        // One chart per model and one per transfer model; user text escaped.
+        assert_eq!(page.matches("<svg").count(), 4);
+        assert!(section.contains("<title>Transfer curves of model esn-500</title>"));
+        assert!(!page.contains("<b>tiny") && !page.contains("<below>"));
+    }
+
+    #[test]
+    fn without_transfer_the_page_and_files_are_unchanged() {
+        let without = html(&fixture());
+        assert!(!without.contains("transfer") && !without.contains("new regime"));
+        let with = html(&transfer_fixture());
+        let rest = with
+            .replace(transfer_section(&with), "")
+            .replace("<a href=\"#transfer\">Transfer</a>", "");
+        assert_eq!(
+            rest, without,
+            "the transfer adds its section and link, nothing else"
+        );
+    }
+
+    #[test]
+    fn write_report_adds_the_transfer_tables() {
+        let outcome = transfer_fixture();
+        let dir = tempfile::tempdir().unwrap();
+        let written = write_report(&outcome, dir.path()).unwrap();
+        let t = outcome.document.transfer.as_ref().unwrap();
+        assert_eq!(
+            written,
+            [
+                REPORT_HTML,
+                PLAN_JSON,
+                SKILL_CSV,
+                tables::TRANSFER_MD,
+                tables::TRANSFER_TEX,
+                tables::TRANSFER_CSV
+            ]
+            .map(|n| dir.path().join(n))
+            .to_vec()
+        );
+        assert_eq!(
+            std::fs::read(dir.path().join(tables::TRANSFER_CSV)).unwrap(),
+            tables::transfer_csv(t, 0.9)
+        );
+        assert_eq!(
+            std::fs::read_dir(dir.path().join("tables"))
+                .unwrap()
+                .count(),
+            3
+        );
     }
 
     #[test]

@@ -1,9 +1,10 @@
 //! Learning-curve charts as inline SVG (plotters, SVG backend into a `String`): measured skill
 //! against the training-set size on a log axis, with the fitted families, targets and the
-//! persistence floor, and a legend panel on the right.
+//! persistence floor, and a legend panel on the right. The same chart holds two curves for a
+//! new regime (from scratch and fine-tuned over the fine-tuning size k).
 
 use crate::curves::Family;
-use crate::study::results::{FitResult, ModelResult, PlanDocument};
+use crate::study::results::{FitResult, ModelResult, PlanDocument, TransferModel, TransferResult};
 use plotters::coord::Shift;
 use plotters::element::DashedPathElement;
 use plotters::prelude::*;
@@ -29,6 +30,9 @@ const DATA: RGBColor = RGBColor(0x2f, 0x55, 0x8a);
 const BAND: RGBColor = RGBColor(0xd6, 0xe2, 0xf1);
 const TARGET: RGBColor = RGBColor(0xb0, 0x4a, 0x2c);
 const FLOOR: RGBColor = RGBColor(0x8a, 0x8f, 0x96);
+/// The second curve of a two-curve chart (training from scratch), and its band.
+const SCRATCH: RGBColor = RGBColor(0x8a, 0x4f, 0x9e);
+const SCRATCH_BAND: RGBColor = RGBColor(0xe9, 0xdf, 0xee);
 /// One colour per family, in [`Family::ALL`] order.
 const FAMILY_COLOURS: [RGBColor; 7] = [
     RGBColor(0x1d, 0x7a, 0x6c),
@@ -132,7 +136,7 @@ enum Swatch {
         filled: bool,
         radius: u32,
     },
-    Band,
+    Band(RGBColor),
 }
 
 struct LegendItem {
@@ -149,6 +153,45 @@ pub fn learning_curve(doc: &PlanDocument, model: &ModelResult) -> String {
         &format!("Learning curve of model {}", model.name),
         |root| draw(root, doc, model),
     )
+}
+
+/// The transfer chart of one model as an `<svg>` element: skill in the new regime against the
+/// fine-tuning size k, trained from scratch and fine-tuned from the base, on one log axis with
+/// the model's targets and the new regime's persistence floor.
+pub fn transfer_curves(transfer: &TransferResult, model: &TransferModel) -> String {
+    render(
+        HEIGHT,
+        &format!("Transfer curves of model {}", model.name),
+        |root| {
+            draw_curves(
+                root,
+                &CurveChart {
+                    curves: vec![
+                        Curve {
+                            model: &model.scratch,
+                            label: "from scratch",
+                            colour: SCRATCH,
+                            band: SCRATCH_BAND,
+                        },
+                        Curve {
+                            model: &model.fine_tuned,
+                            label: "fine-tuned",
+                            colour: DATA,
+                            band: BAND,
+                        },
+                    ],
+                    targets: &model.targets,
+                    floor: transfer.persistence.mean,
+                    x_desc: "new-regime samples k (log scale)",
+                },
+            )
+        },
+    )
+}
+
+/// The k range of a model's transfer chart (see [`x_range`]).
+pub fn transfer_x_range(model: &TransferModel) -> Option<(f64, f64, bool)> {
+    curves_x_range([&model.scratch, &model.fine_tuned])
 }
 
 /// Draws a chart of `height` pixels into an SVG string and finishes it with `title`; a chart
@@ -215,13 +258,59 @@ fn finish(svg: &str, title: &str) -> String {
 
 type DrawResult = Result<(), Box<dyn std::error::Error>>;
 
+/// One learning curve on a chart: a model's measured points, bands and fitted families.
+struct Curve<'a> {
+    model: &'a ModelResult,
+    /// Legend name of the curve (charts of more than one curve).
+    label: &'a str,
+    colour: RGBColor,
+    band: RGBColor,
+}
+
+/// What a learning-curve chart shows: one curve (every fitted family drawn, coloured by
+/// family) or several (each drawn with its selected family in its own colour), with the
+/// targets and the persistence floor.
+struct CurveChart<'a> {
+    curves: Vec<Curve<'a>>,
+    targets: &'a [f64],
+    floor: f64,
+    x_desc: &'a str,
+}
+
 fn draw(
     root: &DrawingArea<SVGBackend<'_>, Shift>,
     doc: &PlanDocument,
     model: &ModelResult,
 ) -> DrawResult {
+    draw_curves(
+        root,
+        &CurveChart {
+            curves: vec![Curve {
+                model,
+                label: &model.name,
+                colour: DATA,
+                band: BAND,
+            }],
+            targets: &doc.study.targets,
+            floor: doc.persistence.as_ref().map_or(f64::NAN, |p| p.mean),
+            x_desc: "training samples n (log scale)",
+        },
+    )
+}
+
+/// The chart's n range: the union of its curves' [`x_range`]s.
+fn curves_x_range<'a>(
+    models: impl IntoIterator<Item = &'a ModelResult>,
+) -> Option<(f64, f64, bool)> {
+    models
+        .into_iter()
+        .filter_map(x_range)
+        .reduce(|a, b| (a.0.min(b.0), a.1.max(b.1), a.2 || b.2))
+}
+
+fn draw_curves(root: &DrawingArea<SVGBackend<'_>, Shift>, spec: &CurveChart<'_>) -> DrawResult {
     root.fill(&WHITE)?;
-    let Some((x_lo, x_hi, _)) = x_range(model) else {
+    let Some((x_lo, x_hi, _)) = curves_x_range(spec.curves.iter().map(|c| c.model)) else {
         root.draw(&Text::new(
             "no measured points",
             (20, 40),
@@ -230,11 +319,13 @@ fn draw(
         return Ok(());
     };
     let (plot_area, legend_area) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
-    let targets = &doc.study.targets;
-    let floor = doc.persistence.as_ref().map_or(f64::NAN, |p| p.mean);
+    let targets = spec.targets;
+    let floor = spec.floor;
+    let several = spec.curves.len() > 1;
+    let points = || spec.curves.iter().flat_map(|c| c.model.points.iter());
 
     let mut y_max = floor.max(targets.iter().copied().fold(0.0, f64::max));
-    for p in &model.points {
+    for p in points() {
         y_max = y_max
             .max(p.q90)
             .max(p.mean + p.standard_error)
@@ -256,7 +347,7 @@ fn draw(
     )?;
     chart
         .configure_mesh()
-        .x_desc("training samples n (log scale)")
+        .x_desc(spec.x_desc)
         .y_desc("mean valid prediction time (model time units)")
         .axis_desc_style(axis_font)
         .label_style(label_font.clone())
@@ -269,8 +360,9 @@ fn draw(
         .axis_style(INK.mix(0.6))
         .draw()?;
 
-    // 10–90% spread of every initial condition and replicate, one light bar per size.
-    let mut sizes: Vec<f64> = model.points.iter().map(|p| p.n as f64).collect();
+    // 10–90% spread of every initial condition and replicate, one light bar per size (side by
+    // side, first curve on the left, when there are two).
+    let mut sizes: Vec<f64> = points().map(|p| p.n as f64).collect();
     sizes.sort_by(f64::total_cmp);
     let min_ratio = sizes
         .windows(2)
@@ -278,13 +370,17 @@ fn draw(
         .filter(|r| *r > 1.0)
         .fold(2.0, f64::min);
     let half_width = min_ratio.powf(0.3).min(1.12);
-    chart.draw_series(model.points.iter().map(|p| {
-        let n = p.n as f64;
-        Rectangle::new(
-            [(n / half_width, p.q10), (n * half_width, p.q90)],
-            BAND.filled(),
-        )
-    }))?;
+    for (i, c) in spec.curves.iter().enumerate() {
+        let (left, right) = match (several, i) {
+            (false, _) => (half_width, half_width),
+            (true, 0) => (half_width, 1.0),
+            (true, _) => (1.0, half_width),
+        };
+        chart.draw_series(c.model.points.iter().map(|p| {
+            let n = p.n as f64;
+            Rectangle::new([(n / left, p.q10), (n * right, p.q90)], c.band.filled())
+        }))?;
+    }
 
     // Persistence floor and targets.
     if floor.is_finite() {
@@ -310,70 +406,94 @@ fn draw(
         )))?;
     }
 
-    // Fitted families: the selected one bold and solid, the others thin and dashed.
+    // Fitted families: the selected one bold and solid, the others thin and dashed; with
+    // several curves, only each curve's selected family, in the curve's colour.
     let ln_lo = x_lo.ln();
     let ln_step = (x_hi.ln() - ln_lo) / (CURVE_POINTS - 1) as f64;
-    for fit in &model.fits {
-        let Some(p) = param_vector(fit) else { continue };
-        let selected = model.selected == Some(fit.family);
-        let colour = family_colour(fit.family);
-        for segment in clipped_curve(fit.family, &p, ln_lo, ln_step, y_hi) {
-            if selected {
-                chart.draw_series(std::iter::once(PathElement::new(
-                    segment,
-                    colour.stroke_width(3),
-                )))?;
+    for c in &spec.curves {
+        let model = c.model;
+        for fit in &model.fits {
+            let Some(p) = param_vector(fit) else { continue };
+            let selected = model.selected == Some(fit.family);
+            if several && !selected {
+                continue;
+            }
+            let colour = if several {
+                c.colour
             } else {
-                chart.draw_series(std::iter::once(DashedPathElement::new(
-                    segment,
-                    6,
-                    4,
-                    colour.stroke_width(1),
-                )))?;
+                family_colour(fit.family)
+            };
+            for segment in clipped_curve(fit.family, &p, ln_lo, ln_step, y_hi) {
+                if selected {
+                    chart.draw_series(std::iter::once(PathElement::new(
+                        segment,
+                        colour.stroke_width(3),
+                    )))?;
+                } else {
+                    chart.draw_series(std::iter::once(DashedPathElement::new(
+                        segment,
+                        6,
+                        4,
+                        colour.stroke_width(1),
+                    )))?;
+                }
             }
         }
     }
 
     // Replicate means, then the per-size mean with ± standard-error bars.
-    chart.draw_series(model.points.iter().flat_map(|p| {
-        let n = p.n as f64;
-        p.replicate_means
-            .iter()
-            .map(move |m| Circle::new((n, *m), 2, DATA.mix(0.5).filled()))
-    }))?;
+    for c in &spec.curves {
+        let colour = c.colour;
+        chart.draw_series(c.model.points.iter().flat_map(|p| {
+            let n = p.n as f64;
+            p.replicate_means
+                .iter()
+                .map(move |m| Circle::new((n, *m), 2, colour.mix(0.5).filled()))
+        }))?;
+    }
     // ± standard-error bars with short caps (drawn by hand: the errorbar feature is off).
     let cap = half_width.powf(0.4);
-    chart.draw_series(model.points.iter().flat_map(|p| {
-        let n = p.n as f64;
-        let (lo, hi) = (
-            (p.mean - p.standard_error).max(0.0),
-            p.mean + p.standard_error,
-        );
-        [
-            vec![(n, lo), (n, hi)],
-            vec![(n / cap, lo), (n * cap, lo)],
-            vec![(n / cap, hi), (n * cap, hi)],
-        ]
-        .into_iter()
-        .map(|path| PathElement::new(path, DATA.stroke_width(2)))
-    }))?;
-    chart.draw_series(model.points.iter().map(|p| {
-        let style = if p.censored_share > 0.0 {
-            ShapeStyle::from(&WHITE).filled()
-        } else {
-            DATA.filled()
-        };
-        Circle::new((p.n as f64, p.mean), 5, style)
-    }))?;
-    chart.draw_series(
-        model
-            .points
-            .iter()
-            .filter(|p| p.censored_share > 0.0)
-            .map(|p| Circle::new((p.n as f64, p.mean), 5, DATA.stroke_width(2))),
-    )?;
+    for c in &spec.curves {
+        let colour = c.colour;
+        chart.draw_series(c.model.points.iter().flat_map(|p| {
+            let n = p.n as f64;
+            let (lo, hi) = (
+                (p.mean - p.standard_error).max(0.0),
+                p.mean + p.standard_error,
+            );
+            [
+                vec![(n, lo), (n, hi)],
+                vec![(n / cap, lo), (n * cap, lo)],
+                vec![(n / cap, hi), (n * cap, hi)],
+            ]
+            .into_iter()
+            .map(move |path| PathElement::new(path, colour.stroke_width(2)))
+        }))?;
+    }
+    for c in &spec.curves {
+        chart.draw_series(c.model.points.iter().map(|p| {
+            let style = if p.censored_share > 0.0 {
+                ShapeStyle::from(&WHITE).filled()
+            } else {
+                c.colour.filled()
+            };
+            Circle::new((p.n as f64, p.mean), 5, style)
+        }))?;
+        chart.draw_series(
+            c.model
+                .points
+                .iter()
+                .filter(|p| p.censored_share > 0.0)
+                .map(|p| Circle::new((p.n as f64, p.mean), 5, c.colour.stroke_width(2))),
+        )?;
+    }
 
-    draw_legend(&legend_area, &legend_items(model))?;
+    let items = if several {
+        comparison_legend_items(spec)
+    } else {
+        legend_items(spec.curves[0].model)
+    };
+    draw_legend(&legend_area, &items)?;
     Ok(())
 }
 
@@ -428,7 +548,7 @@ fn legend_items(model: &ModelResult) -> Vec<LegendItem> {
             "replicate mean",
             None,
         ),
-        item(Swatch::Band, "10–90% of forecasts", None),
+        item(Swatch::Band(BAND), "10–90% of forecasts", None),
     ];
     if model.points.iter().any(|p| p.censored_share > 0.0) {
         items.push(item(
@@ -481,6 +601,78 @@ fn legend_items(model: &ModelResult) -> Vec<LegendItem> {
     items
 }
 
+/// Legend of a chart of several curves: per curve its points, its selected family and its
+/// band, then the targets and the floor.
+fn comparison_legend_items(spec: &CurveChart<'_>) -> Vec<LegendItem> {
+    let mut items = Vec::new();
+    for c in &spec.curves {
+        items.push(LegendItem {
+            swatch: Swatch::Marker {
+                colour: c.colour,
+                filled: true,
+                radius: 5,
+            },
+            text: c.label.to_string(),
+            second_line: Some("mean ± s.e.; dots: replicates".into()),
+        });
+        let selected = c
+            .model
+            .fits
+            .iter()
+            .find(|f| Some(f.family) == c.model.selected && param_vector(f).is_some());
+        if let Some(fit) = selected {
+            items.push(LegendItem {
+                swatch: Swatch::Line {
+                    colour: c.colour,
+                    width: 3,
+                    dashed: false,
+                },
+                text: fit.family.label().replace('-', " "),
+                second_line: Some(fit.family.formula().to_string()),
+            });
+        }
+        items.push(LegendItem {
+            swatch: Swatch::Band(c.band),
+            text: "10–90% of forecasts".into(),
+            second_line: None,
+        });
+    }
+    if spec
+        .curves
+        .iter()
+        .any(|c| c.model.points.iter().any(|p| p.censored_share > 0.0))
+    {
+        items.push(LegendItem {
+            swatch: Swatch::Marker {
+                colour: INK,
+                filled: false,
+                radius: 5,
+            },
+            text: "some forecasts censored".into(),
+            second_line: Some("(mean is a lower bound)".into()),
+        });
+    }
+    items.push(LegendItem {
+        swatch: Swatch::Line {
+            colour: TARGET,
+            width: 2,
+            dashed: true,
+        },
+        text: "target skill".into(),
+        second_line: None,
+    });
+    items.push(LegendItem {
+        swatch: Swatch::Line {
+            colour: FLOOR,
+            width: 2,
+            dashed: false,
+        },
+        text: "persistence (mean)".into(),
+        second_line: None,
+    });
+    items
+}
+
 fn draw_legend(area: &DrawingArea<SVGBackend<'_>, Shift>, items: &[LegendItem]) -> DrawResult {
     let font = ("sans-serif", 13).into_font().color(&INK);
     let small = ("sans-serif", 12).into_font().color(&FLOOR);
@@ -529,10 +721,10 @@ fn draw_legend(area: &DrawingArea<SVGBackend<'_>, Shift>, items: &[LegendItem]) 
                     area.draw(&Circle::new((mid, y), radius, colour.stroke_width(2)))?;
                 }
             }
-            Swatch::Band => {
+            Swatch::Band(band) => {
                 area.draw(&Rectangle::new(
                     [(mid - 5, y - 8), (mid + 5, y + 8)],
-                    BAND.filled(),
+                    band.filled(),
                 ))?;
             }
         }

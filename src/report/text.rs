@@ -1,12 +1,22 @@
 //! The answer as plain text for the terminal (printed after `run`).
 
-use super::format::{bytes, sig3, thousands};
-use crate::study::results::PlanDocument;
+use super::format::{bytes, number, percent, sig3, thousands};
+use crate::study::results::{EstimateStatus, PlanDocument, TargetEstimate, TransferResult};
+use std::fmt::Write;
+
+/// "low–high", "?" for an unknown lower end and "unbounded" for an unbounded upper end.
+fn range(lo: Option<f64>, hi: Option<f64>, f: &dyn Fn(f64) -> String) -> String {
+    format!(
+        "{}–{}",
+        lo.map(f).unwrap_or_else(|| "?".into()),
+        hi.map(f).unwrap_or_else(|| "unbounded".into())
+    )
+}
 
 /// The answer as plain text for the terminal: per model and target, samples, simulated time,
-/// core-hours and storage with intervals, then warnings.
+/// core-hours and storage with intervals; then, for a new regime, the zero-shot gap and per
+/// model and target k* fine-tuned and from scratch and the saving; then warnings.
 pub fn text_summary(doc: &PlanDocument) -> String {
-    use std::fmt::Write;
     let mut s = String::new();
     let _ = writeln!(s, "{}", doc.study.title);
     if let Some(p) = &doc.persistence {
@@ -28,13 +38,6 @@ pub fn text_summary(doc: &PlanDocument) -> String {
         let selected = m.selected.map(|f| f.label()).unwrap_or("none");
         let _ = writeln!(s, "\nmodel {} ({}; curve: {selected})", m.name, m.kind);
         for e in &m.estimates {
-            let range = |lo: Option<f64>, hi: Option<f64>, f: &dyn Fn(f64) -> String| {
-                format!(
-                    "{}–{}",
-                    lo.map(f).unwrap_or_else(|| "?".into()),
-                    hi.map(f).unwrap_or_else(|| "unbounded".into())
-                )
-            };
             match (e.status, &e.budget) {
                 (status, Some(b)) if status.has_budget() => {
                     let _ = writeln!(
@@ -77,10 +80,96 @@ pub fn text_summary(doc: &PlanDocument) -> String {
             }
         }
     }
+    if let Some(t) = &doc.transfer {
+        transfer_summary(&mut s, t, level);
+    }
     for w in &doc.warnings {
         let _ = writeln!(s, "warning: {w}");
     }
     s
+}
+
+/// One k*: "1,200 samples (90% 800–2,000)", with the status when it is not plainly reachable,
+/// or the status alone when it gives no sample count.
+fn k_star(e: Option<&TargetEstimate>, status: EstimateStatus, level: f64) -> String {
+    match e.and_then(|e| e.samples.filter(|_| status.has_budget()).map(|n| (e, n))) {
+        Some((e, n)) => {
+            let mut k = format!(
+                "{} samples ({level}% {})",
+                thousands(n),
+                range(e.samples_interval[0], e.samples_interval[1], &thousands)
+            );
+            if status != EstimateStatus::Reachable {
+                let _ = write!(k, ", {}", status.label());
+            }
+            k
+        }
+        None => status.label().to_string(),
+    }
+}
+
+/// The new-regime block: its data and floor, then per model the zero-shot gap and per target
+/// k* fine-tuned and from scratch and what fine-tuning saves.
+fn transfer_summary(s: &mut String, t: &TransferResult, level: f64) {
+    let hours = t
+        .campaign
+        .as_ref()
+        .map_or("core-hours", |c| c.device.hours_label());
+    let d = &t.data;
+    let params: Vec<String> = d
+        .parameters
+        .iter()
+        .map(|(k, v)| format!("{k} = {}", number(*v)))
+        .collect();
+    let _ = writeln!(
+        s,
+        "\nnew regime: {}{}; {} samples, {} test initial conditions; persistence floor {} time units",
+        d.system.as_deref().unwrap_or(&d.source),
+        if params.is_empty() {
+            String::new()
+        } else {
+            format!(" ({})", params.join(", "))
+        },
+        thousands(d.samples as f64),
+        thousands(d.test_initial_conditions as f64),
+        sig3(t.persistence.mean)
+    );
+    for m in &t.models {
+        let _ = writeln!(
+            s,
+            "transfer {} ({}): zero-shot {} time units against {} in its own regime, gap {} ({})",
+            m.name,
+            m.kind,
+            sig3(m.zero_shot),
+            sig3(m.base_skill),
+            sig3(m.gap),
+            percent(m.gap / m.base_skill)
+        );
+        for saving in &m.savings {
+            let (ft, scratch) = super::saving_estimates(m, saving);
+            // A negative saving reads as the extra that fine-tuning needs.
+            let saved = |v: f64, [lo, hi]: [Option<f64>; 2], f: &dyn Fn(f64) -> String, unit| {
+                let span = range(lo, hi, f);
+                if v >= 0.0 {
+                    format!("saves {} {unit} ({span})", f(v))
+                } else {
+                    format!("needs {} {unit} more (saving {span})", f(-v))
+                }
+            };
+            let saved = match (saving.core_hours_saved, saving.samples_saved) {
+                (Some(h), _) => saved(h, saving.core_hours_saved_interval, &sig3, hours),
+                (None, Some(n)) => saved(n, saving.samples_saved_interval, &thousands, "samples"),
+                (None, None) => "saving unknown".to_string(),
+            };
+            let _ = writeln!(
+                s,
+                "  k* for {:>6}: fine-tuned {}; from scratch {}; {saved}",
+                sig3(saving.target),
+                k_star(ft, saving.fine_tuned_status, level),
+                k_star(scratch, saving.scratch_status, level),
+            );
+        }
+    }
 }
 
 #[cfg(test)]
@@ -99,5 +188,47 @@ mod tests {
         for w in &doc.warnings {
             assert!(text.contains(w.as_str()));
         }
+    }
+    #[test]
+    fn summary_ends_with_the_new_regime() {
+        let plain = text_summary(&crate::report::tests::fixture().document);
+        assert!(!plain.contains("new regime"), "{plain}");
+        let text = text_summary(&crate::report::tests::transfer_fixture().document);
+        let block = &text[text.find("\nnew regime: ").expect("new-regime block")..];
+        assert!(text.find("model esn-500").unwrap() < text.find("new regime").unwrap());
+        assert!(
+            block.starts_with(
+                "\nnew regime: two-scale-lorenz96 (F = 24, h = 1); 5,000 samples, 3 test \
+                 initial conditions; persistence floor 0.0700 time units\n"
+            ),
+            "{block}"
+        );
+        assert!(
+            block.contains(
+                "transfer esn-500 (esn): zero-shot 1.30 time units against 2.85 in its own \
+                 regime, gap 1.55 (54%)"
+            ),
+            "{block}"
+        );
+        assert_eq!(block.matches("  k* for ").count(), 4, "{block}");
+        assert!(
+            block.contains(
+                "  k* for   2.50: fine-tuned 1,200 samples (90% 800–2,000); from scratch 5,000 \
+                 samples (90% 3,000–unbounded); saves 340 core-hours (120–unbounded)\n"
+            ),
+            "{block}"
+        );
+        assert!(
+            block.contains(
+                "  k* for   3.50: fine-tuned unreachable; from scratch unreachable; saving unknown"
+            ),
+            "{block}"
+        );
+        assert!(
+            block.contains("fine-tuned 3,000 samples (90% 2,000–6,000), extrapolated"),
+            "{block}"
+        );
+        // The warnings stay last.
+        assert!(text.find("new regime").unwrap() < text.find("warning: ").unwrap());
     }
 }
