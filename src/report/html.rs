@@ -866,6 +866,9 @@ fn transfer_lead(doc: &PlanDocument, t: &TransferResult, i: usize) -> String {
                 no_budget_reason("from-scratch", scratch, s.scratch_status)
             );
         }
+        (None, None) if !s.note.is_empty() => {
+            let _ = write!(lead, "; {}.", escape(&s.note));
+        }
         (None, None) => lead.push_str("; the saving against training from scratch is unknown."),
     }
     lead

@@ -4,13 +4,14 @@ use super::format::{bytes, number, percent, sig3, thousands};
 use crate::study::results::{EstimateStatus, PlanDocument, TargetEstimate, TransferResult};
 use std::fmt::Write;
 
-/// "low–high", "?" for an unknown lower end and "unbounded" for an unbounded upper end.
+/// "low–high", "low–unbounded", "up to high" or "unbounded", as in the HTML report.
 fn range(lo: Option<f64>, hi: Option<f64>, f: &dyn Fn(f64) -> String) -> String {
-    format!(
-        "{}–{}",
-        lo.map(f).unwrap_or_else(|| "?".into()),
-        hi.map(f).unwrap_or_else(|| "unbounded".into())
-    )
+    match (lo, hi) {
+        (Some(l), Some(h)) => format!("{}–{}", f(l), f(h)),
+        (Some(l), None) => format!("{}–unbounded", f(l)),
+        (None, Some(h)) => format!("up to {}", f(h)),
+        (None, None) => "unbounded".into(),
+    }
 }
 
 /// The answer as plain text for the terminal: per model and target, samples, simulated time,
@@ -159,6 +160,7 @@ fn transfer_summary(s: &mut String, t: &TransferResult, level: f64) {
             let saved = match (saving.core_hours_saved, saving.samples_saved) {
                 (Some(h), _) => saved(h, saving.core_hours_saved_interval, &sig3, hours),
                 (None, Some(n)) => saved(n, saving.samples_saved_interval, &thousands, "samples"),
+                (None, None) if !saving.note.is_empty() => saving.note.clone(),
                 (None, None) => "saving unknown".to_string(),
             };
             let _ = writeln!(
@@ -220,7 +222,7 @@ mod tests {
         );
         assert!(
             block.contains(
-                "  k* for   3.50: fine-tuned unreachable; from scratch unreachable; saving unknown"
+                "  k* for   3.50: fine-tuned unreachable; from scratch unreachable; both curves saturate below 3.5"
             ),
             "{block}"
         );

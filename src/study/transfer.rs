@@ -221,7 +221,15 @@ pub(super) fn run_transfer(
             let savings = targets
                 .iter()
                 .zip(scratch.estimates.iter().zip(&fine_tuned.estimates))
-                .map(|(&target, (s, f))| saving(target, s, f, &campaign))
+                .map(|(&target, (s, f))| {
+                    saving(
+                        target,
+                        s,
+                        f,
+                        &campaign,
+                        plan.trust_factor * largest_k as f64,
+                    )
+                })
                 .collect();
             TransferModel {
                 name: model.name.clone(),
@@ -279,34 +287,48 @@ fn mean(v: &[f64]) -> f64 {
 }
 
 /// The saving of fine-tuning over training from scratch for one target.
+///
+/// Given only when both estimates lie within the trust range (reached in the data, or reachable
+/// within `trust` samples): beyond it the curves' shapes, not measurements, would set the
+/// saving. Interval ends beyond `trust` are unbounded, for the same reason.
 fn saving(
     target: f64,
     scratch: &TargetEstimate,
     tuned: &TargetEstimate,
     campaign: &Campaign,
+    trust: f64,
 ) -> TransferSaving {
-    let has = |e: &TargetEstimate| e.status.has_budget();
+    let trusted = |e: &TargetEstimate| {
+        matches!(
+            e.status,
+            EstimateStatus::ReachedInData | EstimateStatus::Reachable
+        )
+    };
+    let both = trusted(scratch) && trusted(tuned);
     let core_hours = |k: f64| campaign.budget(k).core_hours;
     let (s, f) = (
-        scratch.samples.filter(|_| has(scratch)),
-        tuned.samples.filter(|_| has(tuned)),
+        scratch.samples.filter(|_| scratch.status.has_budget()),
+        tuned.samples.filter(|_| tuned.status.has_budget()),
     );
-    let [s_lo, s_hi] = scratch.samples_interval;
-    let [f_lo, f_hi] = tuned.samples_interval;
+    let within = |v: Option<f64>| v.filter(|&k| k <= trust);
+    let [s_lo, s_hi] = scratch.samples_interval.map(within);
+    let [f_lo, f_hi] = tuned.samples_interval.map(within);
     let diff = |a: Option<f64>, b: Option<f64>| Some(a? - b?);
-    let samples_saved_interval = if has(scratch) && has(tuned) {
-        [diff(s_lo, f_hi), diff(s_hi, f_lo)]
-    } else {
-        [None, None]
-    };
     let hours = |a: Option<f64>, b: Option<f64>| Some(core_hours(a?) - core_hours(b?));
-    let core_hours_saved_interval = if has(scratch) && has(tuned) {
-        [hours(s_lo, f_hi), hours(s_hi, f_lo)]
+    let (samples_saved_interval, core_hours_saved_interval) = if both {
+        (
+            [diff(s_lo, f_hi), diff(s_hi, f_lo)],
+            [hours(s_lo, f_hi), hours(s_hi, f_lo)],
+        )
     } else {
-        [None, None]
+        ([None, None], [None, None])
     };
-    let note = match (has(tuned), has(scratch)) {
-        (true, true) => String::new(),
+    let extrapolated = |e: &TargetEstimate| e.status == EstimateStatus::Extrapolated;
+    let note = match (tuned.status.has_budget(), scratch.status.has_budget()) {
+        _ if both => String::new(),
+        _ if extrapolated(tuned) || extrapolated(scratch) => {
+            "no saving given: an estimate lies beyond the trust range; measure larger k".into()
+        }
         (true, false) if scratch.status == EstimateStatus::Unreachable => {
             "training from scratch does not reach this target on its fitted curve; fine-tuning does"
                 .into()
@@ -326,10 +348,91 @@ fn saving(
         scratch_samples: s,
         fine_tuned_status: tuned.status,
         scratch_status: scratch.status,
-        samples_saved: diff(s, f),
+        samples_saved: if both { diff(s, f) } else { None },
         samples_saved_interval,
-        core_hours_saved: hours(s, f),
+        core_hours_saved: if both { hours(s, f) } else { None },
         core_hours_saved_interval,
         note,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::cost::CostInputs;
+
+    fn estimate(
+        status: EstimateStatus,
+        k: f64,
+        lo: Option<f64>,
+        hi: Option<f64>,
+    ) -> TargetEstimate {
+        TargetEstimate {
+            status,
+            samples: Some(k),
+            samples_interval: [lo, hi],
+            ..TargetEstimate::no_fit(0.5, "")
+        }
+    }
+
+    fn campaign() -> Campaign {
+        CostInputs {
+            core_hours_per_time_unit: Some(100.0),
+            ..toml::from_str("").unwrap()
+        }
+        .campaign(8, 0.01)
+        .unwrap()
+    }
+
+    /// Savings are differences of k* and of their costs; interval ends come from opposite ends
+    /// (conservative) and ends beyond the trust range are unbounded.
+    #[test]
+    fn saving_is_a_conservative_difference_within_the_trust_range() {
+        let c = campaign();
+        let scratch = estimate(
+            EstimateStatus::Reachable,
+            3000.0,
+            Some(2000.0),
+            Some(9000.0),
+        );
+        let tuned = estimate(
+            EstimateStatus::ReachedInData,
+            500.0,
+            Some(250.0),
+            Some(1000.0),
+        );
+        let s = saving(0.5, &scratch, &tuned, &c, 8000.0);
+        assert_eq!(s.samples_saved, Some(2500.0));
+        // 9000 is beyond the trust range of 8000: that end is unbounded.
+        assert_eq!(s.samples_saved_interval, [Some(1000.0), None]);
+        let per_sample = c.budget(2.0).core_hours - c.budget(1.0).core_hours;
+        assert!((s.core_hours_saved.unwrap() - 2500.0 * per_sample).abs() < 1e-6);
+        assert!(s.note.is_empty());
+    }
+
+    /// An extrapolated or unreachable side gives no saving, and says why.
+    #[test]
+    fn no_saving_beyond_the_evidence() {
+        let c = campaign();
+        let tuned = estimate(
+            EstimateStatus::ReachedInData,
+            500.0,
+            Some(250.0),
+            Some(1000.0),
+        );
+        let far = estimate(EstimateStatus::Extrapolated, 90000.0, Some(20000.0), None);
+        let s = saving(0.5, &far, &tuned, &c, 8000.0);
+        assert_eq!((s.samples_saved, s.core_hours_saved), (None, None));
+        assert!(s.note.contains("trust range"), "{}", s.note);
+        let flat = TargetEstimate {
+            status: EstimateStatus::Unreachable,
+            samples: None,
+            ..far.clone()
+        };
+        let s = saving(0.5, &tuned, &flat, &c, 8000.0);
+        assert!(s.samples_saved.is_none());
+        assert!(s.note.contains("saturates"), "{}", s.note);
+        let s = saving(0.5, &flat, &tuned, &c, 8000.0);
+        assert!(s.note.contains("from scratch does not reach"), "{}", s.note);
     }
 }
