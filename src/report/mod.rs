@@ -45,7 +45,8 @@ pub use text::text_summary;
 
 use crate::atomic::write_atomic;
 use crate::study::results::{
-    ModelResult, PlanDocument, TargetEstimate, TransferModel, TransferResult, TransferSaving,
+    EstimateStatus, ModelResult, PlanDocument, TargetEstimate, TransferModel, TransferResult,
+    TransferSaving,
 };
 use crate::study::runner::StudyOutcome;
 use std::path::{Path, PathBuf};
@@ -146,17 +147,32 @@ pub(crate) fn saving_estimates<'a>(
     (find(&model.fine_tuned), find(&model.scratch))
 }
 
-/// The model that transfers best to the `i`-th goal: among models whose fine-tuned estimate
-/// has a budget, the largest saving in device-hours, then in samples (an unknown saving ranks
-/// last; the first model wins a tie). `None` when no fine-tuned estimate has a budget.
+/// The model that transfers best to the `i`-th goal: the one that needs the fewest new-regime
+/// samples once fine-tuned (the least of the dear new data), among models whose fine-tuned
+/// estimate has a budget, preferring estimates within the trust range (reached in the data or
+/// reachable) over extrapolated ones; ties go to the larger saving in device-hours, then in
+/// samples, then to the first model. `None` when no fine-tuned estimate has a budget.
 pub(crate) fn best_transfer(
     transfer: &TransferResult,
     i: usize,
 ) -> Option<(&TransferModel, &TransferSaving)> {
-    let key = |s: &TransferSaving| {
+    let trusted = |s: &TransferSaving| {
+        matches!(
+            s.fine_tuned_status,
+            EstimateStatus::ReachedInData | EstimateStatus::Reachable
+        )
+    };
+    // Smaller is better: (not trusted, k*, −saving in hours, −saving in samples).
+    let key = |m: &TransferModel, s: &TransferSaving| {
+        let k = s
+            .fine_tuned_samples
+            .or_else(|| saving_estimates(m, s).0.and_then(|e| e.samples))
+            .unwrap_or(f64::INFINITY);
         (
-            s.core_hours_saved.unwrap_or(f64::NEG_INFINITY),
-            s.samples_saved.unwrap_or(f64::NEG_INFINITY),
+            !trusted(s),
+            k,
+            -s.core_hours_saved.unwrap_or(f64::NEG_INFINITY),
+            -s.samples_saved.unwrap_or(f64::NEG_INFINITY),
         )
     };
     transfer
@@ -165,7 +181,11 @@ pub(crate) fn best_transfer(
         .filter_map(|m| m.savings.get(i).map(|s| (m, s)))
         .filter(|(_, s)| s.fine_tuned_status.has_budget())
         .fold(None, |best, (m, s)| match best {
-            Some((_, b)) if key(b) >= key(s) => best,
+            Some((bm, b))
+                if key(bm, b).partial_cmp(&key(m, s)) != Some(std::cmp::Ordering::Greater) =>
+            {
+                best
+            }
             _ => Some((m, s)),
         })
 }
@@ -731,6 +751,27 @@ pub(crate) mod tests {
     }
 
     /// The transfer section of a page, from its opening tag to its closing one.
+    /// The lead names the model that needs the fewest new-regime samples once fine-tuned,
+    /// not the one whose from-scratch alternative happens to be dearest; an extrapolated
+    /// estimate ranks after any within the trust range.
+    #[test]
+    fn best_transfer_needs_the_least_new_data() {
+        use EstimateStatus::*;
+        let mut t = transfer_fixture().document.transfer.unwrap();
+        let mut a = t.models[0].savings[0].clone();
+        a.fine_tuned_status = ReachedInData;
+        a.fine_tuned_samples = Some(250.0);
+        a.core_hours_saved = Some(40_000.0);
+        let mut b = a.clone();
+        b.fine_tuned_samples = Some(500.0);
+        b.core_hours_saved = Some(127_000.0);
+        t.models[0].savings[0] = b.clone();
+        t.models[1].savings[0] = a.clone();
+        assert_eq!(best_transfer(&t, 0).unwrap().0.name, t.models[1].name);
+        t.models[1].savings[0].fine_tuned_status = Extrapolated;
+        assert_eq!(best_transfer(&t, 0).unwrap().0.name, t.models[0].name);
+    }
+
     fn transfer_section(page: &str) -> &str {
         let start = page
             .find("<section id=\"transfer\">")
