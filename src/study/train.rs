@@ -8,6 +8,7 @@ use crate::models::closure::{
     ClosureForm, CoupledModel, LearnedClosure, LearnedMemoryClosure, Regressor, SequenceRegressor,
 };
 use crate::models::finetune::{FineTuneMethod, ValidFineTuneParams};
+use crate::models::ridge::NormalEquations;
 use crate::models::{esn, ngrc, nn, polynomial, FitSummary, Forecaster, ModelError};
 use ndarray::ArrayView2;
 use std::sync::Arc;
@@ -245,17 +246,17 @@ pub fn train_transfer_unit(
     fn base_of<F>(v: Vec<(F, FitSummary)>) -> F {
         v.into_iter().last().expect("one fit per size").0
     }
+    // Pooled fine-tuning needs the base's normal equations on its pilot prefix.
     let pooled = tune.get().method == FineTuneMethod::Pooled;
+    let equations = |compute: &dyn Fn() -> Result<NormalEquations, ModelError>| {
+        pooled.then(compute).transpose()
+    };
     let base_n = *sizes.last().ok_or(ModelError::NoSizes)?;
     let pilot = pilot.slice(ndarray::s![..base_n, ..]);
     Ok(match &model.kind {
         ModelKind::Esn(p) => {
             let base = base_of(esn::fit_nested(p, pilot, sizes, seed)?);
-            let eq = if pooled {
-                Some(base.normal_equations(pilot, p.get().washout)?)
-            } else {
-                None
-            };
+            let eq = equations(&|| base.normal_equations(pilot, p.get().washout))?;
             TransferFits {
                 fine_tuned: arc(esn::fine_tune_nested(
                     &base,
@@ -271,11 +272,7 @@ pub fn train_transfer_unit(
         }
         ModelKind::Ngrc(p) => {
             let base = base_of(ngrc::fit_nested(p, pilot, sizes)?);
-            let eq = if pooled {
-                Some(base.normal_equations(pilot)?)
-            } else {
-                None
-            };
+            let eq = equations(&|| base.normal_equations(pilot))?;
             TransferFits {
                 fine_tuned: arc(ngrc::fine_tune_nested(
                     &base,
@@ -291,11 +288,7 @@ pub fn train_transfer_unit(
         }
         ModelKind::Polynomial(p) => {
             let base = base_of(polynomial::fit_emulator_nested(p, pilot, sizes)?);
-            let eq = if pooled {
-                Some(base.normal_equations(pilot)?)
-            } else {
-                None
-            };
+            let eq = equations(&|| base.normal_equations(pilot))?;
             TransferFits {
                 fine_tuned: arc(polynomial::fine_tune_emulator_nested(
                     &base,
