@@ -1426,7 +1426,24 @@ fn provenance(out: &mut String, doc: &PlanDocument) {
     if let Some(ds) = doc.data.as_ref().and_then(|d| d.seed) {
         let _ = write!(seed, "; data {ds}");
     }
+    if let Some(ds) = doc.transfer.as_ref().and_then(|t| t.data.seed) {
+        let _ = write!(seed, "; new-regime data {ds}");
+    }
     kv(out, "Seeds", &seed);
+    if let Some(t) = &doc.transfer {
+        kv(
+            out,
+            "New-regime data",
+            &format!(
+                "{}; {} samples every {} model time units; content SHA-256 \
+                 <code class=\"hash\">{}</code>",
+                escape(&t.data.source),
+                thousands(t.data.samples as f64),
+                number(t.data.sample_interval),
+                escape(&t.data.content_sha256)
+            ),
+        );
+    }
     if let Some(k) = &doc.skill {
         kv(out, "Skill", &escape(&k.definition));
         let mut skill = format!(

@@ -841,13 +841,20 @@ pub(crate) mod tests {
     fn without_transfer_the_page_and_files_are_unchanged() {
         let without = html(&fixture());
         assert!(!without.contains("transfer") && !without.contains("new regime"));
-        let with = html(&transfer_fixture());
+        let fixture_with = transfer_fixture();
+        let with = html(&fixture_with);
+        let seed = fixture_with.document.transfer.unwrap().data.seed.unwrap();
+        // Its provenance row: from the key to the end of its line.
+        let start = with.find("<tr><th>New-regime data</th>").unwrap();
+        let row = &with[start..=start + with[start..].find('\n').unwrap()];
         let rest = with
             .replace(transfer_section(&with), "")
-            .replace("<a href=\"#transfer\">Transfer</a>", "");
+            .replace("<a href=\"#transfer\">Transfer</a>", "")
+            .replace(row, "")
+            .replace(&format!("; new-regime data {seed}"), "");
         assert_eq!(
             rest, without,
-            "the transfer adds its section and link, nothing else"
+            "the transfer adds its section, link and provenance, nothing else"
         );
     }
 
