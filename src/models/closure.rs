@@ -288,9 +288,14 @@ impl ClosureForm {
             ClosureForm::Instant(c) => Session::Instant(c.as_ref()),
             ClosureForm::Memory(m) => {
                 let mut memory = m.start();
-                let h = history.nrows();
-                for t in 0..h.saturating_sub(1) {
-                    memory.commit(&history.row(t).to_vec());
+                let mut row = vec![0.0; history.ncols()];
+                for r in history
+                    .rows()
+                    .into_iter()
+                    .take(history.nrows().saturating_sub(1))
+                {
+                    row.iter_mut().zip(r).for_each(|(o, v)| *o = *v);
+                    memory.commit(&row);
                 }
                 Session::Memory(memory)
             }
@@ -449,8 +454,9 @@ pub fn offline_r2(closure: &ClosureForm, x: ArrayView2<f64>, u: ArrayView2<f64>)
     let mut pred = vec![0.0; k];
     let (mut sse, mut sst) = (0.0, 0.0);
     let mut session = closure.session(x.slice(ndarray::s![..0, ..]));
+    let mut xr = vec![0.0; k];
     for t in 0..t_len {
-        let xr = x.row(t).to_vec();
+        xr.iter_mut().zip(x.row(t)).for_each(|(o, v)| *o = *v);
         session.coupling(0.0, &xr, &mut pred);
         session.commit(&xr);
         for kk in 0..k {

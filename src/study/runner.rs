@@ -89,7 +89,8 @@ struct Prepared {
 
 /// Valid times of `model` from every initial condition, in fixed batches of [`FORECAST_BATCH`]
 /// (not thread-dependent), each forecast together; batches run in parallel. Also returns the
-/// summed forecasting wall time.
+/// forecasting wall time per model step driven (warm-up steps plus the leads forecast, summed
+/// over the initial conditions).
 pub(super) fn score_batched(
     model: &dyn crate::models::Forecaster,
     truth: ndarray::ArrayView2<f64>,
@@ -104,8 +105,16 @@ pub(super) fn score_batched(
             (s, started.elapsed().as_secs_f64())
         })
         .collect();
-    let seconds = timed.iter().map(|(_, s)| s).sum();
-    (timed.into_iter().flat_map(|(s, _)| s).collect(), seconds)
+    let seconds: f64 = timed.iter().map(|(_, s)| s).sum();
+    let per_ic: Vec<IcSkill> = timed.into_iter().flat_map(|(s, _)| s).collect();
+    let steps: f64 = per_ic
+        .iter()
+        .map(|s| {
+            spec.warm_up as f64
+                + ((s.valid_time / spec.sample_interval).round() + 1.0).min(spec.max_lead as f64)
+        })
+        .sum();
+    (per_ic, seconds / steps.max(1.0))
 }
 
 /// Resolves the coarse solver for closure models from the data, or says what is missing.
@@ -452,17 +461,8 @@ fn run_in_pool(
     let records: Vec<SkillRecord> = tasks
         .par_iter()
         .map(|t| {
-            let (per_ic, seconds) =
+            let (per_ic, seconds_per_step) =
                 score_batched(t.fitted.forecaster.as_ref(), truth, ics, &prep.skill);
-            let si = prep.skill.sample_interval;
-            // Steps driven per initial condition: the warm-up plus the leads forecast.
-            let steps: f64 = per_ic
-                .iter()
-                .map(|s| {
-                    prep.skill.warm_up as f64
-                        + ((s.valid_time / si).round() + 1.0).min(prep.skill.max_lead as f64)
-                })
-                .sum();
             let closure = match (&t.fitted.coupled, &checks) {
                 (Some(coupled), Some(reference)) => Some(reference.check(coupled)),
                 _ => None,
@@ -478,7 +478,7 @@ fn run_in_pool(
                 initial_conditions: per_ic,
                 cost: PointCost {
                     train_seconds: t.train_seconds,
-                    forecast_seconds_per_step: seconds / steps.max(1.0),
+                    forecast_seconds_per_step: seconds_per_step,
                 },
                 closure,
             };

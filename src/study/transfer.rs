@@ -35,13 +35,20 @@ pub(super) struct PilotSide<'a> {
     pub base_skill: &'a dyn Fn(usize, usize) -> Option<f64>,
 }
 
-/// Simulates or reads the new regime's data and checks it against the pilot's.
+/// The new regime's data and its cost model, checked against the pilot.
+pub(super) struct NewRegime {
+    regime: Regime,
+    campaign: Campaign,
+}
+
+/// Simulates or reads the new regime's data, checks it against the pilot's and builds its cost
+/// model.
 pub(super) fn load_new_regime(
     plan: &StudyPlan,
     tp: &TransferPlan,
     pilot: &crate::data::Trajectory,
     progress: bool,
-) -> Result<Regime, StudyError> {
+) -> Result<NewRegime, StudyError> {
     let largest_k = *tp.sizes.last().expect("checked sizes");
     let regime = load_regime(
         &tp.data,
@@ -57,30 +64,34 @@ pub(super) fn load_new_regime(
             target: regime.traj.dim(),
         });
     }
-    tp.cost
+    let campaign = tp
+        .cost
         .campaign(regime.traj.dim(), regime.traj.sample_interval())
         .map_err(|e| StudyError::NewRegime(Box::new(e.into())))?;
-    Ok(regime)
+    Ok(NewRegime { regime, campaign })
 }
 
 /// Runs the transfer part of a study on the new regime's data ([`load_new_regime`]).
 pub(super) fn run_transfer(
     plan: &StudyPlan,
     tp: &TransferPlan,
-    regime: Regime,
+    new_regime: NewRegime,
     pilot: &PilotSide,
     progress: bool,
     warnings: &mut Vec<String>,
 ) -> Result<TransferResult, StudyError> {
     let largest_k = *tp.sizes.last().expect("checked sizes");
-    let Regime {
-        traj,
-        split,
-        skill: spec,
-        source,
-        high_fidelity,
-    } = regime;
-    let campaign: Campaign = tp.cost.campaign(traj.dim(), traj.sample_interval())?;
+    let NewRegime {
+        regime:
+            Regime {
+                traj,
+                split,
+                skill: spec,
+                source,
+                high_fidelity,
+            },
+        campaign,
+    } = new_regime;
     let truth = traj.values.view();
     let ics = &split.initial_conditions;
     let persistence: Vec<IcSkill> = ics
@@ -145,15 +156,8 @@ pub(super) fn run_transfer(
                            label: &str| {
                 side.iter()
                     .map(|(f, summary)| {
-                        let (per_ic, seconds) = score_batched(f.as_ref(), truth, ics, &spec);
-                        let steps: f64 = per_ic
-                            .iter()
-                            .map(|s| {
-                                spec.warm_up as f64
-                                    + ((s.valid_time / spec.sample_interval).round() + 1.0)
-                                        .min(spec.max_lead as f64)
-                            })
-                            .sum();
+                        let (per_ic, seconds_per_step) =
+                            score_batched(f.as_ref(), truth, ics, &spec);
                         SkillRecord {
                             model: format!("{}:{label}", model.name),
                             replicate: r,
@@ -165,7 +169,7 @@ pub(super) fn run_transfer(
                             initial_conditions: per_ic,
                             cost: PointCost {
                                 train_seconds,
-                                forecast_seconds_per_step: seconds / steps.max(1.0),
+                                forecast_seconds_per_step: seconds_per_step,
                             },
                             closure: None,
                         }
