@@ -107,24 +107,14 @@ pub fn fit_sequence_nested(
                 rows += 1;
             }
             if rows == BLOCK_ROWS {
-                ne.add(
-                    faer::MatRef::from_column_major_slice_with_stride(
-                        &phi_block, rows, f, BLOCK_ROWS,
-                    ),
-                    faer::MatRef::from_row_major_slice(&y_block[..rows * q], rows, q),
-                );
-                rows = 0;
+                flush(&mut ne, &phi_block, &y_block, &mut rows);
             }
         }
         if !states.iter().all(|x| x.is_finite()) {
             return Err(ModelError::NonFinite { step: t });
         }
         if t + 1 == sizes[next_size] {
-            ne.add(
-                faer::MatRef::from_column_major_slice_with_stride(&phi_block, rows, f, BLOCK_ROWS),
-                faer::MatRef::from_row_major_slice(&y_block[..rows * q], rows, q),
-            );
-            rows = 0;
+            flush(&mut ne, &phi_block, &y_block, &mut rows);
         }
         while next_size < sizes.len() && t + 1 == sizes[next_size] {
             let size = sizes[next_size];
@@ -159,6 +149,17 @@ pub fn fit_sequence_nested(
     }
     debug_assert_eq!(out.len(), sizes.len());
     Ok(out)
+}
+
+/// Adds the `rows` rows held in the blocks (features column-major with stride [`BLOCK_ROWS`],
+/// targets row-major) to `ne` and empties the blocks.
+fn flush(ne: &mut NormalEquations, phi_block: &[f64], y_block: &[f64], rows: &mut usize) {
+    let (f, q) = (ne.features(), ne.outputs());
+    ne.add(
+        faer::MatRef::from_column_major_slice_with_stride(phi_block, *rows, f, BLOCK_ROWS),
+        faer::MatRef::from_row_major_slice(&y_block[..*rows * q], *rows, q),
+    );
+    *rows = 0;
 }
 
 /// Reservoir states of every channel, and working buffers.
