@@ -8,6 +8,14 @@ Examples:
   closure-budget run studies/demo.toml
       simulate the demo pilot data, measure learning curves, plan the budget,
       and write reports/demo/report.html, plan.json, skill.csv
+  closure-budget run studies/demo.toml
+      (again, after new data arrived) reuse every stored point still valid and
+      compute only the new ones; the report shows how the estimate moved
+  closure-budget status studies/demo.toml
+      how many points are done, missing and stale, per model
+  closure-budget run studies/demo.toml --shard 2/8
+      compute the second of 8 shares of the missing points (one Slurm array task);
+      `closure-budget merge studies/demo.toml` combines the shards and reports
   closure-budget check studies/demo.toml
       validate a study file without running it
   closure-budget simulate --system two-scale-lorenz-96 --set forcing=20 \\
@@ -35,8 +43,12 @@ pub struct Cli {
 
 #[derive(Debug, Subcommand)]
 pub enum Command {
-    /// Run a study: data, learning curves, budget, report.
+    /// Run a study: data, learning curves, budget, report (resumes and reuses stored points).
     Run(RunArgs),
+    /// Show how many of a study's points are done, missing and stale, per model.
+    Status(StatusArgs),
+    /// Combine the shard stores of a study run with --shard, then fit, plan and report.
+    Merge(MergeArgs),
     /// Validate a study file and print what it would do; runs nothing.
     Check(CheckArgs),
     /// Simulate a built-in system and write the trajectory.
@@ -118,7 +130,23 @@ pub struct CostArgs {
     pub json: bool,
 }
 
+const RUN_AFTER_HELP: &str = "\
+Every point (model × subset size × replicate) is stored in OUT/records.jsonl as soon as it is
+scored, under a key that hashes what determines it (training samples, test data, settings).
+A rerun reuses every stored point whose key is still planned and computes only the rest, so:
+  - an interrupted run (Ctrl-C, a killed job) resumes where it stopped;
+  - after appending data (same old samples, more new ones) only new sizes are computed;
+  - changed data or settings make the affected points stale; they are recomputed and the
+    report says so.
+Ctrl-C stops after the points in flight are stored (press it twice to quit at once).
+
+Examples:
+  closure-budget run studies/demo.toml --out reports/demo -j 2
+  closure-budget run studies/demo.toml --json > summary.json
+  closure-budget run studies/demo.toml --shard 3/8 --quiet     (one of 8 array tasks)";
+
 #[derive(Debug, Args)]
+#[command(after_help = RUN_AFTER_HELP)]
 pub struct RunArgs {
     /// Study file (TOML).
     pub study: PathBuf,
@@ -128,9 +156,46 @@ pub struct RunArgs {
     /// Worker threads [default: one per core]; results are identical for any count.
     #[arg(long, short = 'j')]
     pub threads: Option<usize>,
-    /// No progress bars.
-    #[arg(long, short)]
+    /// Compute only share I of N of the missing points into OUT/shards/ (for job arrays);
+    /// finish with `merge`. Shares are balanced by estimated cost.
+    #[arg(long, value_name = "I/N")]
+    pub shard: Option<crate::study::Shard>,
+    /// Print nothing but errors (no progress bars, no summary).
+    #[arg(long, short, conflicts_with = "json")]
     pub quiet: bool,
+    /// Print a JSON summary on standard output instead of text (no progress bars).
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct StatusArgs {
+    /// Study file (TOML).
+    pub study: PathBuf,
+    /// Output directory [default: reports/STUDY-NAME].
+    #[arg(long, short)]
+    pub out: Option<PathBuf>,
+    /// Print JSON instead of a table.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct MergeArgs {
+    /// Study file (TOML), the one the shards ran.
+    pub study: PathBuf,
+    /// Output directory the shards wrote to [default: reports/STUDY-NAME].
+    #[arg(long, short)]
+    pub out: Option<PathBuf>,
+    /// Worker threads for fitting [default: one per core].
+    #[arg(long, short = 'j')]
+    pub threads: Option<usize>,
+    /// Print nothing but errors.
+    #[arg(long, short, conflicts_with = "json")]
+    pub quiet: bool,
+    /// Print a JSON summary on standard output instead of text.
+    #[arg(long)]
+    pub json: bool,
 }
 
 #[derive(Debug, Args)]

@@ -19,6 +19,8 @@ use closure_budget::{report, study};
 use std::io::IsTerminal;
 use std::path::PathBuf;
 use std::process::ExitCode;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::Arc;
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
@@ -26,29 +28,133 @@ fn main() -> ExitCode {
         Ok(code) => code,
         Err(e) => {
             eprintln!("error: {}", error_chain(&e));
-            ExitCode::from(2)
+            // 130: stopped by Ctrl-C (the shell's convention for SIGINT), resumable.
+            match e.downcast_ref::<study::StudyError>() {
+                Some(study::StudyError::Interrupted { .. }) => ExitCode::from(130),
+                _ => ExitCode::from(2),
+            }
         }
     }
+}
+
+/// The output directory: as given, or reports/STUDY-NAME.
+fn out_dir(given: Option<PathBuf>, plan: &study::StudyPlan) -> PathBuf {
+    given.unwrap_or_else(|| PathBuf::from("reports").join(&plan.name))
+}
+
+fn plural(n: usize) -> &'static str {
+    if n == 1 {
+        ""
+    } else {
+        "s"
+    }
+}
+
+/// A flag Ctrl-C sets; a second Ctrl-C ends the process at once.
+fn stop_on_ctrl_c() -> anyhow::Result<Arc<AtomicBool>> {
+    let stop = Arc::new(AtomicBool::new(false));
+    let flag = stop.clone();
+    ctrlc::set_handler(move || {
+        if flag.swap(true, Ordering::SeqCst) {
+            eprintln!("\ninterrupted again: quitting now; points in flight are lost, stored ones are kept");
+            std::process::exit(130);
+        }
+        eprintln!(
+            "\nstopping after the points in flight are stored (Ctrl-C again to quit at once)"
+        );
+    })
+    .context("cannot install the Ctrl-C handler")?;
+    Ok(stop)
+}
+
+/// Writes the report and prints the summary (text, JSON, or nothing).
+fn finish(
+    outcome: &StudyOutcome,
+    out: &std::path::Path,
+    quiet: bool,
+    json: bool,
+) -> anyhow::Result<()> {
+    let written = report::write_report(outcome, out)?;
+    if json {
+        let summary = serde_json::json!({
+            "out": out,
+            "written": written,
+            "points": outcome.document.points,
+            "warnings": outcome.document.warnings,
+            "estimates": outcome.history.last().map(|h| &h.estimates),
+        });
+        println!("{}", serde_json::to_string_pretty(&summary)?);
+    } else if !quiet {
+        print!("{}", report::text_summary(&outcome.document));
+        println!("\nwritten:");
+        for p in written {
+            println!("  {}", p.display());
+        }
+    }
+    Ok(())
 }
 
 fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Run(a) => {
             let plan = load_plan(&a.study)?;
-            let out = a
-                .out
-                .unwrap_or_else(|| PathBuf::from("reports").join(&plan.name));
+            let out = out_dir(a.out, &plan);
             let options = RunOptions {
                 out_dir: out.clone(),
                 threads: a.threads,
-                progress: !a.quiet && std::io::stderr().is_terminal(),
+                progress: !a.quiet && !a.json && std::io::stderr().is_terminal(),
+                stop: Some(stop_on_ctrl_c()?),
             };
+            if let Some(shard) = a.shard {
+                let summary = study::run_shard(&plan, &options, shard)?;
+                if a.json {
+                    println!("{}", serde_json::to_string_pretty(&summary)?);
+                } else if !a.quiet {
+                    println!(
+                        "shard {}: {} unit{} assigned, {} point{} computed now ({} already in this shard's store) of {} missing in the study; written to {}\nwhen every shard is done: closure-budget merge {} --out {}",
+                        summary.shard,
+                        summary.units,
+                        plural(summary.units),
+                        summary.computed,
+                        plural(summary.computed),
+                        summary.already_stored,
+                        summary.missing_in_study,
+                        summary.store.display(),
+                        a.study.display(),
+                        out.display()
+                    );
+                }
+                return Ok(ExitCode::SUCCESS);
+            }
             let outcome = run_study(&plan, &options)?;
-            let written = report::write_report(&outcome, &out)?;
-            print!("{}", report::text_summary(&outcome.document));
-            println!("\nwritten:");
-            for p in written {
-                println!("  {}", p.display());
+            finish(&outcome, &out, a.quiet, a.json)?;
+        }
+        Command::Merge(a) => {
+            let plan = load_plan(&a.study)?;
+            let out = out_dir(a.out, &plan);
+            let options = RunOptions {
+                out_dir: out.clone(),
+                threads: a.threads,
+                progress: !a.quiet && !a.json && std::io::stderr().is_terminal(),
+                stop: None,
+            };
+            let outcome = study::merge_study(&plan, &options)?;
+            finish(&outcome, &out, a.quiet, a.json)?;
+        }
+        Command::Status(a) => {
+            let plan = load_plan(&a.study)?;
+            let out = out_dir(a.out, &plan);
+            let options = RunOptions {
+                out_dir: out,
+                threads: None,
+                progress: !a.json && std::io::stderr().is_terminal(),
+                stop: None,
+            };
+            let status = study::study_status(&plan, &options)?;
+            if a.json {
+                println!("{}", serde_json::to_string_pretty(&status)?);
+            } else {
+                print!("{}", study::runner::describe_status(&status));
             }
         }
         Command::Check(a) => {
@@ -144,6 +250,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     persistence: Vec::new(),
                     climatology: Vec::new(),
                     run_tables: Vec::new(),
+                    history: Vec::new(),
                 };
                 for p in report::write_report(&outcome, dir)? {
                     println!("written: {}", p.display());

@@ -63,7 +63,6 @@ fn run_quick(dir: &std::path::Path, threads: &str) -> PlanDocument {
             out.to_str().unwrap(),
             "-j",
             threads,
-            "--quiet",
         ],
     );
     assert!(o.status.success(), "{}", stderr(&o));
@@ -85,6 +84,7 @@ fn quick_demo_runs_end_to_end() {
     assert_eq!(
         files_below(&out),
         vec![
+            "history.jsonl",
             "plan.json",
             "records.jsonl",
             "report.html",
@@ -100,18 +100,24 @@ fn quick_demo_runs_end_to_end() {
         "{md}"
     );
     assert_eq!(doc.schema, PLAN_SCHEMA);
-    // Every stage's wall time is recorded, the report stage included.
+    // Every stage's wall time is recorded, the report stage included; training and
+    // forecasting are thread-seconds within the points stage.
     let t = &doc.timings;
     for (stage, secs) in [
         ("data", t.data),
         ("training", t.training),
         ("forecasting", t.forecasting),
+        ("points", t.points),
         ("fitting", t.fitting),
         ("report", t.report),
     ] {
         assert!(secs > 0.0, "{stage} time {secs}");
     }
-    assert!(t.total >= t.data + t.training + t.forecasting + t.fitting + t.report - 1e-9);
+    assert!(t.total >= t.data + t.points + t.fitting + t.report - 1e-9);
+    assert!(t.training + t.forecasting <= t.points * t.threads as f64 * 1.05 + 0.05);
+    // Nothing was stored before: every point was computed in this run.
+    let p = doc.points.unwrap();
+    assert_eq!((p.planned, p.reused, p.computed, p.stale), (24, 0, 24, 0));
     assert_eq!(doc.models.len(), 2);
     // The classical closure, coupled online, beats both floors and stays bounded in free runs.
     let closure = &doc.models[1];

@@ -1,11 +1,15 @@
-//! The split of one trajectory into a training pool (used as nested prefixes) and held-out test
-//! initial conditions placed after it, separated by a gap and spaced apart.
+//! The split of one trajectory into held-out test initial conditions and a training pool (used
+//! as nested prefixes) after them, separated by a gap.
 //!
-//! Layout along time: `[ training pool | gap | warm-up, IC₀, IC₁ … IC_{M−1}, maximum lead ]`.
+//! Layout along time: `[ warm-up, IC₀, IC₁ … IC_{M−1}, maximum lead | gap | training pool ]`.
 //! Each test initial condition needs `warm-up` samples of truth before it and `max-lead` samples
-//! after it; consecutive initial conditions are `spacing` samples apart, and the first warm-up
-//! window starts `gap` samples after the last training sample, so no test window touches
-//! training data.
+//! after it; consecutive initial conditions are `spacing` samples apart, and the training pool
+//! starts `gap` samples after the last forecast window ends, so no test window touches training
+//! data.
+//!
+//! The test region comes first so that the split is stable when data are appended: more samples
+//! only lengthen the training pool, while the test initial conditions, and every prefix of the
+//! pool, keep their content. Reruns after new data arrive can then reuse every earlier result.
 
 use super::DataError;
 use std::ops::Range;
@@ -23,8 +27,11 @@ pub struct SplitSpec {
 /// Resolved split of a trajectory.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Split {
-    /// Training pool (sample indices).
+    /// Training pool (sample indices): from the end of the gap to the end of the data.
     pub pool: Range<usize>,
+    /// The held-out test region (sample indices): warm-up windows, initial conditions and
+    /// forecast windows.
+    pub held_out: Range<usize>,
     /// Sample index of every test initial condition.
     pub initial_conditions: Vec<usize>,
     pub spec: SplitSpec,
@@ -57,13 +64,13 @@ impl Split {
                 ),
             });
         }
-        let pool_end = total - spec.gap - spec.test_region();
-        let first = pool_end + spec.gap + spec.warm_up;
+        let test_end = spec.test_region();
         let initial_conditions = (0..spec.initial_conditions)
-            .map(|i| first + i * spec.spacing)
+            .map(|i| spec.warm_up + i * spec.spacing)
             .collect();
         Ok(Split {
-            pool: 0..pool_end,
+            pool: test_end + spec.gap..total,
+            held_out: 0..test_end,
             initial_conditions,
             spec,
         })
@@ -87,12 +94,24 @@ mod tests {
     #[test]
     fn test_windows_never_touch_the_pool_and_fit_the_data() {
         let s = Split::new(100, spec(), 50).unwrap();
-        // test region: 4 + 2*5 + 6 + 1 = 21; pool = 100 - 10 - 21 = 69
-        assert_eq!(s.pool, 0..69);
-        assert_eq!(s.initial_conditions, vec![83, 88, 93]);
-        let first_warm = s.initial_conditions[0] - spec().warm_up;
-        assert_eq!(first_warm - s.pool.end, spec().gap);
-        assert_eq!(*s.initial_conditions.last().unwrap() + spec().max_lead, 99);
+        // test region: 4 + 2*5 + 6 + 1 = 21; pool = 21 + 10 .. 100
+        assert_eq!(s.held_out, 0..21);
+        assert_eq!(s.pool, 31..100);
+        assert_eq!(s.initial_conditions, vec![4, 9, 14]);
+        assert_eq!(s.initial_conditions[0] - spec().warm_up, 0);
+        let last_forecast = *s.initial_conditions.last().unwrap() + spec().max_lead;
+        assert_eq!(s.pool.start - (last_forecast + 1), spec().gap);
+    }
+
+    /// Appending samples only lengthens the pool: test conditions and pool start stay put.
+    #[test]
+    fn appended_data_only_lengthen_the_pool() {
+        let a = Split::new(100, spec(), 50).unwrap();
+        let b = Split::new(250, spec(), 50).unwrap();
+        assert_eq!(a.initial_conditions, b.initial_conditions);
+        assert_eq!(a.held_out, b.held_out);
+        assert_eq!(a.pool.start, b.pool.start);
+        assert_eq!(b.pool.len(), a.pool.len() + 150);
     }
 
     #[test]

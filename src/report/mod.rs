@@ -248,6 +248,7 @@ pub(crate) mod tests {
                     let mean = ics.iter().map(|s| s.valid_time).sum::<f64>() / 4.0;
                     rep_means.push(mean);
                     records.push(SkillRecord {
+                        key: format!("fixture-{name}-{n}-{rep}"),
                         model: name.to_string(),
                         replicate: rep,
                         n,
@@ -424,10 +425,12 @@ pub(crate) mod tests {
             warnings: vec![
                 "esn-500: 12% of forecasts at n = 16000 were censored <raise max-lead>".into(),
             ],
+            points: None,
             timings: Timings {
                 data: 1.0,
                 training: 2.0,
                 forecasting: 3.0,
+                points: 5.0,
                 fitting: 0.5,
                 transfer: 0.0,
                 report: 0.0,
@@ -442,6 +445,7 @@ pub(crate) mod tests {
             persistence,
             climatology: Vec::new(),
             run_tables: Vec::new(),
+            history: Vec::new(),
         }
     }
 

@@ -322,6 +322,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
         cost: None,
         campaign: None,
         warnings,
+        points: None,
         timings: Timings {
             fitting,
             total: fitting,

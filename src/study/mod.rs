@@ -1,8 +1,11 @@
 //! Studies: the study file schema, its validation into a plan, the results contract, the
 //! records store, and the runner that turns a plan into results.
 
+pub mod history;
+pub mod keys;
 pub mod measured;
 pub mod plan;
+pub mod points;
 pub mod records;
 pub mod results;
 pub mod runner;
@@ -11,7 +14,8 @@ pub mod train;
 mod transfer;
 
 pub use plan::{load_plan, StudyPlan};
-pub use runner::{run_study, RunOptions};
+pub use points::Shard;
+pub use runner::{merge_study, run_shard, run_study, study_status, RunOptions};
 
 use std::path::PathBuf;
 
@@ -44,8 +48,11 @@ pub enum StudyError {
     },
     #[error("cost inputs: {0}")]
     Cost(#[from] crate::cost::CostError),
-    #[error("variable '{variable}' is constant over the training pool; it carries no information and breaks the normalised error: drop it from the data")]
-    ConstantVariable { variable: String },
+    #[error("variable '{variable}' is constant over {region}; it carries no information and breaks the normalised error: drop it from the data")]
+    ConstantVariable {
+        variable: String,
+        region: &'static str,
+    },
     #[error("cannot write {path}: {source}")]
     Write {
         path: PathBuf,
@@ -57,6 +64,18 @@ pub enum StudyError {
     NewRegime(Box<StudyError>),
     #[error("the new regime's data have {target} resolved variables but the pilot's have {pilot}; a model transfers between regimes of one system")]
     TransferMismatch { pilot: usize, target: usize },
+    #[error("stopped: {stored} point{} computed in this run {} stored; {remaining} still to compute — run the same command again to resume", if *.stored == 1 { "" } else { "s" }, if *.stored == 1 { "is" } else { "are" })]
+    Interrupted { stored: usize, remaining: usize },
+    #[error("{missing} point{} of the study {} in no store (per model: {detail}); run the missing shards (or `run` without --shard) and merge again", if *.missing == 1 { "" } else { "s" }, if *.missing == 1 { "is" } else { "are" })]
+    Gaps { missing: usize, detail: String },
+    #[error("model '{model}', n = {n}, replicate {replicate} was stored twice with different results, in {} and in {}: the stores come from different builds or data; remove the stale one and merge again", first.display(), second.display())]
+    Conflict {
+        model: String,
+        n: usize,
+        replicate: usize,
+        first: PathBuf,
+        second: PathBuf,
+    },
     #[error("cannot start {threads} worker threads: {message}")]
     Threads { threads: usize, message: String },
 }

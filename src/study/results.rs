@@ -42,6 +42,10 @@ pub struct PlanDocument {
     #[serde(default)]
     pub campaign: Option<crate::cost::campaign::Campaign>,
     pub warnings: Vec<String>,
+    /// How the points were obtained in this run (reused from the store or computed); `null` for
+    /// skill measured outside the tool.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub points: Option<PointCounts>,
     pub timings: Timings,
     /// Fine-tuning for a new regime; absent when the study has no `[transfer]`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -122,10 +126,12 @@ pub struct TransferSaving {
 
 impl PlanDocument {
     /// Clears every wall-clock measurement (stage timings, training and forecast times, coupled
-    /// and high-fidelity run times), leaving what the seeds determine: two runs of one study
-    /// agree exactly after this.
+    /// and high-fidelity run times) and the counts of reused and computed points, leaving what
+    /// the seeds determine: two runs of one study agree exactly after this, however they were
+    /// split, interrupted or resumed.
     pub fn clear_measured_times(&mut self) {
         self.timings = Timings::default();
+        self.points = None;
         if let Some(d) = &mut self.data {
             if let Some(h) = &mut d.high_fidelity {
                 h.seconds_per_time_unit = 0.0;
@@ -387,13 +393,34 @@ pub struct TargetEstimate {
     pub note: String,
 }
 
+/// How the points of a run were obtained.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "kebab-case")]
+pub struct PointCounts {
+    /// Points of the study: models × sizes × replicates.
+    pub planned: usize,
+    /// Found in the records store (computed by an earlier run, or by shards).
+    pub reused: usize,
+    /// Computed by this run.
+    pub computed: usize,
+    /// Of those computed, points stored earlier under another key (changed data or settings).
+    pub stale: usize,
+    /// Bytes of an incomplete last line cut from the store (a run killed while writing).
+    pub discarded_bytes: usize,
+}
+
 /// Wall time of each stage, seconds.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize, Default)]
 #[serde(rename_all = "kebab-case")]
 pub struct Timings {
     pub data: f64,
+    /// Training, summed over the worker threads (thread-seconds) of the units computed now.
     pub training: f64,
+    /// Forecasting and closure checks, summed over the worker threads (thread-seconds).
     pub forecasting: f64,
+    /// Wall time of computing the points (training and forecasting, interleaved).
+    #[serde(default)]
+    pub points: f64,
     pub fitting: f64,
     /// The new regime (transfer), when the study has one.
     #[serde(default)]

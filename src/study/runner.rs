@@ -3,9 +3,10 @@
 //! inversion for the targets, and costs. Writing the report is the caller's next step.
 
 use super::plan::{to_samples, DataSource, ModelUse, StudyPlan};
-use super::records::{ClosureChecks, PointCost, RecordStore, SkillRecord};
+use super::points::{self, PointTally, Shard};
+use super::records::{read_records, ClosureChecks, PointCost, RecordStore, SkillRecord};
 use super::results::*;
-use super::train::{train_unit, Coupling, Fitted};
+use super::train::Coupling;
 use super::StudyError;
 use crate::cost::campaign::Campaign;
 use crate::cost::runs::RunTable;
@@ -20,13 +21,16 @@ use crate::skill::{self, IcSkill, SkillSpec};
 use crate::systems::{simulate, SimulationSpec};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use rayon::prelude::*;
+use serde::Serialize;
 use sha2::{Digest, Sha256};
 use std::collections::BTreeMap;
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
+use std::sync::atomic::AtomicBool;
+use std::sync::Arc;
 use std::time::Instant;
 
 /// How to run a study.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, Default)]
 pub struct RunOptions {
     /// Output directory (created); the records store is written there as work finishes.
     pub out_dir: PathBuf,
@@ -34,7 +38,15 @@ pub struct RunOptions {
     pub threads: Option<usize>,
     /// Draw progress bars on standard error.
     pub progress: bool,
+    /// Once set (e.g. by Ctrl-C), no new unit of work starts; the points in flight are stored
+    /// and the run ends with [`StudyError::Interrupted`].
+    pub stop: Option<Arc<AtomicBool>>,
 }
+
+/// The records store's file name in the output directory.
+pub const RECORDS_FILE: &str = "records.jsonl";
+/// Directory of shard stores in the output directory.
+pub const SHARDS_DIR: &str = "shards";
 
 /// Everything the report writers need.
 pub struct StudyOutcome {
@@ -46,6 +58,9 @@ pub struct StudyOutcome {
     pub climatology: Vec<IcSkill>,
     /// Proposal-ready tables of runs, one per model and reachable target.
     pub run_tables: Vec<RunTable>,
+    /// Headline estimates of every completed run of this study in its output directory, this
+    /// one last (empty for skill measured outside the tool).
+    pub history: Vec<super::history::HistoryEntry>,
 }
 
 /// Initial conditions forecast together in one batch (see [`crate::models::Forecaster::forecast_batch`]).
@@ -61,8 +76,330 @@ pub fn derive_seed(study_seed: u64, model: &str, replicate: usize) -> u64 {
     u64::from_le_bytes(d[..8].try_into().expect("8 bytes"))
 }
 
-/// Runs the study; see the module docs.
+/// Runs the study; see the module docs. Points already in the output directory's store are
+/// reused; the missing ones are computed and stored as they finish.
 pub fn run_study(plan: &StudyPlan, options: &RunOptions) -> Result<StudyOutcome, StudyError> {
+    in_pool(options, |threads| {
+        run_in_pool(plan, options, threads, Mode::Compute)
+    })
+}
+
+/// Combines the shard stores in the output directory's `shards/` into its store (checking that
+/// shards agree where they overlap), then finishes the study from the stored points only: a
+/// point no shard computed is an error ([`StudyError::Gaps`]).
+pub fn merge_study(plan: &StudyPlan, options: &RunOptions) -> Result<StudyOutcome, StudyError> {
+    let merged = merge_shards(&options.out_dir)?;
+    let outcome = in_pool(options, |threads| {
+        run_in_pool(plan, options, threads, Mode::StoredOnly)
+    })?;
+    for path in merged {
+        // Their records are in the store now; a leftover shard would only be merged again.
+        let _ = std::fs::remove_file(path);
+    }
+    Ok(outcome)
+}
+
+/// What one shard did.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct ShardSummary {
+    pub shard: String,
+    /// This shard's store.
+    pub store: PathBuf,
+    /// (model, replicate) units assigned to this shard.
+    pub units: usize,
+    /// Points of those units computed now.
+    pub computed: usize,
+    /// Points of those units already in this shard's store (from an interrupted earlier run).
+    pub already_stored: usize,
+    /// Points missing from the study's store, over all shards.
+    pub missing_in_study: usize,
+}
+
+/// Computes one shard's share of the points missing from the study's store into the shard's own
+/// store (`shards/shard-I-of-N.jsonl`); fits and reports nothing (see [`merge_study`]). Every
+/// shard of a study computes the same assignment from the same store, so the shards together
+/// compute every missing point exactly once.
+pub fn run_shard(
+    plan: &StudyPlan,
+    options: &RunOptions,
+    shard: Shard,
+) -> Result<ShardSummary, StudyError> {
+    in_pool(options, |_| {
+        let prep = prepare(plan, options.progress)?;
+        let units = points::plan_units(plan, &prep);
+        let main_path = options.out_dir.join(RECORDS_FILE);
+        let main = if main_path.exists() {
+            read_records(&main_path).map_err(|source| StudyError::Read {
+                path: main_path.clone(),
+                source,
+            })?
+        } else {
+            Vec::new()
+        };
+        let (missing, tally) = points::classify(plan, &units, &main);
+        let costs: Vec<f64> = units
+            .iter()
+            .zip(&missing)
+            .map(|(u, sizes)| {
+                sizes
+                    .iter()
+                    .map(|&n| points::estimated_cost(plan, u.model, n, &prep))
+                    .sum()
+            })
+            .collect();
+        let mine = points::shard_units(&costs, shard);
+        let path = options.out_dir.join(SHARDS_DIR).join(shard.file_name());
+        let (store, contents) = RecordStore::open(&path).map_err(|source| StudyError::Write {
+            path: path.clone(),
+            source,
+        })?;
+        let have: std::collections::HashSet<&str> =
+            contents.records.iter().map(|r| r.key.as_str()).collect();
+        let mut already_stored = 0;
+        let todo: Vec<Vec<usize>> = units
+            .iter()
+            .zip(&missing)
+            .zip(&mine)
+            .map(|((u, sizes), &mine)| {
+                if !mine {
+                    return Vec::new();
+                }
+                sizes
+                    .iter()
+                    .copied()
+                    .filter(|&n| {
+                        let key = &u.keys.iter().find(|(m, _)| *m == n).expect("planned").1;
+                        let stored = have.contains(key.as_str());
+                        already_stored += usize::from(stored);
+                        !stored
+                    })
+                    .collect()
+            })
+            .collect();
+        let label = "computing this shard's points";
+        let (computed, stopped, _, _) = points::compute(
+            plan,
+            &prep,
+            &points::Work {
+                units: &units,
+                missing: &todo,
+                store: &store,
+                stop: options.stop.as_deref(),
+                progress: options.progress,
+                label,
+            },
+        )?;
+        let to_compute: usize = todo.iter().map(Vec::len).sum();
+        if stopped {
+            return Err(StudyError::Interrupted {
+                stored: computed.len(),
+                remaining: to_compute - computed.len(),
+            });
+        }
+        Ok(ShardSummary {
+            shard: shard.to_string(),
+            store: path,
+            units: mine.iter().filter(|&&m| m).count(),
+            computed: computed.len(),
+            already_stored,
+            missing_in_study: tally.values().map(|t| t.missing).sum(),
+        })
+    })
+}
+
+/// Points of a study against its store and any shard stores not merged yet.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct StudyStatus {
+    pub store: PathBuf,
+    /// Per model (in study order): planned, done, missing and stale points.
+    pub models: Vec<(String, PointTally)>,
+    /// Planned points found only in shard stores (done once merged).
+    pub in_shards: usize,
+    /// Shard stores present.
+    pub shard_files: Vec<PathBuf>,
+}
+
+/// How many points are done, missing and stale, per model; reads the stores without locking
+/// them, so it can watch a running study.
+pub fn study_status(plan: &StudyPlan, options: &RunOptions) -> Result<StudyStatus, StudyError> {
+    in_pool(options, |_| {
+        let prep = prepare(plan, options.progress)?;
+        let units = points::plan_units(plan, &prep);
+        let store = options.out_dir.join(RECORDS_FILE);
+        let read = |path: &Path| {
+            read_records(path).map_err(|source| StudyError::Read {
+                path: path.to_path_buf(),
+                source,
+            })
+        };
+        let records = if store.exists() {
+            read(&store)?
+        } else {
+            Vec::new()
+        };
+        let (_, tally) = points::classify(plan, &units, &records);
+        let shard_files = shard_stores(&options.out_dir)?;
+        let mut in_shards = records;
+        for p in &shard_files {
+            in_shards.extend(read(p)?);
+        }
+        let (_, with_shards) = points::classify(plan, &units, &in_shards);
+        let done = |t: &BTreeMap<String, PointTally>| t.values().map(|t| t.done).sum::<usize>();
+        Ok(StudyStatus {
+            store,
+            models: plan
+                .models
+                .iter()
+                .map(|m| (m.name.clone(), tally[&m.name].clone()))
+                .collect(),
+            in_shards: done(&with_shards) - done(&tally),
+            shard_files,
+        })
+    })
+}
+
+/// A status as a table for the terminal.
+pub fn describe_status(s: &StudyStatus) -> String {
+    use std::fmt::Write;
+    let mut out = format!("store: {}\n", s.store.display());
+    let width = s
+        .models
+        .iter()
+        .map(|(m, _)| m.len())
+        .max()
+        .unwrap_or(5)
+        .max(5);
+    let _ = writeln!(
+        out,
+        "{:<width$}  {:>7}  {:>5}  {:>7}  {:>5}",
+        "model", "planned", "done", "missing", "stale"
+    );
+    let mut total = PointTally::default();
+    for (m, t) in &s.models {
+        let _ = writeln!(
+            out,
+            "{m:<width$}  {:>7}  {:>5}  {:>7}  {:>5}",
+            t.planned, t.done, t.missing, t.stale
+        );
+        total.planned += t.planned;
+        total.done += t.done;
+        total.missing += t.missing;
+        total.stale += t.stale;
+    }
+    let _ = writeln!(
+        out,
+        "{:<width$}  {:>7}  {:>5}  {:>7}  {:>5}",
+        "total", total.planned, total.done, total.missing, total.stale
+    );
+    if !s.shard_files.is_empty() {
+        let _ = writeln!(
+            out,
+            "{} shard store{} not merged yet, holding {} of the missing points (`merge` adds them)",
+            s.shard_files.len(),
+            if s.shard_files.len() == 1 { "" } else { "s" },
+            s.in_shards
+        );
+    }
+    if total.stale > 0 {
+        let _ = writeln!(
+            out,
+            "stale: stored under another key (changed data, settings or tool results); a run recomputes them"
+        );
+    }
+    out
+}
+
+/// The shard stores in `out_dir/shards/`, sorted.
+fn shard_stores(out_dir: &Path) -> Result<Vec<PathBuf>, StudyError> {
+    let dir = out_dir.join(SHARDS_DIR);
+    if !dir.exists() {
+        return Ok(Vec::new());
+    }
+    let mut files: Vec<PathBuf> = std::fs::read_dir(&dir)
+        .map_err(|source| StudyError::Read {
+            path: dir.clone(),
+            source,
+        })?
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.extension().is_some_and(|x| x == "jsonl"))
+        .collect();
+    files.sort();
+    Ok(files)
+}
+
+/// Two records of one key agree when everything but the measured wall-clock times is equal.
+fn same_result(a: &SkillRecord, b: &SkillRecord) -> bool {
+    let strip = |r: &SkillRecord| {
+        let mut r = r.clone();
+        r.cost = PointCost::default();
+        if let Some(c) = &mut r.closure {
+            c.coupled_seconds_per_time_unit = 0.0;
+        }
+        r
+    };
+    strip(a) == strip(b)
+}
+
+/// Appends the records of every shard store to the study's store (once per key; a key stored
+/// twice with different results is an error naming both files). Returns the shard files merged.
+fn merge_shards(out_dir: &Path) -> Result<Vec<PathBuf>, StudyError> {
+    let files = shard_stores(out_dir)?;
+    let path = out_dir.join(RECORDS_FILE);
+    let (store, contents) = RecordStore::open(&path).map_err(|source| StudyError::Write {
+        path: path.clone(),
+        source,
+    })?;
+    let mut seen: std::collections::HashMap<String, (SkillRecord, PathBuf)> = contents
+        .records
+        .into_iter()
+        .map(|r| (r.key.clone(), (r, path.clone())))
+        .collect();
+    for file in &files {
+        let records = read_records(file).map_err(|source| StudyError::Read {
+            path: file.clone(),
+            source,
+        })?;
+        for r in records {
+            match seen.get(&r.key) {
+                Some((earlier, from)) if !same_result(earlier, &r) => {
+                    return Err(StudyError::Conflict {
+                        model: r.model,
+                        n: r.n,
+                        replicate: r.replicate,
+                        first: from.clone(),
+                        second: file.clone(),
+                    })
+                }
+                Some(_) => {}
+                None => {
+                    store.append(&r).map_err(|source| StudyError::Write {
+                        path: path.clone(),
+                        source,
+                    })?;
+                    seen.insert(r.key.clone(), (r, file.clone()));
+                }
+            }
+        }
+    }
+    Ok(files)
+}
+
+/// Missing points per model, for an error message.
+fn gap_detail(tally: &BTreeMap<String, PointTally>) -> String {
+    tally
+        .iter()
+        .filter(|(_, t)| t.missing > 0)
+        .map(|(m, t)| format!("{m}: {} of {}", t.missing, t.planned))
+        .collect::<Vec<_>>()
+        .join("; ")
+}
+
+fn in_pool<T: Send>(
+    options: &RunOptions,
+    f: impl FnOnce(usize) -> Result<T, StudyError> + Send,
+) -> Result<T, StudyError> {
     let mut builder = rayon::ThreadPoolBuilder::new();
     if let Some(t) = options.threads {
         builder = builder.num_threads(t);
@@ -72,19 +409,19 @@ pub fn run_study(plan: &StudyPlan, options: &RunOptions) -> Result<StudyOutcome,
         message: e.to_string(),
     })?;
     let threads = pool.current_num_threads();
-    pool.install(|| run_in_pool(plan, options, threads))
+    pool.install(|| f(threads))
 }
 
-struct Prepared {
-    traj: Trajectory,
-    split: Split,
-    skill: SkillSpec,
-    cost: Campaign,
-    source: String,
+pub(super) struct Prepared {
+    pub traj: Trajectory,
+    pub split: Split,
+    pub skill: SkillSpec,
+    pub cost: Campaign,
+    pub source: String,
     /// Coarse solver of closure models (when the plan has any).
-    coupling: Option<Coupling>,
+    pub coupling: Option<Coupling>,
     /// Measured cost of the high-fidelity simulation (simulated data only).
-    high_fidelity: Option<HighFidelityCost>,
+    pub high_fidelity: Option<HighFidelityCost>,
 }
 
 /// Valid times of `model` from every initial condition, in fixed batches of [`FORECAST_BATCH`]
@@ -175,7 +512,7 @@ fn coupling_for(plan: &StudyPlan, traj: &Trajectory) -> Result<Option<Coupling>,
     }))
 }
 
-fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
+pub(super) fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, StudyError> {
     let largest = *plan.sizes.last().expect("plan has sizes");
     let Regime {
         traj,
@@ -301,10 +638,23 @@ pub(super) fn load_regime(
     let dt = traj.sample_interval();
     let split = Split::new(traj.samples(), split_for(dt), largest)?;
     let pool = traj.values.slice(ndarray::s![split.pool.clone(), ..]);
-    let (mean, sigma) = column_stats(pool);
+    if let Some(j) = column_stats(pool)
+        .1
+        .iter()
+        .position(|s| s.is_nan() || *s <= 0.0)
+    {
+        return Err(StudyError::ConstantVariable {
+            variable: traj.meta.variables[j].clone(),
+            region: "the training pool",
+        });
+    }
+    // The skill's normalisation comes from the held-out region, which appended data never
+    // change, so skill records stay comparable (and reusable) as the pool grows.
+    let (mean, sigma) = column_stats(traj.values.slice(ndarray::s![split.held_out.clone(), ..]));
     if let Some(j) = sigma.iter().position(|s| s.is_nan() || *s <= 0.0) {
         return Err(StudyError::ConstantVariable {
             variable: traj.meta.variables[j].clone(),
+            region: "the held-out test region",
         });
     }
     let skill = SkillSpec {
@@ -325,33 +675,41 @@ pub(super) fn load_regime(
 }
 
 pub(super) fn bar(enabled: bool, len: u64, message: &'static str) -> ProgressBar {
-    if !enabled {
-        return ProgressBar::hidden();
-    }
-    let b = ProgressBar::with_draw_target(Some(len), ProgressDrawTarget::stderr());
-    b.set_style(
-        ProgressStyle::with_template("{msg:<28} [{bar:30}] {pos}/{len} ({elapsed}, eta {eta})")
-            .expect("valid template")
-            .progress_chars("=> "),
+    let b = bar_with_template(
+        enabled,
+        len,
+        "{msg:<34} [{bar:30}] {pos}/{len} ({elapsed}, eta {eta})",
     );
     b.set_message(message);
     b
 }
 
-/// One trained model on one subset, ready to forecast.
-struct Trained {
-    model: usize,
-    replicate: usize,
-    seed: u64,
-    window_start: usize,
-    train_seconds: f64,
-    fitted: Fitted,
+/// A progress bar on standard error (hidden when not `enabled`).
+pub(super) fn bar_with_template(enabled: bool, len: u64, template: &str) -> ProgressBar {
+    if !enabled {
+        return ProgressBar::hidden();
+    }
+    let b = ProgressBar::with_draw_target(Some(len), ProgressDrawTarget::stderr());
+    b.set_style(
+        ProgressStyle::with_template(template)
+            .expect("valid template")
+            .progress_chars("=> "),
+    );
+    b
+}
+
+/// Whether a run may compute missing points or must find them all in the store (a merge).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Mode {
+    Compute,
+    StoredOnly,
 }
 
 fn run_in_pool(
     plan: &StudyPlan,
     options: &RunOptions,
     threads: usize,
+    mode: Mode,
 ) -> Result<StudyOutcome, StudyError> {
     let started = Instant::now();
     let mut timings = Timings {
@@ -373,71 +731,63 @@ fn run_in_pool(
         None => None,
     };
     timings.data = t0.elapsed().as_secs_f64();
-    let store = RecordStore::create(&options.out_dir.join("records.jsonl")).map_err(|source| {
-        StudyError::Write {
-            path: options.out_dir.join("records.jsonl"),
-            source,
-        }
-    })?;
 
-    // Training: one nested pass per (model, replicate).
+    // Points: reuse what the store holds, compute the rest.
     let t0 = Instant::now();
-    let pool_len = prep.split.pool.len();
+    let store_path = options.out_dir.join(RECORDS_FILE);
+    let write_error = |source| StudyError::Write {
+        path: store_path.clone(),
+        source,
+    };
+    let (store, contents) = RecordStore::open(&store_path).map_err(write_error)?;
+    let units = points::plan_units(plan, &prep);
+    let (missing, tally) = points::classify(plan, &units, &contents.records);
+    let planned: usize = tally.values().map(|t| t.planned).sum();
+    let reused: usize = tally.values().map(|t| t.done).sum();
+    let stale: usize = tally.values().map(|t| t.stale).sum();
+    let to_compute = planned - reused;
+    if mode == Mode::StoredOnly && to_compute > 0 {
+        return Err(StudyError::Gaps {
+            missing: to_compute,
+            detail: gap_detail(&tally),
+        });
+    }
+    let (computed, stopped, train_seconds, forecast_seconds) = points::compute(
+        plan,
+        &prep,
+        &points::Work {
+            units: &units,
+            missing: &missing,
+            store: &store,
+            stop: options.stop.as_deref(),
+            progress: options.progress,
+            label: "computing points",
+        },
+    )?;
+    if stopped {
+        return Err(StudyError::Interrupted {
+            stored: computed.len(),
+            remaining: to_compute - computed.len(),
+        });
+    }
+    let mut all = contents.records;
+    all.extend(computed);
+    let records = points::planned_records(plan, &units, all);
+    debug_assert_eq!(records.len(), planned);
+    // Only the planned records stay: stale ones (and those of sizes or models no longer in the
+    // study) are dropped now that their replacements are stored.
+    store.rewrite(&records).map_err(write_error)?;
+    timings.points = t0.elapsed().as_secs_f64();
+    timings.training = train_seconds;
+    timings.forecasting = forecast_seconds;
+    let reuse = PointCounts {
+        planned,
+        reused,
+        computed: to_compute,
+        stale,
+        discarded_bytes: contents.discarded_bytes,
+    };
     let largest = *plan.sizes.last().expect("sizes");
-    let slack = pool_len - largest;
-    let units: Vec<(usize, usize)> = (0..plan.models.len())
-        .flat_map(|m| (0..plan.replicates).map(move |r| (m, r)))
-        .collect();
-    let train_bar = bar(
-        options.progress,
-        units.len() as u64,
-        "training (nested subsets)",
-    );
-    let trained: Vec<Vec<Trained>> = units
-        .par_iter()
-        .map(|&(m, r)| {
-            let model = &plan.models[m];
-            let seed = derive_seed(plan.seed, &model.name, r);
-            let window_start = if plan.replicates > 1 {
-                r * slack / (plan.replicates - 1)
-            } else {
-                0
-            };
-            let rows = ndarray::s![window_start..window_start + largest, ..];
-            let started = Instant::now();
-            let fitted = train_unit(
-                model,
-                prep.traj.values.slice(rows),
-                prep.traj.subgrid.as_ref().map(|u| u.slice(rows)),
-                &plan.sizes,
-                seed,
-                prep.coupling,
-            )
-            .map_err(|source| StudyError::Model {
-                model: model.name.clone(),
-                replicate: r,
-                source,
-            })?;
-            let train_seconds = started.elapsed().as_secs_f64();
-            train_bar.inc(1);
-            Ok(fitted
-                .into_iter()
-                .map(|fitted| Trained {
-                    model: m,
-                    replicate: r,
-                    seed,
-                    window_start,
-                    train_seconds,
-                    fitted,
-                })
-                .collect())
-        })
-        .collect::<Result<_, StudyError>>()?;
-    train_bar.finish_and_clear();
-    timings.training = t0.elapsed().as_secs_f64();
-
-    // Forecasting: every trained model from every test initial condition.
-    let t0 = Instant::now();
     let truth = prep.traj.values.view();
     let ics = &prep.split.initial_conditions;
     let persistence: Vec<IcSkill> = ics
@@ -453,49 +803,23 @@ fn run_in_pool(
         .par_iter()
         .map(|&ic| skill::valid_time(&climatology_model, truth, ic, &prep.skill))
         .collect();
-    let tasks: Vec<&Trained> = trained.iter().flatten().collect();
-    let checks = prep
-        .coupling
-        .map(|_| ClosureReference::new(&prep, &plan.closure));
-    let fc_bar = bar(options.progress, tasks.len() as u64, "forecasting");
-    let records: Vec<SkillRecord> = tasks
-        .par_iter()
-        .map(|t| {
-            let (per_ic, seconds_per_step) =
-                score_batched(t.fitted.forecaster.as_ref(), truth, ics, &prep.skill);
-            let closure = match (&t.fitted.coupled, &checks) {
-                (Some(coupled), Some(reference)) => Some(reference.check(coupled)),
-                _ => None,
-            };
-            let record = SkillRecord {
-                model: plan.models[t.model].name.clone(),
-                replicate: t.replicate,
-                n: t.fitted.summary.n,
-                seed: t.seed,
-                window_start: t.window_start,
-                fit: t.fitted.summary.clone(),
-                summary: skill::summarise(&per_ic),
-                initial_conditions: per_ic,
-                cost: PointCost {
-                    train_seconds: t.train_seconds,
-                    forecast_seconds_per_step: seconds_per_step,
-                },
-                closure,
-            };
-            store.append(&record).map_err(|source| StudyError::Write {
-                path: store.path().to_path_buf(),
-                source,
-            })?;
-            fc_bar.inc(1);
-            Ok(record)
-        })
-        .collect::<Result<_, StudyError>>()?;
-    fc_bar.finish_and_clear();
-    timings.forecasting = t0.elapsed().as_secs_f64();
 
     // Curves, inversion and cost.
     let t0 = Instant::now();
     let mut warnings = Vec::new();
+    if stale > 0 {
+        warnings.push(format!(
+            "{stale} stored point{} no longer matched the study (their training data, test data, settings or the tool's results version changed) and {} recomputed",
+            if stale == 1 { "" } else { "s" },
+            if stale == 1 { "was" } else { "were" }
+        ));
+    }
+    if contents.discarded_bytes > 0 {
+        warnings.push(format!(
+            "the records store ended in an incomplete line ({} bytes, left by an interrupted run); it was discarded and its point recomputed",
+            contents.discarded_bytes
+        ));
+    }
     let models: Vec<ModelResult> = plan
         .models
         .iter()
@@ -525,7 +849,7 @@ fn run_in_pool(
                 regime,
                 &super::transfer::PilotSide {
                     traj: &prep.traj,
-                    pool_len,
+                    pool: prep.split.pool.clone(),
                     base_skill: &base_skill,
                 },
                 options.progress,
@@ -612,7 +936,7 @@ fn run_in_pool(
         )),
         skill: Some(SkillInfo {
             definition: format!(
-                "valid prediction time: largest lead at which sqrt(mean_j ((x̂_j − x_j)/σ_j)²) has stayed ≤ {}, σ_j the training-pool standard deviation; mean over {} test initial conditions",
+                "valid prediction time: largest lead at which sqrt(mean_j ((x̂_j − x_j)/σ_j)²) has stayed ≤ {}, σ_j the standard deviation over the held-out test region; mean over {} test initial conditions",
                 t.threshold,
                 ics.len()
             ),
@@ -628,6 +952,7 @@ fn run_in_pool(
         campaign: Some(prep.cost.clone()),
         warnings,
         transfer,
+        points: Some(reuse),
         timings: Timings {
             total: started.elapsed().as_secs_f64(),
             ..timings
@@ -658,12 +983,22 @@ fn run_in_pool(
                 })
         })
         .collect();
+    let history = match super::history::HistoryEntry::of(&document, super::history::now_utc()) {
+        Some(entry) => super::history::append(&options.out_dir, &entry).map_err(|source| {
+            StudyError::Write {
+                path: options.out_dir.join(super::history::HISTORY_FILE),
+                source,
+            }
+        })?,
+        None => Vec::new(),
+    };
     Ok(StudyOutcome {
         document,
         records,
         persistence,
         climatology,
         run_tables,
+        history,
     })
 }
 
@@ -1080,9 +1415,9 @@ fn estimate(
     }
 }
 
-/// Held-out data the closure checks compare against: coupling terms after the training pool for
+/// Held-out data the closure checks compare against: coupling terms in the held-out test region for
 /// the offline R², and free-run starts and the truth's pooled distribution for the long runs.
-struct ClosureReference {
+pub(super) struct ClosureReference {
     x: ndarray::Array2<f64>,
     u: ndarray::Array2<f64>,
     /// Free-run starts: the warm-up rows before an initial condition, then the condition.
@@ -1095,12 +1430,12 @@ struct ClosureReference {
 }
 
 impl ClosureReference {
-    /// At most this many held-out samples enter the offline R² (consecutive, after the pool).
+    /// At most this many held-out samples enter the offline R² (consecutive, from the start of the held-out region).
     const OFFLINE_SAMPLES: usize = 4000;
 
-    fn new(prep: &Prepared, closure: &super::plan::ClosurePlan) -> Self {
-        let first = prep.split.pool.end + prep.split.spec.gap;
-        let total = prep.traj.samples();
+    pub(super) fn new(prep: &Prepared, closure: &super::plan::ClosurePlan) -> Self {
+        let first = prep.split.held_out.start;
+        let total = prep.split.held_out.end;
         // Consecutive samples, so closures with memory are driven along the true trajectory.
         let rows = ndarray::s![first..total.min(first + Self::OFFLINE_SAMPLES), ..];
         let u = prep
@@ -1144,7 +1479,7 @@ impl ClosureReference {
         }
     }
 
-    fn check(&self, coupled: &CoupledModel) -> ClosureChecks {
+    pub(super) fn check(&self, coupled: &CoupledModel) -> ClosureChecks {
         let offline_r2 = offline_r2(&coupled.closure, self.x.view(), self.u.view());
         let started = Instant::now();
         let free_run = free_run_check(

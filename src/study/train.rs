@@ -32,9 +32,31 @@ pub struct Fitted {
     pub coupled: Option<Arc<CoupledModel>>,
 }
 
-/// Trains `model` on every prefix `sizes` of `x` (resolved states) and, for closures, `u` (the
-/// coupling term at the same samples).
+/// Trains `model` on the prefixes `wanted` (a subset of the study's `sizes`, ascending) of `x`
+/// (resolved states) and, for closures, `u` (the coupling term at the same samples). Each fit
+/// equals the one a pass over all of `sizes` would give, bit for bit: families standardised on
+/// the smallest size are given it too (see [`super::keys::standardised_on_smallest`]).
 pub fn train_unit(
+    model: &ModelPlan,
+    x: ArrayView2<f64>,
+    u: Option<ArrayView2<f64>>,
+    sizes: &[usize],
+    wanted: &[usize],
+    seed: u64,
+    coupling: Option<Coupling>,
+) -> Result<Vec<Fitted>, ModelError> {
+    let mut fit_sizes = wanted.to_vec();
+    if super::keys::standardised_on_smallest(model) {
+        fit_sizes.push(*sizes.first().ok_or(ModelError::NoSizes)?);
+    }
+    fit_sizes.sort_unstable();
+    fit_sizes.dedup();
+    let mut fits = train_sizes(model, x, u, &fit_sizes, seed, coupling)?;
+    fits.retain(|f| wanted.contains(&f.summary.n));
+    Ok(fits)
+}
+
+fn train_sizes(
     model: &ModelPlan,
     x: ArrayView2<f64>,
     u: Option<ArrayView2<f64>>,

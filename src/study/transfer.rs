@@ -10,6 +10,7 @@
 //! and so the samples and core-hours transfer saves.
 
 use super::plan::{StudyPlan, TransferGoal, TransferPlan};
+use super::points::replicate_window;
 use super::records::{PointCost, SkillRecord};
 use super::results::{
     EstimateStatus, TargetEstimate, TransferModel, TransferResult, TransferSaving,
@@ -29,7 +30,8 @@ use std::time::Instant;
 /// largest size in their own regime.
 pub(super) struct PilotSide<'a> {
     pub traj: &'a crate::data::Trajectory,
-    pub pool_len: usize,
+    /// The pilot's training pool (sample indices).
+    pub pool: std::ops::Range<usize>,
     /// Mean valid time per model (index into the plan's models) and replicate at the largest
     /// pilot size.
     pub base_skill: &'a dyn Fn(usize, usize) -> Option<f64>,
@@ -101,14 +103,9 @@ pub(super) fn run_transfer(
 
     // Training and scoring: one unit per (model, replicate).
     let largest = *plan.sizes.last().expect("sizes");
-    let pilot_slack = pilot.pool_len - largest;
-    let target_slack = split.pool.len() - largest_k;
-    let window = |r: usize, replicates: usize, slack: usize| {
-        if replicates > 1 {
-            r * slack / (replicates - 1)
-        } else {
-            0
-        }
+    let (pilot_pool, pilot_traj) = (pilot.pool.clone(), pilot.traj);
+    let window = |r: usize, replicates: usize, pool: &std::ops::Range<usize>, sizes: &[usize]| {
+        replicate_window(pool, r, replicates, sizes[0], *sizes.last().expect("sizes"))
     };
     let units: Vec<(usize, usize)> = tp
         .models
@@ -130,13 +127,13 @@ pub(super) fn run_transfer(
             // more replicates than the pilot study ran).
             let rb = r % plan.replicates;
             let seed = derive_seed(plan.seed, &model.name, rb);
-            let pw = window(rb, plan.replicates, pilot_slack);
-            let tw = window(r, tp.replicates, target_slack);
+            let pw = window(rb, plan.replicates, &pilot_pool, &plan.sizes);
+            let tw = window(r, tp.replicates, &split.pool, &tp.sizes);
             let started = Instant::now();
             let fits = train_transfer_unit(
                 model,
                 &tp.fine_tune,
-                pilot.traj.values.slice(ndarray::s![pw..pw + largest, ..]),
+                pilot_traj.values.slice(ndarray::s![pw..pw + largest, ..]),
                 &plan.sizes,
                 traj.values.slice(ndarray::s![tw..tw + largest_k, ..]),
                 &tp.sizes,
@@ -159,6 +156,7 @@ pub(super) fn run_transfer(
                         let (per_ic, seconds_per_step) =
                             score_batched(f.as_ref(), truth, ics, &spec);
                         SkillRecord {
+                            key: String::new(),
                             model: format!("{}:{label}", model.name),
                             replicate: r,
                             n: summary.n,

@@ -1,0 +1,436 @@
+//! The points of a study — one per (model, replicate, subset size) — their keys, which of them
+//! the records store already holds, their split into shards, and the computing of the missing
+//! ones (train each (model, replicate) unit on its missing sizes, score, append to the store).
+
+use super::keys::{self, PointIdentity};
+use super::plan::StudyPlan;
+use super::records::{PointCost, RecordStore, SkillRecord};
+use super::runner::{bar_with_template, derive_seed, score_batched, ClosureReference, Prepared};
+use super::train::train_unit;
+use super::StudyError;
+use crate::skill;
+use rayon::prelude::*;
+use std::collections::{BTreeMap, HashMap};
+use std::ops::Range;
+use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
+use std::time::Instant;
+
+/// A 1/N share of a study's points, `index` counted from 1.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Shard {
+    pub index: usize,
+    pub count: usize,
+}
+
+impl std::str::FromStr for Shard {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Self, String> {
+        let bad = || format!("`{s}` is not a shard: write I/N with 1 ≤ I ≤ N, e.g. 2/8");
+        let (i, n) = s.split_once('/').ok_or_else(bad)?;
+        let index: usize = i.trim().parse().map_err(|_| bad())?;
+        let count: usize = n.trim().parse().map_err(|_| bad())?;
+        if index == 0 || count == 0 || index > count {
+            return Err(bad());
+        }
+        Ok(Shard { index, count })
+    }
+}
+
+impl std::fmt::Display for Shard {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "{}/{}", self.index, self.count)
+    }
+}
+
+impl Shard {
+    /// File name of this shard's store in `shards/`.
+    pub fn file_name(&self) -> String {
+        format!("shard-{}-of-{}.jsonl", self.index, self.count)
+    }
+}
+
+/// First sample of replicate `r`'s training window: replicate windows start `stride` samples
+/// apart from the start of the pool, with `stride` the smallest subset size (so the smallest
+/// subsets of different replicates do not overlap) or less when the pool leaves less room. The
+/// rule does not depend on how long the pool is when it has room, so appending data leaves
+/// every window where it was.
+pub fn replicate_window(
+    pool: &Range<usize>,
+    replicate: usize,
+    replicates: usize,
+    smallest: usize,
+    largest: usize,
+) -> usize {
+    if replicates < 2 {
+        return pool.start;
+    }
+    let slack = pool.len().saturating_sub(largest);
+    pool.start + replicate * smallest.min(slack / (replicates - 1))
+}
+
+/// One (model, replicate) unit and the keys of its points, one per study size.
+pub(super) struct Unit {
+    pub model: usize,
+    pub replicate: usize,
+    pub seed: u64,
+    pub window_start: usize,
+    /// (n, key) for every size of the study.
+    pub keys: Vec<(usize, String)>,
+}
+
+/// Every unit of the study with its point keys.
+pub(super) fn plan_units(plan: &StudyPlan, prep: &Prepared) -> Vec<Unit> {
+    let smallest = plan.sizes[0];
+    let largest = *plan.sizes.last().expect("sizes");
+    let values = prep.traj.values.view();
+    let subgrid = prep.traj.subgrid.as_ref().map(|u| u.view());
+    let test = keys::test_hash(values, subgrid, &prep.split, &prep.skill);
+    // Prefix hashes per (window, with the coupling term), shared by the models.
+    let mut hashes: HashMap<(usize, bool), Vec<String>> = HashMap::new();
+    let mut units = Vec::new();
+    for (m, model) in plan.models.iter().enumerate() {
+        let closure = model.usage.is_closure();
+        for r in 0..plan.replicates {
+            let seed = derive_seed(plan.seed, &model.name, r);
+            let ws = replicate_window(&prep.split.pool, r, plan.replicates, smallest, largest);
+            let data = hashes.entry((ws, closure)).or_insert_with(|| {
+                keys::prefix_hashes(values, subgrid.filter(|_| closure), ws, &plan.sizes)
+            });
+            let keys = plan
+                .sizes
+                .iter()
+                .zip(data.iter())
+                .map(|(&n, data)| {
+                    let key = keys::point_key(&PointIdentity {
+                        model,
+                        seed,
+                        smallest,
+                        n,
+                        data,
+                        test: &test,
+                        closure: prep
+                            .coupling
+                            .filter(|_| closure)
+                            .map(|c| (c, &plan.closure)),
+                    });
+                    (n, key)
+                })
+                .collect();
+            units.push(Unit {
+                model: m,
+                replicate: r,
+                seed,
+                window_start: ws,
+                keys,
+            });
+        }
+    }
+    units
+}
+
+/// Planned points against what a store holds.
+#[derive(Debug, Clone, Default, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct PointTally {
+    pub planned: usize,
+    /// Planned points whose record is in the store.
+    pub done: usize,
+    /// Planned points with no record of their key.
+    pub missing: usize,
+    /// Missing points for which the store holds a record of the same model, replicate and size
+    /// under another key: their data, settings or the tool's results changed.
+    pub stale: usize,
+}
+
+/// Splits the planned points into those the records hold and the missing ones (per unit, the
+/// sizes to compute), and tallies them per model.
+pub(super) fn classify(
+    plan: &StudyPlan,
+    units: &[Unit],
+    records: &[SkillRecord],
+) -> (Vec<Vec<usize>>, BTreeMap<String, PointTally>) {
+    let by_key: HashMap<&str, &SkillRecord> = records.iter().map(|r| (r.key.as_str(), r)).collect();
+    let mut missing = Vec::with_capacity(units.len());
+    let mut tally: BTreeMap<String, PointTally> = BTreeMap::new();
+    for u in units {
+        let name = &plan.models[u.model].name;
+        let t = tally.entry(name.clone()).or_default();
+        let mut mine = Vec::new();
+        for (n, key) in &u.keys {
+            t.planned += 1;
+            if by_key.contains_key(key.as_str()) {
+                t.done += 1;
+            } else {
+                t.missing += 1;
+                if records
+                    .iter()
+                    .any(|r| &r.model == name && r.replicate == u.replicate && r.n == *n)
+                {
+                    t.stale += 1;
+                }
+                mine.push(*n);
+            }
+        }
+        missing.push(mine);
+    }
+    (missing, tally)
+}
+
+/// The planned records, from `records`, in (model, size, replicate) order.
+pub(super) fn planned_records(
+    plan: &StudyPlan,
+    units: &[Unit],
+    records: Vec<SkillRecord>,
+) -> Vec<SkillRecord> {
+    let mut by_key: HashMap<String, SkillRecord> =
+        records.into_iter().map(|r| (r.key.clone(), r)).collect();
+    let mut out: Vec<SkillRecord> = units
+        .iter()
+        .flat_map(|u| u.keys.iter().map(|(_, k)| k))
+        .filter_map(|k| by_key.remove(k))
+        .collect();
+    let order: HashMap<&str, usize> = plan
+        .models
+        .iter()
+        .enumerate()
+        .map(|(i, m)| (m.name.as_str(), i))
+        .collect();
+    out.sort_by_key(|r| (order[r.model.as_str()], r.n, r.replicate));
+    out
+}
+
+/// Rough relative cost of computing a model's point of size n (training plus forecasting), for
+/// balancing shards and sizing progress bars; measured costs are not needed for either.
+pub(super) fn estimated_cost(plan: &StudyPlan, model: usize, n: usize, prep: &Prepared) -> f64 {
+    use super::plan::ModelKind;
+    let m = &plan.models[model];
+    // Per training sample and per forecast step, in arbitrary units (orders of magnitude from
+    // the demo's measured costs: recurrent networks train slowest, reservoirs step slowest).
+    let (train, step) = match &m.kind {
+        ModelKind::Esn(_) => (20.0, 40.0),
+        ModelKind::Ngrc(_) => (5.0, 2.0),
+        ModelKind::Polynomial(_) => (5.0, 2.0),
+        ModelKind::Mlp(_) => (150.0, 10.0),
+        ModelKind::Lstm(_) => (300.0, 10.0),
+    };
+    let closure = if m.usage.is_closure() { 4.0 } else { 1.0 };
+    let steps = prep.split.initial_conditions.len() as f64
+        * (prep.skill.warm_up + prep.skill.max_lead / 4) as f64;
+    closure * (train * n as f64 + step * steps)
+}
+
+/// Assigns units to shards: longest estimated work first, each to the least-loaded shard (ties
+/// to the lower index), so every shard computes the same assignment from the same store.
+pub(super) fn shard_units(costs: &[f64], shard: Shard) -> Vec<bool> {
+    let mut order: Vec<usize> = (0..costs.len()).filter(|&i| costs[i] > 0.0).collect();
+    order.sort_by(|&a, &b| costs[b].total_cmp(&costs[a]).then(a.cmp(&b)));
+    let mut load = vec![0.0_f64; shard.count];
+    let mut mine = vec![false; costs.len()];
+    for i in order {
+        let s = (0..shard.count)
+            .min_by(|&a, &b| load[a].total_cmp(&load[b]).then(a.cmp(&b)))
+            .expect("at least one shard");
+        load[s] += costs[i];
+        mine[i] = s + 1 == shard.index;
+    }
+    mine
+}
+
+/// What [`compute`] works on.
+pub(super) struct Work<'a> {
+    pub units: &'a [Unit],
+    /// Per unit, the sizes to compute (empty: nothing to do).
+    pub missing: &'a [Vec<usize>],
+    pub store: &'a RecordStore,
+    pub stop: Option<&'a AtomicBool>,
+    pub progress: bool,
+    pub label: &'static str,
+}
+
+/// Computes the missing sizes of each unit, appending each record to the store as soon as it is
+/// scored. Stops starting units once `stop` is set. Returns the records computed, whether it
+/// stopped early, and the thread-seconds spent training and forecasting.
+pub(super) fn compute(
+    plan: &StudyPlan,
+    prep: &Prepared,
+    work: &Work,
+) -> Result<(Vec<SkillRecord>, bool, f64, f64), StudyError> {
+    let Work {
+        units,
+        missing,
+        store,
+        stop,
+        progress,
+        label,
+    } = *work;
+    let todo: Vec<usize> = (0..units.len())
+        .filter(|&i| !missing[i].is_empty())
+        .collect();
+    let cost_of = |i: usize| -> Vec<f64> {
+        missing[i]
+            .iter()
+            .map(|&n| estimated_cost(plan, units[i].model, n, prep))
+            .collect()
+    };
+    let total_points: usize = todo.iter().map(|&i| missing[i].len()).sum();
+    let total_cost: f64 = todo.iter().map(|&i| cost_of(i).iter().sum::<f64>()).sum();
+    // The bar moves by estimated cost, so its ETA follows the measured pace of costly points.
+    let scale = 1e6 / total_cost.max(1.0);
+    let bar = bar_with_template(
+        progress,
+        1_000_000,
+        "{msg:<34} [{bar:30}] {percent:>3}% ({elapsed}, eta {eta})",
+    );
+    let done = AtomicUsize::new(0);
+    bar.set_message(format!("{label} 0/{total_points}"));
+    let stopped = AtomicBool::new(false);
+    let checks = prep
+        .coupling
+        .map(|_| ClosureReference::new(prep, &plan.closure));
+    let truth = prep.traj.values.view();
+    let ics = &prep.split.initial_conditions;
+    let largest = *plan.sizes.last().expect("sizes");
+    let computed: Vec<(Vec<SkillRecord>, f64, f64)> = todo
+        .par_iter()
+        .map(|&i| {
+            if stop.is_some_and(|s| s.load(Ordering::SeqCst)) {
+                stopped.store(true, Ordering::SeqCst);
+                return Ok((Vec::new(), 0.0, 0.0));
+            }
+            let unit = &units[i];
+            let model = &plan.models[unit.model];
+            let wanted = &missing[i];
+            let rows = ndarray::s![unit.window_start..unit.window_start + largest, ..];
+            let started = Instant::now();
+            let fitted = train_unit(
+                model,
+                prep.traj.values.slice(rows),
+                prep.traj.subgrid.as_ref().map(|u| u.slice(rows)),
+                &plan.sizes,
+                wanted,
+                unit.seed,
+                prep.coupling,
+            )
+            .map_err(|source| StudyError::Model {
+                model: model.name.clone(),
+                replicate: unit.replicate,
+                source,
+            })?;
+            let train_seconds = started.elapsed().as_secs_f64();
+            let costs = cost_of(i);
+            let key_of = |n: usize| {
+                unit.keys
+                    .iter()
+                    .find(|(m, _)| *m == n)
+                    .map(|(_, k)| k.clone())
+                    .expect("a planned size")
+            };
+            let records: Vec<(SkillRecord, f64)> = fitted
+                .par_iter()
+                .enumerate()
+                .map(|(j, f)| {
+                    let started = Instant::now();
+                    let (per_ic, seconds_per_step) =
+                        score_batched(f.forecaster.as_ref(), truth, ics, &prep.skill);
+                    let closure = match (&f.coupled, &checks) {
+                        (Some(coupled), Some(reference)) => Some(reference.check(coupled)),
+                        _ => None,
+                    };
+                    let record = SkillRecord {
+                        key: key_of(f.summary.n),
+                        model: model.name.clone(),
+                        replicate: unit.replicate,
+                        n: f.summary.n,
+                        seed: unit.seed,
+                        window_start: unit.window_start,
+                        fit: f.summary.clone(),
+                        summary: skill::summarise(&per_ic),
+                        initial_conditions: per_ic,
+                        cost: PointCost {
+                            train_seconds,
+                            forecast_seconds_per_step: seconds_per_step,
+                        },
+                        closure,
+                    };
+                    store.append(&record).map_err(|source| StudyError::Write {
+                        path: store.path().to_path_buf(),
+                        source,
+                    })?;
+                    let c = done.fetch_add(1, Ordering::SeqCst) + 1;
+                    bar.set_message(format!("{label} {c}/{total_points}"));
+                    bar.inc((costs[j] * scale) as u64);
+                    Ok((record, started.elapsed().as_secs_f64()))
+                })
+                .collect::<Result<_, StudyError>>()?;
+            let forecast_seconds = records.iter().map(|(_, s)| s).sum();
+            Ok((
+                records.into_iter().map(|(r, _)| r).collect(),
+                train_seconds,
+                forecast_seconds,
+            ))
+        })
+        .collect::<Result<_, StudyError>>()?;
+    bar.finish_and_clear();
+    let train_seconds = computed.iter().map(|c| c.1).sum();
+    let forecast_seconds = computed.iter().map(|c| c.2).sum();
+    let records = computed.into_iter().flat_map(|c| c.0).collect();
+    Ok((
+        records,
+        stopped.load(Ordering::SeqCst),
+        train_seconds,
+        forecast_seconds,
+    ))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn shards_parse_and_refuse_nonsense() {
+        assert_eq!("2/8".parse::<Shard>(), Ok(Shard { index: 2, count: 8 }));
+        for bad in ["0/3", "4/3", "1/0", "3", "a/b", "1/2/3"] {
+            assert!(bad.parse::<Shard>().is_err(), "{bad}");
+        }
+    }
+
+    #[test]
+    fn shards_split_every_unit_exactly_once_balanced_by_cost() {
+        let costs = [9.0, 1.0, 1.0, 1.0, 5.0, 4.0, 0.0, 3.0];
+        let count = 3;
+        let shares: Vec<Vec<bool>> = (1..=count)
+            .map(|index| shard_units(&costs, Shard { index, count }))
+            .collect();
+        let mut loads = vec![0.0; count];
+        for (i, c) in costs.iter().enumerate() {
+            let owners: Vec<usize> = (0..count).filter(|&s| shares[s][i]).collect();
+            if *c > 0.0 {
+                assert_eq!(owners.len(), 1, "unit {i} owned once");
+                loads[owners[0]] += c;
+            } else {
+                assert!(owners.is_empty(), "nothing to do, no owner");
+            }
+        }
+        // Longest first onto the least loaded: 9 | 5 1 1 1 | 4 3 → loads 9, 8, 7.
+        let mut sorted = loads.clone();
+        sorted.sort_by(f64::total_cmp);
+        assert_eq!(sorted, vec![7.0, 8.0, 9.0]);
+    }
+
+    #[test]
+    fn replicate_windows_stay_put_when_the_pool_grows() {
+        let (smallest, largest) = (100, 800);
+        let small = 50..1000; // slack 150: stride min(100, 75) = 75
+        let big = 50..5000;
+        assert_eq!(replicate_window(&small, 2, 3, smallest, largest), 200);
+        assert_eq!(replicate_window(&big, 2, 3, smallest, largest), 250);
+        assert_eq!(
+            replicate_window(&(50..2000), 2, 3, smallest, largest),
+            replicate_window(&big, 2, 3, smallest, largest)
+        );
+        assert_eq!(replicate_window(&small, 0, 3, smallest, largest), 50);
+        for r in 0..3 {
+            assert!(replicate_window(&small, r, 3, smallest, largest) + largest <= small.end);
+        }
+    }
+}
