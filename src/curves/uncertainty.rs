@@ -16,6 +16,7 @@ use super::fit::{quantile_sorted, refit, summarise, CurveFit, SizeSamples};
 use super::{Family, Inversion};
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 /// Skill measured at one size: `values[replicate][initial condition]`.
@@ -86,6 +87,10 @@ pub fn bootstrap_targets(
         .max()
         .unwrap_or(0);
     let usable = !weights.is_empty() && replicates > 0 && ics > 0;
+    // The random choices are drawn in sequence (the same stream as a serial loop); the refits,
+    // the expensive part, run in parallel and are collected in draw order, so the result does
+    // not depend on the thread count.
+    let mut choices = Vec::with_capacity(if usable { draws } else { 0 });
     for _ in 0..if usable { draws } else { 0 } {
         let rep_idx: Vec<usize> = (0..replicates)
             .map(|_| rng.random_range(0..replicates))
@@ -100,38 +105,50 @@ pub fn bootstrap_targets(
                 u < acc
             })
             .unwrap_or(weights.len() - 1);
-        let family = weights[pick].0;
         family_draws[pick].1 += 1;
-        let resampled: Vec<SizeSamples> = grid
-            .iter()
-            .map(|g| SizeSamples {
-                n: g.n,
-                replicate_values: rep_idx
+        choices.push((pick, rep_idx, ic_idx));
+    }
+    let outcomes: Vec<Option<Vec<f64>>> = choices
+        .par_iter()
+        .map(|(pick, rep_idx, ic_idx)| {
+            let family = weights[*pick].0;
+            let resampled: Vec<SizeSamples> = grid
+                .iter()
+                .map(|g| SizeSamples {
+                    n: g.n,
+                    replicate_values: rep_idx
+                        .iter()
+                        .filter_map(|&r| g.values.get(r))
+                        .map(|v| {
+                            let picked: Vec<f64> =
+                                ic_idx.iter().filter_map(|&i| v.get(i).copied()).collect();
+                            picked.iter().sum::<f64>() / picked.len().max(1) as f64
+                        })
+                        .collect(),
+                    censored: g.censored,
+                })
+                .collect();
+            let full = fits.iter().find(|f| f.family == family)?;
+            let fit = refit(family, &summarise(&resampled), &full.params, full.scale).ok()?;
+            Some(
+                targets
                     .iter()
-                    .filter_map(|&r| g.values.get(r))
-                    .map(|v| {
-                        let picked: Vec<f64> =
-                            ic_idx.iter().filter_map(|&i| v.get(i).copied()).collect();
-                        picked.iter().sum::<f64>() / picked.len().max(1) as f64
-                    })
-                    .collect(),
-                censored: g.censored,
-            })
-            .collect();
-        let Some(full) = fits.iter().find(|f| f.family == family) else {
-            failed += 1;
-            continue;
-        };
-        match refit(family, &summarise(&resampled), &full.params, full.scale) {
-            Ok(fit) => {
-                for (t, out) in targets.iter().zip(ns.iter_mut()) {
-                    out.push(match fit.invert(*t) {
+                    .map(|t| match fit.invert(*t) {
                         Inversion::Reached { n } => n,
                         Inversion::Unreachable { .. } => f64::INFINITY,
-                    });
+                    })
+                    .collect(),
+            )
+        })
+        .collect();
+    for outcome in outcomes {
+        match outcome {
+            Some(values) => {
+                for (v, out) in values.into_iter().zip(ns.iter_mut()) {
+                    out.push(v);
                 }
             }
-            Err(_) => failed += 1,
+            None => failed += 1,
         }
     }
     targets

@@ -371,8 +371,8 @@ pub(super) fn compute(
         })
         .collect::<Result<_, StudyError>>()?;
     bar.finish_and_clear();
-    let train_seconds = computed.iter().map(|c| c.1).sum();
-    let forecast_seconds = computed.iter().map(|c| c.2).sum();
+    let train_seconds = computed.iter().fold(0.0, |a, c| a + c.1);
+    let forecast_seconds = computed.iter().fold(0.0, |a, c| a + c.2);
     let records = computed.into_iter().flat_map(|c| c.0).collect();
     Ok((
         records,

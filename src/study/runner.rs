@@ -820,14 +820,24 @@ fn run_in_pool(
             contents.discarded_bytes
         ));
     }
-    let models: Vec<ModelResult> = plan
+    // Models are fitted in parallel; their warnings join in study order.
+    let fitted: Vec<(ModelResult, Vec<String>)> = plan
         .models
-        .iter()
+        .par_iter()
         .enumerate()
         .map(|(m, model)| {
             let mine: Vec<&SkillRecord> =
                 records.iter().filter(|r| r.model == model.name).collect();
-            model_result(plan, m, &mine, &prep.cost, &mut warnings)
+            let mut own = Vec::new();
+            let result = model_result(plan, m, &mine, &prep.cost, &mut own);
+            (result, own)
+        })
+        .collect();
+    let models: Vec<ModelResult> = fitted
+        .into_iter()
+        .map(|(result, own)| {
+            warnings.extend(own);
+            result
         })
         .collect();
     timings.fitting = t0.elapsed().as_secs_f64();
