@@ -7,13 +7,14 @@ use std::fmt::Write;
 
 use crate::cost::Budget;
 use crate::skill::SkillSummary;
+use crate::study::history::{HistoryEntry, HistoryEstimate};
 use crate::study::results::{
     DataInfo, EstimateStatus, PlanDocument, PointResult, TargetEstimate, TransferModel,
     TransferResult, TransferSaving,
 };
 use crate::study::runner::StudyOutcome;
 
-use super::format::{bytes, escape, number, opt, percent, samples, sig3, thousands};
+use super::format::{bytes, escape, number, opt, percent, samples, short, sig3, thousands};
 use super::svg;
 
 const CSS: &str = r#"
@@ -110,6 +111,7 @@ pub fn html(outcome: &StudyOutcome) -> String {
     measured_points(&mut out, doc);
     closures(&mut out, doc);
     transfer(&mut out, doc);
+    history(&mut out, outcome);
     assumptions(&mut out, doc);
     runs(&mut out, outcome);
     decorrelation(&mut out, doc);
@@ -1276,6 +1278,148 @@ fn campaign_sources(out: &mut String, doc: &PlanDocument) {
     out.push_str("</tbody>\n</table>\n");
 }
 
+/// The target the history follows: the largest one some model of the latest run has a budget
+/// for (the most demanding answer the study gives), else the first.
+fn history_target(latest: &HistoryEntry, targets: &[f64]) -> Option<f64> {
+    targets
+        .iter()
+        .rev()
+        .copied()
+        .find(|&t| {
+            latest
+                .estimates
+                .iter()
+                .any(|e| e.target == t && e.status.has_budget() && e.samples.is_some())
+        })
+        .or_else(|| targets.first().copied())
+}
+
+/// n* with its interval, "12,000 (90% 8,000–20,000)".
+fn history_estimate(doc: &PlanDocument, e: &HistoryEstimate) -> String {
+    match e.samples {
+        Some(n) => format!(
+            "{} ({} {})",
+            thousands(n),
+            confidence(doc),
+            interval(e.samples_interval[0], e.samples_interval[1], thousands)
+        ),
+        None => e.status.label().to_string(),
+    }
+}
+
+/// How the headline estimates moved over the runs of this study in its output directory.
+fn history(out: &mut String, outcome: &StudyOutcome) {
+    let doc = &outcome.document;
+    let h = &outcome.history;
+    let (Some(latest), true) = (h.last(), h.len() >= 2) else {
+        return;
+    };
+    let Some(target) = history_target(latest, &doc.study.targets) else {
+        return;
+    };
+    let previous = &h[h.len() - 2];
+    out.push_str("<section id=\"history\">\n<h2>How the estimate moved</h2>\n");
+    // The lead sentence follows the model with the fewest samples for the target now.
+    let lead = latest
+        .estimates
+        .iter()
+        .filter(|e| e.target == target && e.samples.is_some())
+        .min_by(|a, b| {
+            a.samples
+                .unwrap_or(f64::INFINITY)
+                .total_cmp(&b.samples.unwrap_or(f64::INFINITY))
+        });
+    let data_change = if latest.data_sha256 == previous.data_sha256 {
+        "With the same pilot data".to_string()
+    } else if latest.training_pool > previous.training_pool {
+        format!(
+            "After adding {} samples to the training pool ({} → {})",
+            thousands((latest.training_pool - previous.training_pool) as f64),
+            thousands(previous.training_pool as f64),
+            thousands(latest.training_pool as f64)
+        )
+    } else {
+        format!(
+            "With changed pilot data (training pool {} → {} samples)",
+            thousands(previous.training_pool as f64),
+            thousands(latest.training_pool as f64)
+        )
+    };
+    if let Some(e) = lead {
+        let before = previous.estimate(&e.model, target);
+        let moved = match (before.and_then(|b| b.samples), e.samples) {
+            (Some(a), Some(b)) if b < a => "fell",
+            (Some(a), Some(b)) if b > a => "rose",
+            (Some(_), Some(_)) => "stayed",
+            _ => "moved",
+        };
+        let hours = |x: &HistoryEstimate| {
+            x.core_hours
+                .map(|c| format!("; {} core-hours", sig3(c)))
+                .unwrap_or_default()
+        };
+        let _ = writeln!(
+            out,
+            "<p class=\"lead\">{data_change}, the estimate for <strong>{}</strong> to reach a mean \
+             valid time of {} {moved} from {}{} to <strong>{}</strong>{} (run {} against run {}).</p>",
+            escape(&e.model),
+            short(target),
+            before
+                .map(|b| history_estimate(doc, b))
+                .unwrap_or_else(|| "no estimate".into()),
+            before.map(hours).unwrap_or_default(),
+            history_estimate(doc, e),
+            hours(e),
+            h.len(),
+            h.len() - 1
+        );
+    }
+    if let Some(chart) = svg::history_chart(h, target) {
+        let _ = write!(
+            out,
+            "<figure>\n{chart}\n<figcaption>Each run of this study in its output directory \
+             (<code>history.jsonl</code>), oldest first: n* for a mean valid time of {} per \
+             model, with its {} interval. Estimates that narrow and settle as data arrive can be \
+             trusted more than one run's interval suggests; estimates that keep moving say the \
+             pilot is not yet large enough.</figcaption>\n</figure>\n",
+            short(target),
+            confidence(doc)
+        );
+    }
+    out.push_str(
+        "<table>\n<thead><tr><th class=\"num\">Run</th><th>Finished (UTC)</th>\
+         <th class=\"num\">Training pool</th><th class=\"num\">Largest subset</th>\
+         <th class=\"num\">Points reused</th><th class=\"num\">Computed</th>\
+         <th>Lead estimate</th></tr></thead>\n<tbody>\n",
+    );
+    for (i, run) in h.iter().enumerate() {
+        let best = run
+            .estimates
+            .iter()
+            .filter(|e| e.target == target && e.samples.is_some())
+            .min_by(|a, b| {
+                a.samples
+                    .unwrap_or(f64::INFINITY)
+                    .total_cmp(&b.samples.unwrap_or(f64::INFINITY))
+            });
+        let _ = writeln!(
+            out,
+            "<tr><td class=\"num\">{}</td><td>{}</td><td class=\"num\">{}</td>\
+             <td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
+             <td>{}</td></tr>",
+            i + 1,
+            escape(&run.finished),
+            thousands(run.training_pool as f64),
+            thousands(run.largest_size as f64),
+            thousands(run.points.reused as f64),
+            thousands(run.points.computed as f64),
+            best.map(|e| format!("{}: {}", escape(&e.model), history_estimate(doc, e)))
+                .unwrap_or_else(|| "none".into())
+        );
+    }
+    out.push_str("</tbody>\n</table>\n</section>\n");
+}
+
 fn runs(out: &mut String, outcome: &StudyOutcome) {
     if outcome.run_tables.is_empty() {
         return;
@@ -1502,13 +1646,41 @@ fn provenance(out: &mut String, doc: &PlanDocument) {
             ),
         );
     }
+    if let Some(p) = &doc.points {
+        kv(
+            out,
+            "Points",
+            &format!(
+                "{} planned (models × sizes × replicates): {} reused from the records store, {} \
+                 computed in this run{}{}",
+                thousands(p.planned as f64),
+                thousands(p.reused as f64),
+                thousands(p.computed as f64),
+                if p.stale > 0 {
+                    format!(
+                        " ({} of them stale: stored under changed data or settings)",
+                        thousands(p.stale as f64)
+                    )
+                } else {
+                    String::new()
+                },
+                if p.discarded_bytes > 0 {
+                    "; an incomplete last line left by an interrupted run was discarded"
+                } else {
+                    ""
+                }
+            ),
+        );
+    }
     kv(
         out,
         "Stage timings",
         &format!(
-            "data {} s, training {} s, forecasting {} s, fitting {} s; total {} s before \
-             writing this report (plan.json adds the report stage), on {} thread{}",
+            "data {} s, points {} s (training {} and forecasting {} thread-seconds), fitting {} s; \
+             total {} s before writing this report (plan.json adds the report stage), on {} \
+             thread{}",
             sig3(t.data),
+            sig3(t.points),
             sig3(t.training),
             sig3(t.forecasting),
             sig3(t.fitting),

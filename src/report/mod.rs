@@ -449,6 +449,39 @@ pub(crate) mod tests {
         }
     }
 
+    /// Two runs, the second after more data: the report says how the lead estimate moved and
+    /// plots it; one run alone shows no history section.
+    #[test]
+    fn history_says_how_the_estimate_moved() {
+        use crate::study::history::HistoryEntry;
+        use crate::study::results::PointCounts;
+        let mut o = fixture();
+        o.document.points = Some(PointCounts {
+            planned: 8,
+            reused: 6,
+            computed: 2,
+            stale: 0,
+            discarded_bytes: 0,
+        });
+        let now = HistoryEntry::of(&o.document, "2026-12-02T10:00:00Z".into()).unwrap();
+        o.history = vec![now.clone()];
+        assert!(!html(&o).contains("id=\"history\""), "one run: nothing moved yet");
+        let mut before = now.clone();
+        before.finished = "2026-11-20T10:00:00Z".into();
+        before.training_pool -= 20_000;
+        before.data_sha256 = "older".into();
+        for e in &mut before.estimates {
+            e.samples = e.samples.map(|n| 2.0 * n);
+        }
+        o.history = vec![before, now.clone()];
+        let page = html(&o);
+        let section = &page[page.find("id=\"history\"").expect("history section")..];
+        assert!(section.contains("After adding 20,000 samples"), "{section}");
+        assert!(section.contains(" fell from "), "{section}");
+        assert!(section.contains("<svg"), "a chart");
+        assert!(section.contains("2026-11-20T10:00:00Z"), "a row per run");
+    }
+
     #[test]
     fn answer_comes_before_the_learning_curves() {
         let page = html(&fixture());
