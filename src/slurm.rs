@@ -528,6 +528,101 @@ mod tests {
         }
     }
 
+    /// The lines between `<<'DELIM'` and `DELIM`.
+    fn heredoc(script: &str, delim: &str) -> String {
+        let start = script.find(&format!("<<'{delim}'\n")).unwrap();
+        let body = &script[start..];
+        let body = &body[body.find('\n').unwrap() + 1..];
+        body[..body.find(&format!("\n{delim}\n")).unwrap()].to_string()
+    }
+
+    /// Runs `code` with bash and returns its standard output, or `None` without bash.
+    fn bash(code: &str, env: &[(&str, &str)]) -> Option<String> {
+        let o = std::process::Command::new("bash")
+            .arg("-c")
+            .arg(code)
+            .envs(env.iter().copied())
+            .output()
+            .ok()?;
+        assert!(
+            o.status.success(),
+            "{code}\n{}",
+            String::from_utf8_lossy(&o.stderr)
+        );
+        Some(String::from_utf8(o.stdout).unwrap())
+    }
+
+    /// The job bodies, run by bash as Slurm would, pass every path as one argument, unchanged.
+    #[test]
+    fn job_bodies_pass_awkward_paths_intact() {
+        let dir = tempfile::tempdir().unwrap();
+        let base = dir.path().join("it's a $dir `x`");
+        std::fs::create_dir(&base).unwrap();
+        let binary = base.join("cb \"bin\"");
+        std::fs::write(&binary, "#!/bin/sh\nprintf '%s\\n' \"$@\"\n").unwrap();
+        #[cfg(unix)]
+        {
+            use std::os::unix::fs::PermissionsExt;
+            std::fs::set_permissions(&binary, std::fs::Permissions::from_mode(0o755)).unwrap();
+        }
+        let o = SlurmOptions {
+            study: base.join("my study's.toml"),
+            out: base.join("out * dir"),
+            binary: binary.clone(),
+            ..options()
+        };
+        let s = batch_script(&o).unwrap();
+        let study = o.study.to_str().unwrap();
+        let out = o.out.to_str().unwrap();
+
+        let env = [("SLURM_ARRAY_TASK_ID", "2"), ("SLURM_CPUS_PER_TASK", "4")];
+        let Some(shard) = bash(&heredoc(&s, "CLOSURE_BUDGET_SHARD"), &env) else {
+            eprintln!("bash not available, job bodies not run");
+            return;
+        };
+        let want = [
+            "run",
+            study,
+            "--out",
+            out,
+            "--shard",
+            "2/3",
+            "--threads",
+            "4",
+            "--quiet",
+        ];
+        assert_eq!(shard.lines().collect::<Vec<_>>(), want);
+        let shard = bash(&heredoc(&s, "CLOSURE_BUDGET_SHARD"), &env[..1]).unwrap();
+        assert!(
+            shard.contains("\n--threads\n1\n"),
+            "one thread without --cpus: {shard}"
+        );
+
+        let merge = bash(&heredoc(&s, "CLOSURE_BUDGET_MERGE"), &[]).unwrap();
+        let want = ["merge", study, "--out", out, "--quiet"];
+        assert_eq!(merge.lines().collect::<Vec<_>>(), want);
+
+        // The variables the submitting part uses hold the same paths.
+        let assignments: Vec<&str> = s
+            .lines()
+            .filter(|l| {
+                ["binary=", "study=", "out="]
+                    .iter()
+                    .any(|p| l.starts_with(p))
+            })
+            .collect();
+        assert_eq!(assignments.len(), 3, "{s}");
+        let code = format!(
+            "{}\nprintf '%s\\n' \"$binary\" \"$study\" \"$out\"",
+            assignments.join("\n")
+        );
+        let values = bash(&code, &[]).unwrap();
+        assert_eq!(
+            values.lines().collect::<Vec<_>>(),
+            [binary.to_str().unwrap(), study, out]
+        );
+    }
+
     #[test]
     fn array_range_is_checked() {
         for bad in [0, MAX_ARRAY + 1] {
