@@ -170,7 +170,8 @@ pub struct SlurmArgs {
     /// D-HH:MM:SS.
     #[arg(long, short)]
     pub time: Option<String>,
-    /// CPUs per task (sbatch --cpus-per-task); each shard runs with as many threads.
+    /// CPUs per task (sbatch --cpus-per-task); each shard runs with as many threads
+    /// [default: the cluster's, usually 1; shards then run one thread].
     #[arg(long, value_name = "C")]
     pub cpus: Option<usize>,
     /// Memory per job (sbatch --mem), e.g. 4G, 4000M, or 4000 (megabytes).
