@@ -26,7 +26,9 @@ Examples:
   closure-budget fit my-skill.csv --target 1.0 --target 2.0 --report reports/mine
       fit learning curves to skill measured by your own training code
   closure-budget cost --inputs studies/demo.toml --samples 20000 --sample-interval 0.01
-      price a number of samples with a study's [cost] table";
+      price a number of samples with a study's [cost] table
+  closure-budget slurm studies/demo.toml --array 20 --time 02:00:00 --cpus 4
+      write reports/demo/submit-slurm.sh, which runs the study on a Slurm cluster";
 
 /// Plan how much high-fidelity simulation a machine-learned closure or emulator needs.
 ///
@@ -59,6 +61,8 @@ pub enum Command {
     Fit(FitArgs),
     /// Price a number of samples (or simulated time) with a set of cost inputs.
     Cost(CostArgs),
+    /// Write a script that runs a study on a Slurm cluster: an array of shards, then a merge.
+    Slurm(SlurmArgs),
 }
 
 const FIT_AFTER_HELP: &str = "\
@@ -196,6 +200,64 @@ pub struct MergeArgs {
     /// Print a JSON summary on standard output instead of text.
     #[arg(long)]
     pub json: bool,
+}
+
+const SLURM_AFTER_HELP: &str = "\
+The script is written, not submitted. Run it once on the cluster's login node:
+  bash reports/demo/submit-slurm.sh
+It submits an array job of N tasks, task I running
+  closure-budget run STUDY --out OUT --shard I/N --threads $SLURM_CPUS_PER_TASK --quiet
+and a merge job that starts after every task succeeded (--dependency=afterok) and runs
+  closure-budget merge STUDY --out OUT --quiet
+which writes the report, plan.json, records.jsonl and skill.csv into OUT. It prints both job ids;
+Slurm's logs go to OUT/slurm/. The options --partition, --account, --time, --cpus and --mem apply
+to every task and to the merge job. Paths in the script are absolute: the binary, the study file
+and OUT must be visible at the same paths on the compute nodes.
+
+Example:
+  closure-budget slurm studies/demo.toml --array 20 --partition compute --time 02:00:00 \\
+      --cpus 4 --mem 8G --account proj42
+  bash reports/demo/submit-slurm.sh";
+
+#[derive(Debug, Args)]
+#[command(after_help = SLURM_AFTER_HELP)]
+pub struct SlurmArgs {
+    /// Study file (TOML); it is checked before the script is written.
+    pub study: PathBuf,
+    /// Number of shards: array tasks 1..N, each computing a 1/N share of the study's points.
+    /// Clusters cap arrays (Slurm's MaxArraySize, often 1001).
+    #[arg(long, value_name = "N")]
+    pub array: usize,
+    /// Slurm partition (sbatch --partition); several may be given separated by commas.
+    #[arg(long, short)]
+    pub partition: Option<String>,
+    /// Time limit of each job (sbatch --time): minutes, MM:SS, HH:MM:SS, D-HH, D-HH:MM or
+    /// D-HH:MM:SS.
+    #[arg(long, short)]
+    pub time: Option<String>,
+    /// CPUs per task (sbatch --cpus-per-task); each shard runs with as many threads
+    /// [default: the cluster's, usually 1; shards then run one thread].
+    #[arg(long, value_name = "C")]
+    pub cpus: Option<usize>,
+    /// Memory per job (sbatch --mem), e.g. 4G, 4000M, or 4000 (megabytes).
+    #[arg(long, value_name = "M")]
+    pub mem: Option<String>,
+    /// Account to charge (sbatch --account).
+    #[arg(long, short = 'A')]
+    pub account: Option<String>,
+    /// Output directory of the study [default: reports/STUDY-NAME, the study file name without
+    /// .toml].
+    #[arg(long, short)]
+    pub out: Option<PathBuf>,
+    /// Where to write the script [default: OUT/submit-slurm.sh].
+    #[arg(long, value_name = "PATH")]
+    pub script: Option<PathBuf>,
+    /// The closure-budget binary the jobs run [default: this executable].
+    #[arg(long, value_name = "PATH")]
+    pub binary: Option<PathBuf>,
+    /// Slurm job name of the array; the merge job adds -merge [default: cb-STUDY-NAME].
+    #[arg(long, short = 'J', value_name = "NAME")]
+    pub job_name: Option<String>,
 }
 
 #[derive(Debug, Args)]

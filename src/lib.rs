@@ -3,7 +3,8 @@
 //!
 //! Data flow: study file → [`study`] plan → [`data`] (simulated by [`systems`] or read from files)
 //! → [`models`] trained on nested subsets → [`skill`] over many test initial conditions →
-//! [`curves`] fitted and inverted → [`cost`] of the campaign → [`report`].
+//! [`curves`] fitted and inverted → [`cost`] of the campaign → [`report`]. [`slurm`] writes a
+//! script that runs a study as a Slurm array of shards and merges them.
 
 pub mod atomic;
 pub mod cli;
@@ -13,5 +14,6 @@ pub mod data;
 pub mod models;
 pub mod report;
 pub mod skill;
+pub mod slurm;
 pub mod study;
 pub mod systems;

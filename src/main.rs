@@ -9,6 +9,7 @@ use closure_budget::cost::CostInputs;
 use closure_budget::data::{
     write_trajectory, OutputFormats, Trajectory, TrajectoryMeta, SIDECAR_SCHEMA,
 };
+use closure_budget::slurm::{self, SlurmOptions};
 use closure_budget::study::measured::{fit_measured, MeasuredOptions};
 use closure_budget::study::runner::StudyOutcome;
 use closure_budget::study::{load_plan, run_study, RunOptions};
@@ -157,6 +158,42 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 print!("{}", study::runner::describe_status(&status));
             }
         }
+        Command::Slurm(a) => {
+            let plan = load_plan(&a.study)?;
+            let out = a
+                .out
+                .unwrap_or_else(|| PathBuf::from("reports").join(&plan.name));
+            let binary = match a.binary {
+                Some(b) => b,
+                None => std::env::current_exe()
+                    .context("cannot find this executable's path; give it with --binary")?,
+            };
+            let options = SlurmOptions {
+                job_name: a
+                    .job_name
+                    .unwrap_or_else(|| slurm::default_job_name(&a.study)),
+                study: a.study,
+                out,
+                array: a.array,
+                partition: a.partition,
+                time: a.time,
+                cpus: a.cpus,
+                mem: a.mem,
+                account: a.account,
+                binary,
+            }
+            .resolved()?;
+            let script = slurm::batch_script(&options)?;
+            let path = a
+                .script
+                .unwrap_or_else(|| options.out.join("submit-slurm.sh"));
+            closure_budget::atomic::write_atomic(&path, script.as_bytes())
+                .with_context(|| format!("cannot write {}", path.display()))?;
+            make_executable(&path)?;
+            println!("written: {}", path.display());
+            println!("submit it once, on the cluster's login node:");
+            println!("  bash {}", slurm::shell_quote(&path.to_string_lossy()));
+        }
         Command::Check(a) => {
             let plan = load_plan(&a.study)?;
             print!("{}", study::plan::describe(&plan));
@@ -281,6 +318,23 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         }
     }
     Ok(ExitCode::SUCCESS)
+}
+
+/// Marks a written script executable by everyone who can read it (Unix only).
+fn make_executable(path: &std::path::Path) -> anyhow::Result<()> {
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        let mut perms = std::fs::metadata(path)
+            .with_context(|| format!("cannot read {}", path.display()))?
+            .permissions();
+        perms.set_mode(perms.mode() | ((perms.mode() & 0o444) >> 2));
+        std::fs::set_permissions(path, perms)
+            .with_context(|| format!("cannot make {} executable", path.display()))?;
+    }
+    #[cfg(not(unix))]
+    let _ = path;
+    Ok(())
 }
 
 /// Cost inputs from a study file's `[cost]` table, or from a file of cost keys alone.
