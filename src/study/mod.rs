@@ -1,6 +1,8 @@
 //! Studies: the study file schema, its validation into a plan, the results contract, the
-//! records store, and the runner that turns a plan into results.
+//! records store, the runner that turns a plan into results, and the protocol that runs the
+//! user's own training script as a model.
 
+pub mod command;
 pub mod measured;
 pub mod plan;
 pub mod records;
