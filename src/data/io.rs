@@ -1,9 +1,12 @@
 //! Readers and writers for trajectories: `.npy` arrays with a JSON metadata sidecar, and CSV with a
-//! header row of variable names and one row per sample.
+//! header row of variable names and one row per sample; plus float64 `.npy` arrays of any
+//! dimension ([`read_npy`], [`write_npy`]).
+//!
+//! Reference: the NumPy `.npy` format, version 1.0–3.0 (numpy.lib.format documentation).
 
 use super::{DataError, Trajectory, TrajectoryMeta, SIDECAR_SCHEMA};
 use crate::atomic::write_atomic;
-use ndarray::Array2;
+use ndarray::{Array, Array2, ArrayBase, Data, Dimension};
 use ndarray_npy::{ReadNpyExt, WriteNpyExt};
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -36,7 +39,7 @@ pub fn read_trajectory(path: &Path, sample_interval: Option<f64>) -> Result<Traj
         .unwrap_or_default();
     let sidecar = read_sidecar(&sidecar_path(path))?;
     let (values, header) = match ext.as_str() {
-        "npy" => (read_npy(path)?, None),
+        "npy" => (read_npy(path, TRAJECTORY_SHAPE)?, None),
         "csv" => {
             let (v, h) = read_csv(path)?;
             (v, Some(h))
@@ -122,10 +125,11 @@ pub fn read_trajectory(path: &Path, sample_interval: Option<f64>) -> Result<Traj
     check_finite(path, &values, &meta.variables)?;
     let sub_path = subgrid_path(path);
     let subgrid = if ext == "npy" && sub_path.exists() {
-        let s = read_npy(&sub_path)?;
+        let s = read_npy(&sub_path, SUBGRID_SHAPE)?;
         if s.nrows() != values.nrows() {
             return Err(DataError::Npy {
                 path: sub_path,
+                shape: SUBGRID_SHAPE.into(),
                 reason: format!(
                     "{} rows, but the state array has {}",
                     s.nrows(),
@@ -186,14 +190,108 @@ fn read_sidecar(path: &Path) -> Result<Option<TrajectoryMeta>, DataError> {
     Ok(Some(meta))
 }
 
-fn read_npy(path: &Path) -> Result<Array2<f64>, DataError> {
+/// Shape of a trajectory array, for messages.
+const TRAJECTORY_SHAPE: &str = "(samples, variables)";
+/// Shape of a subgrid array, for messages.
+const SUBGRID_SHAPE: &str = "(samples, subgrid variables)";
+
+/// Reads a float64 `.npy` array with `D`'s number of dimensions (either byte order, C or Fortran
+/// order). `shape` describes the expected shape in messages, e.g. `"(samples, variables)"`.
+///
+/// A file whose header declares more values than the file has bytes is refused before any
+/// memory is set aside for them, so a damaged header cannot exhaust memory (whatever its dtype,
+/// every value takes at least one byte).
+pub fn read_npy<D: Dimension>(path: &Path, shape: &str) -> Result<Array<f64, D>, DataError> {
+    let npy_err = |reason: String| DataError::Npy {
+        path: path.to_path_buf(),
+        shape: shape.to_string(),
+        reason,
+    };
+    let bytes = std::fs::metadata(path)
+        .map_err(|source| DataError::Read {
+            path: path.to_path_buf(),
+            source,
+        })?
+        .len();
     let file = std::fs::File::open(path).map_err(|source| DataError::Read {
         path: path.to_path_buf(),
         source,
     })?;
-    Array2::<f64>::read_npy(std::io::BufReader::new(file)).map_err(|e| DataError::Npy {
+    let mut reader = std::io::BufReader::new(file);
+    if let Some(declared) = declared_shape(&mut reader) {
+        let values = declared
+            .iter()
+            .try_fold(1u64, |acc, &v| acc.checked_mul(v as u64));
+        if values.is_none_or(|v| v > bytes) {
+            return Err(npy_err(format!(
+                "its header declares shape {declared:?}, more values than the file has bytes ({bytes}); the file is damaged"
+            )));
+        }
+    }
+    use std::io::Seek;
+    reader.rewind().map_err(|source| DataError::Read {
         path: path.to_path_buf(),
-        reason: e.to_string(),
+        source,
+    })?;
+    Array::<f64, D>::read_npy(reader).map_err(|e| npy_err(e.to_string()))
+}
+
+/// The shape declared in a `.npy` header, when the header can be read; `None` leaves the
+/// judgement to the full reader.
+fn declared_shape(reader: &mut impl std::io::Read) -> Option<Vec<usize>> {
+    let mut magic = [0u8; 8];
+    reader.read_exact(&mut magic).ok()?;
+    if &magic[..6] != b"\x93NUMPY" {
+        return None;
+    }
+    let len = match magic[6] {
+        1 => {
+            let mut b = [0u8; 2];
+            reader.read_exact(&mut b).ok()?;
+            u16::from_le_bytes(b) as usize
+        }
+        2 | 3 => {
+            let mut b = [0u8; 4];
+            reader.read_exact(&mut b).ok()?;
+            u32::from_le_bytes(b) as usize
+        }
+        _ => return None,
+    };
+    // A header describes dtype, order and shape in a few dozen bytes.
+    if len > 1 << 20 {
+        return None;
+    }
+    let mut header = vec![0u8; len];
+    reader.read_exact(&mut header).ok()?;
+    let header = String::from_utf8_lossy(&header);
+    let after = &header[header.find("shape")? + "shape".len()..];
+    let tuple = &after[after.find('(')? + 1..];
+    let tuple = &tuple[..tuple.find(')')?];
+    tuple
+        .split(',')
+        .map(str::trim)
+        .filter(|t| !t.is_empty())
+        .map(|t| t.trim_end_matches('L').parse().ok())
+        .collect()
+}
+
+/// Writes a float64 array as `.npy` in C order, atomically (any memory layout in, C order out).
+pub fn write_npy<S, D>(path: &Path, a: &ArrayBase<S, D>) -> Result<(), DataError>
+where
+    S: Data<Elem = f64>,
+    D: Dimension,
+{
+    let mut buf = Vec::new();
+    a.as_standard_layout()
+        .write_npy(&mut buf)
+        .map_err(|e| DataError::Npy {
+            path: path.to_path_buf(),
+            shape: format!("{:?}", a.shape()),
+            reason: e.to_string(),
+        })?;
+    write_atomic(path, &buf).map_err(|source| DataError::Write {
+        path: path.to_path_buf(),
+        source,
     })
 }
 
@@ -274,21 +372,13 @@ pub fn write_trajectory(
             source,
         })
     };
-    let npy_bytes = |a: &Array2<f64>, p: &Path| -> Result<Vec<u8>, DataError> {
-        let mut buf = Vec::new();
-        a.write_npy(&mut buf).map_err(|e| DataError::Npy {
-            path: p.to_path_buf(),
-            reason: e.to_string(),
-        })?;
-        Ok(buf)
-    };
     if formats.npy {
         let p = path.with_extension("npy");
-        write(&p, &npy_bytes(&traj.values, &p)?)?;
+        write_npy(&p, &traj.values)?;
         written.push(p);
         if let Some(s) = &traj.subgrid {
             let p = subgrid_path(path);
-            write(&p, &npy_bytes(s, &p)?)?;
+            write_npy(&p, s)?;
             written.push(p);
         }
     }
@@ -396,6 +486,64 @@ mod tests {
         let t = read_trajectory(&p, Some(0.1)).unwrap();
         assert_eq!(t.values, array![[1.0, 2.0], [3.0, 4.0]]);
         assert_eq!(t.meta.variables, vec!["x", "y"]);
+    }
+
+    #[test]
+    fn npy_arrays_of_any_dimension_round_trip_in_c_order() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("a.npy");
+        let a =
+            ndarray::Array3::from_shape_fn((2, 3, 4), |(i, j, k)| (100 * i + 10 * j + k) as f64);
+        // A transposed view has neither C nor Fortran layout; it is written in C order.
+        let t = a.view().permuted_axes([2, 1, 0]);
+        write_npy(&p, &t).unwrap();
+        let back: ndarray::Array3<f64> = read_npy(&p, "(4, 3, 2)").unwrap();
+        assert_eq!(back, t);
+        let bytes = std::fs::read(&p).unwrap();
+        let header = String::from_utf8_lossy(&bytes[..128]);
+        assert!(header.contains("'fortran_order': False"), "{header}");
+        // The wrong number of dimensions is an error naming the expected shape.
+        let e = read_npy::<ndarray::Ix2>(&p, "(samples, variables)")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("a.npy") && e.contains("(samples, variables)"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn npy_with_a_damaged_header_or_another_dtype_is_refused() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("a.npy");
+        // A version 1.0 header claiming 10^12 values, followed by 32 bytes of data.
+        let mut header =
+            "{'descr': '<f8', 'fortran_order': False, 'shape': (1000000, 1000000), }".to_string();
+        while (10 + header.len() + 1) % 64 != 0 {
+            header.push(' ');
+        }
+        header.push('\n');
+        let mut bytes = b"\x93NUMPY\x01\x00".to_vec();
+        bytes.extend((header.len() as u16).to_le_bytes());
+        bytes.extend(header.bytes());
+        bytes.extend([0u8; 32]);
+        std::fs::write(&p, &bytes).unwrap();
+        let e = read_npy::<ndarray::Ix2>(&p, "(2, 2)")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("[1000000, 1000000]") && e.contains("damaged"),
+            "{e}"
+        );
+        // float32 data is not read as float64.
+        let f32_array = array![[1.0f32, 2.0]];
+        let mut buf = Vec::new();
+        f32_array.write_npy(&mut buf).unwrap();
+        std::fs::write(&p, &buf).unwrap();
+        let e = read_npy::<ndarray::Ix2>(&p, "(1, 2)")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("float64") && e.contains("f4"), "{e}");
     }
 
     #[test]

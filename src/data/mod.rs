@@ -5,7 +5,7 @@ pub mod autocorr;
 mod io;
 mod split;
 
-pub use io::{read_trajectory, write_trajectory, OutputFormats};
+pub use io::{read_npy, read_trajectory, write_npy, write_trajectory, OutputFormats};
 pub use split::{Split, SplitSpec};
 
 use ndarray::{Array2, ArrayView2};
@@ -30,10 +30,13 @@ pub enum DataError {
         path: PathBuf,
         source: std::io::Error,
     },
-    #[error(
-        "{path} is not a readable .npy array of f64 with shape (samples, variables): {reason}"
-    )]
-    Npy { path: PathBuf, reason: String },
+    #[error("{path} is not a readable .npy array of float64 with shape {shape}: {reason}")]
+    Npy {
+        path: PathBuf,
+        /// The expected shape, e.g. "(samples, variables)".
+        shape: String,
+        reason: String,
+    },
     #[error("metadata sidecar {path} is invalid: {reason}")]
     Sidecar { path: PathBuf, reason: String },
     #[error("{path}, line {line}: {reason}")]

@@ -34,6 +34,8 @@ pub enum ModelError {
     SubsetBelowWashout { size: usize, washout: usize },
     #[error("reservoir state turned non-finite at training step {step}; lower `input-scaling` or `spectral-radius`")]
     NonFinite { step: usize },
+    #[error("model '{model}' is the user's own training command: command models are run point by point by the runner (study::command::run_command_point), not trained in process")]
+    CommandModel { model: String },
     #[error("readout for the subset of {size} samples failed: {source}")]
     Ridge {
         size: usize,

@@ -465,7 +465,10 @@ pub(crate) mod tests {
         });
         let now = HistoryEntry::of(&o.document, "2026-12-02T10:00:00Z".into()).unwrap();
         o.history = vec![now.clone()];
-        assert!(!html(&o).contains("id=\"history\""), "one run: nothing moved yet");
+        assert!(
+            !html(&o).contains("id=\"history\""),
+            "one run: nothing moved yet"
+        );
         let mut before = now.clone();
         before.finished = "2026-11-20T10:00:00Z".into();
         before.training_pool -= 20_000;

@@ -129,10 +129,14 @@ pub fn point_key(p: &PointIdentity) -> String {
         ),
         None => "none".into(),
     };
+    let model = match &p.model.kind {
+        ModelKind::Command(c) => format!("the user's command\n{}", c.identity()),
+        kind => format!("{kind:?}"),
+    };
     let text = format!(
-        "closure-budget point, results version {RESULTS_VERSION}\nmodel {:?}\nuse {:?}\nseed {}\n\
+        "closure-budget point, results version {RESULTS_VERSION}\nmodel {model}\nuse {:?}\nseed {}\n\
          standardised on {standardisation}\nn {}\ntraining data {}\ntest {}\ncoarse solver {closure}\n",
-        p.model.kind, p.model.usage, p.seed, p.n, p.data, p.test
+        p.model.usage, p.seed, p.n, p.data, p.test
     );
     hex(&Sha256::digest(text.as_bytes()))
 }

@@ -1,6 +1,8 @@
 //! Studies: the study file schema, its validation into a plan, the results contract, the
-//! records store, and the runner that turns a plan into results.
+//! records store, the runner that turns a plan into results, and the protocol that runs the
+//! user's own training script as a model.
 
+pub mod command;
 pub mod history;
 pub mod keys;
 pub mod measured;
@@ -76,6 +78,8 @@ pub enum StudyError {
         first: PathBuf,
         second: PathBuf,
     },
+    #[error("{failed} point{} of the user's training command failed (the other points are stored; a rerun retries only these):\n{detail}", if *.failed == 1 { "" } else { "s" })]
+    CommandPoints { failed: usize, detail: String },
     #[error("cannot start {threads} worker threads: {message}")]
     Threads { threads: usize, message: String },
 }

@@ -1,6 +1,7 @@
 //! A checked study: every value in range, every default resolved, time spans converted to
 //! samples once the sampling interval is known. Only a plan reaches the computing code.
 
+use super::command::ValidCommandParams;
 use super::schema::{DataSection, Role, StudyFile};
 use super::StudyError;
 use crate::cost::CostInputs;
@@ -79,7 +80,7 @@ pub struct ClosurePlan {
     pub free_runs: usize,
 }
 
-/// The model families the study engine can train.
+/// The model families the study engine can train, and the user's own training command.
 #[derive(Debug, Clone, PartialEq)]
 pub enum ModelKind {
     Esn(ValidEsnParams),
@@ -87,12 +88,17 @@ pub enum ModelKind {
     Mlp(ValidMlpParams),
     Lstm(ValidLstmParams),
     Polynomial(ValidPolynomialParams),
+    /// The user's script, run point by point ([`crate::study::command::run_command_point`]).
+    Command(ValidCommandParams),
 }
 
 impl ModelKind {
     /// Why this family cannot serve as a closure, if it cannot.
     pub fn closure_unsupported(&self, inputs: ClosureInputs) -> Option<&'static str> {
         match self {
+            ModelKind::Command(_) => Some(
+                "role = \"emulator\" (the default) for a command model: closures run inside the tool's coarse solver, which asks for the coupling term at every RK stage and cannot call an external program there",
+            ),
             ModelKind::Ngrc(p) if p.get().delays != 1 => Some(
                 "delays = 1 for an NG-RC closure: the coarse solver asks for the coupling term from the current state at every RK stage, with no past to delay (for memory, use an echo state network or LSTM closure)",
             ),
@@ -102,7 +108,11 @@ impl ModelKind {
             ModelKind::Lstm(_) if inputs != ClosureInputs::Global => Some(
                 "inputs = \"global\" for an LSTM closure: it is trained on the windows of consecutive saved samples of all resolved variables",
             ),
-            ModelKind::Esn(_) | ModelKind::Ngrc(_) | ModelKind::Mlp(_) | ModelKind::Lstm(_) | ModelKind::Polynomial(_) => None,
+            ModelKind::Esn(_)
+            | ModelKind::Ngrc(_)
+            | ModelKind::Mlp(_)
+            | ModelKind::Lstm(_)
+            | ModelKind::Polynomial(_) => None,
         }
     }
 
@@ -122,6 +132,7 @@ impl ModelKind {
             ModelKind::Mlp(_) => "feed-forward network",
             ModelKind::Lstm(_) => "LSTM network",
             ModelKind::Polynomial(_) => "polynomial regression",
+            ModelKind::Command(_) => "training command",
         }
     }
 
@@ -133,6 +144,7 @@ impl ModelKind {
             ModelKind::Mlp(p) => serde_json::to_value(p.get()),
             ModelKind::Lstm(p) => serde_json::to_value(p.get()),
             ModelKind::Polynomial(p) => serde_json::to_value(p.get()),
+            ModelKind::Command(p) => serde_json::to_value(p.get()),
         }
         .expect("settings serialise")
     }
@@ -277,6 +289,7 @@ fn check(
     }
 
     // Models.
+    let study_dir = path.parent().unwrap_or(Path::new("."));
     if f.models.is_empty() {
         return Err(invalid(
             "model",
@@ -310,12 +323,13 @@ fn check(
             + usize::from(m.ngrc.is_some())
             + usize::from(m.mlp.is_some())
             + usize::from(m.lstm.is_some())
-            + usize::from(m.polynomial.is_some());
+            + usize::from(m.polynomial.is_some())
+            + usize::from(m.command.is_some());
         if kinds != 1 {
             return Err(invalid(
                 &key,
                 format!("{kinds} model kinds"),
-                "exactly one kind table: esn, ngrc, mlp, lstm or polynomial, e.g. `esn = { reservoir-size = 300 }`",
+                "exactly one kind table: esn, ngrc, mlp, lstm, polynomial or command, e.g. `esn = { reservoir-size = 300 }`",
             ));
         }
         let bad = |kind: &str, e: crate::models::ModelError| {
@@ -338,6 +352,8 @@ fn check(
                 ));
             }
             ModelKind::Polynomial(p.check().map_err(|e| bad("polynomial", e))?)
+        } else if let Some(p) = m.command {
+            ModelKind::Command(p.check(study_dir).map_err(|e| bad("command", e))?)
         } else {
             unreachable!("exactly one kind is present")
         };
@@ -705,13 +721,19 @@ fn check_transfer(
             ))
         }
     };
+    let command = |i: usize| matches!(models[i].kind, ModelKind::Command(_));
     let chosen: Vec<usize> = match &t.models {
         None => (0..models.len())
-            .filter(|&i| !models[i].usage.is_closure())
+            .filter(|&i| !models[i].usage.is_closure() && !command(i))
             .collect(),
         Some(names) => names
             .iter()
             .map(|n| match models.iter().position(|m| &m.name == n) {
+                Some(i) if command(i) => Err(invalid(
+                    "transfer.models",
+                    format!("'{n}'"),
+                    "models the tool trains itself: fine-tuning a command model is not supported",
+                )),
                 Some(i) if !models[i].usage.is_closure() => Ok(i),
                 Some(_) => Err(invalid(
                     "transfer.models",
@@ -730,7 +752,7 @@ fn check_transfer(
         return Err(invalid(
             "transfer.models",
             "no emulators".into(),
-            "at least one emulator (role = \"emulator\") to transfer",
+            "at least one emulator (role = \"emulator\", not a command model) to transfer",
         ));
     }
     let fine_tune = t
@@ -839,14 +861,47 @@ pub fn describe(plan: &StudyPlan) -> String {
         plan.sizes, plan.replicates
     );
     for m in &plan.models {
-        let _ = writeln!(s, "model {}: {}", m.name, m.kind.label());
+        match &m.kind {
+            ModelKind::Command(p) => {
+                let c = p.get();
+                let _ = writeln!(
+                    s,
+                    "model {}: {} `{}` (returns {}, timeout {} s, working directory {})",
+                    m.name,
+                    m.kind.label(),
+                    std::iter::once(c.program.as_str())
+                        .chain(c.args.iter().map(String::as_str))
+                        .collect::<Vec<_>>()
+                        .join(" "),
+                    c.returns.label(),
+                    c.timeout,
+                    p.workdir().display()
+                );
+            }
+            _ => {
+                let _ = writeln!(s, "model {}: {}", m.name, m.kind.label());
+            }
+        }
     }
     let _ = writeln!(s, "targets (mean valid time): {:?}", plan.targets);
     let forecasts = plan.models.len() * plan.replicates * plan.sizes.len() * t.initial_conditions;
+    let commands = plan
+        .models
+        .iter()
+        .filter(|m| matches!(m.kind, ModelKind::Command(_)))
+        .count();
+    let runs = if commands > 0 {
+        format!(
+            ", {} runs of training commands",
+            commands * plan.replicates * plan.sizes.len()
+        )
+    } else {
+        String::new()
+    };
     let _ = writeln!(
         s,
-        "work: {} nested training passes, {forecasts} forecasts",
-        plan.models.len() * plan.replicates
+        "work: {} nested training passes{runs}, {forecasts} forecasts",
+        (plan.models.len() - commands) * plan.replicates
     );
     if let Some(tp) = &plan.transfer {
         let names: Vec<&str> = tp
@@ -890,6 +945,60 @@ mod tests {
     fn geometric_sizes_by_hand() {
         assert_eq!(geometric_sizes(1000, 8000, 4), vec![1000, 2000, 4000, 8000]);
         assert_eq!(geometric_sizes(10, 12, 5), vec![10, 11, 12]);
+    }
+
+    /// The quick demo with a command model and a new regime, loaded from `dir`.
+    fn with_command(dir: &Path, transfer_models: &str) -> Result<StudyPlan, StudyError> {
+        let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("studies/demo-quick.toml");
+        let mut text = std::fs::read_to_string(demo).unwrap();
+        text.push_str(&format!(
+            r#"
+[[model]]
+name = "my-net"
+command = {{ program = "python3", args = ["train.py", "--fast"], workdir = "scripts" }}
+
+[transfer]
+sizes = [200, 400, 800]
+targets = [0.2]
+{transfer_models}
+
+[transfer.data.simulate]
+system = {{ name = "two-scale-lorenz-96", k = 8, j = 32, h = 1.0, c = 10.0, b = 10.0, forcing = 24.0 }}
+dt = 0.005
+sample-interval = 0.01
+"#
+        ));
+        let path = dir.join("study.toml");
+        std::fs::write(&path, text).unwrap();
+        load_plan(&path)
+    }
+
+    #[test]
+    fn command_models_resolve_their_workdir_and_stay_out_of_transfer() {
+        let dir = tempfile::tempdir().unwrap();
+        let plan = with_command(dir.path(), "").unwrap();
+        let m = &plan.models[2];
+        let ModelKind::Command(p) = &m.kind else {
+            panic!("{:?}", m.kind)
+        };
+        assert_eq!(p.workdir(), dir.path().join("scripts"));
+        assert_eq!(p.get().timeout, 3600.0);
+        assert!(!m.kind.has_memory());
+        assert_eq!(m.kind.settings()["program"], "python3");
+        let text = describe(&plan);
+        assert!(
+            text.contains("model my-net: training command `python3 train.py --fast` (returns forecasts, timeout 3600 s"),
+            "{text}"
+        );
+        // Every emulator by default: the ESN, not the command model (nor the closure).
+        assert_eq!(plan.transfer.unwrap().models, vec![0]);
+        let e = with_command(dir.path(), "models = [\"my-net\"]")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("fine-tuning a command model is not supported"),
+            "{e}"
+        );
     }
 
     #[test]

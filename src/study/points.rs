@@ -2,12 +2,15 @@
 //! the records store already holds, their split into shards, and the computing of the missing
 //! ones (train each (model, replicate) unit on its missing sizes, score, append to the store).
 
+use super::command::{run_command_point, CommandPoint};
 use super::keys::{self, PointIdentity};
+use super::plan::ModelKind;
 use super::plan::StudyPlan;
 use super::records::{PointCost, RecordStore, SkillRecord};
 use super::runner::{bar_with_template, derive_seed, score_batched, ClosureReference, Prepared};
 use super::train::train_unit;
 use super::StudyError;
+use crate::models::FitSummary;
 use crate::skill;
 use rayon::prelude::*;
 use std::collections::{BTreeMap, HashMap};
@@ -202,7 +205,6 @@ pub(super) fn planned_records(
 /// Rough relative cost of computing a model's point of size n (training plus forecasting), for
 /// balancing shards and sizing progress bars; measured costs are not needed for either.
 pub(super) fn estimated_cost(plan: &StudyPlan, model: usize, n: usize, prep: &Prepared) -> f64 {
-    use super::plan::ModelKind;
     let m = &plan.models[model];
     // Per training sample and per forecast step, in arbitrary units (orders of magnitude from
     // the demo's measured costs: recurrent networks train slowest, reservoirs step slowest).
@@ -212,6 +214,8 @@ pub(super) fn estimated_cost(plan: &StudyPlan, model: usize, n: usize, prep: &Pr
         ModelKind::Polynomial(_) => (5.0, 2.0),
         ModelKind::Mlp(_) => (150.0, 10.0),
         ModelKind::Lstm(_) => (300.0, 10.0),
+        // Unknown: the user's script; taken as dear as the dearest built-in family.
+        ModelKind::Command(_) => (300.0, 40.0),
     };
     let closure = if m.usage.is_closure() { 4.0 } else { 1.0 };
     let steps = prep.split.initial_conditions.len() as f64
@@ -245,6 +249,8 @@ pub(super) struct Work<'a> {
     pub stop: Option<&'a AtomicBool>,
     pub progress: bool,
     pub label: &'static str,
+    /// Where command models get one working directory per point.
+    pub work_dir: &'a std::path::Path,
 }
 
 /// Computes the missing sizes of each unit, appending each record to the store as soon as it is
@@ -262,7 +268,9 @@ pub(super) fn compute(
         stop,
         progress,
         label,
+        work_dir,
     } = *work;
+    let failures = std::sync::Mutex::new(Vec::new());
     let todo: Vec<usize> = (0..units.len())
         .filter(|&i| !missing[i].is_empty())
         .collect();
@@ -290,6 +298,24 @@ pub(super) fn compute(
     let truth = prep.traj.values.view();
     let ics = &prep.split.initial_conditions;
     let largest = *plan.sizes.last().expect("sizes");
+    let key_of = |unit: &Unit, n: usize| {
+        unit.keys
+            .iter()
+            .find(|(m, _)| *m == n)
+            .map(|(_, k)| k.clone())
+            .expect("a planned size")
+    };
+    // Stores a finished point and moves the progress bar by its estimated cost.
+    let store_record = |record: SkillRecord, cost: f64| -> Result<SkillRecord, StudyError> {
+        store.append(&record).map_err(|source| StudyError::Write {
+            path: store.path().to_path_buf(),
+            source,
+        })?;
+        let c = done.fetch_add(1, Ordering::SeqCst) + 1;
+        bar.set_message(format!("{label} {c}/{total_points}"));
+        bar.inc((cost * scale) as u64);
+        Ok(record)
+    };
     let computed: Vec<(Vec<SkillRecord>, f64, f64)> = todo
         .par_iter()
         .map(|&i| {
@@ -301,6 +327,77 @@ pub(super) fn compute(
             let model = &plan.models[unit.model];
             let wanted = &missing[i];
             let rows = ndarray::s![unit.window_start..unit.window_start + largest, ..];
+            if let ModelKind::Command(params) = &model.kind {
+                let costs = cost_of(i);
+                let records = wanted
+                    .iter()
+                    .enumerate()
+                    .filter_map(|(j, &n)| {
+                        let started = Instant::now();
+                        let dir = work_dir
+                            .join("commands")
+                            .join(&model.name)
+                            .join(format!("r{}-n{n}", unit.replicate));
+                        let point = CommandPoint {
+                            model: &model.name,
+                            n,
+                            replicate: unit.replicate,
+                            seed: unit.seed,
+                            train: prep
+                                .traj
+                                .values
+                                .slice(ndarray::s![unit.window_start..unit.window_start + n, ..]),
+                            truth: prep.traj.values.view(),
+                            ics,
+                            skill: &prep.skill,
+                            variables: &prep.traj.meta.variables,
+                            dir: &dir,
+                        };
+                        let per_ic = match run_command_point(params, &point) {
+                            // The inputs are a copy of data the study holds; a failed point's
+                            // directory stays for inspection.
+                            Ok(v) => {
+                                let _ = std::fs::remove_dir_all(&dir);
+                                v
+                            }
+                            Err(e) => {
+                                failures
+                                    .lock()
+                                    .unwrap_or_else(|e| e.into_inner())
+                                    .push(e.to_string());
+                                return None;
+                            }
+                        };
+                        let seconds = started.elapsed().as_secs_f64();
+                        let record = SkillRecord {
+                            key: key_of(unit, n),
+                            model: model.name.clone(),
+                            replicate: unit.replicate,
+                            n,
+                            seed: unit.seed,
+                            window_start: unit.window_start,
+                            fit: FitSummary {
+                                n,
+                                training_pairs: n.saturating_sub(1),
+                                ridge_penalty: None,
+                                training_rmse: None,
+                                ridge_selection: None,
+                            },
+                            summary: skill::summarise(&per_ic),
+                            initial_conditions: per_ic,
+                            cost: PointCost {
+                                // The script trains and forecasts in one call.
+                                train_seconds: seconds,
+                                forecast_seconds_per_step: 0.0,
+                            },
+                            closure: None,
+                        };
+                        Some(store_record(record, costs[j]).map(|r| (r, seconds)))
+                    })
+                    .collect::<Result<Vec<_>, StudyError>>()?;
+                let seconds = records.iter().fold(0.0, |a, (_, s)| a + s);
+                return Ok((records.into_iter().map(|(r, _)| r).collect(), seconds, 0.0));
+            }
             let started = Instant::now();
             let fitted = train_unit(
                 model,
@@ -318,13 +415,6 @@ pub(super) fn compute(
             })?;
             let train_seconds = started.elapsed().as_secs_f64();
             let costs = cost_of(i);
-            let key_of = |n: usize| {
-                unit.keys
-                    .iter()
-                    .find(|(m, _)| *m == n)
-                    .map(|(_, k)| k.clone())
-                    .expect("a planned size")
-            };
             let records: Vec<(SkillRecord, f64)> = fitted
                 .par_iter()
                 .enumerate()
@@ -337,7 +427,7 @@ pub(super) fn compute(
                         _ => None,
                     };
                     let record = SkillRecord {
-                        key: key_of(f.summary.n),
+                        key: key_of(unit, f.summary.n),
                         model: model.name.clone(),
                         replicate: unit.replicate,
                         n: f.summary.n,
@@ -352,13 +442,7 @@ pub(super) fn compute(
                         },
                         closure,
                     };
-                    store.append(&record).map_err(|source| StudyError::Write {
-                        path: store.path().to_path_buf(),
-                        source,
-                    })?;
-                    let c = done.fetch_add(1, Ordering::SeqCst) + 1;
-                    bar.set_message(format!("{label} {c}/{total_points}"));
-                    bar.inc((costs[j] * scale) as u64);
+                    let record = store_record(record, costs[j])?;
                     Ok((record, started.elapsed().as_secs_f64()))
                 })
                 .collect::<Result<_, StudyError>>()?;
@@ -371,6 +455,13 @@ pub(super) fn compute(
         })
         .collect::<Result<_, StudyError>>()?;
     bar.finish_and_clear();
+    let failures = failures.into_inner().unwrap_or_else(|e| e.into_inner());
+    if !failures.is_empty() {
+        return Err(StudyError::CommandPoints {
+            failed: failures.len(),
+            detail: failures.join("\n\n"),
+        });
+    }
     let train_seconds = computed.iter().fold(0.0, |a, c| a + c.1);
     let forecast_seconds = computed.iter().fold(0.0, |a, c| a + c.2);
     let records = computed.into_iter().flat_map(|c| c.0).collect();

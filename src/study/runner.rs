@@ -188,6 +188,7 @@ pub fn run_shard(
                 stop: options.stop.as_deref(),
                 progress: options.progress,
                 label,
+                work_dir: &options.out_dir,
             },
         )?;
         let to_compute: usize = todo.iter().map(Vec::len).sum();
@@ -762,6 +763,7 @@ fn run_in_pool(
             stop: options.stop.as_deref(),
             progress: options.progress,
             label: "computing points",
+            work_dir: &options.out_dir,
         },
     )?;
     if stopped {

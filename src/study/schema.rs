@@ -200,6 +200,9 @@ pub struct ModelSection {
     pub mlp: Option<crate::models::nn::MlpParams>,
     /// LSTM network settings.
     pub lstm: Option<crate::models::nn::LstmParams>,
+    /// Your own training script, run once per (replicate, subset size) through the protocol of
+    /// [`crate::study::command`] (emulators only).
+    pub command: Option<crate::study::command::CommandParams>,
 }
 
 /// What a model predicts.

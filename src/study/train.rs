@@ -64,6 +64,9 @@ fn train_sizes(
     seed: u64,
     coupling: Option<Coupling>,
 ) -> Result<Vec<Fitted>, ModelError> {
+    if let ModelKind::Command(_) = model.kind {
+        return Err(command_model(model));
+    }
     match model.usage {
         ModelUse::Emulator => emulator(model, x, sizes, seed),
         ModelUse::Closure(inputs) => {
@@ -132,6 +135,13 @@ fn train_sizes(
     }
 }
 
+/// The error for a command model, which the runner runs point by point instead.
+fn command_model(model: &ModelPlan) -> ModelError {
+    ModelError::CommandModel {
+        model: model.name.clone(),
+    }
+}
+
 fn emulator(
     model: &ModelPlan,
     x: ArrayView2<f64>,
@@ -153,6 +163,7 @@ fn emulator(
         ModelKind::Mlp(p) => wrap(nn::fit_mlp_emulator(p, x, sizes, seed)?),
         ModelKind::Lstm(p) => wrap(nn::fit_lstm_emulator(p, x, sizes, seed)?),
         ModelKind::Polynomial(p) => wrap(polynomial::fit_emulator_nested(p, x, sizes)?),
+        ModelKind::Command(_) => return Err(command_model(model)),
     })
 }
 
@@ -197,6 +208,7 @@ fn fit_regressor(
         ModelKind::Esn(_) | ModelKind::Lstm(_) => {
             unreachable!("models with memory are fitted as sequence regressions")
         }
+        ModelKind::Command(_) => Err(command_model(model)),
     }
 }
 
@@ -276,6 +288,7 @@ pub fn train_transfer_unit(
     let base_n = *sizes.last().ok_or(ModelError::NoSizes)?;
     let pilot = pilot.slice(ndarray::s![..base_n, ..]);
     Ok(match &model.kind {
+        ModelKind::Command(_) => return Err(command_model(model)),
         ModelKind::Esn(p) => {
             let base = base_of(esn::fit_nested(p, pilot, sizes, seed)?);
             let eq = equations(&|| base.normal_equations(pilot, p.get().washout))?;
@@ -345,4 +358,38 @@ pub fn train_transfer_unit(
             }
         }
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::study::command::{CommandParams, Returns};
+
+    #[test]
+    fn command_models_are_not_trained_here() {
+        let model = ModelPlan {
+            name: "my-net".into(),
+            kind: ModelKind::Command(
+                CommandParams {
+                    program: "python3".into(),
+                    args: vec![],
+                    returns: Returns::Forecasts,
+                    timeout: 10.0,
+                    workdir: None,
+                }
+                .check(std::path::Path::new("."))
+                .unwrap(),
+            ),
+            usage: ModelUse::Emulator,
+        };
+        let x = ndarray::Array2::<f64>::zeros((20, 2));
+        let e = train_unit(&model, x.view(), None, &[10, 20], 1, None)
+            .err()
+            .unwrap()
+            .to_string();
+        assert!(
+            e.contains("'my-net'") && e.contains("run point by point by the runner"),
+            "{e}"
+        );
+    }
 }
