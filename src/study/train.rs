@@ -383,7 +383,7 @@ mod tests {
             usage: ModelUse::Emulator,
         };
         let x = ndarray::Array2::<f64>::zeros((20, 2));
-        let e = train_unit(&model, x.view(), None, &[10, 20], 1, None)
+        let e = train_unit(&model, x.view(), None, &[10, 20], &[10, 20], 1, None)
             .err()
             .unwrap()
             .to_string();
