@@ -519,7 +519,7 @@ mod tests {
         // A version 1.0 header claiming 10^12 values, followed by 32 bytes of data.
         let mut header =
             "{'descr': '<f8', 'fortran_order': False, 'shape': (1000000, 1000000), }".to_string();
-        while (10 + header.len() + 1) % 64 != 0 {
+        while !(10 + header.len() + 1).is_multiple_of(64) {
             header.push(' ');
         }
         header.push('\n');
