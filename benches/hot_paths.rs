@@ -2,7 +2,8 @@
 //! Gram accumulation (faer lower-triangular product vs a plain scalar loop), the whole nested
 //! learning curve vs one fit at the largest size (echo state network with a fixed penalty and
 //! with GCV, next-generation reservoir computing), free-running forecasts (one by one vs
-//! batched), the two-scale integrator, and feed-forward network training (one thread vs two).
+//! batched), the two-scale integrator, feed-forward network training (one thread vs two), and
+//! the learning-curve stage with its bootstrap (one thread vs two).
 //! Run with `cargo bench --bench hot_paths` (add `-- quick` for a short run).
 
 use closure_budget::models::esn::{fit_nested, EsnParams};
@@ -281,8 +282,63 @@ fn network_training(quick: bool) {
     );
 }
 
+/// The curve stage of one model: fits, backtest and bootstrap over 8 sizes × 3 replicates × 40
+/// initial conditions (synthetic skill from a saturating power law with noise), on one thread
+/// against two; the estimates must be identical.
+fn curve_analysis(quick: bool) {
+    use closure_budget::curves::{FitScale, SkillGrid};
+    use closure_budget::study::runner::{analyse_curve, CurveSettings};
+    let noise = pseudo_random(8 * 3 * 40, 9);
+    let grid: Vec<SkillGrid> = (0..8)
+        .map(|i| {
+            let n = 500.0 * 1.6f64.powi(i);
+            let mean = 2.0 - 1.8 * (n / 500.0).powf(-0.45);
+            SkillGrid {
+                n,
+                values: (0..3)
+                    .map(|r| {
+                        (0..40)
+                            .map(|k| (mean + 0.3 * noise[(i * 3 + r) * 40 + k]).max(0.01))
+                            .collect()
+                    })
+                    .collect(),
+                censored: false,
+            }
+        })
+        .collect();
+    let settings = CurveSettings {
+        scale: FitScale::Linear,
+        draws: if quick { 100 } else { 400 },
+        level: 0.9,
+        trust_factor: 2.0,
+        seed: 5,
+    };
+    let mut results = Vec::new();
+    let mut time = |threads: usize| {
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap();
+        best_of(2, || {
+            let a = pool.install(|| analyse_curve(&grid, &[1.0, 1.5], &settings, None));
+            results.push(format!("{:?}", a.estimates));
+        })
+    };
+    let (one, two) = (time(1), time(2));
+    println!(
+        "curve analysis     8 sizes x 3 replicates x 40 ICs, {} bootstrap draws: 1 thread {:.2} s, \
+         2 threads {:.2} s; speed-up {:.2}x; identical estimates: {}",
+        settings.draws,
+        one,
+        two,
+        one / two,
+        results.windows(2).all(|w| w[0] == w[1])
+    );
+}
+
 fn main() {
     let quick = std::env::args().any(|a| a == "quick");
+    curve_analysis(quick);
     gram(quick);
     nested_curve(quick);
     forecasts(quick);
