@@ -118,6 +118,53 @@ impl Forecaster for Persistence {
     }
 }
 
+/// Data and checks shared by the families' tests.
+#[cfg(test)]
+pub(crate) mod test_support {
+    use ndarray::Array2;
+
+    /// Lorenz-96 with K = 8 and F = 8, integrated with step 0.01 and saved every 0.05 time units
+    /// after a spin-up of 10 time units (a chaotic trajectory, cheap to make).
+    pub fn lorenz96(samples: usize, seed: u64) -> Array2<f64> {
+        crate::systems::simulate(
+            &crate::systems::SimulationSpec {
+                system: crate::systems::SystemSpec::Lorenz96 { k: 8, forcing: 8.0 },
+                dt: 0.01,
+                sample_interval: 0.05,
+                spin_up: 10.0,
+                samples,
+                seed,
+            },
+            None,
+        )
+        .unwrap()
+        .resolved
+    }
+
+    /// Panics unless `a` and `b` hold the same values bit for bit (NaNs and signed zeros too).
+    #[track_caller]
+    pub fn assert_bits_eq(a: &[f64], b: &[f64], what: &str) {
+        assert_eq!(a.len(), b.len(), "{what}: lengths");
+        if let Some(i) = (0..a.len()).find(|&i| a[i].to_bits() != b[i].to_bits()) {
+            panic!("{what}: first difference at {i}: {:e} vs {:e}", a[i], b[i]);
+        }
+    }
+
+    /// The subsets of `sizes` the size-independence tests fit again: its smallest size with each
+    /// other size, and its smallest with its two largest.
+    pub fn subsets(sizes: &[usize]) -> Vec<Vec<usize>> {
+        let mut out: Vec<Vec<usize>> = sizes[1..].iter().map(|&n| vec![sizes[0], n]).collect();
+        if sizes.len() > 2 {
+            out.push(vec![
+                sizes[0],
+                sizes[sizes.len() - 2],
+                sizes[sizes.len() - 1],
+            ]);
+        }
+        out
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
