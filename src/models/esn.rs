@@ -418,7 +418,8 @@ fn drive(
             rows += 1;
         }
         std::mem::swap(&mut u, &mut u_next);
-        if rows == BLOCK_ROWS {
+        // A block joins the equations when full or when no pair follows (then no copy is made).
+        if rows == BLOCK_ROWS || t + 2 == largest {
             let (phi, y) = block_rows(&phi_block, &y_block, rows, f, d);
             ne.add(phi, y);
             rows = 0;
@@ -435,9 +436,7 @@ fn drive(
             return Err(ModelError::NonFinite { step: t });
         }
     }
-    // The last boundary is the last pair: its equations are these with the partial block.
-    let (phi, y) = block_rows(&phi_block, &y_block, rows, f, d);
-    ne.add(phi, y);
+    debug_assert_eq!(rows, 0, "the last pair closes the last block");
     Ok(ne)
 }
 

@@ -289,6 +289,7 @@ fn accumulate(
     // `rows` pairs from `t0`; full blocks start at span + i · BLOCK_ROWS.
     let mut t0 = span;
     let mut rows = 0;
+    let last_end = boundaries.last().map_or(0, |&n| n - 1);
     for &size in boundaries {
         let end = size - 1; // pairs of this prefix: t < end
         while t0 + rows < end {
@@ -320,7 +321,9 @@ fn accumulate(
                 }
             }
             rows = hi;
-            if rows == BLOCK_ROWS {
+            // A block joins the equations when full or when no pair follows (then no copy is
+            // made at the last boundary).
+            if rows == BLOCK_ROWS || t0 + rows == last_end {
                 let (p, z) = block_rows(&phi, &y, rows, f, d);
                 ne.add(p, z);
                 t0 += rows;
@@ -330,9 +333,7 @@ fn accumulate(
         let (p, z) = block_rows(&phi, &y, rows, f, d);
         on_boundary(size, &ne.with_rows(p, z))?;
     }
-    // The equations of the largest boundary: these with the partial block.
-    let (p, z) = block_rows(&phi, &y, rows, f, d);
-    ne.add(p, z);
+    debug_assert_eq!(rows, 0, "the last pair closes the last block");
     Ok(ne)
 }
 

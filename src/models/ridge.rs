@@ -39,9 +39,11 @@ use std::borrow::Cow;
 ///
 /// The nested passes add full blocks at fixed positions, counted from the first training pair
 /// (or row), and evaluate a prefix that ends inside a block from a copy of the equations with
-/// the partial block added ([`NormalEquations::with_rows`]), which keeps filling. The equations
-/// of a prefix are therefore summed in the same order, bit for bit, whatever other prefixes the
-/// pass evaluates.
+/// the partial block added ([`NormalEquations::with_rows`]), which keeps filling; the block the
+/// last prefix ends in is added once that prefix is in, as nothing follows it. The equations of
+/// a prefix are therefore summed in the same order, bit for bit, whatever other prefixes the
+/// pass evaluates. The price is the Gram work of the partial block at every boundary but the
+/// last (at most `BLOCK_ROWS` − 1 rows each) and one copy of the equations.
 pub const BLOCK_ROWS: usize = 1024;
 
 /// The first `rows` rows of a block as the nested passes write it: `phi` holds `features`

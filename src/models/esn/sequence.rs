@@ -109,7 +109,9 @@ pub fn fit_sequence_nested(
                 }
                 rows += 1;
             }
-            if rows == BLOCK_ROWS {
+            // A block joins the equations when full or when no row follows (then no copy is
+            // made at the last size).
+            if rows == BLOCK_ROWS || (t + 1 == largest && c + 1 == c_count) {
                 let (phi, y) = block_rows(&phi_block, &y_block, rows, f, q);
                 ne.add(phi, y);
                 rows = 0;
