@@ -736,6 +736,35 @@ mod tests {
         }
     }
 
+    /// Cost of the nested pass (run with `--ignored --nocapture`): CPU seconds, best of 3, of
+    /// one fit with the sizes 1000, 2000, …, 32000 against one with 1000 and 32000 only, on the
+    /// two-scale Lorenz-96 system, 300 and 600 units, fixed penalty.
+    #[test]
+    #[ignore = "timing; run on demand"]
+    fn nested_curve_cost() {
+        use crate::models::test_support::{best_cpu_seconds, two_scale_resolved};
+        let data = two_scale_resolved(32000, 1);
+        let sizes: Vec<usize> = (0..6).map(|i| 1000 << i).collect();
+        for units in [300, 600] {
+            let p = EsnParams {
+                reservoir_size: units,
+                ridge: 1e-6,
+                ..EsnParams::default()
+            }
+            .check()
+            .unwrap();
+            let all = best_cpu_seconds(3, || fit_nested(&p, data.view(), &sizes, 5).unwrap());
+            let two = best_cpu_seconds(3, || {
+                fit_nested(&p, data.view(), &[1000, 32000], 5).unwrap()
+            });
+            eprintln!(
+                "ESN D={units}: sizes {sizes:?} {all:.3} s CPU, sizes [1000, 32000] {two:.3} s \
+                 CPU; ratio {:.3}",
+                all / two
+            );
+        }
+    }
+
     /// Fine-tuning at a size k is the same bit for bit whatever other sizes are listed with it
     /// (readout and summary), for both methods; the boundaries (the ks and, for validation,
     /// the ends of their fit parts) fall inside blocks of `BLOCK_ROWS`.

@@ -726,6 +726,25 @@ mod tests {
         }
     }
 
+    /// Cost of the nested pass (run with `--ignored --nocapture`): CPU seconds, best of 7, of
+    /// one fit with the sizes 1000, 2000, …, 64000 against one with 1000 and 64000 only, on the
+    /// two-scale Lorenz-96 system with the default settings (153 features).
+    #[test]
+    #[ignore = "timing; run on demand"]
+    fn nested_curve_cost() {
+        use crate::models::test_support::{best_cpu_seconds, two_scale_resolved};
+        let data = two_scale_resolved(64000, 1);
+        let sizes: Vec<usize> = (0..7).map(|i| 1000 << i).collect();
+        let p = params(NgrcParams::default());
+        let all = best_cpu_seconds(7, || fit_nested(&p, data.view(), &sizes).unwrap());
+        let two = best_cpu_seconds(7, || fit_nested(&p, data.view(), &[1000, 64000]).unwrap());
+        eprintln!(
+            "NG-RC F=153: sizes {sizes:?} {all:.4} s CPU, sizes [1000, 64000] {two:.4} s CPU; \
+             ratio {:.3}",
+            all / two
+        );
+    }
+
     /// Fine-tuning at a size k is the same bit for bit whatever other sizes are listed with it
     /// (readout and summary), for both methods, 2 delays on 4 variables of Lorenz-96 (K = 8).
     #[test]
