@@ -120,6 +120,92 @@ impl Forecaster for Persistence {
     }
 }
 
+/// Data and checks shared by the families' tests.
+#[cfg(test)]
+pub(crate) mod test_support {
+    use ndarray::Array2;
+
+    /// Lorenz-96 with K = 8 and F = 8, integrated with step 0.01 and saved every 0.05 time units
+    /// after a spin-up of 10 time units (a chaotic trajectory, cheap to make).
+    pub fn lorenz96(samples: usize, seed: u64) -> Array2<f64> {
+        crate::systems::simulate(
+            &crate::systems::SimulationSpec {
+                system: crate::systems::SystemSpec::Lorenz96 { k: 8, forcing: 8.0 },
+                dt: 0.01,
+                sample_interval: 0.05,
+                spin_up: 10.0,
+                samples,
+                seed,
+            },
+            None,
+        )
+        .unwrap()
+        .resolved
+    }
+
+    /// Panics unless `a` and `b` hold the same values bit for bit (NaNs and signed zeros too).
+    #[track_caller]
+    pub fn assert_bits_eq(a: &[f64], b: &[f64], what: &str) {
+        assert_eq!(a.len(), b.len(), "{what}: lengths");
+        if let Some(i) = (0..a.len()).find(|&i| a[i].to_bits() != b[i].to_bits()) {
+            panic!("{what}: first difference at {i}: {:e} vs {:e}", a[i], b[i]);
+        }
+    }
+
+    /// Smallest CPU time of `reps` runs of `f` on this thread, in seconds (from
+    /// /proc/thread-self/schedstat, so time spent waiting for a core on a busy machine is left
+    /// out; wall time if that file cannot be read).
+    pub fn best_cpu_seconds<T>(reps: usize, mut f: impl FnMut() -> T) -> f64 {
+        let cpu = || {
+            std::fs::read_to_string("/proc/thread-self/schedstat")
+                .ok()
+                .and_then(|s| s.split_whitespace().next()?.parse::<u64>().ok())
+        };
+        (0..reps)
+            .map(|_| {
+                let (c0, w0) = (cpu(), std::time::Instant::now());
+                std::hint::black_box(f());
+                match (c0, cpu()) {
+                    (Some(a), Some(b)) => (b - a) as f64 * 1e-9,
+                    _ => w0.elapsed().as_secs_f64(),
+                }
+            })
+            .fold(f64::INFINITY, f64::min)
+    }
+
+    /// The resolved variables of the default two-scale Lorenz-96 system (K = 8, J = 32, F = 20)
+    /// saved every 0.01 time units (step 0.005, spin-up 5), as the `hot_paths` benchmark uses.
+    pub fn two_scale_resolved(samples: usize, seed: u64) -> Array2<f64> {
+        crate::systems::simulate(
+            &crate::systems::SimulationSpec {
+                system: crate::systems::SystemSpec::with_defaults("two-scale-lorenz-96").unwrap(),
+                dt: 0.005,
+                sample_interval: 0.01,
+                spin_up: 5.0,
+                samples,
+                seed,
+            },
+            None,
+        )
+        .unwrap()
+        .resolved
+    }
+
+    /// The subsets of `sizes` the size-independence tests fit again: its smallest size with each
+    /// other size, and its smallest with its two largest.
+    pub fn subsets(sizes: &[usize]) -> Vec<Vec<usize>> {
+        let mut out: Vec<Vec<usize>> = sizes[1..].iter().map(|&n| vec![sizes[0], n]).collect();
+        if sizes.len() > 2 {
+            out.push(vec![
+                sizes[0],
+                sizes[sizes.len() - 2],
+                sizes[sizes.len() - 1],
+            ]);
+        }
+        out
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -761,8 +761,8 @@ impl PolynomialEmulator {
 
 /// Fits a [`PolynomialEmulator`] on every prefix of `train`: for prefix size n, the polynomial
 /// maps x(t) to (x(t+1) − x(t))/σ for the n − 1 pairs t < n − 1 (σ, like the input
-/// standardisation, from the n − 1 input rows). Each size is a separate fit (cheap); results
-/// come in the order of `sizes`. `FitSummary::training_rmse` is in units of σ and
+/// standardisation, from the n − 1 input rows). Each size is a separate fit (cheap) on its own
+/// prefix, so it does not depend on the other sizes; results come in the order of `sizes`. `FitSummary::training_rmse` is in units of σ and
 /// `ridge_penalty` is [`PolyFitInfo::penalty`]. `stencil` is not used.
 ///
 /// Errors: no sizes; a size above `train.nrows()`; a size below 2 (no pair; reported as
@@ -823,6 +823,10 @@ pub fn fit_emulator_nested(
 /// standardisation and increment scale fixed: pair t has the monomials of (x(t) − μ)/σ and the
 /// target (x(t+1) − x(t))/σ_inc, and `on_boundary(n, ne)` is called once the n − 1 pairs of the
 /// first n samples are in, for every n of `boundaries` (ascending, 2 ..= rows).
+///
+/// Blocks of [`BLOCK_ROWS`] pairs sit at fixed positions from pair 0, and a boundary inside a
+/// block sees a copy with the partial block added (see [`BLOCK_ROWS`]), so the equations at n
+/// are the same bit for bit whatever the other boundaries are.
 fn emulator_pass(
     em: &PolynomialEmulator,
     data: ArrayView2<f64>,
@@ -833,25 +837,46 @@ fn emulator_pass(
     let (f, d) = (poly.map.len(), poly.outputs);
     let mut ne = NormalEquations::zeros(f, d);
     let mut s = poly.scratch();
+    // Row-major block of the `rows` pairs from `t0`.
     let mut phi = vec![0.0; BLOCK_ROWS * f];
     let mut y = vec![0.0; BLOCK_ROWS * d];
-    let mut t0 = 0;
-    for &n in boundaries {
-        while t0 < n - 1 {
-            let rows = BLOCK_ROWS.min(n - 1 - t0);
-            for i in 0..rows {
-                let t = t0 + i;
-                for j in 0..d {
-                    s.z[j] = (data[[t, j]] - poly.mean[j]) / poly.scale[j];
-                    y[i * d + j] = (data[[t + 1, j]] - data[[t, j]]) / em.scale[j];
-                }
-                poly.map.write(&s.z, &mut phi[i * f..(i + 1) * f]);
-            }
-            ne.add_rows(&phi[..rows * f], &y[..rows * d], rows);
-            t0 += rows;
-        }
-        on_boundary(n, &ne)?;
+    fn block<'a>(
+        phi: &'a [f64],
+        y: &'a [f64],
+        rows: usize,
+        f: usize,
+        d: usize,
+    ) -> (faer::MatRef<'a, f64>, faer::MatRef<'a, f64>) {
+        (
+            faer::MatRef::from_row_major_slice(&phi[..rows * f], rows, f),
+            faer::MatRef::from_row_major_slice(&y[..rows * d], rows, d),
+        )
     }
+    let mut t0 = 0;
+    let mut rows = 0;
+    let last_end = boundaries.last().map_or(0, |&n| n - 1);
+    for &n in boundaries {
+        while t0 + rows < n - 1 {
+            let t = t0 + rows;
+            for j in 0..d {
+                s.z[j] = (data[[t, j]] - poly.mean[j]) / poly.scale[j];
+                y[rows * d + j] = (data[[t + 1, j]] - data[[t, j]]) / em.scale[j];
+            }
+            poly.map.write(&s.z, &mut phi[rows * f..(rows + 1) * f]);
+            rows += 1;
+            // A block joins the equations when full or when no pair follows (then no copy is
+            // made at the last boundary).
+            if rows == BLOCK_ROWS || t0 + rows == last_end {
+                let (p, z) = block(&phi, &y, rows, f, d);
+                ne.add(p, z);
+                t0 += rows;
+                rows = 0;
+            }
+        }
+        let (p, z) = block(&phi, &y, rows, f, d);
+        on_boundary(n, &ne.with_rows(p, z))?;
+    }
+    debug_assert_eq!(rows, 0, "the last pair closes the last block");
     Ok(ne)
 }
 
@@ -893,7 +918,8 @@ impl PolynomialEmulator {
 /// pairs (0: least squares, which ignores the prior and needs at least as many pairs as
 /// monomials). `base_equations` ([`PolynomialEmulator::normal_equations`] of the base training
 /// data) are needed by the pooled method only. Summaries as in
-/// [`super::esn::fine_tune_nested`].
+/// [`super::esn::fine_tune_nested`]; the result at k is the same bit for bit whatever other
+/// sizes `ks` holds.
 ///
 /// Unlike [`fit_polynomial`], the constant is penalised too (toward its base value), and the
 /// solve goes through the normal equations, which square the condition number of the monomial
@@ -1232,6 +1258,72 @@ mod tests {
                 assert_eq!(m.scale, exact.scale);
                 let err = gap(&m.poly.coef, &exact.poly.coef);
                 assert!(err < 1e-5 * top, "{method:?} k {}: {err:e}", summary.n);
+            }
+        }
+    }
+
+    /// The emulator and its fine-tuning at a size are the same bit for bit whatever other sizes
+    /// are listed with it: coefficients, standardisation, increment scale and summary (degree 2
+    /// on Lorenz-96, K = 8; fine-tuning by both methods, whose boundaries fall inside blocks of
+    /// `BLOCK_ROWS`).
+    #[test]
+    fn emulator_at_a_size_does_not_depend_on_the_other_sizes() {
+        use crate::models::finetune::{FineTuneMethod, FineTuneParams};
+        use crate::models::test_support::{assert_bits_eq, lorenz96, subsets};
+        let p = PolynomialParams {
+            degree: 2,
+            ridge: 1e-6,
+            ..PolynomialParams::default()
+        }
+        .check()
+        .unwrap();
+        let same = |a: &(PolynomialEmulator, FitSummary),
+                    b: &(PolynomialEmulator, FitSummary),
+                    what: &str| {
+            assert_bits_eq(a.0.poly.coefficients(), b.0.poly.coefficients(), what);
+            assert_eq!(
+                a.0.poly.standardisation(),
+                b.0.poly.standardisation(),
+                "{what}"
+            );
+            assert_eq!(a.0.scale, b.0.scale, "{what}");
+            assert_eq!(a.1, b.1, "{what}");
+        };
+        let pilot = lorenz96(4700, 9);
+        let sizes = [1500, 2300, 3100, 4700];
+        let all = fit_emulator_nested(&p, pilot.view(), &sizes).unwrap();
+        for some in subsets(&sizes) {
+            for fit in fit_emulator_nested(&p, pilot.view(), &some).unwrap() {
+                let i = sizes.iter().position(|&n| n == fit.1.n).unwrap();
+                same(&all[i], &fit, &format!("n {} with {some:?}", fit.1.n));
+            }
+        }
+        let base = &all[0].0;
+        let base_ne = base.normal_equations(pilot.slice(s![..1500, ..])).unwrap();
+        let target = lorenz96(4700, 10);
+        for method in [FineTuneMethod::PriorCentred, FineTuneMethod::Pooled] {
+            let tune = FineTuneParams {
+                method,
+                ..FineTuneParams::default()
+            }
+            .check()
+            .unwrap();
+            let tuned = |ks: &[usize]| {
+                fine_tune_emulator_nested(base, &p, &tune, Some(&base_ne), target.view(), ks)
+                    .unwrap()
+            };
+            let all = tuned(&sizes);
+            let mut lists = subsets(&sizes);
+            lists.push(vec![3100]);
+            for some in lists {
+                for fit in tuned(&some) {
+                    let i = sizes.iter().position(|&n| n == fit.1.n).unwrap();
+                    same(
+                        &all[i],
+                        &fit,
+                        &format!("{method:?} k {} with {some:?}", fit.1.n),
+                    );
+                }
             }
         }
     }

@@ -33,9 +33,34 @@ use faer::linalg::matmul::{matmul, triangular};
 use faer::linalg::qr::no_pivoting::factor::recommended_block_size;
 use faer::{Accum, Conj, Mat, MatRef, Par};
 use serde::{Deserialize, Serialize};
+use std::borrow::Cow;
 
 /// Rows per Gram update: large enough for efficient matrix products, small enough to stay in cache.
+///
+/// The nested passes add full blocks at fixed positions, counted from the first training pair
+/// (or row), and evaluate a prefix that ends inside a block from a copy of the equations with
+/// the partial block added ([`NormalEquations::with_rows`]), which keeps filling; the block the
+/// last prefix ends in is added once that prefix is in, as nothing follows it. The equations of
+/// a prefix are therefore summed in the same order, bit for bit, whatever other prefixes the
+/// pass evaluates. The price is the Gram work of the partial block at every boundary but the
+/// last (at most `BLOCK_ROWS` − 1 rows each) and one copy of the equations.
 pub const BLOCK_ROWS: usize = 1024;
+
+/// The first `rows` rows of a block as the nested passes write it: `phi` holds `features`
+/// columns of [`BLOCK_ROWS`] values each (column-major, feature j of row i at
+/// j · BLOCK_ROWS + i) and `y` holds `outputs` values per row (row-major).
+pub fn block_rows<'a>(
+    phi: &'a [f64],
+    y: &'a [f64],
+    rows: usize,
+    features: usize,
+    outputs: usize,
+) -> (MatRef<'a, f64>, MatRef<'a, f64>) {
+    (
+        MatRef::from_column_major_slice_with_stride(phi, rows, features, BLOCK_ROWS),
+        MatRef::from_row_major_slice(&y[..rows * outputs], rows, outputs),
+    )
+}
 
 /// Errors from solving the ridge normal equations.
 #[derive(Debug, thiserror::Error)]
@@ -139,6 +164,17 @@ impl NormalEquations {
             }
         }
         self.count += rows;
+    }
+
+    /// These equations with the rows of `phi` and `ym` added ([`NormalEquations::add`]), leaving
+    /// `self` unchanged; borrowed when there are no rows. The values are those `add` would give.
+    pub fn with_rows(&self, phi: MatRef<'_, f64>, ym: MatRef<'_, f64>) -> Cow<'_, Self> {
+        if phi.nrows() == 0 {
+            return Cow::Borrowed(self);
+        }
+        let mut ne = self.clone();
+        ne.add(phi, ym);
+        Cow::Owned(ne)
     }
 
     /// [`NormalEquations::add`] for row-major slices: `phi` rows × features, `y` rows × outputs.
@@ -871,6 +907,33 @@ mod tests {
                 assert!((ne.cross[(i, k)] - direct).abs() <= 1e-12 * rows as f64);
             }
         }
+    }
+
+    /// Adding rows to a copy gives the values of adding them in place, bit for bit, and leaves
+    /// the original alone; no rows borrow the original.
+    #[test]
+    fn with_rows_adds_to_a_copy() {
+        let (f, d) = (7, 2);
+        let (phi, y) = random_problem(300, f, d, 9);
+        let mut ne = NormalEquations::zeros(f, d);
+        ne.add_rows(&phi[..200 * f], &y[..200 * d], 200);
+        let before = ne.clone();
+        let rest = |rows: usize| {
+            (
+                MatRef::from_row_major_slice(&phi[200 * f..(200 + rows) * f], rows, f),
+                MatRef::from_row_major_slice(&y[200 * d..(200 + rows) * d], rows, d),
+            )
+        };
+        let (p, q) = rest(100);
+        let copy = ne.with_rows(p, q).into_owned();
+        assert_eq!((copy.count, before.count), (300, 200));
+        assert_eq!((ne.gram.as_ref(), ne.count), (before.gram.as_ref(), 200));
+        ne.add(p, q);
+        assert_eq!(copy.gram, ne.gram);
+        assert_eq!(copy.cross, ne.cross);
+        assert_eq!(copy.target_sq, ne.target_sq);
+        let (p, q) = rest(0);
+        assert!(matches!(ne.with_rows(p, q), Cow::Borrowed(_)));
     }
 
     /// Column-major strided blocks (the layout the echo state network uses) give the same

@@ -9,9 +9,10 @@
 use super::{Reservoir, ValidEsnParams};
 use crate::data::column_stats;
 use crate::models::closure::{SequenceMemory, SequenceRegressor};
-use crate::models::ridge::{fit_readout, NormalEquations, Penalty, BLOCK_ROWS};
+use crate::models::ridge::{block_rows, fit_readout, NormalEquations, Penalty, BLOCK_ROWS};
 use crate::models::{FitSummary, ModelError};
 use ndarray::ArrayView2;
+use std::borrow::Cow;
 use std::sync::Arc;
 
 /// A trained echo state network regression: reservoir, input and target standardisation, readout.
@@ -42,7 +43,9 @@ fn positive_scale(scale: &mut [f64]) {
 /// training rows: each channel's reservoir is driven by its input row at sample t, and the
 /// readout of the state after that step predicts the target row at the same sample.
 /// Standardisation of inputs and targets comes from the smallest prefix, which every larger one
-/// contains.
+/// contains. Blocks of [`BLOCK_ROWS`] rows sit at fixed positions from the first training row
+/// (see [`BLOCK_ROWS`]), so the fit at a size is the same bit for bit whatever other sizes are
+/// listed with it (given the same smallest size).
 pub fn fit_sequence_nested(
     params: &ValidEsnParams,
     inputs: ArrayView2<f64>,
@@ -106,20 +109,27 @@ pub fn fit_sequence_nested(
                 }
                 rows += 1;
             }
-            if rows == BLOCK_ROWS {
-                flush(&mut ne, &phi_block, &y_block, &mut rows);
+            // A block joins the equations when full or when no row follows (then no copy is
+            // made at the last size).
+            if rows == BLOCK_ROWS || (t + 1 == largest && c + 1 == c_count) {
+                let (phi, y) = block_rows(&phi_block, &y_block, rows, f, q);
+                ne.add(phi, y);
+                rows = 0;
             }
         }
         if !states.iter().all(|x| x.is_finite()) {
             return Err(ModelError::NonFinite { step: t });
         }
-        if t + 1 == sizes[next_size] {
-            flush(&mut ne, &phi_block, &y_block, &mut rows);
-        }
+        let at = if t + 1 == sizes[next_size] {
+            let (phi, y) = block_rows(&phi_block, &y_block, rows, f, q);
+            ne.with_rows(phi, y)
+        } else {
+            Cow::Borrowed(&ne)
+        };
         while next_size < sizes.len() && t + 1 == sizes[next_size] {
             let size = sizes[next_size];
             let readout = fit_readout(
-                &ne,
+                &at,
                 &Penalty {
                     ridge: p.ridge,
                     scaling: p.ridge_scaling,
@@ -138,7 +148,7 @@ pub fn fit_sequence_nested(
                 },
                 FitSummary {
                     n: size,
-                    training_pairs: ne.count,
+                    training_pairs: at.count,
                     ridge_penalty: Some(readout.lambda),
                     training_rmse: Some(readout.rmse),
                     ridge_selection: Some(readout.choice),
@@ -149,17 +159,6 @@ pub fn fit_sequence_nested(
     }
     debug_assert_eq!(out.len(), sizes.len());
     Ok(out)
-}
-
-/// Adds the `rows` rows held in the blocks (features column-major with stride [`BLOCK_ROWS`],
-/// targets row-major) to `ne` and empties the blocks.
-fn flush(ne: &mut NormalEquations, phi_block: &[f64], y_block: &[f64], rows: &mut usize) {
-    let (f, q) = (ne.features(), ne.outputs());
-    ne.add(
-        faer::MatRef::from_column_major_slice_with_stride(phi_block, *rows, f, BLOCK_ROWS),
-        faer::MatRef::from_row_major_slice(&y_block[..*rows * q], *rows, q),
-    );
-    *rows = 0;
 }
 
 /// Reservoir states of every channel, and working buffers.
@@ -242,6 +241,49 @@ mod tests {
     use super::super::EsnParams;
     use super::*;
     use ndarray::Array2;
+
+    /// The fit at a size is the same bit for bit whatever other sizes are listed with it (given
+    /// the same smallest size): readout, standardisation and summary, two channels. The
+    /// boundaries (in training rows: 1560, 2560, 3760, 5360) fall inside blocks of
+    /// `BLOCK_ROWS`.
+    #[test]
+    fn fit_at_a_size_does_not_depend_on_the_other_sizes() {
+        use crate::models::test_support::{assert_bits_eq, lorenz96, subsets};
+        let (t_len, channels) = (2700, 2);
+        let data = lorenz96(t_len, 5);
+        // Channel c: inputs X_{2c}, X_{2c+1}; target X_{2c+4}.
+        let x = Array2::from_shape_fn((t_len * channels, 2), |(row, j)| {
+            data[[row / channels, 2 * (row % channels) + j]]
+        });
+        let y = Array2::from_shape_fn((t_len * channels, 1), |(row, _)| {
+            data[[row / channels, 2 * (row % channels) + 4]]
+        });
+        let params = EsnParams {
+            reservoir_size: 40,
+            washout: 20,
+            ..Default::default()
+        }
+        .check()
+        .unwrap();
+        let sizes = [800, 1300, 1900, 2700];
+        let fit = |sizes: &[usize]| {
+            fit_sequence_nested(&params, x.view(), y.view(), channels, sizes, 5).unwrap()
+        };
+        let all = fit(&sizes);
+        for some in subsets(&sizes) {
+            for (m, s) in fit(&some) {
+                let (a, sa) = &all[sizes.iter().position(|&n| n == s.n).unwrap()];
+                let what = format!("n {} with {some:?}", s.n);
+                assert_bits_eq(&a.readout, &m.readout, &what);
+                assert_eq!(
+                    (&a.in_mean, &a.in_scale, &a.out_mean, &a.out_scale),
+                    (&m.in_mean, &m.in_scale, &m.out_mean, &m.out_scale),
+                    "{what}"
+                );
+                assert_eq!(sa, &s, "{what}");
+            }
+        }
+    }
 
     /// A target that needs memory: y(t) = x(t − 1) (the previous input), which no function of
     /// x(t) alone can give. The reservoir, driven by x, holds it; the readout recovers it with a

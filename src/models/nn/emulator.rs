@@ -556,6 +556,90 @@ mod tests {
         }
     }
 
+    /// Each size trains on its own prefix from its own seed, with the standardisation of that
+    /// prefix's fitted pairs (fine-tuning: the base's), so the network at a size is the same bit
+    /// for bit whatever other sizes are listed with it: parameters, standardisation and
+    /// summary, for both emulators, trained and fine-tuned.
+    #[test]
+    fn networks_at_a_size_do_not_depend_on_the_other_sizes() {
+        use crate::models::finetune::FineTuneParams;
+        use crate::models::test_support::{assert_bits_eq, lorenz96, subsets};
+        let data = lorenz96(400, 11);
+        let target = lorenz96(400, 12);
+        let sizes = [200, 260, 330, 400];
+        let mut lists = subsets(&sizes);
+        lists.push(vec![330]);
+        let tune = FineTuneParams::default().check().unwrap();
+        let mp = MlpParams {
+            hidden: vec![8],
+            window: 2,
+            gradient_steps: 60,
+            ..MlpParams::default()
+        }
+        .check()
+        .unwrap();
+        let mlp_base = fit_mlp_emulator(&mp, data.view(), &[400], 1)
+            .unwrap()
+            .remove(0)
+            .0;
+        let lp = LstmParams {
+            hidden: 4,
+            window: 3,
+            gradient_steps: 30,
+            ..LstmParams::default()
+        }
+        .check()
+        .unwrap();
+        let lstm_base = fit_lstm_emulator(&lp, data.view(), &[400], 1)
+            .unwrap()
+            .remove(0)
+            .0;
+        type Fit = (Vec<f64>, super::super::Scaling, FitSummary);
+        let mlp = |v: Vec<(MlpEmulator, FitSummary)>| -> Vec<Fit> {
+            v.into_iter()
+                .map(|(m, s)| {
+                    let n = m.network();
+                    (n.parameters().to_vec(), n.scaling().clone(), s)
+                })
+                .collect()
+        };
+        let lstm = |v: Vec<(LstmEmulator, FitSummary)>| -> Vec<Fit> {
+            v.into_iter()
+                .map(|(m, s)| {
+                    let n = m.network();
+                    (n.parameters().to_vec(), n.scaling().clone(), s)
+                })
+                .collect()
+        };
+        type Family<'a> = (&'a str, &'a dyn Fn(&[usize]) -> Vec<Fit>);
+        let families: [Family; 4] = [
+            ("MLP", &|sz| {
+                mlp(fit_mlp_emulator(&mp, data.view(), sz, 3).unwrap())
+            }),
+            ("LSTM", &|sz| {
+                lstm(fit_lstm_emulator(&lp, data.view(), sz, 3).unwrap())
+            }),
+            ("fine-tuned MLP", &|ks| {
+                mlp(fine_tune_mlp_emulator(&mlp_base, &mp, &tune, target.view(), ks, 4).unwrap())
+            }),
+            ("fine-tuned LSTM", &|ks| {
+                lstm(fine_tune_lstm_emulator(&lstm_base, &lp, &tune, target.view(), ks, 4).unwrap())
+            }),
+        ];
+        for (name, fit) in families {
+            let all = fit(&sizes);
+            for some in &lists {
+                for (params, scaling, s) in fit(some) {
+                    let (pa, sca, sa) = &all[sizes.iter().position(|&n| n == s.n).unwrap()];
+                    let what = format!("{name} n {} with {some:?}", s.n);
+                    assert_bits_eq(pa, &params, &what);
+                    assert_eq!(sca, &scaling, "{what}");
+                    assert_eq!(sa, &s, "{what}");
+                }
+            }
+        }
+    }
+
     #[test]
     fn sizes_are_checked() {
         let data = circle(100);

@@ -131,6 +131,37 @@ mod tests {
     use super::*;
     use ndarray::Array2;
 
+    /// Each size trains on its own prefix from its own seed, with the standardisation of that
+    /// prefix's fitted rows, so the network at a size is the same bit for bit whatever other
+    /// sizes are listed with it (parameters, standardisation and summary).
+    #[test]
+    fn network_at_a_size_does_not_depend_on_the_other_sizes() {
+        use crate::models::test_support::{assert_bits_eq, lorenz96, subsets};
+        let data = lorenz96(400, 13);
+        let (x, y) = (data.slice(s![.., ..4]), data.slice(s![.., 4..]));
+        let params = LstmParams {
+            hidden: 4,
+            window: 3,
+            gradient_steps: 30,
+            ..Default::default()
+        }
+        .check()
+        .unwrap();
+        let sizes = [200, 260, 330, 400];
+        let all = fit_lstm_sequence(&params, x, y, &sizes, 2).unwrap();
+        let mut lists = subsets(&sizes);
+        lists.push(vec![330]);
+        for some in lists {
+            for (m, s) in fit_lstm_sequence(&params, x, y, &some, 2).unwrap() {
+                let (a, sa) = &all[sizes.iter().position(|&n| n == s.n).unwrap()];
+                let what = format!("n {} with {some:?}", s.n);
+                assert_bits_eq(a.network().parameters(), m.network().parameters(), &what);
+                assert_eq!(a.network().scaling(), m.network().scaling(), "{what}");
+                assert_eq!(sa, &s, "{what}");
+            }
+        }
+    }
+
     /// The memory interface reproduces the training relation: teacher-forced through
     /// commit/predict, the prediction at sample t equals the network applied to the window of
     /// rows t − window + 1, …, t (bit for bit), once the window is full.
