@@ -249,6 +249,11 @@ fn shards_merge_to_the_single_process_result() {
     let o = merge(&[]);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("in no store"), "{}", stderr(&o));
+    assert_eq!(
+        lines(&sharded.join("records.jsonl")),
+        0,
+        "a refused merge changes nothing, so the last shard keeps its assignment"
+    );
     let o = run(&s, &sharded, &["--shard", "2/3", "-j", "1"]);
     assert!(o.status.success(), "{}", stderr(&o));
     let o = merge(&[]);
@@ -258,6 +263,21 @@ fn shards_merge_to_the_single_process_result() {
     assert!(
         files_below(&sharded.join("shards")).is_empty(),
         "merged shards removed"
+    );
+
+    // A shard that disagrees with the store about a point is refused, naming both files.
+    let mut wrong = read_records(&sharded.join("records.jsonl")).unwrap()[3].clone();
+    wrong.summary.mean += 0.25;
+    std::fs::create_dir_all(sharded.join("shards")).unwrap();
+    let mut line = serde_json::to_vec(&wrong).unwrap();
+    line.push(b'\n');
+    std::fs::write(sharded.join("shards/shard-1-of-1.jsonl"), line).unwrap();
+    let o = merge(&[]);
+    assert_eq!(o.status.code(), Some(2));
+    let err = stderr(&o);
+    assert!(
+        err.contains("stored twice with different results") && err.contains("shard-1-of-1"),
+        "{err}"
     );
 }
 

@@ -84,16 +84,18 @@ pub fn run_study(plan: &StudyPlan, options: &RunOptions) -> Result<StudyOutcome,
     })
 }
 
-/// Combines the shard stores in the output directory's `shards/` into its store (checking that
-/// shards agree where they overlap), then finishes the study from the stored points only: a
-/// point no shard computed is an error ([`StudyError::Gaps`]).
+/// Combines the shard stores in the output directory's `shards/` with its store (checking that
+/// they agree where they overlap) and finishes the study from those points only. A point no
+/// store holds is an error ([`StudyError::Gaps`]) that changes nothing on disk, so the shards'
+/// assignment (computed from the study's store) stays the same for the shards still to run.
 pub fn merge_study(plan: &StudyPlan, options: &RunOptions) -> Result<StudyOutcome, StudyError> {
-    let merged = merge_shards(&options.out_dir)?;
+    let shards = shard_stores(&options.out_dir)?;
     let outcome = in_pool(options, |threads| {
         run_in_pool(plan, options, threads, Mode::StoredOnly)
     })?;
-    for path in merged {
-        // Their records are in the store now; a leftover shard would only be merged again.
+    for path in shards {
+        // Their records are in the study's store now; a leftover shard would only be merged
+        // again.
         let _ = std::fs::remove_file(path);
     }
     Ok(outcome)
@@ -343,22 +345,17 @@ fn same_result(a: &SkillRecord, b: &SkillRecord) -> bool {
     strip(a) == strip(b)
 }
 
-/// Appends the records of every shard store to the study's store (once per key; a key stored
-/// twice with different results is an error naming both files). Returns the shard files merged.
-fn merge_shards(out_dir: &Path) -> Result<Vec<PathBuf>, StudyError> {
-    let files = shard_stores(out_dir)?;
-    let path = out_dir.join(RECORDS_FILE);
-    let (store, contents) = RecordStore::open(&path).map_err(|source| StudyError::Write {
-        path: path.clone(),
-        source,
-    })?;
-    let mut seen: std::collections::HashMap<String, (SkillRecord, PathBuf)> = contents
-        .records
-        .into_iter()
-        .map(|r| (r.key.clone(), (r, path.clone())))
+/// The records of every shard store in `out_dir` that `have` (the study's store) lacks, once
+/// per key; a key stored twice with different results is an error naming both files.
+fn shard_records(out_dir: &Path, have: &[SkillRecord]) -> Result<Vec<SkillRecord>, StudyError> {
+    let main = out_dir.join(RECORDS_FILE);
+    let mut seen: std::collections::HashMap<String, (SkillRecord, PathBuf)> = have
+        .iter()
+        .map(|r| (r.key.clone(), (r.clone(), main.clone())))
         .collect();
-    for file in &files {
-        let records = read_records(file).map_err(|source| StudyError::Read {
+    let mut extra = Vec::new();
+    for file in shard_stores(out_dir)? {
+        let records = read_records(&file).map_err(|source| StudyError::Read {
             path: file.clone(),
             source,
         })?;
@@ -375,16 +372,13 @@ fn merge_shards(out_dir: &Path) -> Result<Vec<PathBuf>, StudyError> {
                 }
                 Some(_) => {}
                 None => {
-                    store.append(&r).map_err(|source| StudyError::Write {
-                        path: path.clone(),
-                        source,
-                    })?;
-                    seen.insert(r.key.clone(), (r, file.clone()));
+                    seen.insert(r.key.clone(), (r.clone(), file.clone()));
+                    extra.push(r);
                 }
             }
         }
     }
-    Ok(files)
+    Ok(extra)
 }
 
 /// Missing points per model, for an error message.
@@ -740,7 +734,11 @@ fn run_in_pool(
         path: store_path.clone(),
         source,
     };
-    let (store, contents) = RecordStore::open(&store_path).map_err(write_error)?;
+    let (store, mut contents) = RecordStore::open(&store_path).map_err(write_error)?;
+    if mode == Mode::StoredOnly {
+        let extra = shard_records(&options.out_dir, &contents.records)?;
+        contents.records.extend(extra);
+    }
     let units = points::plan_units(plan, &prep);
     let (missing, tally) = points::classify(plan, &units, &contents.records);
     let planned: usize = tally.values().map(|t| t.planned).sum();
