@@ -289,9 +289,9 @@ fn curve_analysis(quick: bool) {
     use closure_budget::curves::{FitScale, SkillGrid};
     use closure_budget::study::runner::{analyse_curve, CurveSettings};
     let noise = pseudo_random(8 * 3 * 40, 9);
-    let grid: Vec<SkillGrid> = (0..8)
+    let grid: Vec<SkillGrid> = (0..8usize)
         .map(|i| {
-            let n = 500.0 * 1.6f64.powi(i);
+            let n = 500.0 * 1.6f64.powi(i as i32);
             let mean = 2.0 - 1.8 * (n / 500.0).powf(-0.45);
             SkillGrid {
                 n,
