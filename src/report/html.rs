@@ -1298,7 +1298,7 @@ fn history_target(latest: &HistoryEntry, targets: &[f64]) -> Option<f64> {
 fn history_estimate(doc: &PlanDocument, e: &HistoryEstimate) -> String {
     match e.samples {
         Some(n) => format!(
-            "{} ({} {})",
+            "{} samples ({} {})",
             thousands(n),
             confidence(doc),
             interval(e.samples_interval[0], e.samples_interval[1], thousands)
@@ -1317,17 +1317,37 @@ fn history(out: &mut String, outcome: &StudyOutcome) {
     let Some(target) = history_target(latest, &doc.study.targets) else {
         return;
     };
-    let previous = &h[h.len() - 2];
+    // Compare with the last run on other data (the question is what new data did), or with
+    // the run before when the data never changed.
+    let previous = h[..h.len() - 1]
+        .iter()
+        .rev()
+        .find(|r| r.data_sha256 != latest.data_sha256)
+        .unwrap_or(&h[h.len() - 2]);
+    let previous_run = h
+        .iter()
+        .position(|r| std::ptr::eq(r, previous))
+        .map_or(h.len() - 1, |i| i + 1);
     out.push_str("<section id=\"history\">\n<h2>How the estimate moved</h2>\n");
-    // The lead sentence follows the model with the fewest samples for the target now.
+    // The lead sentence follows the estimate that moved most between the two runs (ties: the
+    // fewest samples now).
+    let moved_by = |e: &HistoryEstimate| {
+        let before = previous.estimate(&e.model, target).and_then(|b| b.samples);
+        match (before, e.samples) {
+            (Some(a), Some(b)) if a > 0.0 && b > 0.0 => (b / a).ln().abs(),
+            _ => -1.0,
+        }
+    };
     let lead = latest
         .estimates
         .iter()
         .filter(|e| e.target == target && e.samples.is_some())
-        .min_by(|a, b| {
-            a.samples
-                .unwrap_or(f64::INFINITY)
-                .total_cmp(&b.samples.unwrap_or(f64::INFINITY))
+        .max_by(|a, b| {
+            moved_by(a).total_cmp(&moved_by(b)).then(
+                b.samples
+                    .unwrap_or(f64::INFINITY)
+                    .total_cmp(&a.samples.unwrap_or(f64::INFINITY)),
+            )
         });
     let data_change = if latest.data_sha256 == previous.data_sha256 {
         "With the same pilot data".to_string()
@@ -1355,7 +1375,7 @@ fn history(out: &mut String, outcome: &StudyOutcome) {
         };
         let hours = |x: &HistoryEstimate| {
             x.core_hours
-                .map(|c| format!("; {} core-hours", sig3(c)))
+                .map(|c| format!(" and {} core-hours", sig3(c)))
                 .unwrap_or_default()
         };
         let _ = writeln!(
@@ -1371,7 +1391,7 @@ fn history(out: &mut String, outcome: &StudyOutcome) {
             history_estimate(doc, e),
             hours(e),
             h.len(),
-            h.len() - 1
+            previous_run
         );
     }
     if let Some(chart) = svg::history_chart(h, target) {
@@ -1390,7 +1410,7 @@ fn history(out: &mut String, outcome: &StudyOutcome) {
         "<table>\n<thead><tr><th class=\"num\">Run</th><th>Finished (UTC)</th>\
          <th class=\"num\">Training pool</th><th class=\"num\">Largest subset</th>\
          <th class=\"num\">Points reused</th><th class=\"num\">Computed</th>\
-         <th>Lead estimate</th></tr></thead>\n<tbody>\n",
+         <th>Fewest samples n* (model)</th></tr></thead>\n<tbody>\n",
     );
     for (i, run) in h.iter().enumerate() {
         let best = run

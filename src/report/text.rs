@@ -34,6 +34,20 @@ pub fn text_summary(doc: &PlanDocument) -> String {
             sig3(c.mean)
         );
     }
+    if let Some(p) = &doc.points {
+        let _ = writeln!(
+            s,
+            "points: {} planned, {} reused from the records store, {} computed{}",
+            p.planned,
+            p.reused,
+            p.computed,
+            if p.stale > 0 {
+                format!(" ({} stale: their data or settings changed)", p.stale)
+            } else {
+                String::new()
+            }
+        );
+    }
     let level = (doc.study.confidence * 100.0).round();
     for m in &doc.models {
         let selected = m.selected.map(|f| f.label()).unwrap_or("none");
