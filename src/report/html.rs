@@ -452,21 +452,8 @@ fn learning_curves(out: &mut String, doc: &PlanDocument) {
              single forecasts.",
             doc.study.replicates
         );
-        if m.points.iter().any(|p| p.censored_share > 0.0) {
-            out.push_str(
-                " Hollow markers: some forecasts were still valid at the maximum lead, so \
-                 those means are lower bounds.",
-            );
-        }
-        if let Some((_, hi, true)) = svg::x_range(m) {
-            let _ = write!(
-                out,
-                " Some estimates lie beyond the drawn range, which stops at {} samples \
-                 (1,000 times the largest measured size).",
-                samples(hi)
-            );
-        }
-        out.push_str("</figcaption>\n</figure>\n");
+        let censored = m.points.iter().any(|p| p.censored_share > 0.0);
+        close_curve_caption(out, censored, svg::x_range(m));
     }
     out.push_str("</section>\n");
 }
@@ -549,6 +536,26 @@ fn fits(out: &mut String, doc: &PlanDocument) {
         out.push_str("</tbody>\n</table>\n");
     }
     out.push_str("</section>\n");
+}
+
+/// Ends a learning-curve figure's caption: what hollow markers mean (when some means are
+/// censored) and where the drawn range stops (when estimates lie beyond it).
+fn close_curve_caption(out: &mut String, censored: bool, range: Option<(f64, f64, bool)>) {
+    if censored {
+        out.push_str(
+            " Hollow markers: some forecasts were still valid at the maximum lead, so those \
+             means are lower bounds.",
+        );
+    }
+    if let Some((_, hi, true)) = range {
+        let _ = write!(
+            out,
+            " Some estimates lie beyond the drawn range, which stops at {} samples (1,000 \
+             times the largest measured size).",
+            samples(hi)
+        );
+    }
+    out.push_str("</figcaption>\n</figure>\n");
 }
 
 fn point_row(p: &PointResult) -> String {
@@ -1010,22 +1017,13 @@ fn transfer(out: &mut String, doc: &PlanDocument) {
             thousands(m.base_samples as f64),
             t.replicates,
         );
-        let points = m.scratch.points.iter().chain(&m.fine_tuned.points);
-        if points.clone().any(|p| p.censored_share > 0.0) {
-            out.push_str(
-                " Hollow markers: some forecasts were still valid at the maximum lead, so \
-                 those means are lower bounds.",
-            );
-        }
-        if let Some((_, hi, true)) = svg::transfer_x_range(m) {
-            let _ = write!(
-                out,
-                " Some estimates lie beyond the drawn range, which stops at {} samples \
-                 (1,000 times the largest measured size).",
-                samples(hi)
-            );
-        }
-        out.push_str("</figcaption>\n</figure>\n");
+        let censored = m
+            .scratch
+            .points
+            .iter()
+            .chain(&m.fine_tuned.points)
+            .any(|p| p.censored_share > 0.0);
+        close_curve_caption(out, censored, svg::transfer_x_range(m));
     }
 
     let _ = write!(

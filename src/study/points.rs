@@ -13,7 +13,7 @@ use super::StudyError;
 use crate::models::FitSummary;
 use crate::skill;
 use rayon::prelude::*;
-use std::collections::{BTreeMap, HashMap};
+use std::collections::{BTreeMap, HashMap, HashSet};
 use std::ops::Range;
 use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 use std::time::Instant;
@@ -152,7 +152,11 @@ pub(super) fn classify(
     units: &[Unit],
     records: &[SkillRecord],
 ) -> (Vec<Vec<usize>>, BTreeMap<String, PointTally>) {
-    let by_key: HashMap<&str, &SkillRecord> = records.iter().map(|r| (r.key.as_str(), r)).collect();
+    let keys: HashSet<&str> = records.iter().map(|r| r.key.as_str()).collect();
+    let stored: HashSet<(&str, usize, usize)> = records
+        .iter()
+        .map(|r| (r.model.as_str(), r.replicate, r.n))
+        .collect();
     let mut missing = Vec::with_capacity(units.len());
     let mut tally: BTreeMap<String, PointTally> = BTreeMap::new();
     for u in units {
@@ -161,14 +165,11 @@ pub(super) fn classify(
         let mut mine = Vec::new();
         for (n, key) in &u.keys {
             t.planned += 1;
-            if by_key.contains_key(key.as_str()) {
+            if keys.contains(key.as_str()) {
                 t.done += 1;
             } else {
                 t.missing += 1;
-                if records
-                    .iter()
-                    .any(|r| &r.model == name && r.replicate == u.replicate && r.n == *n)
-                {
+                if stored.contains(&(name.as_str(), u.replicate, *n)) {
                     t.stale += 1;
                 }
                 mine.push(*n);
