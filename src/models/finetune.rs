@@ -16,9 +16,10 @@
 //! `nn::fine_tune_lstm_emulator`.
 
 use super::ridge::{
-    fit_readout, fit_readout_toward, NormalEquations, Penalty, RidgeChoice, RidgeSelection,
+    fit_readout, fit_readout_toward, nested_pass, relative_grid, NormalEquations, Penalty,
+    RidgeChoice, RidgeSelection, RowSource,
 };
-use super::{FitSummary, ModelError, RidgeScaling};
+use super::{out_of_range, FitSummary, ModelError, RidgeScaling};
 use serde::{Deserialize, Serialize};
 
 /// How a ridge readout is adapted to the target regime.
@@ -116,14 +117,6 @@ impl ValidFineTuneParams {
     }
 }
 
-fn out_of_range(key: &str, value: String, allowed: &str) -> ModelError {
-    ModelError::InvalidParameter {
-        key: key.to_string(),
-        value,
-        allowed: allowed.to_string(),
-    }
-}
-
 impl FineTuneParams {
     /// The method selects on the trailing validation window.
     fn validates(&self) -> bool {
@@ -171,13 +164,37 @@ pub(crate) fn validation_split(pairs: usize, fraction: f64) -> Option<(usize, us
     (pairs > val).then(|| (pairs - val, val))
 }
 
+/// Fine-tunes one ridge readout per target prefix length k of `ks` in one nested pass over
+/// `rows`, the target pairs in the base's feature map: a prefix of k samples holds its first
+/// k − 1 − `offset` rows (offset: washout or delay span). `prior` is the base readout, `fixed`
+/// the base's own penalty, `base` its normal equations (pooled method only), `available` the
+/// target samples. Readouts (outputs × features) and summaries in the order of `ks`, each the
+/// same bit for bit whatever other sizes `ks` holds.
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn fine_tune_readouts(
+    tune: &ValidFineTuneParams,
+    prior: &[f64],
+    fixed: Penalty,
+    base: Option<&NormalEquations>,
+    offset: usize,
+    ks: &[usize],
+    available: usize,
+    rows: &mut dyn RowSource,
+) -> Result<Vec<(Vec<f64>, FitSummary)>, ModelError> {
+    let mut tuner = NestedTuner::new(tune, prior, fixed, base, offset, ks, available)?;
+    let boundaries = tuner.boundaries();
+    let row_counts: Vec<usize> = boundaries.iter().map(|&n| n - 1 - offset).collect();
+    nested_pass(rows, &row_counts, &mut |i, ne| tuner.at(boundaries[i], ne))?;
+    Ok(tuner.out)
+}
+
 /// Fine-tunes one ridge readout per target prefix length k during one nested pass over the
 /// target data, for the families whose readouts come from [`NormalEquations`].
 ///
-/// The family's pass accumulates the target pairs in order and calls [`NestedTuner::at`] at
-/// every prefix length of [`NestedTuner::boundaries`] (ascending). A prefix of n samples holds
-/// the n − 1 − `offset` pairs t = offset, …, n − 2 (offset: washout or delay span).
-pub(crate) struct NestedTuner<'a> {
+/// The pass accumulates the target pairs in order and calls [`NestedTuner::at`] at every
+/// prefix length of [`NestedTuner::boundaries`] (ascending). A prefix of n samples holds the
+/// n − 1 − `offset` pairs t = offset, …, n − 2 (offset: washout or delay span).
+struct NestedTuner<'a> {
     tune: &'a FineTuneParams,
     prior: &'a [f64],
     fixed: Penalty,
@@ -196,7 +213,7 @@ impl<'a> NestedTuner<'a> {
     /// Checks `ks` (non-empty, ascending, at most `available`, each with a pair, or for
     /// `pooled` a pair to fit and one to validate) and that `pooled` has base equations of the
     /// prior's shape. `fixed` is the base model's own penalty.
-    pub fn new(
+    fn new(
         tune: &'a ValidFineTuneParams,
         prior: &'a [f64],
         fixed: Penalty,
@@ -274,7 +291,7 @@ impl<'a> NestedTuner<'a> {
     }
 
     /// Prefix lengths at which the pass must call [`NestedTuner::at`], ascending, each once.
-    pub fn boundaries(&self) -> Vec<usize> {
+    fn boundaries(&self) -> Vec<usize> {
         let mut b: Vec<usize> = self.ks.iter().chain(&self.fit_end).copied().collect();
         b.sort_unstable();
         b.dedup();
@@ -282,7 +299,7 @@ impl<'a> NestedTuner<'a> {
     }
 
     /// The pass has accumulated the pairs of the first `n` samples into `ne`.
-    pub fn at(&mut self, n: usize, ne: &NormalEquations) -> Result<(), ModelError> {
+    fn at(&mut self, n: usize, ne: &NormalEquations) -> Result<(), ModelError> {
         if self.fit_end.contains(&n) {
             self.snapshots.push((n, ne.clone()));
         }
@@ -340,13 +357,12 @@ impl<'a> NestedTuner<'a> {
         };
         // (score, weight, λ relative to the mean eigenvalue)
         let mut best: Option<(f64, f64, f64)> = None;
-        let (lo, hi, points) = VALIDATION_GRID_DECADES;
+        let grid = relative_grid(VALIDATION_GRID_DECADES);
         for (weight, eq) in &candidates {
             let eig = eq.eigen().map_err(ridge)?;
             let mean = eig.mean_eigenvalue();
             let scale = if mean > 0.0 { mean } else { 1.0 };
-            for p in 0..points {
-                let relative = 10f64.powf(lo + (hi - lo) * p as f64 / (points - 1) as f64);
+            for &relative in &grid {
                 let (mut w, _) = eig.solve(relative * scale);
                 if !pooled {
                     w.iter_mut().zip(self.prior).for_each(|(a, b)| *a += b);
@@ -358,7 +374,7 @@ impl<'a> NestedTuner<'a> {
             }
         }
         let (_, weight, relative) = best.ok_or(ridge(super::ridge::RidgeError::NoFiniteScore {
-            grid: candidates.len() * points,
+            grid: candidates.len() * grid.len(),
         }))?;
         let all = if pooled {
             ne.pooled(self.base.expect("checked in new"), weight)

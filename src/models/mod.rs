@@ -43,6 +43,29 @@ pub enum ModelError {
     },
 }
 
+/// The error for a setting out of its range: `key` as written in a study file, the value given
+/// and what is allowed.
+pub(crate) fn out_of_range(key: &str, value: String, allowed: &str) -> ModelError {
+    ModelError::InvalidParameter {
+        key: key.to_string(),
+        value,
+        allowed: allowed.to_string(),
+    }
+}
+
+/// Column means and standard deviations of `rows` for standardising a model's inputs (or
+/// targets), a NaN, zero or negative deviation replaced by 1 so that a constant column passes
+/// through centred instead of turning every value non-finite.
+pub(crate) fn standardisation(rows: ArrayView2<f64>) -> (Vec<f64>, Vec<f64>) {
+    let (mean, mut scale) = crate::data::column_stats(rows);
+    for s in &mut scale {
+        if s.is_nan() || *s <= 0.0 {
+            *s = 1.0;
+        }
+    }
+    (mean, scale)
+}
+
 /// How the ridge penalty depends on the number of training pairs n.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]

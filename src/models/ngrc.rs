@@ -9,10 +9,12 @@
 //! Reference: Gauthier, Bollt, Griffith & Barbosa (2021), "Next generation reservoir computing",
 //! Nat. Commun. 12, 5564.
 
-use super::finetune::{NestedTuner, ValidFineTuneParams};
-use super::ridge::{block_rows, fit_readout, NormalEquations, Penalty, RidgeSelection, BLOCK_ROWS};
-use super::{FitSummary, Forecaster, ModelError, RidgeScaling};
-use crate::data::column_stats;
+use super::finetune::{fine_tune_readouts, ValidFineTuneParams};
+use super::ridge::{
+    nested_pass, nested_readouts, Block, NormalEquations, Penalty, RidgeSelection, RowSource, Rows,
+    BLOCK_ROWS,
+};
+use super::{out_of_range, standardisation, FitSummary, Forecaster, ModelError, RidgeScaling};
 use ndarray::ArrayView2;
 use serde::{Deserialize, Serialize};
 
@@ -79,14 +81,6 @@ impl ValidNgrcParams {
     /// The checked settings.
     pub fn get(&self) -> &NgrcParams {
         &self.0
-    }
-}
-
-fn out_of_range(key: &str, value: String, allowed: &str) -> ModelError {
-    ModelError::InvalidParameter {
-        key: key.to_string(),
-        value,
-        allowed: allowed.to_string(),
     }
 }
 
@@ -213,13 +207,7 @@ pub fn fit_nested(
         ));
     }
     let (mean, scale) = if p.standardise {
-        let (mean, mut scale) = column_stats(train.slice(ndarray::s![..smallest, ..]));
-        scale.iter_mut().for_each(|s| {
-            if s.is_nan() || *s <= 0.0 {
-                *s = 1.0;
-            }
-        });
-        (mean, scale)
+        standardisation(train.slice(ndarray::s![..smallest, ..]))
     } else {
         (vec![0.0; d], vec![1.0; d])
     };
@@ -235,106 +223,90 @@ pub fn fit_nested(
         scaling: p.ridge_scaling,
         selection: p.ridge_selection,
     };
-    let mut out = Vec::with_capacity(sizes.len());
-    accumulate(p.delays, p.stride, &u, d, sizes, &mut |size, ne| {
-        let readout =
-            fit_readout(ne, &penalty).map_err(|source| ModelError::Ridge { size, source })?;
-        out.push((
-            Ngrc {
-                delays: p.delays,
-                stride: p.stride,
-                mean: mean.clone(),
-                scale: scale.clone(),
-                readout: readout.weights,
-            },
-            FitSummary {
-                n: size,
-                training_pairs: ne.count,
-                ridge_penalty: Some(readout.lambda),
-                training_rmse: Some(readout.rmse),
-                ridge_selection: Some(readout.choice),
-            },
-        ));
-        Ok(())
-    })?;
-    Ok(out)
+    let mut pairs = DelayPairs::new(p.delays, p.stride, &u, d);
+    Ok(
+        nested_readouts(&mut pairs, sizes, |n| n - 1 - span, &penalty)?
+            .into_iter()
+            .map(|(readout, summary)| {
+                let model = Ngrc {
+                    delays: p.delays,
+                    stride: p.stride,
+                    mean: mean.clone(),
+                    scale: scale.clone(),
+                    readout: readout.weights,
+                };
+                (model, summary)
+            })
+            .collect(),
+    )
 }
 
-/// The nested pass: accumulates the pairs of the standardised states `u` (row-major, `d` per
-/// row) into streaming normal equations — features at t, target u(t + 1) − u(t), for
-/// t = (delays − 1)·stride, … — and calls `on_boundary(n, ne)` once the pairs of the first n
-/// samples are in (pairs t < n − 1), for every n of `boundaries` (ascending, each above the
-/// delay span and at most the rows of `u`). Returns the equations of the largest boundary.
-///
-/// Blocks of [`BLOCK_ROWS`] pairs sit at fixed positions from the first pair, and a boundary
-/// inside a block sees a copy with the partial block added (see [`BLOCK_ROWS`]), so the
-/// equations at n are the same bit for bit whatever the other boundaries are.
-fn accumulate(
+/// The training pairs of standardised states `u` (row-major, `d` per row): pair t, for
+/// t = (delays − 1)·stride, …, has the features at t and the target u(t + 1) − u(t); row r of
+/// the problem is pair (delays − 1)·stride + r. Blocks are written feature by feature.
+struct DelayPairs<'a> {
     delays: usize,
     stride: usize,
-    u: &[f64],
+    u: &'a [f64],
     d: usize,
-    boundaries: &[usize],
-    on_boundary: &mut dyn FnMut(usize, &NormalEquations) -> Result<(), ModelError>,
-) -> Result<NormalEquations, ModelError> {
-    let linear = delays * d;
-    let f = feature_count(linear);
-    let span = (delays - 1) * stride;
-    let mut ne = NormalEquations::zeros(f, d);
-    // Column-major feature block: feature c of row i at c · BLOCK_ROWS + i (see `add`).
-    let mut phi = vec![0.0; BLOCK_ROWS * f];
-    phi[..BLOCK_ROWS].fill(1.0);
-    let mut y = vec![0.0; BLOCK_ROWS * d];
-    // Pair t (span ≤ t ≤ n − 2): features at t, target u(t + 1) − u(t). The block holds the
-    // `rows` pairs from `t0`; full blocks start at span + i · BLOCK_ROWS.
-    let mut t0 = span;
-    let mut rows = 0;
-    let last_end = boundaries.last().map_or(0, |&n| n - 1);
-    for &size in boundaries {
-        let end = size - 1; // pairs of this prefix: t < end
-        while t0 + rows < end {
-            let (lo, hi) = (rows, BLOCK_ROWS.min(end - t0));
-            for lag in 0..delays {
-                for j in 0..d {
-                    let col = &mut phi[(1 + lag * d + j) * BLOCK_ROWS..][lo..hi];
-                    for (i, c) in (lo..hi).zip(col.iter_mut()) {
-                        *c = u[(t0 + i - lag * stride) * d + j];
-                    }
+}
+
+impl<'a> DelayPairs<'a> {
+    fn new(delays: usize, stride: usize, u: &'a [f64], d: usize) -> Self {
+        Self {
+            delays,
+            stride,
+            u,
+            d,
+        }
+    }
+}
+
+impl RowSource for DelayPairs<'_> {
+    fn features(&self) -> usize {
+        feature_count(self.delays * self.d)
+    }
+
+    fn outputs(&self) -> usize {
+        self.d
+    }
+
+    fn fill(&mut self, block: &mut Block, rows: Rows) -> Result<(), ModelError> {
+        let Rows { first, start, end } = rows;
+        let (u, d, stride) = (self.u, self.d, self.stride);
+        let linear = self.delays * d;
+        let (phi, y) = block.columns_mut();
+        // Position i of the block holds pair t0 + i.
+        let t0 = (self.delays - 1) * stride + first - start;
+        phi[start..end].fill(1.0);
+        for lag in 0..self.delays {
+            for j in 0..d {
+                let col = &mut phi[(1 + lag * d + j) * BLOCK_ROWS..][start..end];
+                for (i, c) in (start..end).zip(col.iter_mut()) {
+                    *c = u[(t0 + i - lag * stride) * d + j];
                 }
-            }
-            let mut q = 1 + linear;
-            for a in 0..linear {
-                for b in a..linear {
-                    let (head, tail) = phi.split_at_mut(q * BLOCK_ROWS);
-                    let ca = &head[(1 + a) * BLOCK_ROWS..][lo..hi];
-                    let cb = &head[(1 + b) * BLOCK_ROWS..][lo..hi];
-                    for ((o, x), z) in tail[lo..hi].iter_mut().zip(ca).zip(cb) {
-                        *o = x * z;
-                    }
-                    q += 1;
-                }
-            }
-            for i in lo..hi {
-                let t = t0 + i;
-                for j in 0..d {
-                    y[i * d + j] = u[(t + 1) * d + j] - u[t * d + j];
-                }
-            }
-            rows = hi;
-            // A block joins the equations when full or when no pair follows (then no copy is
-            // made at the last boundary).
-            if rows == BLOCK_ROWS || t0 + rows == last_end {
-                let (p, z) = block_rows(&phi, &y, rows, f, d);
-                ne.add(p, z);
-                t0 += rows;
-                rows = 0;
             }
         }
-        let (p, z) = block_rows(&phi, &y, rows, f, d);
-        on_boundary(size, &ne.with_rows(p, z))?;
+        let mut q = 1 + linear;
+        for a in 0..linear {
+            for b in a..linear {
+                let (head, tail) = phi.split_at_mut(q * BLOCK_ROWS);
+                let ca = &head[(1 + a) * BLOCK_ROWS..][start..end];
+                let cb = &head[(1 + b) * BLOCK_ROWS..][start..end];
+                for ((o, x), z) in tail[start..end].iter_mut().zip(ca).zip(cb) {
+                    *o = x * z;
+                }
+                q += 1;
+            }
+        }
+        for i in start..end {
+            let t = t0 + i;
+            for j in 0..d {
+                y[i * d + j] = u[(t + 1) * d + j] - u[t * d + j];
+            }
+        }
+        Ok(())
     }
-    debug_assert_eq!(rows, 0, "the last pair closes the last block");
-    Ok(ne)
 }
 
 impl Ngrc {
@@ -371,14 +343,9 @@ impl Ngrc {
                 washout: self.history_needed() - 1,
             });
         }
-        accumulate(
-            self.delays,
-            self.stride,
-            &u,
-            self.mean.len(),
-            &[data.nrows()],
-            &mut |_, _| Ok(()),
-        )
+        let rows = data.nrows() - self.history_needed();
+        let mut pairs = DelayPairs::new(self.delays, self.stride, &u, self.mean.len());
+        nested_pass(&mut pairs, &[rows], &mut |_, _| Ok(()))
     }
 }
 
@@ -405,7 +372,7 @@ pub fn fine_tune_nested(
         scaling: p.ridge_scaling,
         selection: RidgeSelection::Fixed,
     };
-    let mut tuner = NestedTuner::new(
+    let tuned = fine_tune_readouts(
         tune,
         &base.readout,
         fixed,
@@ -413,18 +380,9 @@ pub fn fine_tune_nested(
         base.history_needed() - 1,
         ks,
         target.nrows(),
+        &mut DelayPairs::new(base.delays, base.stride, &u, base.mean.len()),
     )?;
-    let boundaries = tuner.boundaries();
-    accumulate(
-        base.delays,
-        base.stride,
-        &u,
-        base.mean.len(),
-        &boundaries,
-        &mut |n, ne| tuner.at(n, ne),
-    )?;
-    Ok(tuner
-        .out
+    Ok(tuned
         .into_iter()
         .map(|(readout, summary)| {
             (
@@ -493,7 +451,7 @@ impl Forecaster for Ngrc {
 
 #[cfg(test)]
 mod tests {
-    use super::super::ridge::NormalEquations;
+    use super::super::ridge::{fit_readout, NormalEquations};
     use super::*;
     use crate::skill::{summarise, valid_time, SkillSpec};
     use crate::systems::{simulate, SimulationSpec, SystemSpec};
@@ -1052,52 +1010,28 @@ pub fn fit_regression(
     }
     let (rows, l) = inputs.dim();
     let outputs = targets.ncols();
-    let (mean, mut scale) = if p.standardise {
-        column_stats(inputs)
+    let (mean, scale) = if p.standardise {
+        standardisation(inputs)
     } else {
         (vec![0.0; l], vec![1.0; l])
     };
-    scale.iter_mut().for_each(|s| {
-        if s.is_nan() || *s <= 0.0 {
-            *s = 1.0;
-        }
-    });
-    let f = feature_count(l);
-    let mut ne = NormalEquations::zeros(f, outputs);
-    let mut phi = vec![0.0; BLOCK_ROWS * f];
-    let mut y = vec![0.0; BLOCK_ROWS * outputs];
-    let mut lin = vec![0.0; l];
-    let mut row_phi = vec![0.0; f];
-    let mut start = 0;
-    while start < rows {
-        let block = BLOCK_ROWS.min(rows - start);
-        for i in 0..block {
-            for (j, v) in lin.iter_mut().enumerate() {
-                *v = (inputs[[start + i, j]] - mean[j]) / scale[j];
-            }
-            write_features(&lin, &mut row_phi);
-            for (j, v) in row_phi.iter().enumerate() {
-                phi[j * BLOCK_ROWS + i] = *v;
-            }
-            for o in 0..outputs {
-                y[i * outputs + o] = targets[[start + i, o]];
-            }
-        }
-        ne.add(
-            faer::MatRef::from_column_major_slice_with_stride(&phi, block, f, BLOCK_ROWS),
-            faer::MatRef::from_row_major_slice(&y[..block * outputs], block, outputs),
-        );
-        start += block;
-    }
-    let readout = fit_readout(
-        &ne,
-        &Penalty {
-            ridge: p.ridge,
-            scaling: p.ridge_scaling,
-            selection: p.ridge_selection,
-        },
-    )
-    .map_err(|source| ModelError::Ridge { size: rows, source })?;
+    let penalty = Penalty {
+        ridge: p.ridge,
+        scaling: p.ridge_scaling,
+        selection: p.ridge_selection,
+    };
+    let mut source = RegressionRows {
+        inputs: inputs.view(),
+        targets: targets.view(),
+        mean: &mean,
+        scale: &scale,
+        lin: vec![0.0; l],
+        phi: vec![0.0; feature_count(l)],
+        y: vec![0.0; outputs],
+    };
+    let (readout, summary) = nested_readouts(&mut source, &[rows], |n| n, &penalty)?
+        .pop()
+        .expect("one size");
     Ok((
         NgrcRegression {
             mean,
@@ -1105,14 +1039,44 @@ pub fn fit_regression(
             outputs,
             readout: readout.weights,
         },
-        FitSummary {
-            n: rows,
-            training_pairs: rows,
-            ridge_penalty: Some(readout.lambda),
-            training_rmse: Some(readout.rmse),
-            ridge_selection: Some(readout.choice),
-        },
+        summary,
     ))
+}
+
+/// The rows of a regression on the NG-RC features of standardised inputs: row r has the
+/// features of input row r and target row r as it is.
+struct RegressionRows<'a> {
+    inputs: ArrayView2<'a, f64>,
+    targets: ArrayView2<'a, f64>,
+    mean: &'a [f64],
+    scale: &'a [f64],
+    lin: Vec<f64>,
+    phi: Vec<f64>,
+    y: Vec<f64>,
+}
+
+impl RowSource for RegressionRows<'_> {
+    fn features(&self) -> usize {
+        self.phi.len()
+    }
+
+    fn outputs(&self) -> usize {
+        self.y.len()
+    }
+
+    fn fill(&mut self, block: &mut Block, rows: Rows) -> Result<(), ModelError> {
+        for (i, r) in rows.each() {
+            for (j, v) in self.lin.iter_mut().enumerate() {
+                *v = (self.inputs[[r, j]] - self.mean[j]) / self.scale[j];
+            }
+            write_features(&self.lin, &mut self.phi);
+            for (o, y) in self.y.iter_mut().enumerate() {
+                *y = self.targets[[r, o]];
+            }
+            block.set_row(i, &self.phi, &self.y);
+        }
+        Ok(())
+    }
 }
 
 impl NgrcRegression {

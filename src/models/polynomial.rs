@@ -9,10 +9,11 @@
 //! (Longley, Norris, Filip) for the least-squares checks.
 
 use super::closure::{stencil, ClosureInputs};
-use super::finetune::{NestedTuner, ValidFineTuneParams};
-use super::ridge::{NormalEquations, Penalty, RidgeError, BLOCK_ROWS};
-use super::{FitSummary, Forecaster, ModelError};
-use crate::data::column_stats;
+use super::finetune::{fine_tune_readouts, ValidFineTuneParams};
+use super::ridge::{
+    nested_pass, Block, Layout, NormalEquations, Penalty, RidgeError, RowSource, Rows,
+};
+use super::{out_of_range, standardisation, FitSummary, Forecaster, ModelError};
 use faer::diag::Diag;
 use faer::dyn_stack::{MemBuffer, MemStack};
 use faer::linalg::svd::{svd, svd_scratch, ComputeSvdVectors};
@@ -92,14 +93,6 @@ impl ValidPolynomialParams {
     /// The checked settings.
     pub fn get(&self) -> &PolynomialParams {
         &self.0
-    }
-}
-
-fn out_of_range(key: &str, value: String, allowed: &str) -> ModelError {
-    ModelError::InvalidParameter {
-        key: key.to_string(),
-        value,
-        allowed: allowed.to_string(),
     }
 }
 
@@ -553,12 +546,7 @@ pub fn fit_polynomial(
         });
     }
     let map = MonomialMap::new(d, p.degree);
-    let (mean, mut scale) = column_stats(inputs);
-    scale.iter_mut().for_each(|s| {
-        if s.is_nan() || *s <= 0.0 {
-            *s = 1.0;
-        }
-    });
+    let (mean, scale) = standardisation(inputs);
     let mut phi = Array2::<f64>::zeros((m, f));
     let mut z = vec![0.0; d];
     for (x, mut row) in inputs.rows().into_iter().zip(phi.rows_mut()) {
@@ -792,12 +780,7 @@ pub fn fit_emulator_nested(
             });
         }
         let x = train.slice(ndarray::s![..n - 1, ..]);
-        let (_, mut scale) = column_stats(x);
-        scale.iter_mut().for_each(|s| {
-            if s.is_nan() || *s <= 0.0 {
-                *s = 1.0;
-            }
-        });
+        let (_, scale) = standardisation(x);
         let inc = Array2::from_shape_fn((n - 1, d), |(t, j)| {
             (train[[t + 1, j]] - train[[t, j]]) / scale[j]
         });
@@ -819,65 +802,52 @@ pub fn fit_emulator_nested(
     Ok(out)
 }
 
-/// The nested pass of a polynomial emulator's normal equations on `data`, with the emulator's
-/// standardisation and increment scale fixed: pair t has the monomials of (x(t) − μ)/σ and the
-/// target (x(t+1) − x(t))/σ_inc, and `on_boundary(n, ne)` is called once the n − 1 pairs of the
-/// first n samples are in, for every n of `boundaries` (ascending, 2 ..= rows).
-///
-/// Blocks of [`BLOCK_ROWS`] pairs sit at fixed positions from pair 0, and a boundary inside a
-/// block sees a copy with the partial block added (see [`BLOCK_ROWS`]), so the equations at n
-/// are the same bit for bit whatever the other boundaries are.
-fn emulator_pass(
-    em: &PolynomialEmulator,
-    data: ArrayView2<f64>,
-    boundaries: &[usize],
-    on_boundary: &mut dyn FnMut(usize, &NormalEquations) -> Result<(), ModelError>,
-) -> Result<NormalEquations, ModelError> {
-    let poly = &em.poly;
-    let (f, d) = (poly.map.len(), poly.outputs);
-    let mut ne = NormalEquations::zeros(f, d);
-    let mut s = poly.scratch();
-    // Row-major block of the `rows` pairs from `t0`.
-    let mut phi = vec![0.0; BLOCK_ROWS * f];
-    let mut y = vec![0.0; BLOCK_ROWS * d];
-    fn block<'a>(
-        phi: &'a [f64],
-        y: &'a [f64],
-        rows: usize,
-        f: usize,
-        d: usize,
-    ) -> (faer::MatRef<'a, f64>, faer::MatRef<'a, f64>) {
-        (
-            faer::MatRef::from_row_major_slice(&phi[..rows * f], rows, f),
-            faer::MatRef::from_row_major_slice(&y[..rows * d], rows, d),
-        )
-    }
-    let mut t0 = 0;
-    let mut rows = 0;
-    let last_end = boundaries.last().map_or(0, |&n| n - 1);
-    for &n in boundaries {
-        while t0 + rows < n - 1 {
-            let t = t0 + rows;
-            for j in 0..d {
-                s.z[j] = (data[[t, j]] - poly.mean[j]) / poly.scale[j];
-                y[rows * d + j] = (data[[t + 1, j]] - data[[t, j]]) / em.scale[j];
-            }
-            poly.map.write(&s.z, &mut phi[rows * f..(rows + 1) * f]);
-            rows += 1;
-            // A block joins the equations when full or when no pair follows (then no copy is
-            // made at the last boundary).
-            if rows == BLOCK_ROWS || t0 + rows == last_end {
-                let (p, z) = block(&phi, &y, rows, f, d);
-                ne.add(p, z);
-                t0 += rows;
-                rows = 0;
-            }
+/// The pairs of a polynomial emulator's problem on `data`, with the emulator's standardisation
+/// and increment scale fixed: pair t has the monomials of (x(t) − μ)/σ and the target
+/// (x(t+1) − x(t))/σ_inc. Row-major blocks.
+struct EmulatorPairs<'a> {
+    em: &'a PolynomialEmulator,
+    data: ArrayView2<'a, f64>,
+    scratch: Scratch,
+    y: Vec<f64>,
+}
+
+impl<'a> EmulatorPairs<'a> {
+    fn new(em: &'a PolynomialEmulator, data: ArrayView2<'a, f64>) -> Self {
+        Self {
+            em,
+            data,
+            scratch: em.poly.scratch(),
+            y: vec![0.0; em.poly.outputs],
         }
-        let (p, z) = block(&phi, &y, rows, f, d);
-        on_boundary(n, &ne.with_rows(p, z))?;
     }
-    debug_assert_eq!(rows, 0, "the last pair closes the last block");
-    Ok(ne)
+}
+
+impl RowSource for EmulatorPairs<'_> {
+    fn features(&self) -> usize {
+        self.em.poly.map.len()
+    }
+
+    fn outputs(&self) -> usize {
+        self.em.poly.outputs
+    }
+
+    fn layout(&self) -> Layout {
+        Layout::RowMajor
+    }
+
+    fn fill(&mut self, block: &mut Block, rows: Rows) -> Result<(), ModelError> {
+        let (poly, data) = (&self.em.poly, self.data);
+        for (i, t) in rows.each() {
+            for j in 0..self.y.len() {
+                self.scratch.z[j] = (data[[t, j]] - poly.mean[j]) / poly.scale[j];
+                self.y[j] = (data[[t + 1, j]] - data[[t, j]]) / self.em.scale[j];
+            }
+            poly.map.write(&self.scratch.z, &mut self.scratch.phi);
+            block.set_row(i, &self.scratch.phi, &self.y);
+        }
+        Ok(())
+    }
 }
 
 impl PolynomialEmulator {
@@ -905,7 +875,11 @@ impl PolynomialEmulator {
                 washout: 0,
             });
         }
-        emulator_pass(self, data, &[data.nrows()], &mut |_, _| Ok(()))
+        nested_pass(
+            &mut EmulatorPairs::new(self, data.view()),
+            &[data.nrows() - 1],
+            &mut |_, _| Ok(()),
+        )
     }
 }
 
@@ -939,7 +913,7 @@ pub fn fine_tune_emulator_nested(
         scaling: super::RidgeScaling::PerSample,
         selection: super::ridge::RidgeSelection::Fixed,
     };
-    let mut tuner = NestedTuner::new(
+    let tuned = fine_tune_readouts(
         tune,
         &base.poly.coef,
         fixed,
@@ -947,11 +921,9 @@ pub fn fine_tune_emulator_nested(
         0,
         ks,
         target.nrows(),
+        &mut EmulatorPairs::new(base, target.view()),
     )?;
-    let boundaries = tuner.boundaries();
-    emulator_pass(base, target, &boundaries, &mut |n, ne| tuner.at(n, ne))?;
-    Ok(tuner
-        .out
+    Ok(tuned
         .into_iter()
         .map(|(coef, summary)| {
             let mut em = base.clone();
@@ -1057,6 +1029,7 @@ pub fn fit_local_closure(
 mod tests {
     use super::*;
     use crate::curves::lsq::tests::{digits, nist_path};
+    use crate::data::column_stats;
     use crate::models::ridge::NormalEquations;
     use ndarray::{array, s};
     use rand::{RngExt, SeedableRng};

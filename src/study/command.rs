@@ -23,7 +23,7 @@
 
 use crate::atomic::write_atomic;
 use crate::data::{read_npy, write_npy, DataError};
-use crate::models::{Forecaster, ModelError};
+use crate::models::{out_of_range, Forecaster, ModelError};
 use crate::skill::{IcSkill, SkillSpec, BLOW_UP_SIGMAS};
 use ndarray::{s, Array2, Array3, ArrayView2, Ix3};
 use serde::{Deserialize, Serialize};
@@ -173,14 +173,6 @@ impl ValidCommandParams {
         } else {
             program.to_path_buf()
         }
-    }
-}
-
-fn out_of_range(key: &str, value: String, allowed: &str) -> ModelError {
-    ModelError::InvalidParameter {
-        key: key.to_string(),
-        value,
-        allowed: allowed.to_string(),
     }
 }
 

@@ -7,12 +7,10 @@
 //! stands for and every saved sample gives one training row per channel.
 
 use super::{Reservoir, ValidEsnParams};
-use crate::data::column_stats;
 use crate::models::closure::{SequenceMemory, SequenceRegressor};
-use crate::models::ridge::{block_rows, fit_readout, NormalEquations, Penalty, BLOCK_ROWS};
-use crate::models::{FitSummary, ModelError};
+use crate::models::ridge::{nested_readouts, Block, Penalty, RowSource, Rows};
+use crate::models::{standardisation, FitSummary, ModelError};
 use ndarray::ArrayView2;
-use std::borrow::Cow;
 use std::sync::Arc;
 
 /// A trained echo state network regression: reservoir, input and target standardisation, readout.
@@ -27,14 +25,6 @@ pub struct EsnSequence {
     readout: Vec<f64>,
 }
 
-fn positive_scale(scale: &mut [f64]) {
-    scale.iter_mut().for_each(|s| {
-        if s.is_nan() || *s <= 0.0 {
-            *s = 1.0;
-        }
-    });
-}
-
 /// Trains the readout of one reservoir on every nested prefix at once.
 ///
 /// `inputs` and `targets` hold `channels` rows per saved sample, time-major (rows t·C … t·C + C − 1
@@ -43,9 +33,9 @@ fn positive_scale(scale: &mut [f64]) {
 /// training rows: each channel's reservoir is driven by its input row at sample t, and the
 /// readout of the state after that step predicts the target row at the same sample.
 /// Standardisation of inputs and targets comes from the smallest prefix, which every larger one
-/// contains. Blocks of [`BLOCK_ROWS`] rows sit at fixed positions from the first training row
-/// (see [`BLOCK_ROWS`]), so the fit at a size is the same bit for bit whatever other sizes are
-/// listed with it (given the same smallest size).
+/// contains. The rows go through the nested pass
+/// ([`nested_readouts`](crate::models::ridge::nested_readouts)), so the fit at a size is the
+/// same bit for bit whatever other sizes are listed with it (given the same smallest size).
 pub fn fit_sequence_nested(
     params: &ValidEsnParams,
     inputs: ArrayView2<f64>,
@@ -56,7 +46,7 @@ pub fn fit_sequence_nested(
 ) -> Result<Vec<(EsnSequence, FitSummary)>, ModelError> {
     let p = params.get();
     let c_count = channels.max(1);
-    let (p_in, q) = (inputs.ncols(), targets.ncols());
+    let p_in = inputs.ncols();
     let smallest = *sizes.first().ok_or(ModelError::NoSizes)?;
     let largest = *sizes.last().expect("non-empty");
     let available = inputs.nrows().min(targets.nrows()) / c_count;
@@ -73,92 +63,130 @@ pub fn fit_sequence_nested(
         });
     }
     let first_rows = ndarray::s![..smallest * c_count, ..];
-    let (in_mean, mut in_scale) = column_stats(inputs.slice(first_rows));
-    let (out_mean, mut out_scale) = column_stats(targets.slice(first_rows));
-    positive_scale(&mut in_scale);
-    positive_scale(&mut out_scale);
+    let (in_mean, in_scale) = standardisation(inputs.slice(first_rows));
+    let (out_mean, out_scale) = standardisation(targets.slice(first_rows));
     let reservoir = Arc::new(Reservoir::new(p, p_in, seed));
-    let d = reservoir.size;
-    let f = reservoir.features();
-    let mut ne = NormalEquations::zeros(f, q);
-    let mut states = vec![0.0; c_count * d];
-    let mut scratch = vec![0.0; d];
-    let mut z = vec![0.0; p_in];
-    // Column-major feature block: feature j of row i at j · BLOCK_ROWS + i (see `add`).
-    let mut phi_block = vec![0.0; BLOCK_ROWS * f];
-    let mut phi_row = vec![0.0; f];
-    let mut y_block = vec![0.0; BLOCK_ROWS * q];
-    let mut rows = 0;
-    let mut out = Vec::with_capacity(sizes.len());
-    let mut next_size = 0;
-    for t in 0..largest {
-        for c in 0..c_count {
-            let row = t * c_count + c;
-            for (j, zj) in z.iter_mut().enumerate() {
-                *zj = (inputs[[row, j]] - in_mean[j]) / in_scale[j];
-            }
-            let r = &mut states[c * d..(c + 1) * d];
-            reservoir.step(r, &z, &mut scratch);
-            if t >= p.washout {
-                reservoir.write_features(r, &mut phi_row);
-                for (j, v) in phi_row.iter().enumerate() {
-                    phi_block[j * BLOCK_ROWS + rows] = *v;
-                }
-                for j in 0..q {
-                    y_block[rows * q + j] = (targets[[row, j]] - out_mean[j]) / out_scale[j];
-                }
-                rows += 1;
-            }
-            // A block joins the equations when full or when no row follows (then no copy is
-            // made at the last size).
-            if rows == BLOCK_ROWS || (t + 1 == largest && c + 1 == c_count) {
-                let (phi, y) = block_rows(&phi_block, &y_block, rows, f, q);
-                ne.add(phi, y);
-                rows = 0;
-            }
-        }
-        if !states.iter().all(|x| x.is_finite()) {
-            return Err(ModelError::NonFinite { step: t });
-        }
-        let at = if t + 1 == sizes[next_size] {
-            let (phi, y) = block_rows(&phi_block, &y_block, rows, f, q);
-            ne.with_rows(phi, y)
-        } else {
-            Cow::Borrowed(&ne)
-        };
-        while next_size < sizes.len() && t + 1 == sizes[next_size] {
-            let size = sizes[next_size];
-            let readout = fit_readout(
-                &at,
-                &Penalty {
-                    ridge: p.ridge,
-                    scaling: p.ridge_scaling,
-                    selection: p.ridge_selection,
-                },
-            )
-            .map_err(|source| ModelError::Ridge { size, source })?;
-            out.push((
-                EsnSequence {
-                    reservoir: reservoir.clone(),
-                    in_mean: in_mean.clone(),
-                    in_scale: in_scale.clone(),
-                    out_mean: out_mean.clone(),
-                    out_scale: out_scale.clone(),
-                    readout: readout.weights,
-                },
-                FitSummary {
-                    n: size,
-                    training_pairs: at.count,
-                    ridge_penalty: Some(readout.lambda),
-                    training_rmse: Some(readout.rmse),
-                    ridge_selection: Some(readout.choice),
-                },
-            ));
-            next_size += 1;
+    let penalty = Penalty {
+        ridge: p.ridge,
+        scaling: p.ridge_scaling,
+        selection: p.ridge_selection,
+    };
+    let model = EsnSequence {
+        reservoir,
+        in_mean,
+        in_scale,
+        out_mean,
+        out_scale,
+        readout: Vec::new(),
+    };
+    let mut rows = ChannelRows::new(&model, inputs.view(), targets.view(), c_count, p.washout);
+    let fits = nested_readouts(&mut rows, sizes, |n| (n - p.washout) * c_count, &penalty)?;
+    Ok(fits
+        .into_iter()
+        .map(|(readout, summary)| {
+            let fitted = EsnSequence {
+                readout: readout.weights,
+                ..model.clone()
+            };
+            (fitted, summary)
+        })
+        .collect())
+}
+
+/// The training rows of a reservoir regression: `channels` reservoir states, each driven from
+/// zero by its channel's standardised input rows; row r of the problem is channel r mod C at
+/// sample washout + r / C, with the features after that step and the standardised target row of
+/// the same sample. The washout samples are stepped before the first row.
+struct ChannelRows<'a> {
+    model: &'a EsnSequence,
+    inputs: ArrayView2<'a, f64>,
+    targets: ArrayView2<'a, f64>,
+    channels: usize,
+    washout: usize,
+    states: Vec<f64>,
+    scratch: Vec<f64>,
+    z: Vec<f64>,
+    phi: Vec<f64>,
+    y: Vec<f64>,
+    warmed: bool,
+}
+
+impl<'a> ChannelRows<'a> {
+    fn new(
+        model: &'a EsnSequence,
+        inputs: ArrayView2<'a, f64>,
+        targets: ArrayView2<'a, f64>,
+        channels: usize,
+        washout: usize,
+    ) -> Self {
+        let res = &model.reservoir;
+        Self {
+            model,
+            inputs,
+            targets,
+            channels,
+            washout,
+            states: vec![0.0; channels * res.size],
+            scratch: vec![0.0; res.size],
+            z: vec![0.0; inputs.ncols()],
+            phi: vec![0.0; res.features()],
+            y: vec![0.0; targets.ncols()],
+            warmed: false,
         }
     }
-    debug_assert_eq!(out.len(), sizes.len());
-    Ok(out)
+
+    /// Steps channel `c` with input row `row`; whether its state stayed finite.
+    fn step(&mut self, c: usize, row: usize) -> bool {
+        let m = self.model;
+        for (j, zj) in self.z.iter_mut().enumerate() {
+            *zj = (self.inputs[[row, j]] - m.in_mean[j]) / m.in_scale[j];
+        }
+        let d = m.reservoir.size;
+        let r = &mut self.states[c * d..(c + 1) * d];
+        m.reservoir.step(r, &self.z, &mut self.scratch);
+        r.iter().all(|x| x.is_finite())
+    }
+}
+
+impl RowSource for ChannelRows<'_> {
+    fn features(&self) -> usize {
+        self.model.reservoir.features()
+    }
+
+    fn outputs(&self) -> usize {
+        self.targets.ncols()
+    }
+
+    fn fill(&mut self, block: &mut Block, rows: Rows) -> Result<(), ModelError> {
+        if !self.warmed {
+            for t in 0..self.washout {
+                let mut finite = true;
+                for c in 0..self.channels {
+                    finite &= self.step(c, t * self.channels + c);
+                }
+                if !finite {
+                    return Err(ModelError::NonFinite { step: t });
+                }
+            }
+            self.warmed = true;
+        }
+        let m = self.model;
+        let d = m.reservoir.size;
+        for (i, r) in rows.each() {
+            let (t, c) = (self.washout + r / self.channels, r % self.channels);
+            let row = t * self.channels + c;
+            if !self.step(c, row) {
+                return Err(ModelError::NonFinite { step: t });
+            }
+            m.reservoir
+                .write_features(&self.states[c * d..(c + 1) * d], &mut self.phi);
+            for (j, y) in self.y.iter_mut().enumerate() {
+                *y = (self.targets[[row, j]] - m.out_mean[j]) / m.out_scale[j];
+            }
+            block.set_row(i, &self.phi, &self.y);
+        }
+        Ok(())
+    }
 }
 
 /// Reservoir states of every channel, and working buffers.

@@ -27,7 +27,7 @@ pub use mlp::{train_mlp, Mlp, MlpScratch};
 pub use sequence::{fit_lstm_sequence, LstmSequence};
 pub use train::{TrainReport, CHUNK_ROWS};
 
-use super::ModelError;
+use super::{out_of_range, ModelError};
 use serde::{Deserialize, Serialize};
 
 /// Nonlinearity of the hidden layers of a feed-forward network.
@@ -177,14 +177,6 @@ impl Default for Training {
             validation_fraction: 0.1,
             weight_decay: 0.0,
         }
-    }
-}
-
-fn out_of_range(key: &str, value: String, allowed: &str) -> ModelError {
-    ModelError::InvalidParameter {
-        key: key.to_string(),
-        value,
-        allowed: allowed.to_string(),
     }
 }
 

@@ -8,8 +8,9 @@
 //!   readout ([`fit_readout`], and [`fit_readout_toward`] a prior readout);
 //! * [`selection`]: the eigendecomposition, GCV scores, penalty grids and the one grid search
 //!   every ridge fit uses ([`select`]);
-//! * [`nested`]: blocks of rows at fixed positions ([`BLOCK_ROWS`]), in which the nested passes
-//!   accumulate the equations of every prefix.
+//! * [`nested`]: the one nested pass every ridge-readout family runs ([`nested_pass`]): a
+//!   source of feature/target rows, blocks at fixed positions, and the equations of every
+//!   prefix, the same bit for bit whatever other prefixes the pass evaluates.
 //!
 //! Gram updates use faer's lower-triangular matrix product (half the work of a full product);
 //! every product and factorisation runs sequentially inside one fit, so results do not depend on
@@ -26,7 +27,7 @@ pub mod normal;
 pub mod penalty;
 pub mod selection;
 
-pub use nested::{block_rows, BLOCK_ROWS};
+pub use nested::{nested_pass, nested_readouts, Block, Layout, RowSource, Rows, BLOCK_ROWS};
 pub use normal::NormalEquations;
 pub use penalty::{fit_readout, fit_readout_toward, Penalty, Readout, RidgeChoice, RidgeSelection};
 pub use selection::{relative_grid, select, RidgeEigen, Selection, Tie, GCV_GRID_DECADES};

@@ -14,14 +14,16 @@ mod sequence;
 
 pub use sequence::{fit_sequence_nested, EsnSequence};
 
-use super::finetune::{NestedTuner, ValidFineTuneParams};
-use super::ridge::{block_rows, fit_readout, NormalEquations, Penalty, RidgeSelection, BLOCK_ROWS};
-use super::{FitSummary, Forecaster, ModelError, RidgeScaling};
-use crate::data::column_stats;
+use super::finetune::{fine_tune_readouts, ValidFineTuneParams};
+use super::ridge::{
+    nested_pass, nested_readouts, Block, NormalEquations, Penalty, RidgeSelection, RowSource, Rows,
+};
+use super::{out_of_range, standardisation, FitSummary, Forecaster, ModelError, RidgeScaling};
 use ndarray::ArrayView2;
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
+use std::sync::Arc;
 
 /// Echo state network settings as written in a study file.
 ///
@@ -83,14 +85,6 @@ pub struct ValidEsnParams(EsnParams);
 impl ValidEsnParams {
     pub fn get(&self) -> &EsnParams {
         &self.0
-    }
-}
-
-fn out_of_range(key: &str, value: String, allowed: &str) -> ModelError {
-    ModelError::InvalidParameter {
-        key: key.to_string(),
-        value,
-        allowed: allowed.to_string(),
     }
 }
 
@@ -300,7 +294,7 @@ impl Reservoir {
 /// A trained echo state network: reservoir, standardisation and readout.
 #[derive(Debug, Clone)]
 pub struct Esn {
-    reservoir: std::sync::Arc<Reservoir>,
+    reservoir: Arc<Reservoir>,
     mean: Vec<f64>,
     scale: Vec<f64>,
     /// outputs × features, row-major.
@@ -313,7 +307,7 @@ pub struct Esn {
 /// samples gives n − 1 − washout training pairs. Input standardisation uses the smallest prefix,
 /// which every larger prefix contains, so all prefixes share one feature map. The fit at a size
 /// depends only on that prefix, the smallest size, the seed and the settings: it is the same bit
-/// for bit whatever other sizes are listed (see [`BLOCK_ROWS`]).
+/// for bit whatever other sizes are listed (see [`BLOCK_ROWS`](super::ridge::BLOCK_ROWS)).
 pub fn fit_nested(
     params: &ValidEsnParams,
     train: ArrayView2<f64>,
@@ -336,108 +330,126 @@ pub fn fit_nested(
             washout: p.washout,
         });
     }
-    let (mean, mut scale) = column_stats(train.slice(ndarray::s![..smallest, ..]));
-    scale.iter_mut().for_each(|s| {
-        if s.is_nan() || *s <= 0.0 {
-            *s = 1.0;
-        }
-    });
-    let reservoir = std::sync::Arc::new(Reservoir::new(p, d, seed));
-    let mut out = Vec::with_capacity(sizes.len());
-    drive(
-        &reservoir,
-        &mean,
-        &scale,
-        p.washout,
-        train,
-        sizes,
-        &mut |n, ne| {
-            out.push(solve_prefix(p, ne, &reservoir, &mean, &scale, n)?);
-            Ok(())
-        },
-    )?;
-    debug_assert_eq!(out.len(), sizes.len());
-    Ok(out)
+    let (mean, scale) = standardisation(train.slice(ndarray::s![..smallest, ..]));
+    let reservoir = Arc::new(Reservoir::new(p, d, seed));
+    let penalty = Penalty {
+        ridge: p.ridge,
+        scaling: p.ridge_scaling,
+        selection: p.ridge_selection,
+    };
+    let mut pairs = ReservoirPairs::new(&reservoir, &mean, &scale, p.washout, train.view());
+    Ok(
+        nested_readouts(&mut pairs, sizes, |n| n - 1 - p.washout, &penalty)?
+            .into_iter()
+            .map(|(readout, summary)| {
+                let esn = Esn {
+                    reservoir: reservoir.clone(),
+                    mean: mean.clone(),
+                    scale: scale.clone(),
+                    readout: readout.weights,
+                };
+                (esn, summary)
+            })
+            .collect(),
+    )
 }
 
-/// The nested pass: drives `reservoir` with the standardised rows of `data` from a zero state,
-/// accumulates the pairs (features after u(t), target u(t+1) − u(t)) for t ≥ `washout` into
-/// streaming normal equations, and calls `on_boundary(n, ne)` when the pairs of the first n
-/// samples are in (pairs t < n − 1), for every n of `boundaries` (ascending, at most
-/// `data.nrows()`; a repeated n is reported once per repetition). Returns the equations of the
-/// largest boundary.
-///
-/// Blocks of [`BLOCK_ROWS`] pairs sit at fixed positions from the first pair after the washout,
-/// and a boundary inside a block sees a copy with the partial block added (see [`BLOCK_ROWS`]),
-/// so the equations at n are the same bit for bit whatever the other boundaries are.
-fn drive(
-    reservoir: &Reservoir,
-    mean: &[f64],
-    scale: &[f64],
+/// The training pairs of a reservoir driven from a zero state by the standardised rows of
+/// `data`: pair t (t ≥ `washout`) has the features after the step with u(t) and the target
+/// u(t+1) − u(t); row r of the problem is pair `washout` + r. The reservoir advances as rows are
+/// asked for; a state that turns non-finite ends the pass.
+struct ReservoirPairs<'a> {
+    reservoir: &'a Reservoir,
+    mean: &'a [f64],
+    scale: &'a [f64],
     washout: usize,
-    data: ArrayView2<f64>,
-    boundaries: &[usize],
-    on_boundary: &mut dyn FnMut(usize, &NormalEquations) -> Result<(), ModelError>,
-) -> Result<NormalEquations, ModelError> {
-    let d = data.ncols();
-    let f = reservoir.features();
-    let mut ne = NormalEquations::zeros(f, d);
-    let Some(&largest) = boundaries.last() else {
-        return Ok(ne);
-    };
-    debug_assert!(largest <= data.nrows());
-    debug_assert!(boundaries.windows(2).all(|w| w[0] <= w[1]));
-    let mut r = vec![0.0; reservoir.size];
-    let mut scratch = vec![0.0; reservoir.size];
-    let mut u = vec![0.0; d];
-    let mut u_next = vec![0.0; d];
-    let standardise = |t: usize, out: &mut [f64]| {
-        for j in 0..d {
-            out[j] = (data[[t, j]] - mean[j]) / scale[j];
-        }
-    };
-    // Column-major feature block: feature j of row i at j · BLOCK_ROWS + i (see `add`).
-    let mut phi_block = vec![0.0; BLOCK_ROWS * f];
-    let mut phi_row = vec![0.0; f];
-    let mut y_block = vec![0.0; BLOCK_ROWS * d];
-    let mut rows = 0;
-    let mut next = 0;
-    standardise(0, &mut u);
-    // Pair t: drive with u(t), predict u(t+1) − u(t). Prefix n holds pairs t < n − 1.
-    for t in 0..largest.saturating_sub(1) {
-        reservoir.step(&mut r, &u, &mut scratch);
-        standardise(t + 1, &mut u_next);
-        if t >= washout {
-            reservoir.write_features(&r, &mut phi_row);
-            for (j, v) in phi_row.iter().enumerate() {
-                phi_block[j * BLOCK_ROWS + rows] = *v;
-            }
-            for j in 0..d {
-                y_block[rows * d + j] = u_next[j] - u[j];
-            }
-            rows += 1;
-        }
-        std::mem::swap(&mut u, &mut u_next);
-        // A block joins the equations when full or when no pair follows (then no copy is made).
-        if rows == BLOCK_ROWS || t + 2 == largest {
-            let (phi, y) = block_rows(&phi_block, &y_block, rows, f, d);
-            ne.add(phi, y);
-            rows = 0;
-        }
-        if next < boundaries.len() && t + 2 == boundaries[next] {
-            let (phi, y) = block_rows(&phi_block, &y_block, rows, f, d);
-            let at = ne.with_rows(phi, y);
-            while next < boundaries.len() && t + 2 == boundaries[next] {
-                on_boundary(boundaries[next], &at)?;
-                next += 1;
-            }
-        }
-        if !r.iter().all(|x| x.is_finite()) {
-            return Err(ModelError::NonFinite { step: t });
+    data: ArrayView2<'a, f64>,
+    r: Vec<f64>,
+    scratch: Vec<f64>,
+    /// u(t) and u(t + 1) for the next step t.
+    u: Vec<f64>,
+    u_next: Vec<f64>,
+    phi: Vec<f64>,
+    y: Vec<f64>,
+    /// The next step t.
+    t: usize,
+}
+
+impl<'a> ReservoirPairs<'a> {
+    fn new(
+        reservoir: &'a Reservoir,
+        mean: &'a [f64],
+        scale: &'a [f64],
+        washout: usize,
+        data: ArrayView2<'a, f64>,
+    ) -> Self {
+        let d = data.ncols();
+        Self {
+            reservoir,
+            mean,
+            scale,
+            washout,
+            data,
+            r: vec![0.0; reservoir.size],
+            scratch: vec![0.0; reservoir.size],
+            u: vec![0.0; d],
+            u_next: vec![0.0; d],
+            phi: vec![0.0; reservoir.features()],
+            y: vec![0.0; d],
+            t: 0,
         }
     }
-    debug_assert_eq!(rows, 0, "the last pair closes the last block");
-    Ok(ne)
+
+    /// Standardised row `t` of the data into `out`.
+    fn standardise(&self, t: usize, out: &mut [f64]) {
+        for (j, o) in out.iter_mut().enumerate() {
+            *o = (self.data[[t, j]] - self.mean[j]) / self.scale[j];
+        }
+    }
+}
+
+impl RowSource for ReservoirPairs<'_> {
+    fn features(&self) -> usize {
+        self.reservoir.features()
+    }
+
+    fn outputs(&self) -> usize {
+        self.data.ncols()
+    }
+
+    fn fill(&mut self, block: &mut Block, rows: Rows) -> Result<(), ModelError> {
+        for (i, row) in rows.each() {
+            let pair = self.washout + row;
+            loop {
+                let t = self.t;
+                if t == 0 {
+                    let mut u = std::mem::take(&mut self.u);
+                    self.standardise(0, &mut u);
+                    self.u = u;
+                }
+                self.reservoir.step(&mut self.r, &self.u, &mut self.scratch);
+                let mut u_next = std::mem::take(&mut self.u_next);
+                self.standardise(t + 1, &mut u_next);
+                self.u_next = u_next;
+                if t == pair {
+                    self.reservoir.write_features(&self.r, &mut self.phi);
+                    for (y, (next, now)) in self.y.iter_mut().zip(self.u_next.iter().zip(&self.u)) {
+                        *y = next - now;
+                    }
+                    block.set_row(i, &self.phi, &self.y);
+                }
+                std::mem::swap(&mut self.u, &mut self.u_next);
+                self.t += 1;
+                if !self.r.iter().all(|x| x.is_finite()) {
+                    return Err(ModelError::NonFinite { step: t });
+                }
+                if t == pair {
+                    break;
+                }
+            }
+        }
+        Ok(())
+    }
 }
 
 impl Esn {
@@ -456,15 +468,15 @@ impl Esn {
         washout: usize,
     ) -> Result<NormalEquations, ModelError> {
         self.check_inputs(data)?;
-        drive(
+        let rows = data.nrows().saturating_sub(1 + washout);
+        let mut pairs = ReservoirPairs::new(
             &self.reservoir,
             &self.mean,
             &self.scale,
             washout,
-            data,
-            &[data.nrows()],
-            &mut |_, _| Ok(()),
-        )
+            data.view(),
+        );
+        nested_pass(&mut pairs, &[rows], &mut |_, _| Ok(()))
     }
 
     fn check_inputs(&self, data: ArrayView2<f64>) -> Result<(), ModelError> {
@@ -508,7 +520,7 @@ pub fn fine_tune_nested(
         scaling: p.ridge_scaling,
         selection: RidgeSelection::Fixed,
     };
-    let mut tuner = NestedTuner::new(
+    let tuned = fine_tune_readouts(
         tune,
         &base.readout,
         fixed,
@@ -516,19 +528,15 @@ pub fn fine_tune_nested(
         p.washout,
         ks,
         target.nrows(),
+        &mut ReservoirPairs::new(
+            &base.reservoir,
+            &base.mean,
+            &base.scale,
+            p.washout,
+            target.view(),
+        ),
     )?;
-    let boundaries = tuner.boundaries();
-    drive(
-        &base.reservoir,
-        &base.mean,
-        &base.scale,
-        p.washout,
-        target,
-        &boundaries,
-        &mut |n, ne| tuner.at(n, ne),
-    )?;
-    Ok(tuner
-        .out
+    Ok(tuned
         .into_iter()
         .map(|(readout, summary)| {
             (
@@ -540,40 +548,6 @@ pub fn fine_tune_nested(
             )
         })
         .collect())
-}
-
-fn solve_prefix(
-    p: &EsnParams,
-    ne: &NormalEquations,
-    reservoir: &std::sync::Arc<Reservoir>,
-    mean: &[f64],
-    scale: &[f64],
-    size: usize,
-) -> Result<(Esn, FitSummary), ModelError> {
-    let readout = fit_readout(
-        ne,
-        &Penalty {
-            ridge: p.ridge,
-            scaling: p.ridge_scaling,
-            selection: p.ridge_selection,
-        },
-    )
-    .map_err(|source| ModelError::Ridge { size, source })?;
-    Ok((
-        Esn {
-            reservoir: reservoir.clone(),
-            mean: mean.to_vec(),
-            scale: scale.to_vec(),
-            readout: readout.weights,
-        },
-        FitSummary {
-            n: size,
-            training_pairs: ne.count,
-            ridge_penalty: Some(readout.lambda),
-            training_rmse: Some(readout.rmse),
-            ridge_selection: Some(readout.choice),
-        },
-    ))
 }
 
 impl Forecaster for Esn {
@@ -629,6 +603,7 @@ impl Forecaster for Esn {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::data::column_stats;
     use crate::models::finetune::{FineTuneMethod, FineTuneParams};
     use ndarray::Array2;
 
@@ -891,7 +866,7 @@ mod tests {
         let pilot = sine_series(900);
         let (base, _) = fit_nested(&p, pilot.view(), &[900], 3).unwrap().remove(0);
         let base_ne = base.normal_equations(pilot.view(), 20).unwrap();
-        let refit = fit_readout(
+        let refit = crate::models::ridge::fit_readout(
             &base_ne,
             &Penalty {
                 ridge: p.get().ridge,
