@@ -55,14 +55,6 @@ impl ClosureInputs {
         }
     }
 
-    /// Regression outputs for `k` resolved variables.
-    pub fn output_len(&self, k: usize) -> usize {
-        match self {
-            ClosureInputs::Local { .. } => 1,
-            ClosureInputs::Global => k,
-        }
-    }
-
     /// Independent channels of a closure with memory: one per k for local inputs, one for global.
     pub fn channels(&self, k: usize) -> usize {
         match self {
@@ -864,15 +856,17 @@ mod tests {
         }
         .check()
         .unwrap();
-        let (poly, _) = crate::models::polynomial::fit_local_closure(
+        let local = ClosureInputs::Local { half_width: 0 };
+        let (rows_in, rows_out) = local.rows(sim.resolved.slice(train), u.slice(train));
+        let (poly, _) = crate::models::polynomial::fit_polynomial(
             &quartic,
-            sim.resolved.slice(train),
-            u.slice(train),
+            rows_in.view(),
+            rows_out.view(),
         )
         .unwrap();
         let poly = LearnedClosure {
-            regressor: Arc::new(poly.polynomial().clone()),
-            inputs: ClosureInputs::Local { half_width: 0 },
+            regressor: Arc::new(poly),
+            inputs: local,
         };
         let r2_poly = offline_r2(
             &ClosureForm::from(Arc::new(poly)),

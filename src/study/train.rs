@@ -192,35 +192,11 @@ fn fit_regressor(
                 },
             ))
         }
-        ModelKind::Polynomial(p) => {
-            let (poly, info) = polynomial::fit_polynomial(p, rows_in, rows_out)?;
-            Ok((
-                Arc::new(poly),
-                FitSummary {
-                    n: 0,
-                    training_pairs: info.rows,
-                    ridge_penalty: Some(info.penalty),
-                    training_rmse: Some(info.training_rmse),
-                    ridge_selection: None,
-                },
-            ))
-        }
+        ModelKind::Polynomial(p) => polynomial::closure::fit_regression(p, rows_in, rows_out),
         ModelKind::Esn(_) | ModelKind::Lstm(_) => {
             unreachable!("models with memory are fitted as sequence regressions")
         }
         ModelKind::Command(_) => Err(command_model(model)),
-    }
-}
-
-impl Regressor for polynomial::Polynomial {
-    fn inputs(&self) -> usize {
-        polynomial::Polynomial::inputs(self)
-    }
-    fn outputs(&self) -> usize {
-        polynomial::Polynomial::outputs(self)
-    }
-    fn predict(&self, x: &[f64], out: &mut [f64]) {
-        polynomial::Polynomial::predict(self, x, out)
     }
 }
 

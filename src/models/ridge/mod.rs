@@ -8,6 +8,8 @@
 //!   readout ([`fit_readout`], and [`fit_readout_toward`] a prior readout);
 //! * [`selection`]: the eigendecomposition, GCV scores, penalty grids and the one grid search
 //!   every ridge fit uses ([`select`]);
+//! * [`svd`]: ridge on an explicit design with an unpenalised constant, by SVD (the polynomial
+//!   fit);
 //! * [`nested`]: the one nested pass every ridge-readout family runs ([`nested_pass`]): a
 //!   source of feature/target rows, blocks at fixed positions, and the equations of every
 //!   prefix, the same bit for bit whatever other prefixes the pass evaluates.
@@ -26,6 +28,7 @@ pub mod nested;
 pub mod normal;
 pub mod penalty;
 pub mod selection;
+pub mod svd;
 
 pub use nested::{nested_pass, nested_readouts, Block, Layout, RowSource, Rows, BLOCK_ROWS};
 pub use normal::NormalEquations;
