@@ -7,9 +7,10 @@
 
 mod common;
 use closure_budget::data::column_stats;
+use closure_budget::models::command::{run_command_point, CommandParams, Returns};
+use closure_budget::models::family::ExternalPoint;
 use closure_budget::models::Persistence;
 use closure_budget::skill::{valid_times, IcSkill, SkillSpec};
-use closure_budget::study::command::{run_command_point, CommandParams, CommandPoint, Returns};
 use closure_budget::systems::{simulate, SimulationSpec, SystemSpec};
 use common::repo;
 use ndarray::s;
@@ -87,7 +88,7 @@ fn example_script_end_to_end() {
         let point_dir = dir.path().join(format!("n{n}-{returns:?}"));
         run_command_point(
             &params(returns),
-            &CommandPoint {
+            &ExternalPoint {
                 model: "example",
                 n,
                 replicate: 0,

@@ -17,7 +17,7 @@
 //! stability and climate: a closure that fits well offline and blows up online shows as exactly
 //! that.
 
-use super::{Forecaster, ModelError};
+use super::{FitSummary, Forecaster, ModelError};
 use crate::skill::BLOW_UP_SIGMAS;
 use crate::systems::lorenz96::l96_tendency;
 use ndarray::{Array2, ArrayView2};
@@ -257,6 +257,67 @@ impl ClosureMemory for LearnedMemory<'_> {
     }
 }
 
+/// The training data of a closure: resolved states `x` (T × K) and the coupling term `u` at the
+/// same samples, and which resolved variables the closure sees.
+#[derive(Debug, Clone, Copy)]
+pub struct ClosureData<'a> {
+    pub x: ArrayView2<'a, f64>,
+    pub u: ArrayView2<'a, f64>,
+    pub inputs: ClosureInputs,
+}
+
+/// Closures that need no memory, fitted on every prefix `sizes` of `data`: for each size n, the
+/// training rows of the first n samples ([`ClosureInputs::rows`]) go to `fit`, which returns
+/// the regression and its summary; the summary's `n` is set to n.
+pub fn fit_instant(
+    data: ClosureData,
+    sizes: &[usize],
+    fit: impl Fn(
+        ArrayView2<f64>,
+        ArrayView2<f64>,
+    ) -> Result<(Arc<dyn Regressor>, FitSummary), ModelError>,
+) -> Result<Vec<(ClosureForm, FitSummary)>, ModelError> {
+    sizes
+        .iter()
+        .map(|&n| {
+            let prefix = ndarray::s![..n, ..];
+            let (rows_in, rows_out) = data.inputs.rows(data.x.slice(prefix), data.u.slice(prefix));
+            let (regressor, mut summary) = fit(rows_in.view(), rows_out.view())?;
+            summary.n = n;
+            let closure = LearnedClosure {
+                regressor,
+                inputs: data.inputs,
+            };
+            Ok((ClosureForm::Instant(Arc::new(closure)), summary))
+        })
+        .collect()
+}
+
+/// A closure with memory from a sequence regression over `inputs` of `k` resolved variables
+/// (one channel per k for local inputs).
+pub fn memory_form(
+    regressor: Arc<dyn SequenceRegressor>,
+    inputs: ClosureInputs,
+    k: usize,
+) -> ClosureForm {
+    ClosureForm::Memory(Arc::new(LearnedMemoryClosure {
+        regressor,
+        inputs,
+        k,
+    }))
+}
+
+/// What the coarse solver of a closure needs.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Coupling {
+    /// Forcing F of the resolved equations.
+    pub forcing: f64,
+    /// Coarse RK4 step.
+    pub coarse_dt: f64,
+    /// Time between saved samples.
+    pub sample_interval: f64,
+}
+
 /// A closure as the coarse solver uses it: a function of the stage state, or one with memory.
 #[derive(Clone)]
 pub enum ClosureForm {
@@ -329,6 +390,16 @@ pub struct CoupledModel {
 }
 
 impl CoupledModel {
+    /// The coarse model of `coupling` with `closure` (see [`CoupledModel::new`]).
+    pub fn coupled(closure: ClosureForm, coupling: &Coupling) -> Result<Self, ModelError> {
+        Self::new(
+            closure,
+            coupling.forcing,
+            coupling.coarse_dt,
+            coupling.sample_interval,
+        )
+    }
+
     /// Checks that `sample_interval` is a whole number of coarse steps `dt`.
     pub fn new(
         closure: impl Into<ClosureForm>,
@@ -858,12 +929,9 @@ mod tests {
         .unwrap();
         let local = ClosureInputs::Local { half_width: 0 };
         let (rows_in, rows_out) = local.rows(sim.resolved.slice(train), u.slice(train));
-        let (poly, _) = crate::models::polynomial::fit_polynomial(
-            &quartic,
-            rows_in.view(),
-            rows_out.view(),
-        )
-        .unwrap();
+        let (poly, _) =
+            crate::models::polynomial::fit_polynomial(&quartic, rows_in.view(), rows_out.view())
+                .unwrap();
         let poly = LearnedClosure {
             regressor: Arc::new(poly),
             inputs: local,

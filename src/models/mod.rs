@@ -1,15 +1,42 @@
 //! Candidate models behind one [`Forecaster`] trait: the echo state network and next-generation
 //! reservoir computing (trained on every nested prefix in one pass through streaming ridge
-//! normal equations), polynomial regression, feed-forward and LSTM networks, closures coupled
-//! to the coarse solver, and the floors every report shows (persistence, climatology).
+//! normal equations), polynomial regression, feed-forward and LSTM networks, the user's own
+//! training command, closures coupled to the coarse solver, and the floors every report shows
+//! (persistence, climatology).
+//!
+//! Every family implements [`family::ModelFamily`] once and is listed in [`registry`]; the
+//! study engine knows the families only through these.
+
+/// Declares the model-family modules, one line each with the registrations the module
+/// exports ([`family::Registration`]); [`registry::FAMILIES`] lists them in this order. A new
+/// family is its own file plus one line here.
+macro_rules! families {
+    ($($module:ident::{$($registration:ident),+}),+ $(,)?) => {
+        $(pub mod $module;)+
+
+        /// The registrations declared by `families!`, as an array expression (for
+        /// [`registry::FAMILIES`]).
+        macro_rules! registrations {
+            () => {
+                [$($(crate::models::$module::$registration,)+)+]
+            };
+        }
+    };
+}
+
+families! {
+    esn::{FAMILY},
+    ngrc::{FAMILY},
+    nn::{MLP_FAMILY, LSTM_FAMILY},
+    polynomial::{FAMILY},
+    command::{FAMILY},
+}
 
 pub mod climatology;
 pub mod closure;
-pub mod esn;
+pub mod family;
 pub mod finetune;
-pub mod ngrc;
-pub mod nn;
-pub mod polynomial;
+pub mod registry;
 pub mod ridge;
 
 use ndarray::ArrayView2;
@@ -34,7 +61,7 @@ pub enum ModelError {
     SubsetBelowWashout { size: usize, washout: usize },
     #[error("reservoir state turned non-finite at training step {step}; lower `input-scaling` or `spectral-radius`")]
     NonFinite { step: usize },
-    #[error("model '{model}' is the user's own training command: command models are run point by point by the runner (study::command::run_command_point), not trained in process")]
+    #[error("model '{model}' is the user's own training command: command models are run point by point by the runner (models::command::run_command_point), not trained in process")]
     CommandModel { model: String },
     #[error("readout for the subset of {size} samples failed: {source}")]
     Ridge {

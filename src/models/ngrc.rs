@@ -9,14 +9,21 @@
 //! Reference: Gauthier, Bollt, Griffith & Barbosa (2021), "Next generation reservoir computing",
 //! Nat. Commun. 12, 5564.
 
+use super::closure::{fit_instant, ClosureInputs, Regressor};
+use super::family::{
+    read_settings, settings_json, ClosureData, FamilyError, ModelFamily, Registration,
+    RelativeCost, ClosureFits, Equations, FineTuning, Fits, Train, Trainer,
+};
 use super::finetune::{fine_tune_readouts, ValidFineTuneParams};
 use super::ridge::{
-    nested_pass, nested_readouts, Block, NormalEquations, Penalty, RidgeSelection, RowSource, Rows,
-    BLOCK_ROWS,
+    nested_pass, nested_readouts, Block, NormalEquations, Penalty, RidgeSelection, RowSource,
+    Rows, BLOCK_ROWS,
 };
 use super::{out_of_range, standardisation, FitSummary, Forecaster, ModelError, RidgeScaling};
 use ndarray::ArrayView2;
 use serde::{Deserialize, Serialize};
+use std::path::Path;
+use std::sync::Arc;
 
 /// Largest feature count F accepted: the Gram matrix is F × F and GCV decomposes it once per
 /// subset size.
@@ -1107,5 +1114,80 @@ impl NgrcRegression {
                 *o = w.iter().zip(feats.iter()).map(|(a, b)| a * b).sum();
             }
         });
+    }
+}
+
+impl Regressor for NgrcRegression {
+    fn inputs(&self) -> usize {
+        NgrcRegression::inputs(self)
+    }
+    fn outputs(&self) -> usize {
+        NgrcRegression::outputs(self)
+    }
+    fn predict(&self, x: &[f64], out: &mut [f64]) {
+        NgrcRegression::predict(self, x, out)
+    }
+}
+
+/// The key of the family in a `[[model]]` table, and its settings table read and checked.
+pub const FAMILY: Registration = Registration { key: "ngrc", build };
+
+fn build(table: toml::Value, _: &Path) -> Result<Box<dyn ModelFamily>, FamilyError> {
+    Ok(Box::new(read_settings::<NgrcParams>(table)?.check()?))
+}
+
+impl ModelFamily for ValidNgrcParams {
+    fn label(&self) -> &'static str {
+        "next-generation reservoir computer"
+    }
+
+    fn settings(&self) -> serde_json::Value {
+        settings_json(self.get())
+    }
+
+    fn relative_cost(&self) -> RelativeCost {
+        RelativeCost {
+            per_training_sample: 5.0,
+            per_forecast_step: 2.0,
+        }
+    }
+
+    /// As an emulator, standardised on the smallest subset; as a closure, each size's
+    /// regression standardises on its own rows.
+    fn standardised_on_smallest(&self, closure: bool) -> bool {
+        !closure
+    }
+
+    fn closure_unsupported(&self, _inputs: ClosureInputs) -> Option<&'static str> {
+        (self.get().delays != 1).then_some(
+            "delays = 1 for an NG-RC closure: the coarse solver asks for the coupling term from the current state at every RK stage, with no past to delay (for memory, use an echo state network or LSTM closure)",
+        )
+    }
+
+    fn trainer(&self) -> Trainer<'_> {
+        Trainer::InProcess(self)
+    }
+}
+
+impl Train for ValidNgrcParams {
+    type Model = Ngrc;
+
+    fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], _seed: u64) -> Fits<Ngrc> {
+        fit_nested(self, x, sizes)
+    }
+
+    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], _seed: u64) -> ClosureFits {
+        fit_instant(data, sizes, |rows_in, rows_out| {
+            let (regression, summary) = fit_regression(self, rows_in, rows_out)?;
+            Ok((Arc::new(regression) as Arc<dyn Regressor>, summary))
+        })
+    }
+
+    fn fine_tune(&self, base: &Ngrc, on: FineTuning) -> Fits<Ngrc> {
+        fine_tune_nested(base, self, on.tune, on.equations, on.target, on.ks)
+    }
+
+    fn equations(&self, base: &Ngrc, data: ArrayView2<f64>) -> Option<Equations> {
+        Some(base.normal_equations(data))
     }
 }

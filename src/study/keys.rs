@@ -1,25 +1,31 @@
 //! Content-hash keys of skill records: a record is reused by a later run exactly when
 //! everything that determines it is unchanged.
 //!
-//! A point's key is the SHA-256 of a canonical text naming: the results version
-//! ([`RESULTS_VERSION`]), the model's specification (family, settings, use) and seed, the
-//! subset the model is standardised on when that is not its own subset, the subset size n, the
-//! content of the n training samples actually used (and their coupling terms for closures), the
-//! held-out test data with the skill definition, and for closures the coarse solver and the
-//! checks run on it. The study file's name, the thread count and the other sizes do not enter:
-//! they do not change the record.
+//! A point's key is the SHA-256 of a canonical JSON document ([`point_identity`]: sorted keys,
+//! no white space) naming: the results version
+//! ([`RESULTS_VERSION`]), the model's family and the identity its family gives (its settings
+//! as serialised for `plan.json`, plus the content of the files a command names), its use and
+//! seed, the subset the model is standardised on when that is not its own subset, the subset
+//! size n, the content of the n training samples actually used (and their coupling terms for
+//! closures), the held-out test data with the skill definition, and for closures the coarse
+//! solver and the checks run on it. The study file's name, the thread count and the other sizes
+//! do not enter: they do not change the record. Nor do the names of the settings' Rust types
+//! and fields: only the documented names of the study file's keys.
 
-use super::plan::{ClosurePlan, ModelKind, ModelPlan, ModelUse};
-use super::train::Coupling;
+use super::plan::{ClosurePlan, ModelPlan, ModelUse};
 use crate::data::Split;
+use crate::models::closure::Coupling;
 use crate::skill::SkillSpec;
 use ndarray::ArrayView2;
 use sha2::{Digest, Sha256};
 
-/// Version of the computations behind a record. Raise it when a change alters any record's
-/// values (a model's arithmetic, the skill definition, the split); changes that leave records
-/// bit-for-bit equal keep it, so their results stay reusable.
-pub const RESULTS_VERSION: u32 = 1;
+/// Version of the computations behind a record and of the key document ([`point_identity`]).
+/// Raise it when a change alters any record's values (a model's arithmetic, the skill
+/// definition, the split) or what enters a key and how it is written: every stored point then
+/// becomes stale once. Changes that leave records and keys bit-for-bit equal keep it, so their
+/// results stay reusable. Version 2: keys hash a canonical JSON document of the settings
+/// instead of a text of Rust type and field names.
+pub const RESULTS_VERSION: u32 = 2;
 
 /// Hex SHA-256 of the rows `start .. start + n` of `a` (and of `b`, when given) for every n of
 /// `sizes` (ascending), in one pass.
@@ -86,18 +92,12 @@ pub fn test_hash(
     hex(&h.finalize())
 }
 
-/// Whether a model's fit at size n also depends on the smallest size of the study: the nested
-/// ridge families standardise their inputs on the smallest subset, which every larger one
-/// contains. Other families fit each size on its own prefix alone.
+/// Whether a model's fit at size n also depends on the smallest size of the study, for its use
+/// (see [`crate::models::family::ModelFamily::standardised_on_smallest`]).
 pub fn standardised_on_smallest(model: &ModelPlan) -> bool {
-    matches!(
-        (&model.kind, model.usage),
-        (ModelKind::Esn(_), _)
-            | (
-                ModelKind::Ngrc(_) | ModelKind::Polynomial(_),
-                ModelUse::Emulator
-            )
-    )
+    model
+        .kind
+        .standardised_on_smallest(model.usage.is_closure())
 }
 
 /// What a point's key is made of.
@@ -115,30 +115,78 @@ pub struct PointIdentity<'a> {
     pub closure: Option<(Coupling, &'a ClosurePlan)>,
 }
 
-/// The key of one point.
-pub fn point_key(p: &PointIdentity) -> String {
-    let standardisation = if standardised_on_smallest(p.model) {
-        format!("first {} samples", p.smallest)
+/// The document a point's key hashes, before canonical serialisation.
+pub fn point_identity(p: &PointIdentity) -> serde_json::Value {
+    let standardised_on = if standardised_on_smallest(p.model) {
+        serde_json::json!(p.smallest)
     } else {
-        "own subset".into()
+        serde_json::Value::Null
     };
-    let closure = match &p.closure {
-        Some((c, plan)) => format!(
-            "forcing {:?}, coarse dt {:?}, sample interval {:?}, free runs {} over {:?}",
-            c.forcing, c.coarse_dt, c.sample_interval, plan.free_runs, plan.free_run_horizon
-        ),
-        None => "none".into(),
+    let model_use = match p.model.usage {
+        ModelUse::Emulator => serde_json::json!({ "role": "emulator" }),
+        ModelUse::Closure(inputs) => serde_json::json!({ "role": "closure", "inputs": inputs }),
     };
-    let model = match &p.model.kind {
-        ModelKind::Command(c) => format!("the user's command\n{}", c.identity()),
-        kind => format!("{kind:?}"),
-    };
-    let text = format!(
-        "closure-budget point, results version {RESULTS_VERSION}\nmodel {model}\nuse {:?}\nseed {}\n\
-         standardised on {standardisation}\nn {}\ntraining data {}\ntest {}\ncoarse solver {closure}\n",
-        p.model.usage, p.seed, p.n, p.data, p.test
-    );
+    let closure = p.closure.map(|(c, plan)| {
+        serde_json::json!({
+            "forcing": c.forcing,
+            "coarse-dt": c.coarse_dt,
+            "sample-interval": c.sample_interval,
+            "free-runs": plan.free_runs,
+            "free-run-horizon": plan.free_run_horizon,
+        })
+    });
+    serde_json::json!({
+        "results-version": RESULTS_VERSION,
+        "family": p.model.kind.key(),
+        "model": p.model.kind.identity(),
+        "use": model_use,
+        "seed": p.seed,
+        "standardised-on-first-samples": standardised_on,
+        "n": p.n,
+        "training-data": p.data,
+        "test": p.test,
+        "coarse-solver": closure,
+    })
+}
+
+/// The key of one point: hex SHA-256 of the canonical JSON of [`point_identity`].
+pub fn point_key(p: &PointIdentity) -> String {
+    let mut text = String::new();
+    canonical_json(&point_identity(p), &mut text);
     hex(&Sha256::digest(text.as_bytes()))
+}
+
+/// Writes `v` as JSON with every object's keys in sorted order and no white space, whatever
+/// order the value holds them in: the same document always gives the same text. Numbers are
+/// written by serde_json (shortest text that reads back to the same value).
+pub fn canonical_json(v: &serde_json::Value, out: &mut String) {
+    match v {
+        serde_json::Value::Object(map) => {
+            let mut entries: Vec<(&String, &serde_json::Value)> = map.iter().collect();
+            entries.sort_by(|a, b| a.0.cmp(b.0));
+            out.push('{');
+            for (i, (k, value)) in entries.into_iter().enumerate() {
+                if i > 0 {
+                    out.push(',');
+                }
+                out.push_str(&serde_json::Value::String(k.clone()).to_string());
+                out.push(':');
+                canonical_json(value, out);
+            }
+            out.push('}');
+        }
+        serde_json::Value::Array(items) => {
+            out.push('[');
+            for (i, item) in items.iter().enumerate() {
+                if i > 0 {
+                    out.push(',');
+                }
+                canonical_json(item, out);
+            }
+            out.push(']');
+        }
+        scalar => out.push_str(&scalar.to_string()),
+    }
 }
 
 fn hex(bytes: &[u8]) -> String {
@@ -148,7 +196,105 @@ fn hex(bytes: &[u8]) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::study::plan::ModelKind;
     use ndarray::Array2;
+
+    fn model(key: &str, table: &str, usage: ModelUse) -> ModelPlan {
+        ModelPlan {
+            name: "m".into(),
+            kind: ModelKind::build(
+                key,
+                toml::from_str(table).unwrap(),
+                std::path::Path::new("."),
+            )
+            .unwrap(),
+            usage,
+        }
+    }
+
+    fn key_of(model: &ModelPlan, n: usize) -> String {
+        point_key(&PointIdentity {
+            model,
+            seed: 7,
+            smallest: 100,
+            n,
+            data: "d",
+            test: "t",
+            closure: None,
+        })
+    }
+
+    /// Canonical JSON sorts keys at every depth and writes no white space, whatever order the
+    /// document was built in.
+    #[test]
+    fn canonical_json_sorts_keys_at_every_depth() {
+        let a: serde_json::Value =
+            serde_json::from_str(r#"{"b": [1, {"y": 2.5, "x": null}], "a": "s"}"#).unwrap();
+        let b: serde_json::Value =
+            serde_json::from_str(r#"{"a": "s", "b": [1, {"x": null, "y": 2.5}]}"#).unwrap();
+        let (mut ta, mut tb) = (String::new(), String::new());
+        canonical_json(&a, &mut ta);
+        canonical_json(&b, &mut tb);
+        assert_eq!(ta, r#"{"a":"s","b":[1,{"x":null,"y":2.5}]}"#);
+        assert_eq!(ta, tb);
+    }
+
+    /// The model part of a key is the family's key and its settings as written to `plan.json`:
+    /// the default written out or left implicit gives the same key; any setting, the family,
+    /// the use, the size or the seed changes it; the document of a fixed point is pinned, so a
+    /// change to what enters a key shows here (raise [`RESULTS_VERSION`] with it).
+    #[test]
+    fn keys_follow_the_settings_not_how_they_are_written() {
+        let esn = model("esn", "reservoir-size = 60", ModelUse::Emulator);
+        let explicit = model("esn", "reservoir-size = 60\ndegree = 6", ModelUse::Emulator);
+        assert_eq!(key_of(&esn, 200), key_of(&explicit, 200));
+        let other = model("esn", "reservoir-size = 61", ModelUse::Emulator);
+        assert_ne!(key_of(&esn, 200), key_of(&other, 200));
+        assert_ne!(key_of(&esn, 200), key_of(&esn, 400));
+        let closure = model(
+            "esn",
+            "reservoir-size = 60",
+            ModelUse::Closure(crate::models::closure::ClosureInputs::Global),
+        );
+        assert_ne!(key_of(&esn, 200), key_of(&closure, 200));
+        let identity = point_identity(&PointIdentity {
+            model: &esn,
+            seed: 7,
+            smallest: 100,
+            n: 200,
+            data: "d",
+            test: "t",
+            closure: None,
+        });
+        assert_eq!(identity["family"], "esn");
+        assert_eq!(identity["model"], esn.kind.settings());
+        assert_eq!(identity["standardised-on-first-samples"], 100);
+        assert_eq!(identity["results-version"], RESULTS_VERSION);
+        let poly = model("polynomial", "degree = 2", ModelUse::Emulator);
+        let poly_identity = point_identity(&PointIdentity {
+            model: &poly,
+            seed: 7,
+            smallest: 100,
+            n: 200,
+            data: "d",
+            test: "t",
+            closure: None,
+        });
+        assert!(poly_identity["standardised-on-first-samples"].is_null());
+        let mut text = String::new();
+        canonical_json(&identity, &mut text);
+        assert_eq!(
+            text,
+            format!(
+                r#"{{"coarse-solver":null,"family":"esn","model":{},"n":200,"results-version":{RESULTS_VERSION},"seed":7,"standardised-on-first-samples":100,"test":"t","training-data":"d","use":{{"role":"emulator"}}}}"#,
+                {
+                    let mut m = String::new();
+                    canonical_json(&esn.kind.settings(), &mut m);
+                    m
+                }
+            )
+        );
+    }
 
     #[test]
     fn prefix_hashes_depend_on_the_prefix_only() {

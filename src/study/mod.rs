@@ -1,8 +1,6 @@
 //! Studies: the study file schema, its validation into a plan, the results contract, the
-//! records store, the runner that turns a plan into results, and the protocol that runs the
-//! user's own training script as a model.
+//! records store, and the runner that turns a plan into results.
 
-pub mod command;
 pub mod history;
 pub mod keys;
 pub mod measured;

@@ -2,14 +2,13 @@
 //! the records store already holds, their split into shards, and the computing of the missing
 //! ones (train each (model, replicate) unit on its missing sizes, score, append to the store).
 
-use super::command::{run_command_point, CommandPoint};
 use super::keys::{self, PointIdentity};
-use super::plan::ModelKind;
 use super::plan::StudyPlan;
 use super::records::{PointCost, RecordStore, SkillRecord};
 use super::runner::{bar_with_template, derive_seed, score_batched, ClosureReference, Prepared};
 use super::train::train_unit;
 use super::StudyError;
+use crate::models::family::{ExternalPoint, RelativeCost, Trainer};
 use crate::models::FitSummary;
 use crate::skill;
 use rayon::prelude::*;
@@ -209,15 +208,10 @@ pub(super) fn estimated_cost(plan: &StudyPlan, model: usize, n: usize, prep: &Pr
     let m = &plan.models[model];
     // Per training sample and per forecast step, in arbitrary units (orders of magnitude from
     // the demo's measured costs: recurrent networks train slowest, reservoirs step slowest).
-    let (train, step) = match &m.kind {
-        ModelKind::Esn(_) => (20.0, 40.0),
-        ModelKind::Ngrc(_) => (5.0, 2.0),
-        ModelKind::Polynomial(_) => (5.0, 2.0),
-        ModelKind::Mlp(_) => (150.0, 10.0),
-        ModelKind::Lstm(_) => (300.0, 10.0),
-        // Unknown: the user's script; taken as dear as the dearest built-in family.
-        ModelKind::Command(_) => (300.0, 40.0),
-    };
+    let RelativeCost {
+        per_training_sample: train,
+        per_forecast_step: step,
+    } = m.kind.relative_cost();
     let closure = if m.usage.is_closure() { 4.0 } else { 1.0 };
     let steps = prep.split.initial_conditions.len() as f64
         * (prep.skill.warm_up + prep.skill.max_lead / 4) as f64;
@@ -328,7 +322,7 @@ pub(super) fn compute(
             let model = &plan.models[unit.model];
             let wanted = &missing[i];
             let rows = ndarray::s![unit.window_start..unit.window_start + largest, ..];
-            if let ModelKind::Command(params) = &model.kind {
+            if let Trainer::External(trainer) = model.kind.trainer() {
                 let costs = cost_of(i);
                 let records = wanted
                     .iter()
@@ -339,7 +333,7 @@ pub(super) fn compute(
                             .join("commands")
                             .join(&model.name)
                             .join(format!("r{}-n{n}", unit.replicate));
-                        let point = CommandPoint {
+                        let point = ExternalPoint {
                             model: &model.name,
                             n,
                             replicate: unit.replicate,
@@ -354,7 +348,7 @@ pub(super) fn compute(
                             variables: &prep.traj.meta.variables,
                             dir: &dir,
                         };
-                        let per_ic = match run_command_point(params, &point) {
+                        let per_ic = match trainer.run_point(&point) {
                             // The inputs are a copy of data the study holds; a failed point's
                             // directory stays for inspection.
                             Ok(v) => {

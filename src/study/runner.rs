@@ -6,7 +6,6 @@ use super::plan::{to_samples, DataSource, ModelUse, StudyPlan};
 use super::points::{self, PointTally, Shard};
 use super::records::{read_records, ClosureChecks, PointCost, RecordStore, SkillRecord};
 use super::results::*;
-use super::train::Coupling;
 use super::StudyError;
 use crate::cost::campaign::Campaign;
 use crate::cost::runs::RunTable;
@@ -15,7 +14,7 @@ use crate::data::{
     column_stats, read_trajectory, Split, SplitSpec, Trajectory, TrajectoryMeta, SIDECAR_SCHEMA,
 };
 use crate::models::climatology::Climatology;
-use crate::models::closure::{free_run_check, offline_r2, CoupledModel};
+use crate::models::closure::{free_run_check, offline_r2, CoupledModel, Coupling};
 use crate::models::Persistence;
 use crate::skill::{self, IcSkill, SkillSpec};
 use crate::systems::{simulate, SimulationSpec};

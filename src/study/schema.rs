@@ -2,13 +2,13 @@
 //! plain structs only mirror the file; [`super::plan`] checks them into a plan.
 
 use crate::cost::CostInputs;
-use crate::models::esn::EsnParams;
+use crate::models::family::FamilyError;
 use crate::systems::SystemSpec;
 use serde::{Deserialize, Serialize};
 use std::path::PathBuf;
 
 /// A whole study file.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Deserialize)]
 #[serde(rename_all = "kebab-case", deny_unknown_fields)]
 pub struct StudyFile {
     /// Title shown in the report.
@@ -175,34 +175,104 @@ pub struct GeometricSizes {
     pub count: usize,
 }
 
-/// `[[model]]`: one candidate model; exactly one kind table.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+/// `[[model]]`: one candidate model; exactly one kind table, keyed by a family of
+/// [`crate::models::registry`] (`esn`, `ngrc`, `mlp`, `lstm`, `polynomial` or `command`).
+///
+/// Keys other than the ones below and the registered families are refused while reading the
+/// file; a family's table is read (unknown keys refused) when the file is, and checked when the
+/// plan is.
+#[derive(Debug, Clone, PartialEq)]
 pub struct ModelSection {
     /// Name used in outputs (letters, digits, `-`, `_`).
     pub name: String,
     /// "emulator" (default: predicts the next resolved state) or "closure" (predicts the subgrid
     /// coupling term and runs inside the coarse solver; two-scale Lorenz-96 data only).
-    #[serde(default)]
     pub role: Role,
     /// Closures only: "local" (default: one map from a stencil of neighbours to each U_k) or
     /// "global" (all U from all X).
     pub inputs: Option<String>,
     /// Closures with local inputs: stencil half-width s, inputs X_(k−s) … X_(k+s) (default 1).
     pub half_width: Option<usize>,
-    /// Echo state network settings.
-    pub esn: Option<EsnParams>,
-    /// Polynomial regression settings.
-    pub polynomial: Option<crate::models::polynomial::PolynomialParams>,
-    /// Next-generation reservoir computing settings.
-    pub ngrc: Option<crate::models::ngrc::NgrcParams>,
-    /// Feed-forward network settings.
-    pub mlp: Option<crate::models::nn::MlpParams>,
-    /// LSTM network settings.
-    pub lstm: Option<crate::models::nn::LstmParams>,
-    /// Your own training script, run once per (replicate, subset size) through the protocol of
-    /// [`crate::study::command`] (emulators only).
-    pub command: Option<crate::study::command::CommandParams>,
+    /// The family tables given, in the file's order (exactly one in a valid study): the
+    /// settings of the family, e.g. `esn = { reservoir-size = 300 }`, or the user's own
+    /// training script (`command = { ... }`, run once per (replicate, subset size) through the
+    /// protocol of [`crate::models::command`]; emulators only).
+    pub families: Vec<FamilyTable>,
+}
+
+/// A model family's settings table as written.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FamilyTable {
+    /// The family's registered key.
+    pub key: &'static str,
+    /// The table.
+    pub value: toml::Value,
+}
+
+/// The keys of a `[[model]]` table besides the family tables.
+const MODEL_KEYS: [&str; 4] = ["name", "role", "inputs", "half-width"];
+
+impl<'de> Deserialize<'de> for ModelSection {
+    fn deserialize<D: serde::Deserializer<'de>>(deserializer: D) -> Result<Self, D::Error> {
+        deserializer.deserialize_map(ModelVisitor)
+    }
+}
+
+struct ModelVisitor;
+
+impl<'de> serde::de::Visitor<'de> for ModelVisitor {
+    type Value = ModelSection;
+
+    fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+        f.write_str("a [[model]] table")
+    }
+
+    fn visit_map<A: serde::de::MapAccess<'de>>(self, mut map: A) -> Result<ModelSection, A::Error> {
+        use serde::de::Error;
+        let (mut name, mut role, mut inputs, mut half_width) = (None, None, None, None);
+        let mut families = Vec::new();
+        while let Some(key) = map.next_key::<String>()? {
+            match key.as_str() {
+                "name" => name = Some(map.next_value()?),
+                "role" => role = Some(map.next_value()?),
+                "inputs" => inputs = Some(map.next_value()?),
+                "half-width" => half_width = Some(map.next_value()?),
+                other => match crate::models::registry::find(other) {
+                    Some(registration) => {
+                        let value: toml::Value = map.next_value()?;
+                        // Read it now, so a misspelt setting is reported with the file's line.
+                        if let Err(FamilyError::Parse(message)) =
+                            (registration.build)(value.clone(), std::path::Path::new("."))
+                        {
+                            return Err(A::Error::custom(message));
+                        }
+                        families.push(FamilyTable {
+                            key: registration.key,
+                            value,
+                        });
+                    }
+                    None => {
+                        let keys: Vec<String> = MODEL_KEYS
+                            .iter()
+                            .chain(crate::models::registry::FAMILIES.iter().map(|r| &r.key))
+                            .map(|k| format!("`{k}`"))
+                            .collect();
+                        return Err(A::Error::custom(format!(
+                            "unknown field `{other}`, expected one of {}",
+                            keys.join(", ")
+                        )));
+                    }
+                },
+            }
+        }
+        Ok(ModelSection {
+            name: name.ok_or_else(|| A::Error::missing_field("name"))?,
+            role: role.unwrap_or_default(),
+            inputs,
+            half_width,
+            families,
+        })
+    }
 }
 
 /// What a model predicts.

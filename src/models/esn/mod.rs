@@ -14,6 +14,11 @@ mod sequence;
 
 pub use sequence::{fit_sequence_nested, EsnSequence};
 
+use super::closure::memory_form;
+use super::family::{
+    read_settings, settings_json, ClosureData, FamilyError, ModelFamily, Registration,
+    RelativeCost, ClosureFits, Equations, FineTuning, Fits, Train, Trainer,
+};
 use super::finetune::{fine_tune_readouts, ValidFineTuneParams};
 use super::ridge::{
     nested_pass, nested_readouts, Block, NormalEquations, Penalty, RidgeSelection, RowSource, Rows,
@@ -23,6 +28,7 @@ use ndarray::ArrayView2;
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use serde::{Deserialize, Serialize};
+use std::path::Path;
 use std::sync::Arc;
 
 /// Echo state network settings as written in a study file.
@@ -597,6 +603,75 @@ impl Forecaster for Esn {
         sink: &mut dyn FnMut(usize, usize, &[f64]) -> bool,
     ) {
         self.forecast_many(histories, steps, sink);
+    }
+}
+
+/// The key of the family in a `[[model]]` table, and its settings table read and checked.
+pub const FAMILY: Registration = Registration { key: "esn", build };
+
+fn build(table: toml::Value, _: &Path) -> Result<Box<dyn ModelFamily>, FamilyError> {
+    Ok(Box::new(read_settings::<EsnParams>(table)?.check()?))
+}
+
+impl ModelFamily for ValidEsnParams {
+    fn label(&self) -> &'static str {
+        "echo state network"
+    }
+
+    fn settings(&self) -> serde_json::Value {
+        settings_json(self.get())
+    }
+
+    fn relative_cost(&self) -> RelativeCost {
+        // Reservoirs step slowest.
+        RelativeCost {
+            per_training_sample: 20.0,
+            per_forecast_step: 40.0,
+        }
+    }
+
+    fn has_memory(&self) -> bool {
+        true
+    }
+
+    fn standardised_on_smallest(&self, _closure: bool) -> bool {
+        true
+    }
+
+    fn trainer(&self) -> Trainer<'_> {
+        Trainer::InProcess(self)
+    }
+}
+
+impl Train for ValidEsnParams {
+    type Model = Esn;
+
+    fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], seed: u64) -> Fits<Esn> {
+        fit_nested(self, x, sizes, seed)
+    }
+
+    /// A closure with memory: one reservoir state per channel (per k for local inputs), driven
+    /// by the input rows of the largest prefix.
+    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits {
+        let largest = *sizes.last().ok_or(ModelError::NoSizes)?;
+        let prefix = ndarray::s![..largest.min(data.x.nrows()), ..];
+        let (rows_in, rows_out) = data.inputs.rows(data.x.slice(prefix), data.u.slice(prefix));
+        let k = data.x.ncols();
+        let channels = data.inputs.channels(k);
+        Ok(
+            fit_sequence_nested(self, rows_in.view(), rows_out.view(), channels, sizes, seed)?
+                .into_iter()
+                .map(|(m, summary)| (memory_form(Arc::new(m), data.inputs, k), summary))
+                .collect(),
+        )
+    }
+
+    fn fine_tune(&self, base: &Esn, on: FineTuning) -> Fits<Esn> {
+        fine_tune_nested(base, self, on.tune, on.equations, on.target, on.ks)
+    }
+
+    fn equations(&self, base: &Esn, data: ArrayView2<f64>) -> Option<Equations> {
+        Some(base.normal_equations(data, self.get().washout))
     }
 }
 

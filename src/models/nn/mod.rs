@@ -11,6 +11,7 @@
 //! Proc. IEEE 78(10) (backpropagation through time).
 
 mod emulator;
+mod family;
 mod kernels;
 mod lstm;
 mod mlp;
@@ -22,6 +23,7 @@ pub use emulator::{
     fine_tune_lstm_emulator, fine_tune_mlp_emulator, fit_lstm_emulator, fit_mlp_emulator,
     LstmEmulator, MlpEmulator,
 };
+pub use family::{LSTM_FAMILY, MLP_FAMILY};
 pub use lstm::{train_lstm, Lstm, LstmScratch};
 pub use mlp::{train_mlp, Mlp, MlpScratch};
 pub use sequence::{fit_lstm_sequence, LstmSequence};

@@ -24,9 +24,16 @@ pub use emulator::{fine_tune_emulator_nested, fit_emulator_nested, PolynomialEmu
 pub use features::{monomial_count, MonomialMap};
 pub use fit::{fit_polynomial, least_squares_qr_multi, PolyFitInfo, Polynomial};
 
+use super::family::{
+    read_settings, settings_json, ClosureData, FamilyError, ModelFamily, Registration,
+    RelativeCost, ClosureFits, Equations, FineTuning, Fits, Train, Trainer,
+};
+use super::closure::fit_instant;
 use super::ridge::RidgeSelection;
 use super::{out_of_range, ModelError};
+use ndarray::ArrayView2;
 use serde::{Deserialize, Serialize};
+use std::path::Path;
 
 /// Highest polynomial degree accepted.
 pub const MAX_DEGREE: usize = 5;
@@ -108,6 +115,69 @@ impl PolynomialParams {
     }
 }
 
+/// The key of the family in a `[[model]]` table, and its settings table read and checked. In a
+/// study, `stencil` must stay 0: a closure's stencil is the model's `half-width`.
+pub const FAMILY: Registration = Registration {
+    key: "polynomial",
+    build,
+};
+
+fn build(table: toml::Value, _: &Path) -> Result<Box<dyn ModelFamily>, FamilyError> {
+    let p: PolynomialParams = read_settings(table)?;
+    if p.stencil != 0 {
+        return Err(out_of_range(
+            "stencil",
+            p.stencil.to_string(),
+            "0 in a study: a closure's stencil is the model's `half-width`",
+        )
+        .into());
+    }
+    Ok(Box::new(p.check()?))
+}
+
+impl ModelFamily for ValidPolynomialParams {
+    fn label(&self) -> &'static str {
+        "polynomial regression"
+    }
+
+    fn settings(&self) -> serde_json::Value {
+        settings_json(self.get())
+    }
+
+    fn relative_cost(&self) -> RelativeCost {
+        RelativeCost {
+            per_training_sample: 5.0,
+            per_forecast_step: 2.0,
+        }
+    }
+
+    fn trainer(&self) -> Trainer<'_> {
+        Trainer::InProcess(self)
+    }
+}
+
+impl Train for ValidPolynomialParams {
+    type Model = PolynomialEmulator;
+
+    fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], _seed: u64) -> Fits<PolynomialEmulator> {
+        fit_emulator_nested(self, x, sizes)
+    }
+
+    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], _seed: u64) -> ClosureFits {
+        fit_instant(data, sizes, |rows_in, rows_out| {
+            closure::fit_regression(self, rows_in, rows_out)
+        })
+    }
+
+    fn fine_tune(&self, base: &PolynomialEmulator, on: FineTuning) -> Fits<PolynomialEmulator> {
+        fine_tune_emulator_nested(base, self, on.tune, on.equations, on.target, on.ks)
+    }
+
+    fn equations(&self, base: &PolynomialEmulator, data: ArrayView2<f64>) -> Option<Equations> {
+        Some(base.normal_equations(data))
+    }
+}
+
 #[cfg(test)]
 pub(super) mod tests {
     use super::*;
@@ -163,5 +233,25 @@ pub(super) mod tests {
             "0.1",
         );
         bad(PolynomialParams { stencil: 17, ..d() }, "stencil", "17");
+    }
+
+    /// In a study, the polynomial's table is read and checked by its registration: `stencil`
+    /// must stay 0 there, and unknown keys are refused with the key named.
+    #[test]
+    fn study_tables_refuse_a_stencil_and_unknown_keys() {
+        let table = |text: &str| -> toml::Value { toml::from_str(text).unwrap() };
+        let family = (FAMILY.build)(table("degree = 4"), Path::new(".")).unwrap();
+        assert_eq!(family.settings()["degree"], 4);
+        let e = (FAMILY.build)(table("stencil = 1"), Path::new("."))
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("`stencil` = 1") && e.contains("half-width"),
+            "{e}"
+        );
+        let e = (FAMILY.build)(table("order = 3"), Path::new("."))
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("unknown field `order`"), "{e}");
     }
 }

@@ -18,7 +18,12 @@
 //! every product and factorisation runs sequentially inside one fit, so results do not depend on
 //! the thread count.
 //!
-//! The formulas of GCV from the normal equations are in [`selection`].
+//! # Generalised cross-validation from the normal equations
+//!
+//! With G = VEVᵀ and C = VᵀB, for any λ: W = V diag(1/(e + λ)) C; the residual sum of squares is
+//! RSS(λ) = Σy² − Σ_i Σ_k c_ik² (e_i + 2λ)/(e_i + λ)²; the effective degrees of freedom are
+//! df(λ) = tr H = Σ_i e_i/(e_i + λ); and GCV(λ) = N·RSS(λ)/(N − df(λ))², summed over outputs
+//! (every output shares df). One O(F³) decomposition makes each λ cost O(F·D).
 //!
 //! References: Hoerl & Kennard (1970), "Ridge regression", Technometrics 12(1); Golub, Heath &
 //! Wahba (1979), "Generalized cross-validation as a method for choosing a good ridge parameter",

@@ -21,9 +21,13 @@
 //! current directory. It must exit with status 0 within `timeout` seconds; on timeout the tool
 //! kills its whole process group (SIGKILL).
 
+use super::family::{
+    read_settings, settings_json, ExternalPoint, ExternalTrainer, FamilyError, ModelFamily,
+    Registration, RelativeCost, Trainer,
+};
+use super::{out_of_range, Forecaster, ModelError};
 use crate::atomic::write_atomic;
 use crate::data::{read_npy, write_npy, DataError};
-use crate::models::{out_of_range, Forecaster, ModelError};
 use crate::skill::{IcSkill, SkillSpec, BLOW_UP_SIGMAS};
 use ndarray::{s, Array2, Array3, ArrayView2, Ix3};
 use serde::{Deserialize, Serialize};
@@ -142,27 +146,25 @@ impl ValidCommandParams {
     /// returns, and the content of every file it names (the program and any argument that is a
     /// file, e.g. the script), so editing the script makes its points stale. The timeout and
     /// where the study file lies do not enter.
-    pub fn identity(&self) -> String {
-        let mut text = format!(
-            "program {:?}\nargs {:?}\nreturns {}\n",
-            self.params.program,
-            self.params.args,
-            self.params.returns.label()
-        );
+    pub fn identity(&self) -> serde_json::Value {
         let program = self.program();
-        let files =
-            std::iter::once(program).chain(self.params.args.iter().map(|a| self.workdir.join(a)));
-        for f in files {
-            if let Ok(bytes) = std::fs::read(&f) {
+        let files: Vec<serde_json::Value> = std::iter::once(program)
+            .chain(self.params.args.iter().map(|a| self.workdir.join(a)))
+            .filter_map(|f| {
+                let bytes = std::fs::read(&f).ok()?;
                 let name = f.file_name().map(|n| n.to_string_lossy().into_owned());
-                text.push_str(&format!(
-                    "file {} sha256 {}\n",
-                    name.unwrap_or_default(),
-                    crate::data::hash_bytes(&bytes)
-                ));
-            }
-        }
-        text
+                Some(serde_json::json!({
+                    "name": name.unwrap_or_default(),
+                    "sha256": crate::data::hash_bytes(&bytes),
+                }))
+            })
+            .collect();
+        serde_json::json!({
+            "program": self.params.program,
+            "args": self.params.args,
+            "returns": self.params.returns.label(),
+            "files": files,
+        })
     }
 
     /// The program to start: a relative path with a `/` is taken from the working directory.
@@ -217,37 +219,85 @@ impl CommandParams {
     }
 }
 
-/// One point of a study for a command model: what the script trains on and is tested on.
-#[derive(Debug, Clone, Copy)]
-pub struct CommandPoint<'a> {
-    /// The model's name.
-    pub model: &'a str,
-    /// Subset size in samples.
-    pub n: usize,
-    pub replicate: usize,
-    /// Seed the script should use for its random choices.
-    pub seed: u64,
-    /// n × d training subset (resolved variables).
-    pub train: ArrayView2<'a, f64>,
-    /// The whole trajectory the test initial conditions index into.
-    pub truth: ArrayView2<'a, f64>,
-    /// Test initial conditions: sample indices into `truth`.
-    pub ics: &'a [usize],
-    /// How skill is measured.
-    pub skill: &'a SkillSpec,
-    /// Names of the d variables.
-    pub variables: &'a [String],
-    /// A fresh working directory for this point (created when missing).
-    pub dir: &'a Path,
+/// The key of the family in a `[[model]]` table, and its settings read and checked (a
+/// relative `workdir` is taken from the study file's directory).
+pub const FAMILY: Registration = Registration {
+    key: "command",
+    build,
+};
+
+fn build(table: toml::Value, base: &Path) -> Result<Box<dyn ModelFamily>, FamilyError> {
+    Ok(Box::new(
+        read_settings::<CommandParams>(table)?.check(base)?,
+    ))
 }
 
-impl CommandPoint<'_> {
-    fn id(&self) -> PointId {
-        PointId {
-            model: self.model.to_string(),
-            n: self.n,
-            replicate: self.replicate,
+impl ModelFamily for ValidCommandParams {
+    fn label(&self) -> &'static str {
+        "training command"
+    }
+
+    fn settings(&self) -> serde_json::Value {
+        settings_json(self.get())
+    }
+
+    fn identity(&self) -> serde_json::Value {
+        ValidCommandParams::identity(self)
+    }
+
+    /// The command line, what it returns, its timeout and working directory.
+    fn describe(&self) -> String {
+        let c = self.get();
+        format!(
+            "{} `{}` (returns {}, timeout {} s, working directory {})",
+            self.label(),
+            std::iter::once(c.program.as_str())
+                .chain(c.args.iter().map(String::as_str))
+                .collect::<Vec<_>>()
+                .join(" "),
+            c.returns.label(),
+            c.timeout,
+            self.workdir().display()
+        )
+    }
+
+    /// Unknown: the user's script; taken as dear as the dearest built-in family.
+    fn relative_cost(&self) -> RelativeCost {
+        RelativeCost {
+            per_training_sample: 300.0,
+            per_forecast_step: 40.0,
         }
+    }
+
+    fn closure_unsupported(
+        &self,
+        _inputs: crate::models::closure::ClosureInputs,
+    ) -> Option<&'static str> {
+        Some(
+            "role = \"emulator\" (the default) for a command model: closures run inside the tool's coarse solver, which asks for the coupling term at every RK stage and cannot call an external program there",
+        )
+    }
+
+    fn trainer(&self) -> Trainer<'_> {
+        Trainer::External(self)
+    }
+}
+
+impl ExternalTrainer for ValidCommandParams {
+    fn run_point(
+        &self,
+        point: &ExternalPoint,
+    ) -> Result<Vec<IcSkill>, Box<dyn std::error::Error + Send + Sync>> {
+        Ok(run_command_point(self, point)?)
+    }
+}
+
+/// Which point of a study `p` is.
+fn point_id(p: &ExternalPoint) -> PointId {
+    PointId {
+        model: p.model.to_string(),
+        n: p.n,
+        replicate: p.replicate,
     }
 }
 
@@ -435,9 +485,9 @@ pub fn skill_definition(spec: &SkillSpec) -> String {
 /// Never panics on what the script writes.
 pub fn run_command_point(
     params: &ValidCommandParams,
-    point: &CommandPoint,
+    point: &ExternalPoint,
 ) -> Result<Vec<IcSkill>, CommandError> {
-    let id = point.id();
+    let id = point_id(point);
     check_point(point).map_err(|reason| CommandError::InvalidPoint {
         point: id.clone(),
         reason,
@@ -487,7 +537,7 @@ pub fn run_command_point(
 }
 
 /// What a caller must guarantee; checked so that a mistake is an error, not a panic.
-fn check_point(p: &CommandPoint) -> Result<(), String> {
+fn check_point(p: &ExternalPoint) -> Result<(), String> {
     let d = p.variables.len();
     let s = p.skill;
     if d == 0 {
@@ -525,7 +575,7 @@ fn check_point(p: &CommandPoint) -> Result<(), String> {
 
 /// Writes `train.npy`, `histories.npy` and `manifest.json` (each atomically) and removes stale
 /// output; returns the manifest.
-fn write_inputs(p: &CommandPoint, returns: Returns) -> Result<Manifest, DataError> {
+fn write_inputs(p: &ExternalPoint, returns: Returns) -> Result<Manifest, DataError> {
     let write_err = |path: &Path| {
         let path = path.to_path_buf();
         move |source| DataError::Write { path, source }
@@ -736,7 +786,7 @@ fn stderr_tail(path: &Path) -> Box<StderrTail> {
 }
 
 /// Reads `forecasts.npy` and checks its shape (M × max-lead × d).
-fn read_forecasts(path: &Path, p: &CommandPoint) -> Result<Array3<f64>, String> {
+fn read_forecasts(path: &Path, p: &ExternalPoint) -> Result<Array3<f64>, String> {
     let shape = (p.ics.len(), p.skill.max_lead, p.variables.len());
     let expected = format!(
         "({}, {}, {}) (initial conditions × max-lead × variables)",
@@ -765,7 +815,7 @@ fn read_forecasts(path: &Path, p: &CommandPoint) -> Result<Array3<f64>, String> 
 }
 
 /// Reads `skill.json` and checks every value.
-fn read_skill(path: &Path, p: &CommandPoint) -> Result<Vec<IcSkill>, String> {
+fn read_skill(path: &Path, p: &ExternalPoint) -> Result<Vec<IcSkill>, String> {
     const MAX_BYTES: u64 = 64 << 20;
     let bytes = std::fs::metadata(path).map(|m| m.len()).unwrap_or(0);
     if bytes > MAX_BYTES {
@@ -833,7 +883,7 @@ struct Replay {
 }
 
 impl Replay {
-    fn new(forecasts: Array3<f64>, p: &CommandPoint) -> Self {
+    fn new(forecasts: Array3<f64>, p: &ExternalPoint) -> Self {
         let initial = p.truth.select(ndarray::Axis(0), p.ics);
         Self {
             forecasts: forecasts.as_standard_layout().into_owned(),
@@ -928,8 +978,8 @@ mod tests {
     }
 
     impl Fixture {
-        fn point<'a>(&'a self, dir: &'a Path) -> CommandPoint<'a> {
-            CommandPoint {
+        fn point<'a>(&'a self, dir: &'a Path) -> ExternalPoint<'a> {
+            ExternalPoint {
                 model: "net",
                 n: 8,
                 replicate: 1,

@@ -1,0 +1,158 @@
+//! The feed-forward network and the LSTM as model families: their registrations, what they
+//! refuse, and how the study engine trains them.
+
+use super::{
+    fine_tune_lstm_emulator, fine_tune_mlp_emulator, fit_lstm_emulator, fit_lstm_sequence,
+    fit_mlp_emulator, train_mlp, LstmEmulator, LstmParams, MlpEmulator, MlpParams, ValidLstmParams,
+    ValidMlpParams,
+};
+use crate::models::closure::{fit_instant, memory_form, ClosureInputs, Regressor};
+use crate::models::family::{
+    read_settings, settings_json, ClosureData, FamilyError, ModelFamily, Registration,
+    RelativeCost, ClosureFits, FineTuning, Fits, Train, Trainer,
+};
+use crate::models::FitSummary;
+use ndarray::ArrayView2;
+use std::path::Path;
+use std::sync::Arc;
+
+/// The key of the feed-forward family in a `[[model]]` table, and its settings read and checked.
+pub const MLP_FAMILY: Registration = Registration {
+    key: "mlp",
+    build: build_mlp,
+};
+
+/// The key of the LSTM family in a `[[model]]` table, and its settings read and checked.
+pub const LSTM_FAMILY: Registration = Registration {
+    key: "lstm",
+    build: build_lstm,
+};
+
+fn build_mlp(table: toml::Value, _: &Path) -> Result<Box<dyn ModelFamily>, FamilyError> {
+    Ok(Box::new(read_settings::<MlpParams>(table)?.check()?))
+}
+
+fn build_lstm(table: toml::Value, _: &Path) -> Result<Box<dyn ModelFamily>, FamilyError> {
+    Ok(Box::new(read_settings::<LstmParams>(table)?.check()?))
+}
+
+impl ModelFamily for ValidMlpParams {
+    fn label(&self) -> &'static str {
+        "feed-forward network"
+    }
+
+    fn settings(&self) -> serde_json::Value {
+        settings_json(self.get())
+    }
+
+    fn relative_cost(&self) -> RelativeCost {
+        RelativeCost {
+            per_training_sample: 150.0,
+            per_forecast_step: 10.0,
+        }
+    }
+
+    fn closure_unsupported(&self, _inputs: ClosureInputs) -> Option<&'static str> {
+        (self.get().window != 1).then_some(
+            "window = 1 for a feed-forward closure: the coarse solver asks for the coupling term from the current state at every RK stage (for memory, use an LSTM closure)",
+        )
+    }
+
+    fn trainer(&self) -> Trainer<'_> {
+        Trainer::InProcess(self)
+    }
+}
+
+impl Train for ValidMlpParams {
+    type Model = MlpEmulator;
+
+    fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], seed: u64) -> Fits<MlpEmulator> {
+        fit_mlp_emulator(self, x, sizes, seed)
+    }
+
+    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits {
+        fit_instant(data, sizes, |rows_in, rows_out| {
+            let (net, report) = train_mlp(self, rows_in, rows_out, seed, None)?;
+            let summary = FitSummary {
+                n: 0,
+                training_pairs: rows_in.nrows(),
+                ridge_penalty: None,
+                training_rmse: Some(report.training_mse.sqrt()),
+                ridge_selection: None,
+            };
+            Ok((Arc::new(net) as Arc<dyn Regressor>, summary))
+        })
+    }
+
+    /// A warm start from the base's weights (no normal equations needed).
+    fn fine_tune(&self, base: &MlpEmulator, on: FineTuning) -> Fits<MlpEmulator> {
+        fine_tune_mlp_emulator(base, self, on.tune, on.target, on.ks, on.seed)
+    }
+}
+
+impl ModelFamily for ValidLstmParams {
+    fn label(&self) -> &'static str {
+        "LSTM network"
+    }
+
+    fn settings(&self) -> serde_json::Value {
+        settings_json(self.get())
+    }
+
+    fn relative_cost(&self) -> RelativeCost {
+        // Recurrent networks train slowest.
+        RelativeCost {
+            per_training_sample: 300.0,
+            per_forecast_step: 10.0,
+        }
+    }
+
+    fn has_memory(&self) -> bool {
+        true
+    }
+
+    fn closure_unsupported(&self, inputs: ClosureInputs) -> Option<&'static str> {
+        (inputs != ClosureInputs::Global).then_some(
+            "inputs = \"global\" for an LSTM closure: it is trained on the windows of consecutive saved samples of all resolved variables",
+        )
+    }
+
+    fn trainer(&self) -> Trainer<'_> {
+        Trainer::InProcess(self)
+    }
+}
+
+impl Train for ValidLstmParams {
+    type Model = LstmEmulator;
+
+    fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], seed: u64) -> Fits<LstmEmulator> {
+        fit_lstm_emulator(self, x, sizes, seed)
+    }
+
+    /// A closure with memory of the window of saved samples before the current one (global
+    /// inputs).
+    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits {
+        let k = data.x.ncols();
+        Ok(fit_lstm_sequence(self, data.x, data.u, sizes, seed)?
+            .into_iter()
+            .map(|(m, summary)| (memory_form(Arc::new(m), data.inputs, k), summary))
+            .collect())
+    }
+
+    /// A warm start from the base's weights (no normal equations needed).
+    fn fine_tune(&self, base: &LstmEmulator, on: FineTuning) -> Fits<LstmEmulator> {
+        fine_tune_lstm_emulator(base, self, on.tune, on.target, on.ks, on.seed)
+    }
+}
+
+impl Regressor for super::Mlp {
+    fn inputs(&self) -> usize {
+        super::Mlp::inputs(self)
+    }
+    fn outputs(&self) -> usize {
+        super::Mlp::outputs(self)
+    }
+    fn predict(&self, x: &[f64], out: &mut [f64]) {
+        super::Mlp::predict(self, x, out)
+    }
+}
