@@ -2,7 +2,11 @@
 //! (`.npy` + JSON sidecar, CSV), content hashing, and the training/test split.
 
 pub mod autocorr;
+pub mod coarse;
+pub mod dataset;
+pub mod ensemble;
 mod io;
+pub mod pod;
 mod split;
 
 pub use io::{read_npy, read_trajectory, write_npy, write_trajectory, OutputFormats};
