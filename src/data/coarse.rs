@@ -184,9 +184,7 @@ pub fn coarse_grain_snapshots(
     let (fields, columns) = coarse_layout(&snap.meta.fields, filter)?;
     let mut values = Array2::zeros((snap.values.nrows(), columns));
     for (old, new) in snap.meta.fields.iter().zip(&fields) {
-        let part = snap
-            .values
-            .slice(ndarray::s![.., old.columns.clone()]);
+        let part = snap.values.slice(ndarray::s![.., old.columns.clone()]);
         let c = filter.apply(&old.name, &old.dims, &old.shape, part)?;
         values
             .slice_mut(ndarray::s![.., new.columns.clone()])
@@ -286,18 +284,27 @@ mod tests {
             .apply("u", &["y".into(), "x".into()], &[5, 6], x.view())
             .unwrap_err()
             .to_string();
-        assert!(e.contains("'u'") && e.contains("'y'") && e.contains("5 points"), "{e}");
+        assert!(
+            e.contains("'u'") && e.contains("'y'") && e.contains("5 points"),
+            "{e}"
+        );
         let e = CoarseGrain::new(&[2])
             .apply("u", &dims(2), &[5, 6], x.view())
             .unwrap_err()
             .to_string();
-        assert!(e.contains("2 grid dimensions") && e.contains("1 coarsening"), "{e}");
+        assert!(
+            e.contains("2 grid dimensions") && e.contains("1 coarsening"),
+            "{e}"
+        );
         let f = CoarseGrain {
             factors: vec![1, 2],
             periodic: vec![],
             shift: vec![0, 1],
         };
-        let e = f.apply("u", &dims(2), &[5, 6], x.view()).unwrap_err().to_string();
+        let e = f
+            .apply("u", &dims(2), &[5, 6], x.view())
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("not periodic"), "{e}");
     }
 }

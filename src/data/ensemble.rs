@@ -71,7 +71,11 @@ impl Ensemble {
             }
             if t.meta.variables != vars {
                 let detail = if t.meta.variables.len() != vars.len() {
-                    format!("{} columns instead of {}", t.meta.variables.len(), vars.len())
+                    format!(
+                        "{} columns instead of {}",
+                        t.meta.variables.len(),
+                        vars.len()
+                    )
                 } else {
                     let k = t
                         .meta
@@ -80,7 +84,10 @@ impl Ensemble {
                         .zip(&vars)
                         .position(|(a, b)| a != b)
                         .expect("lists differ");
-                    format!("column {k} is '{}' instead of '{}'", t.meta.variables[k], vars[k])
+                    format!(
+                        "column {k} is '{}' instead of '{}'",
+                        t.meta.variables[k], vars[k]
+                    )
                 };
                 return Err(EnsembleError::Variables {
                     run: name,
@@ -268,7 +275,9 @@ mod tests {
 
     fn traj(n: usize, vars: &[&str], dt: f64, seed: f64) -> Trajectory {
         Trajectory {
-            values: Array2::from_shape_fn((n, vars.len()), |(i, j)| seed + i as f64 + 0.1 * j as f64),
+            values: Array2::from_shape_fn((n, vars.len()), |(i, j)| {
+                seed + i as f64 + 0.1 * j as f64
+            }),
             subgrid: None,
             meta: TrajectoryMeta {
                 schema: SIDECAR_SCHEMA.into(),
@@ -308,14 +317,20 @@ mod tests {
         ])
         .unwrap_err()
         .to_string();
-        assert!(err.contains("'b'") && err.contains("column 1 is 'z'"), "{err}");
+        assert!(
+            err.contains("'b'") && err.contains("column 1 is 'z'"),
+            "{err}"
+        );
         let err = Ensemble::new(vec![
             ("a".into(), traj(10, &["x"], 0.5, 0.0)),
             ("b".into(), traj(10, &["x"], 0.25, 0.0)),
         ])
         .unwrap_err()
         .to_string();
-        assert!(err.contains("0.25") && err.contains("sampling interval"), "{err}");
+        assert!(
+            err.contains("0.25") && err.contains("sampling interval"),
+            "{err}"
+        );
         assert!(Ensemble::new(vec![]).is_err());
     }
 }

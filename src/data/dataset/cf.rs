@@ -73,7 +73,11 @@ impl Cf {
         let fills: Vec<f64> = fills.into_iter().map(to_unsigned).collect();
         let (mut valid_min, mut valid_max) = (single("valid_min")?, single("valid_max")?);
         if let Some(r) = numbers("valid_range")? {
-            if r.len() != 2 || !(r[0] <= r[1]) {
+            if r.len() != 2
+                || r[0].partial_cmp(&r[1]) == Some(std::cmp::Ordering::Greater)
+                || r[0].is_nan()
+                || r[1].is_nan()
+            {
                 return Err(bad(
                     "valid_range",
                     format!("expected two numbers, minimum then maximum, got {r:?}"),
@@ -195,13 +199,19 @@ mod tests {
     fn default_fill_nan_valid_range_and_unsigned() {
         let cf = Cf::from_variable(Path::new("f.nc"), &var(DataType::F32, &[])).unwrap();
         let mut out = [0.0; 2];
-        let fill = 9.969_209_968_386_869e36_f32 as f64;
+        let fill = 9.969_21e36_f32 as f64;
         assert_eq!(cf.apply(&[1.0, fill], &mut out).unwrap_err().0, 1);
         assert_eq!(cf.apply(&[f64::NAN, 1.0], &mut out).unwrap_err().0, 0);
         let n = |v: Vec<f64>| AttrValue::Numbers(v);
         let cf = Cf::from_variable(
             Path::new("f.nc"),
-            &var(DataType::I8, &[("valid_range", n(vec![0.0, 200.0])), ("_Unsigned", AttrValue::Text("true".into()))]),
+            &var(
+                DataType::I8,
+                &[
+                    ("valid_range", n(vec![0.0, 200.0])),
+                    ("_Unsigned", AttrValue::Text("true".into())),
+                ],
+            ),
         )
         .unwrap();
         // -56 as an unsigned byte is 200, inside the valid range; -55 is 201, outside.
@@ -210,10 +220,16 @@ mod tests {
         assert_eq!(cf.apply(&[3.0, -55.0], &mut out).unwrap_err().0, 1);
         let e = Cf::from_variable(
             Path::new("f.nc"),
-            &var(DataType::F64, &[("scale_factor", AttrValue::Text("2".into()))]),
+            &var(
+                DataType::F64,
+                &[("scale_factor", AttrValue::Text("2".into()))],
+            ),
         )
         .unwrap_err()
         .to_string();
-        assert!(e.contains("'w'") && e.contains("scale_factor") && e.contains("text"), "{e}");
+        assert!(
+            e.contains("'w'") && e.contains("scale_factor") && e.contains("text"),
+            "{e}"
+        );
     }
 }

@@ -283,7 +283,9 @@ impl Slice {
         }
         let stop = self.stop.unwrap_or(len);
         if stop > len {
-            return Err(bad(format!("stop {stop} is past the end; use at most {len}")));
+            return Err(bad(format!(
+                "stop {stop} is past the end; use at most {len}"
+            )));
         }
         if self.start >= stop {
             return Err(bad(format!(
@@ -845,15 +847,14 @@ impl Dataset {
             self.source.read_slab(i, &[plan.time_span], &mut raw)?;
             let cf = Cf::from_variable(&self.path, &var)?;
             let mut values = vec![0.0; raw.len()];
-            cf.apply(&raw, &mut values).map_err(|(pos, value, why)| {
-                DatasetError::Gap {
+            cf.apply(&raw, &mut values)
+                .map_err(|(pos, value, why)| DatasetError::Gap {
                     path: self.path.clone(),
                     name: var.name.clone(),
                     index: plan.time_span.at(pos).to_string(),
                     value,
                     why,
-                }
-            })?;
+                })?;
             axis.values = Some(values);
             axis.units = var.text_attr("units");
             axis.calendar = var.text_attr("calendar");

@@ -279,7 +279,10 @@ pub(super) fn open(path: &Path, mut file: File) -> Result<Opened, DatasetError> 
         for _ in 0..rank {
             let id = h.count()? as usize;
             if id >= dims.len() {
-                return Err(h.bad(format!("variable '{name}' names dimension id {id}, but there are {} dimensions", dims.len())));
+                return Err(h.bad(format!(
+                    "variable '{name}' names dimension id {id}, but there are {} dimensions",
+                    dims.len()
+                )));
             }
             ids.push(id);
         }
@@ -288,7 +291,11 @@ pub(super) fn open(path: &Path, mut file: File) -> Result<Opened, DatasetError> 
         let dtype = type_of(code, cdf5)
             .ok_or_else(|| h.bad(format!("variable '{name}' has unknown type {code}")))?;
         let _vsize = h.count()?;
-        let begin = if wide_offsets { h.u64()? } else { h.u32()? as u64 };
+        let begin = if wide_offsets {
+            h.u64()?
+        } else {
+            h.u32()? as u64
+        };
         let record = rank > 0 && Some(ids[0]) == record_dim;
         if ids.iter().skip(1).any(|&i| Some(i) == record_dim) {
             return Err(h.bad(format!(
@@ -411,10 +418,12 @@ impl Netcdf3Source {
         self.file
             .seek(SeekFrom::Start(base + first * size as u64))
             .map_err(io)?;
-        self.file.read_exact(&mut self.buf).map_err(|source| DatasetError::Io {
-            path: self.path.clone(),
-            source,
-        })?;
+        self.file
+            .read_exact(&mut self.buf)
+            .map_err(|source| DatasetError::Io {
+                path: self.path.clone(),
+                source,
+            })?;
         if stride == 1 {
             decode(dtype, true, &self.buf, out);
         } else {
@@ -539,18 +548,30 @@ impl Netcdf3Writer {
         let mut sizes = Vec::new();
         for v in &schema.variables {
             if code_of(&v.dtype).is_none() {
-                return Err(bad(format!("variable '{}': type {} cannot be written", v.name, v.dtype)));
+                return Err(bad(format!(
+                    "variable '{}': type {} cannot be written",
+                    v.name, v.dtype
+                )));
             }
             let mut vid = Vec::new();
             for (k, d) in v.dims.iter().enumerate() {
-                let i = dim_index(d)
-                    .ok_or_else(|| bad(format!("variable '{}' names unknown dimension '{d}'", v.name)))?;
+                let i = dim_index(d).ok_or_else(|| {
+                    bad(format!(
+                        "variable '{}' names unknown dimension '{d}'",
+                        v.name
+                    ))
+                })?;
                 if schema.dimensions[i].1.is_none() && k != 0 {
-                    return Err(bad(format!("variable '{}': the unlimited dimension must come first", v.name)));
+                    return Err(bad(format!(
+                        "variable '{}': the unlimited dimension must come first",
+                        v.name
+                    )));
                 }
                 vid.push(i);
             }
-            let record = vid.first().is_some_and(|&i| schema.dimensions[i].1.is_none());
+            let record = vid
+                .first()
+                .is_some_and(|&i| schema.dimensions[i].1.is_none());
             let bytes: u64 = vid
                 .iter()
                 .filter_map(|&i| schema.dimensions[i].1)
@@ -574,38 +595,43 @@ impl Netcdf3Writer {
                 h.extend(s.as_bytes());
                 h.resize(pad4(h.len() as u64) as usize, 0);
             };
-            let attrs = |h: &mut Vec<u8>, list: &[(String, AttrValue)], vtype: Option<&DataType>| {
-                if list.is_empty() {
-                    h.extend([0u8; 8]);
-                    return;
-                }
-                h.extend(NC_ATTRIBUTE.to_be_bytes());
-                h.extend((list.len() as u32).to_be_bytes());
-                for (n, v) in list {
-                    name(h, n);
-                    match v {
-                        AttrValue::Text(t) => {
-                            h.extend(2u32.to_be_bytes());
-                            h.extend((t.len() as u32).to_be_bytes());
-                            h.extend(t.as_bytes());
-                        }
-                        AttrValue::Numbers(x) => {
-                            let own = matches!(
-                                n.as_str(),
-                                "_FillValue" | "missing_value" | "valid_min" | "valid_max" | "valid_range"
-                            );
-                            let t = match vtype {
-                                Some(t) if own => t.clone(),
-                                _ => DataType::F64,
-                            };
-                            h.extend(code_of(&t).expect("writable type").to_be_bytes());
-                            h.extend((x.len() as u32).to_be_bytes());
-                            encode(&t, x, h);
-                        }
+            let attrs =
+                |h: &mut Vec<u8>, list: &[(String, AttrValue)], vtype: Option<&DataType>| {
+                    if list.is_empty() {
+                        h.extend([0u8; 8]);
+                        return;
                     }
-                    h.resize(pad4(h.len() as u64) as usize, 0);
-                }
-            };
+                    h.extend(NC_ATTRIBUTE.to_be_bytes());
+                    h.extend((list.len() as u32).to_be_bytes());
+                    for (n, v) in list {
+                        name(h, n);
+                        match v {
+                            AttrValue::Text(t) => {
+                                h.extend(2u32.to_be_bytes());
+                                h.extend((t.len() as u32).to_be_bytes());
+                                h.extend(t.as_bytes());
+                            }
+                            AttrValue::Numbers(x) => {
+                                let own = matches!(
+                                    n.as_str(),
+                                    "_FillValue"
+                                        | "missing_value"
+                                        | "valid_min"
+                                        | "valid_max"
+                                        | "valid_range"
+                                );
+                                let t = match vtype {
+                                    Some(t) if own => t.clone(),
+                                    _ => DataType::F64,
+                                };
+                                h.extend(code_of(&t).expect("writable type").to_be_bytes());
+                                h.extend((x.len() as u32).to_be_bytes());
+                                encode(&t, x, h);
+                            }
+                        }
+                        h.resize(pad4(h.len() as u64) as usize, 0);
+                    }
+                };
             if schema.dimensions.is_empty() {
                 h.extend([0u8; 8]);
             } else {
@@ -653,11 +679,16 @@ impl Netcdf3Writer {
         for (k, &(bytes, record)) in sizes.iter().enumerate() {
             if record {
                 begins[k] = at;
-                at += if record_count == 1 { bytes } else { pad4(bytes) };
+                at += if record_count == 1 {
+                    bytes
+                } else {
+                    pad4(bytes)
+                };
             }
         }
         let record_size = at - record_start;
-        if schema.variant == Netcdf3Variant::Classic && begins.iter().any(|&b| b > i32::MAX as u64) {
+        if schema.variant == Netcdf3Variant::Classic && begins.iter().any(|&b| b > i32::MAX as u64)
+        {
             return Err(bad(
                 "a variable starts beyond 2 GiB, past what the classic format can address; use the 64-bit offset variant".into(),
             ));
@@ -737,7 +768,9 @@ impl Netcdf3Writer {
 
     /// Appends one record: one slice per record variable, in the order of the schema.
     pub fn write_record(&mut self, values: &[&[f64]]) -> Result<(), DatasetError> {
-        let record_vars: Vec<usize> = (0..self.places.len()).filter(|&k| self.places[k].2).collect();
+        let record_vars: Vec<usize> = (0..self.places.len())
+            .filter(|&k| self.places[k].2)
+            .collect();
         if values.len() != record_vars.len() {
             return Err(self.bad(format!(
                 "a record needs {} slices (one per record variable), got {}",

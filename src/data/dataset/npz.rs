@@ -184,9 +184,7 @@ pub(super) fn open(path: &Path, file: File) -> Result<Opened, DatasetError> {
         let limited = BufReader::new(f.take(compressed_size));
         let header = match storage {
             Storage::Stored => parse_npy_header(&mut { limited }),
-            Storage::Deflated => {
-                parse_npy_header(&mut flate2::read::DeflateDecoder::new(limited))
-            }
+            Storage::Deflated => parse_npy_header(&mut flate2::read::DeflateDecoder::new(limited)),
         }
         .map_err(|reason| bad(format!("member '{name}': {reason}")))?;
         let (dtype, big_endian) = npy_type(&header.descr);
@@ -207,7 +205,9 @@ pub(super) fn open(path: &Path, file: File) -> Result<Opened, DatasetError> {
         }
         variables.push(Variable {
             name: var_name.to_string(),
-            dims: (0..header.shape.len()).map(|k| format!("axis{k}")).collect(),
+            dims: (0..header.shape.len())
+                .map(|k| format!("axis{k}"))
+                .collect(),
             shape: header.shape.clone(),
             dtype: dtype.clone(),
             attributes: BTreeMap::new(),
@@ -343,7 +343,10 @@ mod tests {
         v1.extend((h.len() as u16).to_le_bytes());
         v1.extend(h);
         let p = parse_npy_header(&mut v1.as_slice()).unwrap();
-        assert_eq!((p.descr.as_str(), p.fortran, p.shape.clone()), (">i2", false, vec![3, 4]));
+        assert_eq!(
+            (p.descr.as_str(), p.fortran, p.shape.clone()),
+            (">i2", false, vec![3, 4])
+        );
         assert_eq!(p.len, 10 + h.len() as u64);
         assert_eq!(npy_type(&p.descr), (DataType::I16, true));
         let h = b"{'descr': '<f4', 'fortran_order': True, 'shape': (7,), }\n";
@@ -351,12 +354,18 @@ mod tests {
         v2.extend((h.len() as u32).to_le_bytes());
         v2.extend(h);
         let p = parse_npy_header(&mut v2.as_slice()).unwrap();
-        assert_eq!((p.fortran, p.shape.clone(), p.len), (true, vec![7], 12 + h.len() as u64));
+        assert_eq!(
+            (p.fortran, p.shape.clone(), p.len),
+            (true, vec![7], 12 + h.len() as u64)
+        );
         let h = b"{'descr': '<f8', 'fortran_order': False, 'shape': (), }\n";
         let mut v = b"\x93NUMPY\x01\x00".to_vec();
         v.extend((h.len() as u16).to_le_bytes());
         v.extend(h);
-        assert!(parse_npy_header(&mut v.as_slice()).unwrap().shape.is_empty());
+        assert!(parse_npy_header(&mut v.as_slice())
+            .unwrap()
+            .shape
+            .is_empty());
         assert!(matches!(npy_type("<c16").0, DataType::Other(_)));
     }
 }

@@ -44,8 +44,10 @@ impl DataType {
         self.is_numeric() && !matches!(self, DataType::F32 | DataType::F64)
     }
 
-    /// The netCDF default fill value of the type (netcdf.h `NC_FILL_*`, from memory; NetCDF
-    /// User Guide, "Fill Values"), or `None` for bytes, whose default fill is not applied.
+    /// The netCDF default fill value of the type (netcdf.h `NC_FILL_*`, the values
+    /// netCDF4-python lists in `netCDF4.default_fillvals`; 9.969209968386869e36 for both float
+    /// types), or `None` for bytes, whose default fill the NetCDF User Guide ("Fill Values")
+    /// advises not to apply.
     pub fn default_fill(&self) -> Option<f64> {
         match self {
             DataType::I16 => Some(-32767.0),
@@ -54,8 +56,8 @@ impl DataType {
             DataType::U32 => Some(4294967295.0),
             DataType::I64 => Some(-9223372036854775806.0),
             DataType::U64 => Some(18446744073709551614.0),
-            DataType::F32 => Some(9.969_209_968_386_869e36_f32 as f64),
-            DataType::F64 => Some(9.969_209_968_386_869e36),
+            DataType::F32 => Some(f32::from_bits(0x7cf0_0000) as f64),
+            DataType::F64 => Some(f64::from_bits(0x479e_0000_0000_0000)),
             _ => None,
         }
     }
