@@ -407,6 +407,33 @@ fn errors_name_the_file_the_variable_and_what_to_do() {
         })
         .unwrap();
     assert_eq!(ok.values.nrows(), 116);
+    // Axes of .npz arrays are independent, except time, which must agree.
+    let npz = dir.join("mixed.npz");
+    let script = format!(
+        "import numpy as np\nnp.savez({p:?}, a=np.ones((10, 3)), b=np.arange(40.0).reshape(10, 4), c=np.zeros((12, 2)))\n",
+        p = npz.to_string_lossy()
+    );
+    let out = Command::new("python3")
+        .args(["-c", &script])
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let mut z = Dataset::open(&npz).unwrap();
+    let ab = z.read(&Selection::variables(&["a", "b"])).unwrap();
+    assert_eq!(ab.values.ncols(), 7);
+    assert_eq!(ab.values[(9, 6)], 39.0);
+    let e = z
+        .read(&Selection::variables(&["a", "c"]))
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("'axis0'") && e.contains("10 in 'a'") && e.contains("12 in 'c'"),
+        "{e}"
+    );
     // A single .npy is not a dataset; the message says what to do.
     let npy = dir.join("one.npy");
     write_npy(&npy, &ndarray::Array2::<f64>::zeros((2, 2))).unwrap();

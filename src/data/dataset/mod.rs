@@ -730,6 +730,10 @@ impl Dataset {
             })?;
             for (d, &len) in var.dims.iter().zip(&var.shape) {
                 used_dims.insert(d.clone());
+                // Axes of `.npz` arrays are not shared, except that time must agree.
+                if self.dimensions.is_empty() && d != &time {
+                    continue;
+                }
                 match seen.get(d) {
                     Some((l, other)) if *l != len => {
                         return Err(DatasetError::DimensionMismatch {

@@ -814,3 +814,106 @@ impl Netcdf3Writer {
         Ok(())
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::super::{Dataset, Selection, Slice};
+    use super::*;
+
+    fn var(name: &str, dims: &[&str], dtype: DataType) -> Netcdf3Variable {
+        Netcdf3Variable {
+            name: name.into(),
+            dims: dims.iter().map(|s| s.to_string()).collect(),
+            dtype,
+            attributes: vec![],
+        }
+    }
+
+    #[test]
+    fn time_need_not_be_the_first_dimension_and_shorts_are_padded() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("a.nc");
+        let schema = Netcdf3Schema {
+            variant: Netcdf3Variant::Classic,
+            dimensions: vec![
+                ("rec".into(), None),
+                ("x".into(), Some(3)),
+                ("time".into(), Some(4)),
+            ],
+            attributes: vec![],
+            variables: vec![
+                // A fixed-size variable with time last: a(x, time) = 10 x + time.
+                var("a", &["x", "time"], DataType::F64),
+                // Two record variables of 3 shorts (6 bytes, padded to 8 in each record).
+                var("s", &["rec", "x"], DataType::I16),
+                var("f", &["rec"], DataType::F32),
+            ],
+        };
+        let mut w = Netcdf3Writer::create(&path, schema).unwrap();
+        let a: Vec<f64> = (0..3)
+            .flat_map(|x| (0..4).map(move |t| (10 * x + t) as f64))
+            .collect();
+        w.write_fixed("a", &a).unwrap();
+        for r in 0..5 {
+            let s: Vec<f64> = (0..3).map(|x| (100 * r + x) as f64).collect();
+            w.write_record(&[&s, &[r as f64 + 0.5]]).unwrap();
+        }
+        w.finish().unwrap();
+        let mut ds = Dataset::open(&path).unwrap();
+        let snap = ds
+            .read(&Selection {
+                variables: vec!["a".into()],
+                time: Some("time".into()),
+                time_slice: Slice::new(1, None, 2),
+                ..Selection::default()
+            })
+            .unwrap();
+        // Rows are times 1 and 3; columns x = 0, 1, 2.
+        assert_eq!(snap.values.row(0).to_vec(), vec![1.0, 11.0, 21.0]);
+        assert_eq!(snap.values.row(1).to_vec(), vec![3.0, 13.0, 23.0]);
+        let snap = ds.read(&Selection::variables(&["f", "s"])).unwrap();
+        assert_eq!(snap.values.nrows(), 5);
+        assert_eq!(snap.values.row(4).to_vec(), vec![4.5, 400.0, 401.0, 402.0]);
+    }
+
+    #[test]
+    fn damaged_headers_and_truncated_files_are_refused() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("b.nc");
+        let schema = Netcdf3Schema {
+            variant: Netcdf3Variant::Offset64,
+            dimensions: vec![("time".into(), None), ("x".into(), Some(4))],
+            attributes: vec![],
+            variables: vec![var("u", &["time", "x"], DataType::F64)],
+        };
+        let mut w = Netcdf3Writer::create(&path, schema).unwrap();
+        for r in 0..3 {
+            w.write_record(&[&[r as f64; 4]]).unwrap();
+        }
+        w.finish().unwrap();
+        let bytes = std::fs::read(&path).unwrap();
+        std::fs::write(&path, &bytes[..bytes.len() - 8]).unwrap();
+        let e = Dataset::open(&path).unwrap_err().to_string();
+        assert!(e.contains("truncated") && e.contains("'u'"), "{e}");
+        let mut bad = bytes.clone();
+        bad[3] = 3;
+        std::fs::write(&path, &bad).unwrap();
+        let e = Dataset::open(&path).unwrap_err().to_string();
+        assert!(e.contains("version byte 3"), "{e}");
+        // A dimension count of 2^30 cannot fit in a file of a few hundred bytes.
+        let mut bad = bytes.clone();
+        bad[12..16].copy_from_slice(&(1u32 << 30).to_be_bytes());
+        std::fs::write(&path, &bad).unwrap();
+        let e = Dataset::open(&path).unwrap_err().to_string();
+        assert!(e.contains("declares 1073741824 dimensions"), "{e}");
+        // Streaming files (numrecs = -1) take the record count from the file size.
+        let mut streaming = bytes.clone();
+        streaming[4..8].copy_from_slice(&[0xff; 4]);
+        std::fs::write(&path, &streaming).unwrap();
+        let snap = Dataset::open(&path)
+            .unwrap()
+            .read(&Selection::variables(&["u"]))
+            .unwrap();
+        assert_eq!(snap.values.nrows(), 3);
+    }
+}

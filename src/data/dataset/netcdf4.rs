@@ -5,7 +5,8 @@
 //! Reference: NetCDF C library, `nc_get_vars` (Unidata NetCDF-C documentation).
 
 use super::{AttrValue, DataType, DatasetError, Dimension, Format, Opened, Source, Span, Variable};
-use netcdf::{AttributeValue, Extent, Extents, NcVariableType};
+use netcdf::types::NcVariableType;
+use netcdf::{AttributeValue, Extent, Extents};
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
