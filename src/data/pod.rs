@@ -30,7 +30,7 @@ use super::dataset::{Dataset, DatasetError, FieldLayout, Plan};
 use faer::dyn_stack::{MemBuffer, MemStack};
 use faer::linalg::evd::{self_adjoint_evd, self_adjoint_evd_scratch, ComputeEigenvectors};
 use faer::linalg::matmul::{matmul, triangular};
-use faer::{Accum, Col, Mat, Par};
+use faer::{Accum, Col, Mat, MatRef, Par};
 use ndarray::{Array2, ArrayView2};
 use serde::{Deserialize, Serialize};
 use std::ops::Range;
@@ -75,7 +75,7 @@ pub enum Scaling {
 /// | `energy` | 0.99 | fraction of the fluctuation energy the kept modes must capture | (0, 1] |
 /// | `max_modes` | none | upper bound on the kept modes | ≥ 1 |
 /// | `scaling` | per-variable | how stacked variables are weighed | |
-/// | `memory` | 256 MiB | bytes for blocks and panels of snapshots (the Gram or covariance matrix comes on top) | ≥ 1 |
+/// | `memory` | 256 MiB | bytes for blocks and panels of snapshots, about: a block and its copies take an eighth, a panel (method of snapshots) half; the Gram or covariance matrix, its eigenvectors and the modes come on top | ≥ 1 |
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct PodSpec {
     pub energy: f64,
@@ -124,6 +124,11 @@ pub trait SnapshotSource {
     fn snapshots(&self) -> usize;
     /// Values per snapshot (D).
     fn dim(&self) -> usize;
+    /// Bytes the source itself holds per snapshot of a block it delivers (its buffers), for
+    /// sizing blocks within the memory setting.
+    fn block_row_bytes(&self) -> usize {
+        0
+    }
     /// Calls `f(first, block)` for the snapshots in `range`, in order, in blocks of at most
     /// `rows` rows; `first` is the index of the block's first snapshot.
     fn for_each_block(
@@ -205,6 +210,11 @@ impl SnapshotSource for FromDataset<'_> {
         self.plan.columns()
     }
 
+    fn block_row_bytes(&self) -> usize {
+        // The decoded block and the raw values of one variable.
+        16 * self.plan.columns()
+    }
+
     fn for_each_block(
         &mut self,
         range: Range<usize>,
@@ -235,6 +245,10 @@ where
 
     fn dim(&self) -> usize {
         self.dim
+    }
+
+    fn block_row_bytes(&self) -> usize {
+        self.source.block_row_bytes() + 8 * self.source.dim() + 8 * self.dim
     }
 
     fn for_each_block(
@@ -306,15 +320,33 @@ fn clear_upper_simd_state() {
     }
 }
 
-/// Copies `(block − mean) / scale` into a column-major matrix.
-fn centred(block: ArrayView2<'_, f64>, mean: &[f64], inv_scale: &[f64], out: &mut Mat<f64>) {
+/// `(block − mean) / scale` as a row-major matrix in `out`.
+fn centred<'b>(
+    block: ArrayView2<'_, f64>,
+    mean: &[f64],
+    inv_scale: &[f64],
+    out: &'b mut Vec<f64>,
+) -> MatRef<'b, f64> {
     let (n, d) = block.dim();
-    out.resize_with(n, d, |_, _| 0.0);
-    for (i, row) in block.rows().into_iter().enumerate() {
-        for (j, &v) in row.iter().enumerate() {
-            out[(i, j)] = (v - mean[j]) * inv_scale[j];
+    out.clear();
+    out.reserve(n * d);
+    for row in block.rows() {
+        match row.as_slice() {
+            Some(r) => out.extend(
+                r.iter()
+                    .zip(mean)
+                    .zip(inv_scale)
+                    .map(|((v, m), s)| (v - m) * s),
+            ),
+            None => out.extend(
+                row.iter()
+                    .zip(mean)
+                    .zip(inv_scale)
+                    .map(|((v, m), s)| (v - m) * s),
+            ),
         }
     }
+    MatRef::from_row_major_slice(out.as_slice(), n, d)
 }
 
 /// Eigenvalues (descending) and eigenvectors (columns in the same order) of the symmetric matrix
@@ -396,7 +428,10 @@ impl Pod {
         if covered != d || !contiguous {
             return Err(PodError::Groups { covered, dim: d });
         }
-        let block_rows = (spec.memory / 4 / (8 * d)).clamp(1, t);
+        // Memory: a block as the source holds it plus its centred copy (an eighth of the
+        // setting), and in the method of snapshots a panel (half of it).
+        let row_bytes = source.block_row_bytes() + 8 * d;
+        let block_rows = (spec.memory / 8 / row_bytes).clamp(1, t);
         // Pass 1: mean and sum of squared deviations of every column (blockwise, Chan et al.).
         let mut mean = vec![0.0; d];
         let mut m2 = vec![0.0; d];
@@ -461,19 +496,19 @@ impl Pod {
         } else {
             PodMethod::Covariance
         };
-        let mut buf = Mat::<f64>::zeros(0, 0);
+        let mut buf: Vec<f64> = Vec::new();
         let (lambda, modes_full_or_v) = match method {
             PodMethod::Covariance => {
                 let mut c = Mat::<f64>::zeros(d, d);
                 source.for_each_block(0..t, block_rows, &mut |_, block| {
-                    centred(block, &mean, &inv, &mut buf);
+                    let b = centred(block, &mean, &inv, &mut buf);
                     triangular::matmul(
                         c.as_mut(),
                         triangular::BlockStructure::TriangularLower,
                         Accum::Add,
-                        buf.transpose(),
+                        b.transpose(),
                         triangular::BlockStructure::Rectangular,
-                        buf.as_ref(),
+                        b,
                         triangular::BlockStructure::Rectangular,
                         1.0,
                         Par::Seq,
@@ -493,20 +528,20 @@ impl Pod {
                     let p = panel_rows.min(t - a);
                     panel.resize_with(p, d, |_, _| 0.0);
                     source.for_each_block(a..a + p, block_rows, &mut |first, block| {
-                        centred(block, &mean, &inv, &mut buf);
+                        let b = centred(block, &mean, &inv, &mut buf);
                         panel
                             .as_mut()
                             .subrows_mut(first - a, block.nrows())
-                            .copy_from(buf.as_ref());
+                            .copy_from(b);
                         Ok(())
                     })?;
                     source.for_each_block(a..t, block_rows, &mut |first, block| {
-                        centred(block, &mean, &inv, &mut buf);
+                        let b = centred(block, &mean, &inv, &mut buf);
                         let rows = block.nrows();
                         matmul(
                             g.as_mut().submatrix_mut(first, a, rows, p),
                             Accum::Add,
-                            buf.as_ref(),
+                            b,
                             panel.transpose(),
                             1.0,
                             Par::Seq,
@@ -547,11 +582,11 @@ impl Pod {
             PodMethod::Snapshots => {
                 let v = modes_full_or_v.as_ref().subcols(0, r);
                 source.for_each_block(0..t, block_rows, &mut |first, block| {
-                    centred(block, &mean, &inv, &mut buf);
+                    let b = centred(block, &mean, &inv, &mut buf);
                     matmul(
                         modes.as_mut(),
                         Accum::Add,
-                        buf.transpose(),
+                        b.transpose(),
                         v.subrows(first, block.nrows()),
                         1.0,
                         Par::Seq,

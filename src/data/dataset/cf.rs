@@ -117,16 +117,28 @@ impl Cf {
             && self.valid_min.is_none()
             && self.valid_max.is_none();
         if simple {
-            // The common case: floats with at most a fill value.
-            for (i, (&r, o)) in raw.iter().zip(out.iter_mut()).enumerate() {
-                if self.fills.contains(&r) {
-                    return Err((i, r, "the fill value"));
-                }
-                if !r.is_finite() {
-                    return Err((i, r, "not a finite number"));
-                }
-                *o = r;
+            // The common case, floats with at most a fill value or two: one branch-free scan
+            // for any gap, and the position only when there is one.
+            let mut gap = false;
+            for &r in raw {
+                gap |= !r.is_finite();
             }
+            for &f in &self.fills {
+                for &r in raw {
+                    gap |= r == f;
+                }
+            }
+            if gap {
+                for (i, &r) in raw.iter().enumerate() {
+                    if self.fills.contains(&r) {
+                        return Err((i, r, "the fill value"));
+                    }
+                    if !r.is_finite() {
+                        return Err((i, r, "not a finite number"));
+                    }
+                }
+            }
+            out.copy_from_slice(raw);
             return Ok(());
         }
         for (i, (&r0, o)) in raw.iter().zip(out.iter_mut()).enumerate() {
