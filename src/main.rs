@@ -313,7 +313,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             if a.json {
                 println!("{}", serde_json::to_string_pretty(&r)?);
             } else {
-                print!("{}", report::tables::cost_text(&r));
+                print!("{}", report::cost_text(&r));
             }
         }
     }

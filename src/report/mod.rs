@@ -41,7 +41,7 @@ mod svg;
 pub mod tables;
 mod text;
 
-pub use text::text_summary;
+pub use text::{cost_text, text_summary};
 
 use crate::atomic::write_atomic;
 use crate::study::results::{
@@ -87,13 +87,15 @@ pub fn write_report(outcome: &StudyOutcome, out_dir: &Path) -> Result<Vec<PathBu
     }
     let mut written = write_files(out_dir, files)?;
     if !outcome.run_tables.is_empty() {
-        written.extend(tables::write_run_tables(&outcome.run_tables, out_dir)?);
+        written.extend(write_files(
+            out_dir,
+            tables::run_table_files(&outcome.run_tables),
+        )?);
     }
     if let Some(t) = &outcome.document.transfer {
-        written.extend(tables::write_transfer_tables(
-            t,
-            outcome.document.study.confidence,
+        written.extend(write_files(
             out_dir,
+            tables::transfer_table_files(t, outcome.document.study.confidence),
         )?);
     }
     Ok(written)
