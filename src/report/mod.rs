@@ -1,9 +1,20 @@
-//! Report writers: turn a finished study into `report.html`, `plan.json` and `skill.csv`.
+//! Report exporters: one pure function per format, from the results contract
+//! ([`StudyResults`], or the part of it a format shows) to bytes; [`report_files`] lists every
+//! file of a report with its bytes and [`write_report`] writes them, each atomically. The report
+//! reads nothing but the contract.
 //!
-//! Each format has a pure exporter from results to bytes ([`html`], [`plan_json`],
-//! [`skill_csv`]); [`write_report`] writes them, each atomically. Output is deterministic:
-//! fixed number formatting, no timestamps; the only run-dependent values are the stage
-//! `timings`.
+//! | output | exporter | reads |
+//! |---|---|---|
+//! | `report.html` | [`html`] | [`StudyResults`] |
+//! | `plan.json` | [`plan_json`] | its [`PlanDocument`] |
+//! | `skill.csv` | [`skill_csv`] | its single forecasts (none for skill measured outside the tool) |
+//! | `tables/runs.md`, `.tex`, `.csv` | [`tables::runs_markdown`], [`tables::runs_latex`], [`tables::runs_csv`] | its tables of runs |
+//! | `tables/transfer.md`, `.tex`, `.csv` | [`tables::transfer_markdown`], [`tables::transfer_latex`], [`tables::transfer_csv`] | its [`TransferResult`] |
+//! | the terminal after `run`, `merge` and `fit` | [`text_summary`] | its [`PlanDocument`] |
+//! | the terminal after `cost` | [`cost_text`] | a [`CostReport`](crate::cost::CostReport) |
+//!
+//! Output is deterministic: fixed number formatting, no timestamps; the only run-dependent
+//! values are the wall-clock measurements (stage `timings`, training and forecasting times).
 //!
 //! # `report.html`
 //! One self-contained page: inline CSS and inline SVG charts, no scripts, no network
@@ -45,15 +56,14 @@ pub use text::{cost_text, text_summary};
 
 use crate::atomic::write_atomic;
 use crate::study::results::{
-    EstimateStatus, ModelResult, PlanDocument, TargetEstimate, TransferModel, TransferResult,
-    TransferSaving,
+    EstimateStatus, ModelResult, PlanDocument, StudyResults, TargetEstimate, TransferModel,
+    TransferResult, TransferSaving,
 };
-use crate::study::runner::StudyOutcome;
 use std::path::{Path, PathBuf};
 
 pub use self::csv::HEADER as SKILL_CSV_HEADER;
 
-/// File names written by [`write_report`].
+/// File names of the report's main files in the output directory.
 pub const REPORT_HTML: &str = "report.html";
 pub const PLAN_JSON: &str = "plan.json";
 pub const SKILL_CSV: &str = "skill.csv";
@@ -68,37 +78,40 @@ pub enum ReportError {
     },
 }
 
-/// Writes report.html, plan.json and skill.csv into `out_dir` (created if missing; each file
-/// atomically), then the run tables and, for a new regime, the transfer tables under `tables/`
-/// (see [`tables`]). Returns the paths written, in that order.
-pub fn write_report(outcome: &StudyOutcome, out_dir: &Path) -> Result<Vec<PathBuf>, ReportError> {
+/// Every file of the report as (path under the output directory, bytes), in the order written:
+/// report.html, plan.json, skill.csv (when there are single forecasts), the tables of runs
+/// (when there are any) and, for a new regime, the transfer tables (see [`tables`]). Each
+/// comes from its exporter; the only value measured here is plan.json's `timings.report`.
+pub fn report_files(results: &StudyResults) -> Vec<(&'static str, Vec<u8>)> {
     // The report stage's own time (rendering the page and the CSV) is known only after the
     // page exists, so it reaches plan.json but not the page.
     let started = std::time::Instant::now();
-    let page = html(outcome).into_bytes();
-    let csv = skill_csv(outcome);
-    let mut document = outcome.document.clone();
+    let page = html(results).into_bytes();
+    let csv = skill_csv(results);
+    let mut document = results.document.clone();
     document.timings.report = started.elapsed().as_secs_f64();
     document.timings.total += document.timings.report;
     let mut files = vec![(REPORT_HTML, page), (PLAN_JSON, plan_json(&document))];
-    // Skill measured outside the tool has no per-forecast records to list.
-    if !outcome.records.is_empty() || !outcome.persistence.is_empty() {
+    // Skill measured outside the tool has no single forecasts to list.
+    if let Some(csv) = csv {
         files.push((SKILL_CSV, csv));
     }
-    let mut written = write_files(out_dir, files)?;
-    if !outcome.run_tables.is_empty() {
-        written.extend(write_files(
-            out_dir,
-            tables::run_table_files(&outcome.run_tables),
-        )?);
+    if !results.run_tables.is_empty() {
+        files.extend(tables::run_table_files(&results.run_tables));
     }
-    if let Some(t) = &outcome.document.transfer {
-        written.extend(write_files(
-            out_dir,
-            tables::transfer_table_files(t, outcome.document.study.confidence),
-        )?);
+    if let Some(t) = &results.document.transfer {
+        files.extend(tables::transfer_table_files(
+            t,
+            results.document.study.confidence,
+        ));
     }
-    Ok(written)
+    files
+}
+
+/// Writes every file of the report ([`report_files`]) into `out_dir` (created if missing),
+/// each atomically; returns the paths written, in order.
+pub fn write_report(results: &StudyResults, out_dir: &Path) -> Result<Vec<PathBuf>, ReportError> {
+    write_files(out_dir, report_files(results))
 }
 
 /// Writes each `(relative path, bytes)` under `out_dir` atomically; returns the paths.
@@ -119,8 +132,8 @@ pub(crate) fn write_files(
 }
 
 /// The HTML report page. Pure.
-pub fn html(outcome: &StudyOutcome) -> String {
-    html::html(outcome)
+pub fn html(results: &StudyResults) -> String {
+    html::html(results)
 }
 
 /// `plan.json`: the document as pretty-printed JSON with a trailing newline. Pure.
@@ -130,9 +143,18 @@ pub fn plan_json(doc: &PlanDocument) -> Vec<u8> {
     bytes
 }
 
-/// `skill.csv` (columns in the module docs). Pure.
-pub fn skill_csv(outcome: &StudyOutcome) -> Vec<u8> {
-    csv::skill_csv(outcome)
+/// `skill.csv` (columns in the module docs); `None` without single forecasts (skill measured
+/// outside the tool). Pure.
+pub fn skill_csv(results: &StudyResults) -> Option<Vec<u8>> {
+    let lyapunov = results
+        .document
+        .skill
+        .as_ref()
+        .and_then(|k| k.lyapunov_exponent);
+    results
+        .forecasts
+        .as_ref()
+        .map(|f| csv::skill_csv(f, lyapunov))
 }
 
 /// The fine-tuned and from-scratch estimates behind one saving of a transfer model (matched by
@@ -220,7 +242,7 @@ pub(crate) mod tests {
 
     /// Two models, three sizes, two replicates, four initial conditions; targets 2.9 (reached
     /// by the first model) and 5.0 (above its asymptote); one warning; hostile user text.
-    pub(crate) fn fixture() -> StudyOutcome {
+    pub(crate) fn fixture() -> StudyResults {
         let sizes = [1000usize, 4000, 16000];
         let cost = CostModel {
             core_hours_per_time_unit: 12.5,
@@ -441,13 +463,13 @@ pub(crate) mod tests {
             },
             transfer: None,
         };
-        StudyOutcome {
-            document,
-            records,
-            persistence,
-            climatology: Vec::new(),
-            run_tables: Vec::new(),
-            history: Vec::new(),
+        StudyResults {
+            forecasts: Some(ForecastSkill {
+                records,
+                persistence,
+                climatology: Vec::new(),
+            }),
+            ..StudyResults::new(document)
         }
     }
 
@@ -455,7 +477,6 @@ pub(crate) mod tests {
     /// plots it; one run alone shows no history section.
     #[test]
     fn history_says_how_the_estimate_moved() {
-        use crate::study::history::HistoryEntry;
         use crate::study::results::PointCounts;
         let mut o = fixture();
         o.document.points = Some(PointCounts {
@@ -529,9 +550,9 @@ pub(crate) mod tests {
 
     #[test]
     fn one_svg_per_model_and_no_network_references() {
-        let outcome = fixture();
-        let page = html(&outcome);
-        assert_eq!(page.matches("<svg").count(), outcome.document.models.len());
+        let results = fixture();
+        let page = html(&results);
+        assert_eq!(page.matches("<svg").count(), results.document.models.len());
         assert!(!page.contains("<?xml"));
         let rest = page.replace("xmlns=\"http://www.w3.org/2000/svg\"", "");
         assert!(!rest.contains("http://") && !rest.contains("https://"));
@@ -540,15 +561,15 @@ pub(crate) mod tests {
 
     #[test]
     fn plan_json_round_trips() {
-        let outcome = fixture();
-        let bytes = plan_json(&outcome.document);
+        let results = fixture();
+        let bytes = plan_json(&results.document);
         assert_eq!(bytes.last(), Some(&b'\n'));
         let back: PlanDocument = serde_json::from_slice(&bytes).unwrap();
         // serde_json without its `float_roundtrip` feature may parse a float 1 ulp off, so
         // floats are compared to 1e-15 relative; everything else must match exactly.
         let (a, b) = (
             serde_json::to_value(&back).unwrap(),
-            serde_json::to_value(&outcome.document).unwrap(),
+            serde_json::to_value(&results.document).unwrap(),
         );
         assert!(values_close(&a, &b), "plan.json does not round-trip");
     }
@@ -575,10 +596,10 @@ pub(crate) mod tests {
 
     #[test]
     fn write_report_writes_three_files_and_no_temporaries() {
-        let outcome = fixture();
+        let results = fixture();
         let dir = tempfile::tempdir().unwrap();
         let out = dir.path().join("report");
-        let written = write_report(&outcome, &out).unwrap();
+        let written = write_report(&results, &out).unwrap();
         assert_eq!(
             written,
             [REPORT_HTML, PLAN_JSON, SKILL_CSV]
@@ -593,7 +614,7 @@ pub(crate) mod tests {
         assert_eq!(names, ["plan.json", "report.html", "skill.csv"]);
         assert_eq!(
             std::fs::read(out.join(SKILL_CSV)).unwrap(),
-            skill_csv(&outcome)
+            skill_csv(&results).unwrap()
         );
     }
 
@@ -673,10 +694,10 @@ pub(crate) mod tests {
     /// saving 3,800 [1,000–unbounded] samples and 340 [120–unbounded] core-hours; at 3.5
     /// unreachable both ways. The second model at 2.5: fine-tuned extrapolated, unreachable from
     /// scratch; at 3.5 no fit.
-    pub(crate) fn transfer_fixture() -> StudyOutcome {
+    pub(crate) fn transfer_fixture() -> StudyResults {
         use EstimateStatus::*;
-        let mut outcome = fixture();
-        let doc = &mut outcome.document;
+        let mut results = fixture();
+        let doc = &mut results.document;
         let mut data = doc.data.clone().unwrap();
         data.parameters = params(&[("F", 24.0), ("h", 1.0)]);
         data.samples = 5000;
@@ -789,7 +810,7 @@ pub(crate) mod tests {
             campaign: None,
             models: vec![first, second],
         });
-        outcome
+        results
     }
 
     /// The transfer section of a page, from its opening tag to its closing one.
@@ -824,8 +845,8 @@ pub(crate) mod tests {
 
     #[test]
     fn transfer_section_answers_first_and_sits_before_the_budget() {
-        let outcome = transfer_fixture();
-        let page = html(&outcome);
+        let results = transfer_fixture();
+        let page = html(&results);
         let order = ["id=\"points\"", "id=\"transfer\"", "id=\"assumptions\""];
         let at: Vec<usize> = order.iter().map(|s| page.find(s).unwrap()).collect();
         assert!(at.windows(2).all(|w| w[0] < w[1]), "sections in order");
@@ -902,10 +923,10 @@ pub(crate) mod tests {
 
     #[test]
     fn write_report_adds_the_transfer_tables() {
-        let outcome = transfer_fixture();
+        let results = transfer_fixture();
         let dir = tempfile::tempdir().unwrap();
-        let written = write_report(&outcome, dir.path()).unwrap();
-        let t = outcome.document.transfer.as_ref().unwrap();
+        let written = write_report(&results, dir.path()).unwrap();
+        let t = results.document.transfer.as_ref().unwrap();
         assert_eq!(
             written,
             [

@@ -4,8 +4,9 @@
 //! new regime (from scratch and fine-tuned over the fine-tuning size k).
 
 use crate::curves::Family;
-use crate::study::history::HistoryEntry;
-use crate::study::results::{FitResult, ModelResult, PlanDocument, TransferModel, TransferResult};
+use crate::study::results::{
+    FitResult, HistoryEntry, ModelResult, PlanDocument, TransferModel, TransferResult,
+};
 use plotters::coord::Shift;
 use plotters::element::DashedPathElement;
 use plotters::prelude::*;

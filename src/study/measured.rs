@@ -8,8 +8,9 @@
 //! measured skill (larger is better). Several rows with the same model, n and replicate are
 //! treated as separate evaluations (e.g. test initial conditions) of one trained model.
 
+use super::analysis::{analyse_curve, CurveSettings};
 use super::results::{ModelResult, PlanDocument, PointResult, StudyInfo, Timings, PLAN_SCHEMA};
-use super::runner::{analyse_curve, CurveSettings};
+use super::seeds::derive_seed;
 use crate::curves::SkillGrid;
 use crate::data::hash_bytes;
 use std::collections::BTreeMap;
@@ -231,7 +232,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
     let mut replicates = 0;
     let mut models = Vec::new();
     for (name, grid) in &grids {
-        let seed = super::runner::derive_seed(options.seed, name, usize::MAX);
+        let seed = derive_seed(options.seed, name, usize::MAX);
         let curve = analyse_curve(
             grid,
             &targets,

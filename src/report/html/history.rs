@@ -3,9 +3,7 @@
 use super::cells::{confidence, interval};
 use crate::report::format::{escape, short, sig3, thousands};
 use crate::report::svg;
-use crate::study::history::{HistoryEntry, HistoryEstimate};
-use crate::study::results::PlanDocument;
-use crate::study::runner::StudyOutcome;
+use crate::study::results::{HistoryEntry, HistoryEstimate, PlanDocument, StudyResults};
 use std::fmt::Write;
 
 /// The target the history follows: the largest one some model of the latest run has a budget
@@ -38,9 +36,9 @@ fn history_estimate(doc: &PlanDocument, e: &HistoryEstimate) -> String {
 }
 
 /// How the headline estimates moved over the runs of this study in its output directory.
-pub(super) fn history(out: &mut String, outcome: &StudyOutcome) {
-    let doc = &outcome.document;
-    let h = &outcome.history;
+pub(super) fn history(out: &mut String, results: &StudyResults) {
+    let doc = &results.document;
+    let h = &results.history;
     let (Some(latest), true) = (h.last(), h.len() >= 2) else {
         return;
     };

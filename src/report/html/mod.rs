@@ -25,7 +25,7 @@ mod warnings;
 use std::fmt::Write;
 
 use crate::report::format::escape;
-use crate::study::runner::StudyOutcome;
+use crate::study::results::StudyResults;
 
 use self::answer::answer;
 use self::assumptions::assumptions;
@@ -44,9 +44,9 @@ use self::style::CSS;
 use self::transfer::transfer;
 use self::warnings::warnings;
 
-/// The whole report page. Pure: the same outcome gives the same bytes.
-pub fn html(outcome: &StudyOutcome) -> String {
-    let doc = &outcome.document;
+/// The whole report page. Pure: the same results give the same bytes.
+pub fn html(results: &StudyResults) -> String {
+    let doc = &results.document;
     let mut out = String::with_capacity(64 * 1024);
     let title = if doc.study.title.trim().is_empty() {
         doc.study.name.as_str()
@@ -68,9 +68,9 @@ pub fn html(outcome: &StudyOutcome) -> String {
     measured_points(&mut out, doc);
     closures(&mut out, doc);
     transfer(&mut out, doc);
-    history(&mut out, outcome);
+    history(&mut out, results);
     assumptions(&mut out, doc);
-    runs(&mut out, outcome);
+    runs(&mut out, results);
     decorrelation(&mut out, doc);
     warnings(&mut out, doc);
     provenance(&mut out, doc);

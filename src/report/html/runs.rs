@@ -1,10 +1,10 @@
 //! Tables of runs: the campaign behind each estimate, ready for an allocation request.
 
 use crate::report::tables::runs_html;
-use crate::study::runner::StudyOutcome;
+use crate::study::results::StudyResults;
 
-pub(super) fn runs(out: &mut String, outcome: &StudyOutcome) {
-    if outcome.run_tables.is_empty() {
+pub(super) fn runs(out: &mut String, results: &StudyResults) {
+    if results.run_tables.is_empty() {
         return;
     }
     out.push_str(
@@ -13,6 +13,6 @@ pub(super) fn runs(out: &mut String, outcome: &StudyOutcome) {
          <code>.tex</code> and <code>.csv</code>). Ranges are the bootstrap interval of n* \
          carried through the cost model.</p>\n",
     );
-    out.push_str(&runs_html(&outcome.run_tables));
+    out.push_str(&runs_html(&results.run_tables));
     out.push_str("</section>\n");
 }
