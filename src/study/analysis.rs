@@ -448,7 +448,306 @@ fn estimate(
 
 #[cfg(test)]
 mod tests {
+    //! Today's rules of [`estimate`], pinned case by case on hand-built inputs: the curve
+    //! c − a·n^(−b) with c = 3, a = 20, b = 0.5 (skill 1 at n = 100, 2 at 400, 2.5 at 1,600;
+    //! the inverse is n = (20 / (3 − S))²) and four measured sizes, 100 to 800. Each test
+    //! states the expected estimate in full, so a deliberate change of a rule changes one
+    //! place here.
     use super::*;
+    use crate::cost::CostInputs;
+    use crate::curves::{CurveFit, CurvePoint, FitScale, TargetDraws};
+
+    /// c − a·n^(−b) with c = 3, a = 20, b = 0.5.
+    fn saturating() -> CurveFit {
+        CurveFit {
+            family: Family::SaturatingPowerLaw,
+            params: vec![3.0, 20.0, 0.5],
+            std_errors: None,
+            weighted_rss: 1.0,
+            aicc: None,
+            points: 4,
+            converged: true,
+            scale: FitScale::Linear,
+        }
+    }
+
+    /// Measured means at 100, 200, 400 and 800 samples (close to the curve, 2.05 at 400
+    /// slightly above it).
+    fn measured() -> Vec<CurvePoint> {
+        [(100.0, 1.0), (200.0, 1.6), (400.0, 2.05), (800.0, 2.3)]
+            .iter()
+            .map(|&(n, mean)| CurvePoint {
+                n,
+                mean,
+                standard_error: 0.05,
+                censored: false,
+            })
+            .collect()
+    }
+
+    /// Bootstrap draws for `target` with the given interval, median and unreachable share.
+    fn draws(
+        target: f64,
+        [lower, upper]: [Option<f64>; 2],
+        median: Option<f64>,
+        p_unreachable: f64,
+    ) -> TargetDraws {
+        TargetDraws {
+            target,
+            draws: 200,
+            failed: 0,
+            unreachable: (200.0 * p_unreachable) as usize,
+            p_unreachable,
+            median,
+            lower,
+            upper,
+            level: 0.9,
+            family_draws: vec![(Family::SaturatingPowerLaw, 200)],
+        }
+    }
+
+    /// The estimate without a cost model and with a trust range of 4× the largest size.
+    fn estimate_of(target: f64, d: &TargetDraws) -> TargetEstimate {
+        estimate(&saturating(), target, d, &measured(), 4.0, None)
+    }
+
+    /// The estimate every case starts from: nothing reached, nothing priced.
+    fn expected(target: f64, d: &TargetDraws) -> TargetEstimate {
+        TargetEstimate {
+            target,
+            status: EstimateStatus::Unreachable,
+            samples: None,
+            median_samples: d.median,
+            samples_interval: [d.lower, d.upper],
+            p_unreachable: d.p_unreachable,
+            budget: None,
+            budget_low: None,
+            budget_high: None,
+            asymptote: Some(3.0),
+            extrapolation: None,
+            note: String::new(),
+        }
+    }
+
+    fn close(a: f64, b: f64) -> bool {
+        (a - b).abs() <= 1e-9 * b.abs()
+    }
+
+    /// Target 1.8: the mean first reaches it at 400 samples; the curve crosses it earlier, at
+    /// (20/1.2)² ≈ 278 samples, and that crossing is n*.
+    #[test]
+    fn reached_in_the_data_takes_the_curve_crossing_below_the_first_size_reaching_it() {
+        let d = draws(1.8, [Some(200.0), Some(380.0)], Some(280.0), 0.0);
+        let e = estimate_of(1.8, &d);
+        let n = (20.0_f64 / 1.2).powi(2);
+        assert!(close(e.samples.unwrap(), n), "{e:?}");
+        assert_eq!(
+            e,
+            TargetEstimate {
+                status: EstimateStatus::ReachedInData,
+                samples: e.samples,
+                extrapolation: Some(e.samples.unwrap() / 800.0),
+                note: "the measured mean reaches the target at 400 samples".into(),
+                ..expected(1.8, &d)
+            }
+        );
+    }
+
+    /// Target 2.04: the mean reaches it at 400 samples, but the curve crosses only at
+    /// (20/0.96)² ≈ 434: the measured size wins over a curve that disagrees with it.
+    #[test]
+    fn reached_in_the_data_never_takes_more_than_the_first_size_reaching_it() {
+        let d = draws(2.04, [Some(300.0), Some(600.0)], Some(420.0), 0.0);
+        let e = estimate_of(2.04, &d);
+        assert_eq!(
+            e,
+            TargetEstimate {
+                status: EstimateStatus::ReachedInData,
+                samples: Some(400.0),
+                extrapolation: Some(0.5),
+                note: "the measured mean reaches the target at 400 samples".into(),
+                ..expected(2.04, &d)
+            }
+        );
+    }
+
+    /// Target 0.5: the smallest size already reaches it and the curve crosses at 64 samples,
+    /// below what was measured: n* is the smallest size, and the note says fewer may do. The
+    /// interval's lower end and the median, below 100, are raised to it.
+    #[test]
+    fn reached_at_the_smallest_size_reports_that_size_and_floors_the_interval() {
+        let d = draws(0.5, [Some(40.0), Some(150.0)], Some(70.0), 0.0);
+        let e = estimate_of(0.5, &d);
+        assert_eq!(
+            e,
+            TargetEstimate {
+                status: EstimateStatus::ReachedInData,
+                samples: Some(100.0),
+                median_samples: Some(100.0),
+                samples_interval: [Some(100.0), Some(150.0)],
+                extrapolation: Some(0.125),
+                note: "already reached at the smallest measured size (100 samples): fewer may \
+                       do; measure smaller subsets to find out"
+                    .into(),
+                ..expected(0.5, &d)
+            }
+        );
+    }
+
+    /// Target 2.5: no measured mean reaches it; the curve crosses at 1,600 samples, 2× the
+    /// largest size, inside the trust range of 4×.
+    #[test]
+    fn reachable_within_the_trust_range() {
+        let d = draws(2.5, [Some(1200.0), Some(2500.0)], Some(1650.0), 0.0);
+        let e = estimate_of(2.5, &d);
+        assert_eq!(
+            e,
+            TargetEstimate {
+                status: EstimateStatus::Reachable,
+                samples: Some(1600.0),
+                extrapolation: Some(2.0),
+                note: "2.0× the largest measured size".into(),
+                ..expected(2.5, &d)
+            }
+        );
+    }
+
+    /// Target 2.5 with an unbounded upper end: the note gives the one-sided bound instead.
+    #[test]
+    fn reachable_with_an_unbounded_upper_end_says_so() {
+        let d = draws(2.5, [Some(1200.0), None], None, 0.0);
+        let e = estimate_of(2.5, &d);
+        assert_eq!(
+            e,
+            TargetEstimate {
+                status: EstimateStatus::Reachable,
+                samples: Some(1600.0),
+                extrapolation: Some(2.0),
+                note: "the upper end is unbounded: n* ≥ 1200".into(),
+                ..expected(2.5, &d)
+            }
+        );
+    }
+
+    /// Target 2.75: the curve crosses at 6,400 samples, 8× the largest size, beyond the trust
+    /// range of 4×; draws that never reach the target are counted in the note.
+    #[test]
+    fn extrapolated_beyond_the_trust_range() {
+        let d = draws(2.75, [Some(3000.0), None], Some(7000.0), 0.1);
+        let e = estimate_of(2.75, &d);
+        assert_eq!(
+            e,
+            TargetEstimate {
+                status: EstimateStatus::Extrapolated,
+                samples: Some(6400.0),
+                extrapolation: Some(8.0),
+                note: "extrapolated 8.0× beyond the largest measured size (trust range 4×); in \
+                       10% of bootstrap draws the curve never reaches the target"
+                    .into(),
+                ..expected(2.75, &d)
+            }
+        );
+    }
+
+    /// Target 3.2, above the fitted asymptote 3: unreachable, with the level in the note.
+    #[test]
+    fn unreachable_above_the_asymptote() {
+        let d = draws(3.2, [Some(5000.0), None], None, 0.95);
+        let e = estimate_of(3.2, &d);
+        assert_eq!(
+            e,
+            TargetEstimate {
+                note: "the fitted curve levels off at 3.000, at or below the target; \
+                       unreachable in 95% of bootstrap draws"
+                    .into(),
+                ..expected(3.2, &d)
+            }
+        );
+    }
+
+    /// A curve without an asymptote that does not rise (−√n): unreachable, and the note is the
+    /// curve's own reason.
+    #[test]
+    fn unreachable_without_an_asymptote_gives_the_curves_reason() {
+        let falling = CurveFit {
+            family: Family::PowerLaw,
+            params: vec![-1.0, 0.5],
+            ..saturating()
+        };
+        let d = draws(2.5, [None, None], None, 1.0);
+        let e = estimate(&falling, 2.5, &d, &measured(), 4.0, None);
+        let Inversion::Unreachable { reason, .. } = falling.invert(2.5) else {
+            panic!("a falling curve reaches nothing")
+        };
+        assert!(reason.contains("not increasing"), "{reason}");
+        assert_eq!(
+            e,
+            TargetEstimate {
+                asymptote: None,
+                note: reason,
+                ..expected(2.5, &d)
+            }
+        );
+    }
+
+    /// With a cost model, n* and the interval ends (after the floor) are priced.
+    #[test]
+    fn budgets_price_the_estimate_and_the_floored_interval() {
+        let cost = CostInputs {
+            core_hours_per_time_unit: Some(100.0),
+            ..CostInputs::default()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        let d = draws(2.5, [Some(60.0), Some(2500.0)], Some(1650.0), 0.0);
+        let e = estimate(&saturating(), 2.5, &d, &measured(), 4.0, Some(&cost));
+        assert_eq!(e.samples_interval, [Some(100.0), Some(2500.0)]);
+        assert_eq!(e.budget, Some(cost.budget(1600.0)));
+        assert_eq!(e.budget_low, Some(cost.budget(100.0)));
+        assert_eq!(e.budget_high, Some(cost.budget(2500.0)));
+        let unreachable = estimate(
+            &saturating(),
+            3.2,
+            &draws(3.2, [Some(60.0), None], None, 0.95),
+            &measured(),
+            4.0,
+            Some(&cost),
+        );
+        assert_eq!(unreachable.budget, None);
+        assert_eq!(unreachable.budget_low, Some(cost.budget(100.0)));
+        assert_eq!(unreachable.budget_high, None);
+    }
+
+    /// Two sizes are too few for any family (each needs one point more than its parameters):
+    /// every target gets the no-fit estimate.
+    #[test]
+    fn no_family_fitted_gives_no_fit_for_every_target() {
+        let grid: Vec<SkillGrid> = [(100.0, 1.0), (200.0, 1.5)]
+            .iter()
+            .map(|&(n, m)| SkillGrid {
+                n,
+                values: vec![vec![m * 0.98], vec![m * 1.02]],
+                censored: false,
+            })
+            .collect();
+        let settings = CurveSettings {
+            scale: FitScale::Linear,
+            draws: 50,
+            level: 0.9,
+            trust_factor: 2.0,
+            seed: 1,
+        };
+        let a = analyse_curve(&grid, &[1.2, 2.0], &settings, None);
+        assert_eq!(a.selected, None);
+        assert!(a.backtest.is_none());
+        assert!(a.fits.iter().all(|f| f.error.is_some()), "{:?}", a.fits);
+        assert_eq!(
+            a.estimates,
+            [1.2, 2.0]
+                .map(|t| TargetEstimate::no_fit(t, "no learning curve could be fitted"))
+                .to_vec()
+        );
+    }
 
     /// A target below the skill already measured at the smallest size is met there; the
     /// estimate never reports fewer samples than were measured (the curve below the smallest
