@@ -62,16 +62,8 @@ pub struct MeasuredOptions {
     pub seed: u64,
 }
 
-/// Reads a measured-skill CSV into one size grid per model (sizes ascending, replicates in
-/// label order).
-pub fn read_measured(path: &Path) -> Result<BTreeMap<String, Vec<SkillGrid>>, MeasuredError> {
-    let bytes = std::fs::read(path).map_err(|source| MeasuredError::Read {
-        path: path.to_path_buf(),
-        source,
-    })?;
-    parse_measured(path, &bytes)
-}
-
+/// Parses a measured-skill CSV (`bytes`, read from `path`) into one size grid per model (sizes
+/// ascending, replicates in label order).
 fn parse_measured(
     path: &Path,
     bytes: &[u8],
