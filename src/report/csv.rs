@@ -108,7 +108,7 @@ pub fn skill_csv(forecasts: &ForecastSkill, lyapunov: Option<f64>) -> Vec<u8> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::report::tests::fixture;
+    use crate::report::fixtures::fixture;
 
     #[test]
     fn header_row_count_and_order() {

@@ -321,7 +321,7 @@ mod tests {
 
     #[test]
     fn summary_lists_every_target_and_warning() {
-        let doc = crate::report::tests::fixture().document;
+        let doc = crate::report::fixtures::fixture().document;
         let text = text_summary(&doc);
         for m in &doc.models {
             assert!(text.contains(&format!("model {}", m.name)), "{text}");
@@ -334,9 +334,9 @@ mod tests {
     }
     #[test]
     fn summary_ends_with_the_new_regime() {
-        let plain = text_summary(&crate::report::tests::fixture().document);
+        let plain = text_summary(&crate::report::fixtures::fixture().document);
         assert!(!plain.contains("new regime"), "{plain}");
-        let text = text_summary(&crate::report::tests::transfer_fixture().document);
+        let text = text_summary(&crate::report::fixtures::transfer_fixture().document);
         let block = &text[text.find("\nnew regime: ").expect("new-regime block")..];
         assert!(text.find("model esn-500").unwrap() < text.find("new regime").unwrap());
         assert!(

@@ -267,7 +267,7 @@ mod tests {
 
     #[test]
     fn transfer_tables_hold_every_model_and_target() {
-        let doc = crate::report::tests::transfer_fixture().document;
+        let doc = crate::report::fixtures::transfer_fixture().document;
         let t = doc.transfer.as_ref().unwrap();
         let md = String::from_utf8(transfer_markdown(t, 0.9)).unwrap();
         let rows: Vec<&str> = md.lines().filter(|l| l.starts_with('|')).collect();
