@@ -6,7 +6,7 @@
 //!
 //! - rate r (device-hours per model time unit): measured; or N · c / Δt_solver / 3600 for N grid
 //!   points and c core- (or GPU-) seconds per point-step; carried to the target Reynolds number
-//!   by a [`ScalingLaw`] (rate × (Re_t/Re_p)^(cost exponent), N × (Re_t/Re_p)^(grid exponent),
+//!   by a [`ScalingLaw`](super::ScalingLaw) (rate × (Re_t/Re_p)^(cost exponent), N × (Re_t/Re_p)^(grid exponent),
 //!   Δt_solver ÷ (Re_t/Re_p)^(step exponent));
 //! - runs R: given, or the fewest runs whose wall-clock each stays within a limit L:
 //!   R = max(1, ⌈S·Δt_save / (L/w − spin-up)⌉) with w the wall-hours per model time unit of one

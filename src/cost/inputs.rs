@@ -21,7 +21,7 @@ use serde::{Deserialize, Serialize};
 /// | `grid-points` | — | grid points of the solver (at the pilot Reynolds number), ≥ 1 |
 /// | `solver-time-step` | — | solver time step, model time units, > 0; also gives solver step counts |
 ///
-/// **Reynolds-number scaling** (optional; see [`scaling`]):
+/// **Reynolds-number scaling** (optional; see [`scaling`](super::scaling)):
 ///
 /// | key | default | meaning |
 /// |---|---|---|

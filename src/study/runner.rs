@@ -1,12 +1,12 @@
 //! Runs a checked study, stage by stage in the order of the data flow: the pilot data
 //! (`prepare`), the points — nested-subset training and forecasts over the test initial
-//! conditions, in parallel and deterministic whatever the thread count ([`points`](super::points)) —,
+//! conditions, in parallel and deterministic whatever the thread count ([`points`]) —,
 //! the floors (`score`), the learning curves and estimates ([`analysis`](super::analysis)), the
 //! new regime (`transfer`), and the document, tables of runs and history
 //! (`outcome`). Writing the report is the caller's next step.
 //!
 //! Also the other entry points over the same stages: a merge of shard stores, one shard's
-//! points ([`shards`](super::shards)) and the status of the stores ([`status`](super::status)).
+//! points ([`shards`]) and the status of the stores ([`status`]).
 
 use super::analysis::model_results;
 use super::outcome::{self, Measured};
