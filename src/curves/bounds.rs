@@ -36,8 +36,10 @@
 //! The factor 100 follows the rule of thumb that a model is not extrapolated more than two
 //! decades beyond its data (common practice).
 //!
-//! A fit whose nonlinear parameter ends at a bound is rejected with the reason given by
-//! [`Bound::reason`]; bootstrap refits obey the same bounds and the same rule.
+//! A fit whose nonlinear parameter ends at a bound is rejected, with a reason that names the
+//! parameter, its bound and what the curve degenerates into there (e.g. "steepness d = 2.0000
+//! at its upper bound 2.0000 (a step function)"); bootstrap refits obey the same bounds and
+//! the same rule.
 //!
 //! References: Hestness et al. (2017), "Deep learning scaling is predictable, empirically",
 //! arXiv:1712.00409 (exponents −0.07 to −0.35); Viering & Loog (2022), "The shape of learning

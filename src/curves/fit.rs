@@ -480,11 +480,19 @@ pub fn fit_family_with(
     let search = match &options.start {
         None => Search::Global,
         Some(start) => {
-            let u = (start.len() == family.n_params())
-                .then(|| family.nonlinear_of(start))
-                .flatten()
-                .ok_or_else(|| CurveError::NonFiniteStart {
-                    start: start.clone(),
+            if start.len() != family.n_params() {
+                return Err(CurveError::StartLength {
+                    expected: family.n_params(),
+                    got: start.len(),
+                });
+            }
+            let u = family
+                .nonlinear_of(start)
+                .ok_or_else(|| CurveError::Rejected {
+                    family: family.label(),
+                    reason: format!(
+                        "the starting point {start:?} is outside the family's domain (finite values; positive exponents, scales and shifts)"
+                    ),
                 })?;
             Search::From { u, max_evals: 500 }
         }

@@ -24,7 +24,7 @@
 //! variable-projection problem), and the result is polished by the bounded Levenberg–Marquardt
 //! iteration on all parameters with the exact log-scale residuals.
 //!
-//! No allocation happens per iteration: a [`Workspace`] holds every buffer, sized once per
+//! No allocation happens per iteration: a workspace holds every buffer, sized once per
 //! data set.
 //!
 //! References: Golub & Pereyra (1973), "The differentiation of pseudo-inverses and nonlinear
