@@ -15,7 +15,7 @@
 //! `-- quick` for fewer repetitions).
 
 use closure_budget::curves::{self, Family, FitScale, SkillGrid};
-use closure_budget::study::runner::{analyse_curve, CurveSettings};
+use closure_budget::study::analysis::{analyse_curve, CurveSettings};
 use std::hint::black_box;
 use std::time::Instant;
 

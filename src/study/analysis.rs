@@ -468,6 +468,9 @@ mod tests {
             points: 4,
             converged: true,
             scale: FitScale::Linear,
+            direction: Default::default(),
+            weighting: Default::default(),
+            bounds: Default::default(),
         }
     }
 
