@@ -287,7 +287,7 @@ fn network_training(quick: bool) {
 /// against two; the estimates must be identical.
 fn curve_analysis(quick: bool) {
     use closure_budget::curves::{FitScale, SkillGrid};
-    use closure_budget::study::runner::{analyse_curve, CurveSettings};
+    use closure_budget::study::analysis::{analyse_curve, CurveSettings};
     let noise = pseudo_random(8 * 3 * 40, 9);
     let grid: Vec<SkillGrid> = (0..8usize)
         .map(|i| {

@@ -11,8 +11,7 @@ use closure_budget::data::{
 };
 use closure_budget::slurm::{self, SlurmOptions};
 use closure_budget::study::measured::{fit_measured, MeasuredOptions};
-use closure_budget::study::runner::StudyOutcome;
-use closure_budget::study::{load_plan, run_study, RunOptions};
+use closure_budget::study::{load_plan, run_study, RunOptions, StudyResults};
 use closure_budget::systems::{
     largest_lyapunov, simulate, LyapunovSpec, SimulationSpec, SystemSpec,
 };
@@ -70,23 +69,23 @@ fn stop_on_ctrl_c() -> anyhow::Result<Arc<AtomicBool>> {
 
 /// Writes the report and prints the summary (text, JSON, or nothing).
 fn finish(
-    outcome: &StudyOutcome,
+    results: &StudyResults,
     out: &std::path::Path,
     quiet: bool,
     json: bool,
 ) -> anyhow::Result<()> {
-    let written = report::write_report(outcome, out)?;
+    let written = report::write_report(results, out)?;
     if json {
         let summary = serde_json::json!({
             "out": out,
             "written": written,
-            "points": outcome.document.points,
-            "warnings": outcome.document.warnings,
-            "estimates": outcome.history.last().map(|h| &h.estimates),
+            "points": results.document.points,
+            "warnings": results.document.warnings,
+            "estimates": results.history.last().map(|h| &h.estimates),
         });
         println!("{}", serde_json::to_string_pretty(&summary)?);
     } else if !quiet {
-        print!("{}", report::text_summary(&outcome.document));
+        print!("{}", report::text_summary(&results.document));
         println!("\nwritten:");
         for p in written {
             println!("  {}", p.display());
@@ -127,8 +126,8 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 }
                 return Ok(ExitCode::SUCCESS);
             }
-            let outcome = run_study(&plan, &options)?;
-            finish(&outcome, &out, a.quiet, a.json)?;
+            let results = run_study(&plan, &options)?;
+            finish(&results, &out, a.quiet, a.json)?;
         }
         Command::Merge(a) => {
             let plan = load_plan(&a.study)?;
@@ -139,8 +138,8 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 progress: !a.quiet && !a.json && std::io::stderr().is_terminal(),
                 stop: None,
             };
-            let outcome = study::merge_study(&plan, &options)?;
-            finish(&outcome, &out, a.quiet, a.json)?;
+            let results = study::merge_study(&plan, &options)?;
+            finish(&results, &out, a.quiet, a.json)?;
         }
         Command::Status(a) => {
             let plan = load_plan(&a.study)?;
@@ -155,7 +154,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             if a.json {
                 println!("{}", serde_json::to_string_pretty(&status)?);
             } else {
-                print!("{}", study::runner::describe_status(&status));
+                print!("{}", study::status::describe_status(&status));
             }
         }
         Command::Slurm(a) => {
@@ -281,15 +280,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 println!("written: {}", path.display());
             }
             if let Some(dir) = &a.report {
-                let outcome = StudyOutcome {
-                    document: doc,
-                    records: Vec::new(),
-                    persistence: Vec::new(),
-                    climatology: Vec::new(),
-                    run_tables: Vec::new(),
-                    history: Vec::new(),
-                };
-                for p in report::write_report(&outcome, dir)? {
+                for p in report::write_report(&StudyResults::new(doc), dir)? {
                     println!("written: {}", p.display());
                 }
             }
@@ -313,7 +304,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             if a.json {
                 println!("{}", serde_json::to_string_pretty(&r)?);
             } else {
-                print!("{}", report::tables::cost_text(&r));
+                print!("{}", report::cost_text(&r));
             }
         }
     }

@@ -1,6 +1,6 @@
 //! A stand-alone cost question (for a `cost` command): given a number of saved samples, or a
 //! sampled model time, and the `[cost]` inputs, the full breakdown as a serialisable report.
-//! The plain-text rendering is `report::tables::cost_text`.
+//! The plain-text rendering is `report::cost_text`.
 
 use super::campaign::{Breakdown, Campaign};
 use super::{CostError, CostInputs};

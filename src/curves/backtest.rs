@@ -16,7 +16,7 @@
 //! weights from AICc, w_f ∝ exp(−ΔAICc_f / 2) (Burnham & Anderson 2002, ch. 2.9); when AICc
 //! is undefined for every family (too few sizes), the fitted families get equal weights.
 
-use super::fit::{fit_family_on, summarise, CurveFit, FitScale, SizeSamples};
+use super::fit::{fit_family_with, summarise, CurveFit, FitOptions, FitScale, SizeSamples};
 use super::Family;
 use serde::{Deserialize, Serialize};
 
@@ -77,13 +77,34 @@ pub struct Backtest {
 }
 
 /// Runs the backtest for `families` and weights the full-data `fits` (one per family that
-/// could be fitted to all sizes).
+/// could be fitted to all sizes). The backtest fits use `scale` and the direction and bound
+/// rules of the full-data fits (the defaults when there are none).
 pub fn backtest(
     samples: &[SizeSamples],
     families: &[Family],
     fits: &[CurveFit],
     scale: FitScale,
 ) -> Backtest {
+    let options = FitOptions {
+        scale,
+        direction: fits.first().map(|f| f.direction).unwrap_or_default(),
+        bounds: fits.first().map(|f| f.bounds).unwrap_or_default(),
+        start: None,
+    };
+    backtest_with(samples, families, fits, &options)
+}
+
+/// [`backtest`] with the options of every backtest fit given (`start` is ignored).
+pub fn backtest_with(
+    samples: &[SizeSamples],
+    families: &[Family],
+    fits: &[CurveFit],
+    options: &FitOptions,
+) -> Backtest {
+    let options = FitOptions {
+        start: None,
+        ..options.clone()
+    };
     let m = samples.len();
     let observed = summarise(samples);
     let mut cases = Vec::new();
@@ -111,7 +132,7 @@ pub fn backtest(
             error: None,
         });
         for &family in families {
-            let case = match fit_family_on(family, &head, scale) {
+            let case = match fit_family_with(family, &head, &options) {
                 Ok(fit) => {
                     let (pred, e_last, mae) = score(&|n| fit.eval(n));
                     BacktestCase {

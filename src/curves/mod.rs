@@ -1,17 +1,26 @@
-//! Learning curves skill(n): curve families, a weighted nonlinear least-squares engine,
-//! AICc, backtests and family weights, inversion for the training-set size n that reaches a
-//! target skill, and a bootstrap of that n over replicates, initial conditions and families.
+//! Learning curves skill(n): curve families bounded to shapes a learning curve can have, a
+//! variable-projection least-squares engine, AICc, backtests and family weights, inversion for
+//! the training-set size n that reaches a target, a bootstrap of that n over replicates,
+//! initial conditions and families, and checks of a fitted curve against the measured points.
 //!
 //! Layout:
-//! - [`lsq`]: a generic weighted (and optionally one-sided, "censored") nonlinear
-//!   least-squares engine on top of the `levenberg-marquardt` crate, with standard errors
-//!   `sqrt(RSS/(m−p) · diag((JᵀJ)⁻¹))` computed here; validated on NIST StRD sets.
 //! - [`families`]: the seven learning-curve families (power law, saturating and shifted
 //!   saturating power laws, exponential saturation, Morgan–Mercer–Flodin, Weibull,
-//!   logarithmic), their closed-form inverses and deterministic starting points.
-//! - [`fit`]: replicate summaries, multi-start fitting of one family, AICc selection.
+//!   logarithmic) in an increasing (higher is better) and a decreasing (lower is better)
+//!   direction, their closed-form inverses and their variable-projection form.
+//! - [`bounds`]: the bounds of every nonlinear parameter (no step functions, no overflow), and
+//!   why.
+//! - [`varpro`]: variable projection — linear parameters in closed form, the at most two
+//!   nonlinear ones by a grid and a bounded Levenberg–Marquardt refinement with the exact
+//!   Golub–Pereyra Jacobian.
+//! - [`fit`]: replicate summaries, fits of one family (weighted by the replicate spread, or
+//!   ordinary least squares with the residual variance when there is none), rejection of
+//!   fits at a bound, checks against the measured points, AICc selection.
 //! - [`mod@backtest`]: fit on the smaller sizes, predict the larger; family weights.
 //! - [`uncertainty`]: bootstrap of n* over replicates, test initial conditions and families.
+//! - [`lsq`]: a generic weighted nonlinear least-squares engine on top of the
+//!   `levenberg-marquardt` crate, for models outside the families; validated on NIST StRD
+//!   sets.
 //!
 //! Censored points: a size at which some forecasts hit the maximum lead time only gives a
 //! lower bound on the skill. Such a point contributes the one-sided residual
@@ -20,23 +29,30 @@
 //!
 //! References: Levenberg (1944), Q. Appl. Math. 2, 164–168; Marquardt (1963), J. SIAM 11,
 //! 431–441; Moré (1978), "The Levenberg–Marquardt algorithm: implementation and theory"
-//! (MINPACK), Springer LNM 630; Hurvich & Tsai (1989), Biometrika 76, 297–307
-//! (AICc); Efron & Tibshirani (1993), An Introduction to the Bootstrap; NIST Statistical
-//! Reference Datasets (StRD), nonlinear regression.
+//! (MINPACK), Springer LNM 630; Golub & Pereyra (1973), SIAM J. Numer. Anal. 10, 413–432, and
+//! (2003), Inverse Problems 19, R1–R26 (variable projection); Hurvich & Tsai (1989),
+//! Biometrika 76, 297–307 (AICc); Efron & Tibshirani (1993), An Introduction to the
+//! Bootstrap; Hestness et al. (2017), arXiv:1712.00409, and Viering & Loog (2022), IEEE
+//! TPAMI (shapes of learning curves, see [`bounds`]); Domhan, Springenberg & Hutter (2015),
+//! IJCAI (monotone parametric learning curves); NIST Statistical Reference Datasets (StRD),
+//! nonlinear regression.
 
 pub mod backtest;
+pub mod bounds;
 #[cfg(test)]
 mod coverage;
 pub mod families;
 pub mod fit;
 pub mod lsq;
 pub mod uncertainty;
+pub mod varpro;
 
-pub use backtest::{backtest, Backtest, BacktestCase, BacktestScore, WeightRule};
-pub use families::{Family, Inversion};
+pub use backtest::{backtest, backtest_with, Backtest, BacktestCase, BacktestScore, WeightRule};
+pub use bounds::BoundRules;
+pub use families::{Direction, Family, Inversion};
 pub use fit::{
-    aicc, fit_family, fit_family_on, select_by_aicc, summarise, CurveFit, CurvePoint, FitScale,
-    SizeSamples,
+    aicc, fit_family, fit_family_on, fit_family_with, select_by_aicc, summarise, CurveFit,
+    CurvePoint, Disagreement, FitOptions, FitScale, SizeSamples, Weighting,
 };
 pub use lsq::{least_squares, LsqResult, Model, Observation};
 pub use uncertainty::{bootstrap_targets, SkillGrid, TargetDraws};
@@ -79,8 +95,9 @@ pub enum CurveError {
     },
 
     /// A curve point has a non-finite or non-positive n, a non-finite mean, or a standard
-    /// error that is not finite and positive (e.g. a size with no replicate values).
-    #[error("curve point at n = {n} is invalid (mean = {mean}, standard error = {standard_error}); n must be finite and > 0, the mean finite and the standard error finite and > 0 (does this size have replicate values?)")]
+    /// error that is not finite and ≥ 0 (e.g. a size with no replicate values), or the
+    /// standard errors mix zero and positive values.
+    #[error("curve point at n = {n} is invalid (mean = {mean}, standard error = {standard_error}); n must be finite and > 0, the mean finite, and the standard errors finite and either all > 0 or all 0 (no replicate spread) (does this size have replicate values?)")]
     InvalidPoint {
         n: f64,
         mean: f64,
@@ -107,12 +124,24 @@ pub enum CurveError {
         params: Vec<f64>,
     },
 
-    /// The best fit does not increase over the measured range of n.
-    #[error("{family}: the best fit {params:?} is not increasing over n in [{n_min}, {n_max}] (skill should grow with n); check the data or use another family")]
-    NotIncreasing {
+    /// The best fit is flat: the data do not move in the curve's direction.
+    #[error("{family}: rejected: the best {direction} fit is flat over n in [{n_min}, {n_max}] (the measured values do not move with n in that direction); check the data, or whether higher or lower is better for this metric")]
+    NotMonotone {
         family: &'static str,
-        params: Vec<f64>,
+        direction: &'static str,
         n_min: f64,
         n_max: f64,
     },
+
+    /// The fit ends at a bound of a nonlinear parameter, or the curve is not finite over the
+    /// range of n that matters; the reason says which and what the curve degenerates into.
+    #[error("{family}: rejected: {reason}")]
+    Rejected {
+        family: &'static str,
+        reason: String,
+    },
+
+    /// The bound rules do not define a box of positive values.
+    #[error("invalid curve bounds {rules:?}: the exponents need 0 < min-exponent < max-exponent and the location factor must be ≥ 1")]
+    InvalidBounds { rules: bounds::BoundRules },
 }

@@ -1,8 +1,21 @@
 //! Trajectories of state vectors: the in-memory type, its metadata sidecar, readers and writers
-//! (`.npy` + JSON sidecar, CSV), content hashing, and the training/test split.
+//! (`.npy` + JSON sidecar, CSV), content hashing, and the training/test split; and the way from a
+//! solver's gridded output to such trajectories:
+//!
+//! - [`dataset`]: NetCDF-3, NetCDF-4/HDF5 (cargo feature `netcdf4`) and `.npz` files as one
+//!   dataset abstraction — variables stacked as state columns, a time dimension, slices, CF
+//!   metadata, packing and refusal of gaps, streamed reading in blocks;
+//! - [`ensemble`]: several runs of one regime, kept apart (whole runs held out for testing);
+//! - [`coarse`]: box-filter coarse-graining of 2-D and 3-D fields;
+//! - [`pod`]: snapshot POD with bounded memory, the number of modes from an energy fraction,
+//!   projection and reconstruction.
 
 pub mod autocorr;
+pub mod coarse;
+pub mod dataset;
+pub mod ensemble;
 mod io;
+pub mod pod;
 mod split;
 
 pub use io::{read_npy, read_trajectory, write_npy, write_trajectory, OutputFormats};

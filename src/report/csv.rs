@@ -4,7 +4,7 @@
 
 use crate::skill::IcSkill;
 use crate::study::records::SkillRecord;
-use crate::study::runner::StudyOutcome;
+use crate::study::results::ForecastSkill;
 
 /// The header of `skill.csv`, in column order.
 pub const HEADER: [&str; 10] = [
@@ -60,16 +60,12 @@ fn count(x: Option<usize>) -> String {
     x.map(|v| v.to_string()).unwrap_or_default()
 }
 
-/// `skill.csv` as bytes. Rows are sorted by model, n, replicate and initial condition; the
+/// `skill.csv` as bytes, with `valid_lyapunov_times` from the study's `lyapunov` exponent when
+/// it sets one. Rows are sorted by model, n, replicate and initial condition; the
 /// persistence rows (empty `replicate` and `n`) sort under the model name `persistence`.
-pub fn skill_csv(outcome: &StudyOutcome) -> Vec<u8> {
-    let lyapunov = outcome
-        .document
-        .skill
-        .as_ref()
-        .and_then(|k| k.lyapunov_exponent);
-    let mut rows: Vec<Row<'_>> = outcome.records.iter().flat_map(rows_of_record).collect();
-    rows.extend(outcome.persistence.iter().enumerate().map(|(ic, s)| Row {
+pub fn skill_csv(forecasts: &ForecastSkill, lyapunov: Option<f64>) -> Vec<u8> {
+    let mut rows: Vec<Row<'_>> = forecasts.records.iter().flat_map(rows_of_record).collect();
+    rows.extend(forecasts.persistence.iter().enumerate().map(|(ic, s)| Row {
         model: PERSISTENCE,
         replicate: None,
         n: None,
@@ -78,7 +74,7 @@ pub fn skill_csv(outcome: &StudyOutcome) -> Vec<u8> {
         ridge_penalty: None,
         training_rmse: None,
     }));
-    rows.extend(outcome.climatology.iter().enumerate().map(|(ic, s)| Row {
+    rows.extend(forecasts.climatology.iter().enumerate().map(|(ic, s)| Row {
         model: CLIMATOLOGY,
         replicate: None,
         n: None,
@@ -112,23 +108,25 @@ pub fn skill_csv(outcome: &StudyOutcome) -> Vec<u8> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::report::tests::fixture;
+    use crate::report::fixtures::fixture;
 
     #[test]
     fn header_row_count_and_order() {
-        let outcome = fixture();
-        let bytes = skill_csv(&outcome);
+        let results = fixture();
+        let forecasts = results.forecasts.as_ref().unwrap();
+        let lyapunov = results.document.skill.as_ref().unwrap().lyapunov_exponent;
+        let bytes = skill_csv(forecasts, lyapunov);
         let mut reader = ::csv::Reader::from_reader(bytes.as_slice());
         let header: Vec<String> = reader.headers().unwrap().iter().map(String::from).collect();
         assert_eq!(header, HEADER);
         let rows: Vec<::csv::StringRecord> = reader.records().map(Result::unwrap).collect();
-        let expected: usize = outcome
+        let expected: usize = forecasts
             .records
             .iter()
             .map(|r| r.initial_conditions.len())
             .sum::<usize>()
-            + outcome.persistence.len()
-            + outcome.climatology.len();
+            + forecasts.persistence.len()
+            + forecasts.climatology.len();
         assert_eq!(rows.len(), expected);
 
         let key = |r: &::csv::StringRecord| {
@@ -144,7 +142,7 @@ mod tests {
         assert!(keys.windows(2).all(|w| w[0] < w[1]), "sorted and unique");
 
         let persistence: Vec<_> = rows.iter().filter(|r| &r[0] == PERSISTENCE).collect();
-        assert_eq!(persistence.len(), outcome.persistence.len());
+        assert_eq!(persistence.len(), forecasts.persistence.len());
         assert!(persistence
             .iter()
             .all(|r| r[1].is_empty() && r[2].is_empty()));

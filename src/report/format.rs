@@ -175,6 +175,15 @@ pub fn opt(x: Option<f64>, f: fn(f64) -> String) -> String {
     x.map(f).unwrap_or_else(|| "—".into())
 }
 
+/// A grid-point count: thousands separators, in e-notation from a million ("1.21e11").
+pub fn grid_points(x: f64) -> String {
+    if x >= 1e6 {
+        format!("{x:.2e}")
+    } else {
+        thousands(x)
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -1,6 +1,8 @@
-//! The answer as plain text for the terminal (printed after `run`).
+//! Plain text for the terminal: the answer (printed after `run` and `fit`) and the breakdown of
+//! a stand-alone cost question (printed by `cost`).
 
-use super::format::{bytes, number, percent, sig3, thousands};
+use super::format::{bytes, grid_points, number, percent, sig3, thousands};
+use crate::cost::CostReport;
 use crate::study::results::{EstimateStatus, PlanDocument, TargetEstimate, TransferResult};
 use std::fmt::Write;
 
@@ -188,13 +190,138 @@ fn transfer_summary(s: &mut String, t: &TransferResult, level: f64) {
     }
 }
 
+/// The breakdown of a stand-alone cost question as plain text for the terminal.
+pub fn cost_text(r: &CostReport) -> String {
+    let c = &r.campaign;
+    let b = &r.breakdown;
+    let unit = c.device.hours_label();
+    let mut s = String::new();
+    let _ = writeln!(s, "Campaign for {} saved samples", thousands(r.samples));
+    let _ = writeln!(s, "\nRate");
+    let _ = writeln!(
+        s,
+        "  pilot rate        {} {unit} per model time unit",
+        sig3(c.pilot_rate)
+    );
+    if let (Some(sc), Some(d)) = (&c.scaling, &r.scaling_description) {
+        let _ = writeln!(
+            s,
+            "  scaled rate       {} {unit} per model time unit (Re {} → {}, rate × {})",
+            sig3(c.rate),
+            sig3(sc.pilot_reynolds),
+            sig3(sc.target_reynolds),
+            sig3(sc.rate_factor)
+        );
+        let _ = writeln!(s, "  law               {d}");
+    }
+    if let Some(n) = c.grid_points {
+        let _ = writeln!(s, "  grid points       {}", grid_points(n));
+    }
+    let _ = writeln!(s, "\nShape");
+    let _ = writeln!(s, "  runs              {}", b.runs);
+    let steps = |x: Option<f64>| {
+        x.map(|v| format!(" ({} solver steps)", sig3(v)))
+            .unwrap_or_default()
+    };
+    let _ = writeln!(
+        s,
+        "  spin-up per run   {} time units{}",
+        sig3(b.spin_up_per_run),
+        steps(b.spin_up_steps_per_run)
+    );
+    let _ = writeln!(
+        s,
+        "  sampling per run  {} time units{}",
+        sig3(b.sampling_time_per_run),
+        steps(b.sampling_steps_per_run)
+    );
+    let _ = writeln!(
+        s,
+        "  simulated time    {} time units{}",
+        sig3(b.simulated_time),
+        steps(b.solver_steps)
+    );
+    let _ = writeln!(s, "\nCharges");
+    let _ = writeln!(
+        s,
+        "  base              {} {unit} (simulated time × rate)",
+        sig3(b.base_device_hours)
+    );
+    if let Some(ck) = &c.checkpointing {
+        let _ = writeln!(
+            s,
+            "  checkpointing     every {} wall-hours (Young 1974, √(2δM), δ = {} h, M = {} h): +{:.1}%",
+            sig3(ck.interval_hours),
+            ck.cost_hours,
+            ck.mtbf_hours,
+            100.0 * ck.overhead_fraction
+        );
+    }
+    let line = |s: &mut String, name: &str, ch: &crate::cost::Charges| {
+        let mut parts = vec![format!("{} {unit}", sig3(ch.device_hours))];
+        if let Some(h) = ch.node_hours {
+            parts.push(format!("{} node-hours", sig3(h)));
+        }
+        if let Some(h) = ch.whole_node_device_hours {
+            parts.push(format!("{} {unit} charged for whole nodes", sig3(h)));
+        }
+        if let Some(g) = ch.gpu_charge {
+            parts.push(format!("{} GPU charge", sig3(g)));
+        }
+        if let Some(u) = ch.service_units {
+            parts.push(format!("{} SU", sig3(u)));
+        }
+        let _ = writeln!(s, "  {name:<17} {}", parts.join(", "));
+    };
+    line(&mut s, "production", &b.production);
+    line(
+        &mut s,
+        &format!("contingency ×{}", c.contingency_factor),
+        &b.contingency,
+    );
+    line(&mut s, "total", &b.total);
+    if let Some(w) = &b.wall {
+        let _ = writeln!(s, "\nWall-clock");
+        let _ = writeln!(
+            s,
+            "  per run           {} hours on {} {}{}",
+            sig3(w.hours_per_run),
+            w.devices_per_run,
+            c.device.plural(),
+            w.nodes_per_run
+                .map(|k| format!(" ({k} nodes)"))
+                .unwrap_or_default()
+        );
+        let _ = writeln!(
+            s,
+            "  campaign          {} hours with {} run(s) at once; {} hours one after another",
+            sig3(w.parallel_hours),
+            w.concurrent_runs,
+            sig3(w.serial_hours)
+        );
+    }
+    let st = &b.storage;
+    let _ = writeln!(s, "\nStorage");
+    let _ = writeln!(
+        s,
+        "  snapshots         {} ({} each)",
+        bytes(st.snapshot_bytes),
+        bytes(st.snapshot_bytes_each)
+    );
+    let _ = writeln!(s, "  checkpoint file   {}", bytes(st.checkpoint_bytes_each));
+    let _ = writeln!(s, "  scratch           {}", bytes(st.scratch_bytes));
+    let _ = writeln!(s, "  archive           {}", bytes(st.archive_bytes));
+    s
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::cost::{Amount, CostInputs, CostSpec};
 
     #[test]
     fn summary_lists_every_target_and_warning() {
-        let doc = crate::report::tests::fixture().document;
+        let doc = crate::report::fixtures::fixture().document;
         let text = text_summary(&doc);
         for m in &doc.models {
             assert!(text.contains(&format!("model {}", m.name)), "{text}");
@@ -207,9 +334,9 @@ mod tests {
     }
     #[test]
     fn summary_ends_with_the_new_regime() {
-        let plain = text_summary(&crate::report::tests::fixture().document);
+        let plain = text_summary(&crate::report::fixtures::fixture().document);
         assert!(!plain.contains("new regime"), "{plain}");
-        let text = text_summary(&crate::report::tests::transfer_fixture().document);
+        let text = text_summary(&crate::report::fixtures::transfer_fixture().document);
         let block = &text[text.find("\nnew regime: ").expect("new-regime block")..];
         assert!(text.find("model esn-500").unwrap() < text.find("new regime").unwrap());
         assert!(
@@ -246,5 +373,36 @@ mod tests {
         );
         // The warnings stay last.
         assert!(text.find("new regime").unwrap() < text.find("warning: ").unwrap());
+    }
+
+    #[test]
+    fn cost_text_names_every_section() {
+        let report = crate::cost::cost_report(&CostSpec {
+            amount: Amount::Samples(10_000.0),
+            sample_interval: 0.01,
+            variables: 8,
+            inputs: CostInputs {
+                core_hours_per_time_unit: Some(100.0),
+                scaling_law: Some("isotropic-turbulence".into()),
+                pilot_reynolds: Some(100.0),
+                target_reynolds: Some(200.0),
+                cores_per_run: Some(100),
+                ..CostInputs::default()
+            },
+        })
+        .unwrap();
+        let text = cost_text(&report);
+        for part in [
+            "Rate",
+            "Pope 2000",
+            "Shape",
+            "Charges",
+            "contingency",
+            "Wall-clock",
+            "Storage",
+            "800 core-hours",
+        ] {
+            assert!(text.contains(part), "{part}: {text}");
+        }
     }
 }

@@ -1,89 +1,15 @@
 //! The history of a study's headline estimates: every completed run appends one line to
 //! `history.jsonl` in the output directory (when it finished, what data it saw, how many points
 //! it reused and computed, and n* with core-hours per model and target), so the report can show
-//! how the estimate moved as data arrived.
+//! how the estimate moved as data arrived. The entry's format is part of the results contract
+//! ([`HistoryEntry`]).
 
-use super::results::{EstimateStatus, PlanDocument, PointCounts};
-use serde::{Deserialize, Serialize};
+use super::results::HistoryEntry;
 use std::io::Write;
 use std::path::Path;
 
 /// The history file's name in the output directory.
 pub const HISTORY_FILE: &str = "history.jsonl";
-
-/// One completed run.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(rename_all = "kebab-case")]
-pub struct HistoryEntry {
-    /// When the run finished, UTC (RFC 3339).
-    pub finished: String,
-    pub tool_version: String,
-    /// SHA-256 of the study file and of the pilot data.
-    pub study_sha256: String,
-    pub data_sha256: String,
-    /// Pilot samples and training-pool samples the run saw.
-    pub samples: usize,
-    pub training_pool: usize,
-    /// Largest subset measured.
-    pub largest_size: usize,
-    pub points: PointCounts,
-    pub estimates: Vec<HistoryEstimate>,
-}
-
-/// One model's estimate for one target in one run.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(rename_all = "kebab-case")]
-pub struct HistoryEstimate {
-    pub model: String,
-    pub target: f64,
-    pub status: EstimateStatus,
-    pub samples: Option<f64>,
-    pub samples_interval: [Option<f64>; 2],
-    pub core_hours: Option<f64>,
-    pub core_hours_interval: [Option<f64>; 2],
-}
-
-impl HistoryEntry {
-    /// The entry of a finished study's document (`None` without pilot data or point counts).
-    pub fn of(doc: &PlanDocument, finished: String) -> Option<Self> {
-        let data = doc.data.as_ref()?;
-        Some(HistoryEntry {
-            finished,
-            tool_version: doc.tool_version.clone(),
-            study_sha256: doc.study.file_sha256.clone(),
-            data_sha256: data.content_sha256.clone(),
-            samples: data.samples,
-            training_pool: data.training_pool,
-            largest_size: doc.study.sizes.last().copied().unwrap_or(0),
-            points: doc.points?,
-            estimates: doc
-                .models
-                .iter()
-                .flat_map(|m| {
-                    m.estimates.iter().map(|e| HistoryEstimate {
-                        model: m.name.clone(),
-                        target: e.target,
-                        status: e.status,
-                        samples: e.samples,
-                        samples_interval: e.samples_interval,
-                        core_hours: e.budget.as_ref().map(|b| b.core_hours),
-                        core_hours_interval: [
-                            e.budget_low.as_ref().map(|b| b.core_hours),
-                            e.budget_high.as_ref().map(|b| b.core_hours),
-                        ],
-                    })
-                })
-                .collect(),
-        })
-    }
-
-    /// This run's estimate for a model and target.
-    pub fn estimate(&self, model: &str, target: f64) -> Option<&HistoryEstimate> {
-        self.estimates
-            .iter()
-            .find(|e| e.model == model && e.target == target)
-    }
-}
 
 /// Appends `entry` to the history in `dir` (one line, one write) and returns the whole history,
 /// oldest first. Lines that cannot be read (a torn last line, or another tool version's
@@ -162,6 +88,7 @@ fn rfc3339(secs: u64) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::study::results::PointCounts;
 
     #[test]
     fn dates_match_known_instants() {

@@ -8,8 +8,9 @@
 //! measured skill (larger is better). Several rows with the same model, n and replicate are
 //! treated as separate evaluations (e.g. test initial conditions) of one trained model.
 
+use super::analysis::{analyse_curve, CurveSettings};
 use super::results::{ModelResult, PlanDocument, PointResult, StudyInfo, Timings, PLAN_SCHEMA};
-use super::runner::{analyse_curve, CurveSettings};
+use super::seeds::derive_seed;
 use crate::curves::SkillGrid;
 use crate::data::hash_bytes;
 use std::collections::BTreeMap;
@@ -61,16 +62,8 @@ pub struct MeasuredOptions {
     pub seed: u64,
 }
 
-/// Reads a measured-skill CSV into one size grid per model (sizes ascending, replicates in
-/// label order).
-pub fn read_measured(path: &Path) -> Result<BTreeMap<String, Vec<SkillGrid>>, MeasuredError> {
-    let bytes = std::fs::read(path).map_err(|source| MeasuredError::Read {
-        path: path.to_path_buf(),
-        source,
-    })?;
-    parse_measured(path, &bytes)
-}
-
+/// Parses a measured-skill CSV (`bytes`, read from `path`) into one size grid per model (sizes
+/// ascending, replicates in label order).
 fn parse_measured(
     path: &Path,
     bytes: &[u8],
@@ -231,7 +224,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
     let mut replicates = 0;
     let mut models = Vec::new();
     for (name, grid) in &grids {
-        let seed = super::runner::derive_seed(options.seed, name, usize::MAX);
+        let seed = derive_seed(options.seed, name, usize::MAX);
         let curve = analyse_curve(
             grid,
             &targets,

@@ -1,21 +1,36 @@
 //! Studies: the study file schema, its validation into a plan, the results contract, the
-//! records store, and the runner that turns a plan into results.
+//! records store, and the runner that turns a plan into results stage by stage.
+//!
+//! The runner's stages, in order: `prepare` (data, split, skill, cost, coupling) →
+//! [`points`] (keys, store, training and scoring through [`train`] and `score`; split into
+//! [`shards`]) → [`analysis`] (curves → estimates) → transfer (a new regime) → `outcome`
+//! (document, tables of runs, history). [`status`] reads the stores; [`measured`] takes skill
+//! measured outside the tool straight to [`analysis`].
 
+pub mod analysis;
 pub mod history;
 pub mod keys;
 pub mod measured;
+mod outcome;
 pub mod plan;
 pub mod points;
+mod prepare;
+mod progress;
 pub mod records;
 pub mod results;
 pub mod runner;
 pub mod schema;
+mod score;
+pub mod seeds;
+pub mod shards;
+pub mod status;
 pub mod train;
 mod transfer;
 
 pub use plan::{load_plan, StudyPlan};
-pub use points::Shard;
+pub use results::StudyResults;
 pub use runner::{merge_study, run_shard, run_study, study_status, RunOptions};
+pub use shards::Shard;
 
 use std::path::PathBuf;
 

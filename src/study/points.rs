@@ -1,11 +1,15 @@
 //! The points of a study — one per (model, replicate, subset size) — their keys, which of them
-//! the records store already holds, their split into shards, and the computing of the missing
-//! ones (train each (model, replicate) unit on its missing sizes, score, append to the store).
+//! the records store already holds, their estimated cost (which balances shards and paces the
+//! progress bar), and the computing of the missing ones (train each (model, replicate) unit on
+//! its missing sizes, score, append to the store).
 
 use super::keys::{self, PointIdentity};
 use super::plan::StudyPlan;
+use super::prepare::Prepared;
+use super::progress::bar_with_template;
 use super::records::{PointCost, RecordStore, SkillRecord};
-use super::runner::{bar_with_template, derive_seed, score_batched, ClosureReference, Prepared};
+use super::score::{score_batched, ClosureReference};
+use super::seeds::derive_seed;
 use super::train::train_unit;
 use super::StudyError;
 use crate::models::family::{ExternalPoint, RelativeCost, Trainer};
@@ -16,40 +20,6 @@ use std::collections::{BTreeMap, HashMap, HashSet};
 use std::ops::Range;
 use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 use std::time::Instant;
-
-/// A 1/N share of a study's points, `index` counted from 1.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub struct Shard {
-    pub index: usize,
-    pub count: usize,
-}
-
-impl std::str::FromStr for Shard {
-    type Err = String;
-    fn from_str(s: &str) -> Result<Self, String> {
-        let bad = || format!("`{s}` is not a shard: write I/N with 1 ≤ I ≤ N, e.g. 2/8");
-        let (i, n) = s.split_once('/').ok_or_else(bad)?;
-        let index: usize = i.trim().parse().map_err(|_| bad())?;
-        let count: usize = n.trim().parse().map_err(|_| bad())?;
-        if index == 0 || count == 0 || index > count {
-            return Err(bad());
-        }
-        Ok(Shard { index, count })
-    }
-}
-
-impl std::fmt::Display for Shard {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        write!(f, "{}/{}", self.index, self.count)
-    }
-}
-
-impl Shard {
-    /// File name of this shard's store in `shards/`.
-    pub fn file_name(&self) -> String {
-        format!("shard-{}-of-{}.jsonl", self.index, self.count)
-    }
-}
 
 /// First sample of replicate `r`'s training window: replicate windows start `stride` samples
 /// apart from the start of the pool, with `stride` the smallest subset size (so the smallest
@@ -216,23 +186,6 @@ pub(super) fn estimated_cost(plan: &StudyPlan, model: usize, n: usize, prep: &Pr
     let steps = prep.split.initial_conditions.len() as f64
         * (prep.skill.warm_up + prep.skill.max_lead / 4) as f64;
     closure * (train * n as f64 + step * steps)
-}
-
-/// Assigns units to shards: longest estimated work first, each to the least-loaded shard (ties
-/// to the lower index), so every shard computes the same assignment from the same store.
-pub(super) fn shard_units(costs: &[f64], shard: Shard) -> Vec<bool> {
-    let mut order: Vec<usize> = (0..costs.len()).filter(|&i| costs[i] > 0.0).collect();
-    order.sort_by(|&a, &b| costs[b].total_cmp(&costs[a]).then(a.cmp(&b)));
-    let mut load = vec![0.0_f64; shard.count];
-    let mut mine = vec![false; costs.len()];
-    for i in order {
-        let s = (0..shard.count)
-            .min_by(|&a, &b| load[a].total_cmp(&load[b]).then(a.cmp(&b)))
-            .expect("at least one shard");
-        load[s] += costs[i];
-        mine[i] = s + 1 == shard.index;
-    }
-    mine
 }
 
 /// What [`compute`] works on.
@@ -471,37 +424,6 @@ pub(super) fn compute(
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn shards_parse_and_refuse_nonsense() {
-        assert_eq!("2/8".parse::<Shard>(), Ok(Shard { index: 2, count: 8 }));
-        for bad in ["0/3", "4/3", "1/0", "3", "a/b", "1/2/3"] {
-            assert!(bad.parse::<Shard>().is_err(), "{bad}");
-        }
-    }
-
-    #[test]
-    fn shards_split_every_unit_exactly_once_balanced_by_cost() {
-        let costs = [9.0, 1.0, 1.0, 1.0, 5.0, 4.0, 0.0, 3.0];
-        let count = 3;
-        let shares: Vec<Vec<bool>> = (1..=count)
-            .map(|index| shard_units(&costs, Shard { index, count }))
-            .collect();
-        let mut loads = vec![0.0; count];
-        for (i, c) in costs.iter().enumerate() {
-            let owners: Vec<usize> = (0..count).filter(|&s| shares[s][i]).collect();
-            if *c > 0.0 {
-                assert_eq!(owners.len(), 1, "unit {i} owned once");
-                loads[owners[0]] += c;
-            } else {
-                assert!(owners.is_empty(), "nothing to do, no owner");
-            }
-        }
-        // Longest first onto the least loaded: 9 | 5 1 1 1 | 4 3 → loads 9, 8, 7.
-        let mut sorted = loads.clone();
-        sorted.sort_by(f64::total_cmp);
-        assert_eq!(sorted, vec![7.0, 8.0, 9.0]);
-    }
 
     #[test]
     fn replicate_windows_stay_put_when_the_pool_grows() {

@@ -8,6 +8,9 @@ use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::sync::Mutex;
 
+/// The records store's file name in the output directory.
+pub const RECORDS_FILE: &str = "records.jsonl";
+
 /// Skill of one trained model on every test initial condition.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]

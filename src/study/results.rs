@@ -1,22 +1,93 @@
 //! The results of a study: the `plan.json` data contract.
 //!
-//! `plan.json` (schema [`PLAN_SCHEMA`]) is one [`PlanDocument`]. Conventions: times are in model
+//! `plan.json` (schema [`PLAN_SCHEMA`]) is one [`PlanDocument`]; `history.jsonl` holds one
+//! [`HistoryEntry`] per line; [`StudyResults`] bundles the document with the data behind its
+//! figures (skill records, floors, tables of runs, history) for the report. Conventions: times are in model
 //! time units unless a name says otherwise; sizes are numbers of saved samples; core-hours and
 //! bytes are plain numbers; an interval is `[lower, upper]` at the study's confidence level with
 //! `null` for an unbounded side; maps are ordered by key. Fields are added, never renamed,
 //! within one schema version. The `timings` object is the only part that changes between
 //! identical runs.
 
-use crate::cost::{Budget, CostModel};
+use super::records::SkillRecord;
+use crate::cost::{Budget, CostModel, RunTable};
 use crate::curves::Family;
-use crate::skill::SkillSummary;
+use crate::skill::{IcSkill, SkillSummary};
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
 /// Version tag of the `plan.json` contract.
 pub const PLAN_SCHEMA: &str = "closure-budget/plan/1";
 
-/// Everything a study produced.
+/// Everything a study (or a fit of skill measured outside the tool) produced, as the report's
+/// exporters read it: the plan document and the data behind its figures.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct StudyResults {
+    /// `plan.json`.
+    pub document: PlanDocument,
+    /// Every single forecast behind the figures (`skill.csv`); `None` for skill measured outside
+    /// the tool.
+    pub forecasts: Option<ForecastSkill>,
+    /// Proposal-ready tables of runs, one per model and target with a budget (none without a
+    /// campaign cost model).
+    pub run_tables: Vec<RunTable>,
+    /// Headline estimates of every completed run of this study in its output directory, this
+    /// one last; empty when no history is kept (skill measured outside the tool).
+    pub history: Vec<HistoryEntry>,
+}
+
+impl StudyResults {
+    /// The results a document carries by itself: its tables of runs (from its estimates and
+    /// campaign), no single forecasts and no history — all a fit of measured skill has.
+    pub fn new(document: PlanDocument) -> Self {
+        let run_tables = match &document.campaign {
+            Some(campaign) => document
+                .models
+                .iter()
+                .flat_map(|m| {
+                    m.estimates
+                        .iter()
+                        .filter(|e| e.status.has_budget())
+                        .filter_map(|e| {
+                            e.samples.map(|n| {
+                                RunTable::new(
+                                    campaign,
+                                    &m.name,
+                                    e.target,
+                                    document.study.confidence,
+                                    n,
+                                    e.samples_interval,
+                                )
+                            })
+                        })
+                })
+                .collect(),
+            None => Vec::new(),
+        };
+        StudyResults {
+            document,
+            forecasts: None,
+            run_tables,
+            history: Vec::new(),
+        }
+    }
+}
+
+/// Every single forecast behind a study's figures, as `skill.csv` lists them.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct ForecastSkill {
+    /// The models' skill records, sorted by model, n and replicate.
+    pub records: Vec<SkillRecord>,
+    /// Persistence (x̂(t) = x(0)) per test initial condition, in split order: the floor.
+    pub persistence: Vec<IcSkill>,
+    /// Climatology (x̂(t) = the training pool's mean) per test initial condition: the other
+    /// floor.
+    pub climatology: Vec<IcSkill>,
+}
+
+/// Everything a study produced (`plan.json`).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub struct PlanDocument {
@@ -428,6 +499,80 @@ pub struct Timings {
     pub report: f64,
     pub total: f64,
     pub threads: usize,
+}
+
+/// One completed run.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct HistoryEntry {
+    /// When the run finished, UTC (RFC 3339).
+    pub finished: String,
+    pub tool_version: String,
+    /// SHA-256 of the study file and of the pilot data.
+    pub study_sha256: String,
+    pub data_sha256: String,
+    /// Pilot samples and training-pool samples the run saw.
+    pub samples: usize,
+    pub training_pool: usize,
+    /// Largest subset measured.
+    pub largest_size: usize,
+    pub points: PointCounts,
+    pub estimates: Vec<HistoryEstimate>,
+}
+
+/// One model's estimate for one target in one run.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct HistoryEstimate {
+    pub model: String,
+    pub target: f64,
+    pub status: EstimateStatus,
+    pub samples: Option<f64>,
+    pub samples_interval: [Option<f64>; 2],
+    pub core_hours: Option<f64>,
+    pub core_hours_interval: [Option<f64>; 2],
+}
+
+impl HistoryEntry {
+    /// The entry of a finished study's document (`None` without pilot data or point counts).
+    pub fn of(doc: &PlanDocument, finished: String) -> Option<Self> {
+        let data = doc.data.as_ref()?;
+        Some(HistoryEntry {
+            finished,
+            tool_version: doc.tool_version.clone(),
+            study_sha256: doc.study.file_sha256.clone(),
+            data_sha256: data.content_sha256.clone(),
+            samples: data.samples,
+            training_pool: data.training_pool,
+            largest_size: doc.study.sizes.last().copied().unwrap_or(0),
+            points: doc.points?,
+            estimates: doc
+                .models
+                .iter()
+                .flat_map(|m| {
+                    m.estimates.iter().map(|e| HistoryEstimate {
+                        model: m.name.clone(),
+                        target: e.target,
+                        status: e.status,
+                        samples: e.samples,
+                        samples_interval: e.samples_interval,
+                        core_hours: e.budget.as_ref().map(|b| b.core_hours),
+                        core_hours_interval: [
+                            e.budget_low.as_ref().map(|b| b.core_hours),
+                            e.budget_high.as_ref().map(|b| b.core_hours),
+                        ],
+                    })
+                })
+                .collect(),
+        })
+    }
+
+    /// This run's estimate for a model and target.
+    pub fn estimate(&self, model: &str, target: f64) -> Option<&HistoryEstimate> {
+        self.estimates
+            .iter()
+            .find(|e| e.model == model && e.target == target)
+    }
 }
 
 impl TargetEstimate {

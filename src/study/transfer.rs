@@ -9,15 +9,17 @@
 //! bootstrap), and their inversions give the samples each needs for the new regime's targets,
 //! and so the samples and core-hours transfer saves.
 
+use super::analysis::{curve_result, CurveSubject};
 use super::plan::{StudyPlan, TransferGoal, TransferPlan};
 use super::points::replicate_window;
+use super::prepare::{data_info, load_regime, Regime};
+use super::progress::bar;
 use super::records::{PointCost, SkillRecord};
 use super::results::{
     EstimateStatus, TargetEstimate, TransferModel, TransferResult, TransferSaving,
 };
-use super::runner::{
-    bar, curve_result, data_info, derive_seed, load_regime, score_batched, CurveSubject, Regime,
-};
+use super::score::score_batched;
+use super::seeds::derive_seed;
 use super::train::train_transfer_unit;
 use super::StudyError;
 use crate::cost::campaign::Campaign;

@@ -1,0 +1,220 @@
+//! Fragments shared by the sections: table cells for targets, statuses, sample counts and budgets with
+//! their intervals, the data's description, the persistence floor, the end of a curve figure's
+//! caption.
+
+use crate::cost::Budget;
+use crate::report::format::{escape, number, percent, samples, sig3};
+use crate::skill::SkillSummary;
+use crate::study::results::{DataInfo, EstimateStatus, PlanDocument, TargetEstimate};
+use std::fmt::Write;
+
+/// "simulated two-scale-lorenz96 (F = 20, h = 1)" or "file data/run.npy".
+pub(super) fn data_source(doc: &PlanDocument) -> String {
+    let Some(d) = &doc.data else {
+        return format!(
+            "skill measured outside the tool, read from <code>{}</code>",
+            escape(&doc.study.file)
+        );
+    };
+    data_description(d)
+}
+
+/// "simulated two-scale-lorenz96 (F = 20, h = 1)" or "file data/run.npy" for one data set.
+pub(super) fn data_description(d: &DataInfo) -> String {
+    match &d.system {
+        Some(system) => {
+            let params: Vec<String> = d
+                .parameters
+                .iter()
+                .map(|(k, v)| format!("{} = {}", escape(k), number(*v)))
+                .collect();
+            let params = if params.is_empty() {
+                String::new()
+            } else {
+                format!(" ({})", params.join(", "))
+            };
+            format!("simulated <strong>{}</strong>{params}", escape(system))
+        }
+        None => format!("file <code>{}</code>", escape(&d.source)),
+    }
+}
+
+pub(super) fn confidence(doc: &PlanDocument) -> String {
+    percent(doc.study.confidence)
+}
+
+/// "18,100–35,000", "18,100–unbounded", "up to 35,000" or "unbounded".
+pub(super) fn interval(lo: Option<f64>, hi: Option<f64>, f: impl Fn(f64) -> String) -> String {
+    match (lo, hi) {
+        (Some(l), Some(h)) => format!("{}–{}", f(l), f(h)),
+        (Some(l), None) => format!("{}–unbounded", f(l)),
+        (None, Some(h)) => format!("up to {}", f(h)),
+        (None, None) => "unbounded".into(),
+    }
+}
+
+/// A budget figure with its interval, or "—" when there is no budget.
+pub(super) fn budget_cell(
+    doc: &PlanDocument,
+    e: &TargetEstimate,
+    field: fn(&Budget) -> f64,
+    f: fn(f64) -> String,
+    unit: &str,
+) -> String {
+    let Some(b) = &e.budget else {
+        return "—".into();
+    };
+    let lo = e.budget_low.as_ref().map(field);
+    let hi = e.budget_high.as_ref().map(field);
+    let bounded_hi = hi.filter(|_| e.samples_interval[1].is_some());
+    format!(
+        "<span class=\"big\">{}</span>{unit}<span class=\"sub\">{} interval {}</span>",
+        f(field(b)),
+        confidence(doc),
+        interval(lo, bounded_hi, f)
+    )
+}
+
+pub(super) fn target_cell(doc: &PlanDocument, target: f64) -> String {
+    let mut s = format!("<span class=\"big\">{}</span> time units", sig3(target));
+    if let Some(l) = doc.skill.as_ref().and_then(|k| k.lyapunov_exponent) {
+        let _ = write!(
+            s,
+            "<span class=\"sub\">{} Lyapunov times</span>",
+            sig3(target * l)
+        );
+    }
+    s
+}
+
+/// The status as a coloured badge: "reachable", "unreachable", …
+pub(super) fn status_badge(status: EstimateStatus) -> String {
+    let class = match status {
+        EstimateStatus::ReachedInData => "met",
+        EstimateStatus::Reachable => "reached",
+        EstimateStatus::Extrapolated => "extrapolated",
+        EstimateStatus::Unreachable => "unreachable",
+        EstimateStatus::NoFit => "nofit",
+    };
+    format!("<span class=\"badge {class}\">{}</span>", status.label())
+}
+
+pub(super) fn status_cell(e: &TargetEstimate) -> String {
+    let badge = status_badge(e.status);
+    match e.status {
+        EstimateStatus::ReachedInData => {
+            format!("{badge}<span class=\"sub\">a measured size already reaches it</span>")
+        }
+        EstimateStatus::Reachable => badge,
+        EstimateStatus::Extrapolated => format!(
+            "{badge}<span class=\"sub\">{}× the largest measured size</span>",
+            e.extrapolation.map(sig3).unwrap_or_else(|| "?".into())
+        ),
+        EstimateStatus::Unreachable => format!(
+            "{badge}<span class=\"sub\">{}; P(unreachable) {}</span>",
+            match e.asymptote {
+                Some(a) => format!("fitted asymptote {} time units", sig3(a)),
+                None => "the fitted curve does not rise to it".into(),
+            },
+            percent(e.p_unreachable)
+        ),
+        EstimateStatus::NoFit => badge,
+    }
+}
+
+/// A sample count with its interval; `symbol` names it in a one-sided bound ("n* ≥ 30,000").
+pub(super) fn samples_cell(doc: &PlanDocument, e: &TargetEstimate, symbol: &str) -> String {
+    let Some(n) = e.samples.filter(|v| v.is_finite()) else {
+        return "—".into();
+    };
+    let [lo, hi] = e.samples_interval;
+    let range = match (lo, hi) {
+        (Some(l), None) => format!("{symbol} ≥ {}", samples(l)),
+        _ => interval(lo, hi, samples),
+    };
+    let mut s = format!(
+        "<span class=\"big\">{}</span> samples<span class=\"sub\">{} interval {}</span>",
+        samples(n),
+        confidence(doc),
+        range
+    );
+    if let Some(m) = e.median_samples {
+        let _ = write!(
+            s,
+            "<span class=\"sub\">bootstrap median {}</span>",
+            samples(m)
+        );
+    }
+    if let Some(x) = e.extrapolation.filter(|x| *x > 1.0) {
+        let _ = write!(
+            s,
+            "<span class=\"sub\">{}× the largest size measured</span>",
+            sig3(x)
+        );
+    }
+    if e.p_unreachable > 0.0 {
+        let _ = write!(
+            s,
+            "<span class=\"sub\">P(unreachable) {}</span>",
+            percent(e.p_unreachable)
+        );
+    }
+    s
+}
+
+/// The persistence floor as a paragraph that starts with `lead` ("Floor").
+pub(super) fn persistence_floor(out: &mut String, lead: &str, p: &SkillSummary) {
+    let _ = writeln!(
+        out,
+        "<p class=\"floor\">{lead}: persistence (repeating the initial state) stays valid for \
+         <strong>{} time units</strong> on average (10–90% of initial conditions: {}–{}); a \
+         useful model must beat it.</p>",
+        sig3(p.mean),
+        sig3(p.q10),
+        sig3(p.q90),
+    );
+}
+
+/// Ends a learning-curve figure's caption: what hollow markers mean (when some means are
+/// censored) and where the drawn range stops (when estimates lie beyond it).
+pub(super) fn close_curve_caption(
+    out: &mut String,
+    censored: bool,
+    range: Option<(f64, f64, bool)>,
+) {
+    if censored {
+        out.push_str(
+            " Hollow markers: some forecasts were still valid at the maximum lead, so those \
+             means are lower bounds.",
+        );
+    }
+    if let Some((_, hi, true)) = range {
+        let _ = write!(
+            out,
+            " Some estimates lie beyond the drawn range, which stops at {} samples (1,000 \
+             times the largest measured size).",
+            samples(hi)
+        );
+    }
+    out.push_str("</figcaption>\n</figure>\n");
+}
+
+pub(super) fn capitalised(s: &str) -> String {
+    let mut c = s.chars();
+    c.next()
+        .map(|f| f.to_uppercase().chain(c).collect())
+        .unwrap_or_default()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn intervals_name_unbounded_sides() {
+        assert_eq!(interval(Some(1.0), Some(2.0), sig3), "1.00–2.00");
+        assert_eq!(interval(Some(18100.0), None, samples), "18,100–unbounded");
+        assert_eq!(interval(None, Some(5.0), sig3), "up to 5.00");
+        assert_eq!(interval(None, None, sig3), "unbounded");
+    }
+}

@@ -1,0 +1,53 @@
+//! Measured points: online skill beside offline fit quality at every subset size.
+
+use crate::report::format::{escape, number, opt, percent, sig3, thousands};
+use crate::study::results::{PlanDocument, PointResult};
+use std::fmt::Write;
+
+fn point_row(p: &PointResult) -> String {
+    let reps: Vec<String> = p.replicate_means.iter().map(|v| sig3(*v)).collect();
+    format!(
+        "<tr><td class=\"num\">{}</td><td class=\"num\">{} ± {}</td><td class=\"mono\">{}</td>\
+         <td class=\"num\">{}–{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
+         <td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
+         <td class=\"num\">{}</td></tr>\n",
+        thousands(p.n as f64),
+        sig3(p.mean),
+        sig3(p.standard_error),
+        reps.join(", "),
+        sig3(p.q10),
+        sig3(p.q90),
+        percent(p.censored_share),
+        percent(p.blow_up_share),
+        opt(p.ridge_penalty, number),
+        opt(p.training_rmse, number),
+        sig3(p.train_seconds),
+        sig3(p.forecast_seconds_per_step * 1e6),
+    )
+}
+
+pub(super) fn measured_points(out: &mut String, doc: &PlanDocument) {
+    out.push_str(
+        "<section id=\"points\">\n<h2>Measured points</h2>\n<p>Online skill (valid prediction \
+         time, model time units) beside offline fit quality (one-step training RMSE in \
+         standardised units). The two can disagree: a small training error does not guarantee \
+         a stable free-running forecast.</p>\n",
+    );
+    for m in &doc.models {
+        let _ = write!(
+            out,
+            "<h3>{}</h3>\n<table>\n<thead><tr><th class=\"num\">n</th>\
+             <th class=\"num\">Mean ± s.e.</th><th>Replicate means</th>\
+             <th class=\"num\">10–90%</th><th class=\"num\">Censored</th>\
+             <th class=\"num\">Blow-ups</th><th class=\"num\">Ridge penalty</th>\
+             <th class=\"num\">Training RMSE</th><th class=\"num\">Training (s)</th>\
+             <th class=\"num\">µs per model step</th></tr></thead>\n<tbody>\n",
+            escape(&m.name)
+        );
+        for p in &m.points {
+            out.push_str(&point_row(p));
+        }
+        out.push_str("</tbody>\n</table>\n");
+    }
+    out.push_str("</section>\n");
+}
