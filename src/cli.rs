@@ -3,6 +3,78 @@
 use clap::{Args, Parser, Subcommand};
 use std::path::PathBuf;
 
+/// A finite number, or a message saying what was given.
+fn number(s: &str) -> Result<f64, String> {
+    match s.trim().parse::<f64>() {
+        Ok(x) if x.is_finite() => Ok(x),
+        Ok(_) => Err(format!("{s} is not a finite number; give a finite number")),
+        Err(_) => Err(format!("{s} is not a number")),
+    }
+}
+
+/// A finite number above 0 (value parser).
+pub fn positive(s: &str) -> Result<f64, String> {
+    let x = number(s)?;
+    if x > 0.0 {
+        Ok(x)
+    } else {
+        Err(format!("{s} is out of range; give a number above 0"))
+    }
+}
+
+/// A finite number of 0 or more (value parser).
+pub fn non_negative(s: &str) -> Result<f64, String> {
+    let x = number(s)?;
+    if x >= 0.0 {
+        Ok(x)
+    } else {
+        Err(format!("{s} is out of range; give 0 or a number above it"))
+    }
+}
+
+/// A number strictly between 0 and 1 (value parser).
+pub fn fraction(s: &str) -> Result<f64, String> {
+    let x = number(s)?;
+    if x > 0.0 && x < 1.0 {
+        Ok(x)
+    } else {
+        Err(format!(
+            "{s} is out of range; give a number between 0 and 1 (e.g. 0.9)"
+        ))
+    }
+}
+
+/// A whole number of 0 or more; written out or in scientific notation when whole (`1e6`).
+fn whole(s: &str) -> Result<u64, String> {
+    if let Ok(n) = s.trim().parse::<u64>() {
+        return Ok(n);
+    }
+    match s.trim().parse::<f64>() {
+        Ok(x) if x.is_finite() && x < 0.0 => Err(format!(
+            "{s} is out of range; give a whole number of 0 or more"
+        )),
+        Ok(x) if x.is_finite() && x.fract() == 0.0 && x < 1.8e19 => Ok(x as u64),
+        Ok(_) => Err(format!("{s} is not a whole number in range (0 to 1.8e19)")),
+        Err(_) => Err(format!("{s} is not a whole number")),
+    }
+}
+
+/// A count of 1 or more (value parser).
+pub fn count(s: &str) -> Result<usize, String> {
+    let n = whole(s)?;
+    if n == 0 {
+        return Err(format!(
+            "{s} is out of range; give a whole number of 1 or more"
+        ));
+    }
+    usize::try_from(n).map_err(|_| format!("{s} is too large for this machine"))
+}
+
+/// A seed: a whole number of 0 or more (value parser).
+pub fn seed(s: &str) -> Result<u64, String> {
+    whole(s)
+}
+
 const AFTER_HELP: &str = "\
 Examples:
   closure-budget run studies/demo.toml
@@ -63,6 +135,44 @@ pub enum Command {
     Cost(CostArgs),
     /// Write a script that runs a study on a Slurm cluster: an array of shards, then a merge.
     Slurm(SlurmArgs),
+    /// Remove from a study's records store the points the study no longer plans.
+    Prune(PruneArgs),
+    /// Repair a damaged records store: keep every intact record, move damaged lines aside.
+    RepairStore(RepairStoreArgs),
+}
+
+const PRUNE_AFTER_HELP: &str = "\
+A run never removes a stored point: points of models, sizes or replicates the study no longer
+plans (and points stored under earlier data or settings) stay in OUT/records.jsonl, so planning
+them again reuses them. prune removes them for good.
+
+Example:
+  closure-budget prune studies/demo.toml --out reports/demo";
+
+#[derive(Debug, Args)]
+#[command(after_help = PRUNE_AFTER_HELP)]
+pub struct PruneArgs {
+    /// Study file (TOML).
+    pub study: PathBuf,
+    /// Output directory [default: reports/STUDY-NAME].
+    #[arg(long, short)]
+    pub out: Option<PathBuf>,
+    /// Prune a folder that holds another study's store, making it this study's.
+    #[arg(long)]
+    pub adopt: bool,
+    /// Repair a damaged store first (see repair-store).
+    #[arg(long)]
+    pub drop_damaged: bool,
+    /// Print JSON instead of text.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct RepairStoreArgs {
+    /// A study's output directory (its records.jsonl is repaired) or a store file (e.g. a
+    /// shard's).
+    pub store: PathBuf,
 }
 
 const FIT_AFTER_HELP: &str = "\
@@ -82,19 +192,19 @@ pub struct FitArgs {
     /// CSV of measured skill (columns model, n, replicate, skill).
     pub csv: PathBuf,
     /// Target skill to invert for (repeatable).
-    #[arg(long = "target", required = true)]
+    #[arg(long = "target", required = true, value_parser = positive, allow_negative_numbers = true)]
     pub targets: Vec<f64>,
     /// Bootstrap draws.
-    #[arg(long, default_value_t = 400)]
+    #[arg(long, default_value_t = 400, value_parser = count, allow_negative_numbers = true)]
     pub draws: usize,
     /// Two-sided confidence level of the intervals.
-    #[arg(long, default_value_t = 0.9)]
+    #[arg(long, default_value_t = 0.9, value_parser = fraction, allow_negative_numbers = true)]
     pub confidence: f64,
     /// Estimates beyond this multiple of the largest measured size are flagged as extrapolated.
-    #[arg(long, default_value_t = 2.0)]
+    #[arg(long, default_value_t = 2.0, value_parser = positive, allow_negative_numbers = true)]
     pub trust_factor: f64,
     /// Seed of the bootstrap.
-    #[arg(long, default_value_t = 0)]
+    #[arg(long, default_value_t = 0, value_parser = seed, allow_negative_numbers = true)]
     pub seed: u64,
     /// Fit on the log scale (relative errors), for skill spanning decades.
     #[arg(long)]
@@ -117,17 +227,19 @@ pub struct CostArgs {
     #[arg(
         long,
         conflicts_with = "sampled_time",
-        required_unless_present = "sampled_time"
+        required_unless_present = "sampled_time",
+        value_parser = positive,
+        allow_negative_numbers = true
     )]
     pub samples: Option<f64>,
     /// Or simulated (sampled) time to price, model time units.
-    #[arg(long)]
+    #[arg(long, value_parser = positive, allow_negative_numbers = true)]
     pub sampled_time: Option<f64>,
     /// Time between saved samples, model time units.
-    #[arg(long)]
+    #[arg(long, value_parser = positive, allow_negative_numbers = true)]
     pub sample_interval: f64,
     /// State variables per saved sample (the default values per sample).
-    #[arg(long, default_value_t = 1)]
+    #[arg(long, default_value_t = 1, value_parser = count, allow_negative_numbers = true)]
     pub variables: usize,
     /// Print JSON instead of text.
     #[arg(long)]
@@ -143,6 +255,10 @@ A rerun reuses every stored point whose key is still planned and computes only t
   - changed data or settings make the affected points stale; they are recomputed and the
     report says so.
 Ctrl-C stops after the points in flight are stored (press it twice to quit at once).
+No point is ever removed: points the study no longer plans stay stored (`prune` removes them).
+The first run writes the study's identity into OUT/study-id.json; a run of another study into
+the same folder is refused unless given --adopt. Finished shard stores in OUT/shards/ are merged
+into the store (checking that they agree) before the missing points are computed.
 
 Examples:
   closure-budget run studies/demo.toml --out reports/demo -j 2
@@ -158,7 +274,7 @@ pub struct RunArgs {
     #[arg(long, short)]
     pub out: Option<PathBuf>,
     /// Worker threads [default: one per core]; results are identical for any count.
-    #[arg(long, short = 'j')]
+    #[arg(long, short = 'j', value_parser = count, allow_negative_numbers = true)]
     pub threads: Option<usize>,
     /// Compute only share I of N of the missing points into OUT/shards/ (for job arrays);
     /// finish with `merge`. Shares are balanced by estimated cost.
@@ -170,6 +286,14 @@ pub struct RunArgs {
     /// Print a JSON summary on standard output instead of text (no progress bars).
     #[arg(long)]
     pub json: bool,
+    /// Use an output folder that holds another study's store, making it this study's (every
+    /// point stored there is kept).
+    #[arg(long)]
+    pub adopt: bool,
+    /// Repair a damaged records store first: keep every intact record and move the damaged
+    /// lines to records.jsonl.damaged.
+    #[arg(long)]
+    pub drop_damaged: bool,
 }
 
 #[derive(Debug, Args)]
@@ -192,7 +316,7 @@ pub struct MergeArgs {
     #[arg(long, short)]
     pub out: Option<PathBuf>,
     /// Worker threads for fitting [default: one per core].
-    #[arg(long, short = 'j')]
+    #[arg(long, short = 'j', value_parser = count, allow_negative_numbers = true)]
     pub threads: Option<usize>,
     /// Print nothing but errors.
     #[arg(long, short, conflicts_with = "json")]
@@ -200,6 +324,12 @@ pub struct MergeArgs {
     /// Print a JSON summary on standard output instead of text.
     #[arg(long)]
     pub json: bool,
+    /// Merge into a folder that holds another study's store, making it this study's.
+    #[arg(long)]
+    pub adopt: bool,
+    /// Repair a damaged records store first (see repair-store).
+    #[arg(long)]
+    pub drop_damaged: bool,
 }
 
 const SLURM_AFTER_HELP: &str = "\
@@ -226,7 +356,7 @@ pub struct SlurmArgs {
     pub study: PathBuf,
     /// Number of shards: array tasks 1..N, each computing a 1/N share of the study's points.
     /// Clusters cap arrays (Slurm's MaxArraySize, often 1001).
-    #[arg(long, value_name = "N")]
+    #[arg(long, value_name = "N", value_parser = count, allow_negative_numbers = true)]
     pub array: usize,
     /// Slurm partition (sbatch --partition); several may be given separated by commas.
     #[arg(long, short)]
@@ -237,7 +367,7 @@ pub struct SlurmArgs {
     pub time: Option<String>,
     /// CPUs per task (sbatch --cpus-per-task); each shard runs with as many threads
     /// [default: the cluster's, usually 1; shards then run one thread].
-    #[arg(long, value_name = "C")]
+    #[arg(long, value_name = "C", value_parser = count, allow_negative_numbers = true)]
     pub cpus: Option<usize>,
     /// Memory per job (sbatch --mem), e.g. 4G, 4000M, or 4000 (megabytes).
     #[arg(long, value_name = "M")]
@@ -278,10 +408,10 @@ pub struct SystemArgs {
     #[arg(long = "set", value_name = "KEY=VALUE")]
     pub set: Vec<String>,
     /// Integrator time step, model time units [default: 0.01; 0.005 for two-scale-lorenz-96].
-    #[arg(long)]
+    #[arg(long, value_parser = positive, allow_negative_numbers = true)]
     pub dt: Option<f64>,
     /// Seed of the initial condition.
-    #[arg(long, default_value_t = 1)]
+    #[arg(long, default_value_t = 1, value_parser = seed, allow_negative_numbers = true)]
     pub seed: u64,
 }
 
@@ -290,13 +420,13 @@ pub struct SimulateArgs {
     #[command(flatten)]
     pub system: SystemArgs,
     /// Number of saved samples.
-    #[arg(long)]
+    #[arg(long, value_parser = count, allow_negative_numbers = true)]
     pub samples: usize,
     /// Time between saved samples, model time units (a whole multiple of dt).
-    #[arg(long, default_value_t = 0.01)]
+    #[arg(long, default_value_t = 0.01, value_parser = positive, allow_negative_numbers = true)]
     pub sample_interval: f64,
     /// Discarded spin-up, model time units.
-    #[arg(long, default_value_t = 10.0)]
+    #[arg(long, default_value_t = 10.0, value_parser = non_negative, allow_negative_numbers = true)]
     pub spin_up: f64,
     /// Output path; the extension is replaced (.npy, .json sidecar, .csv).
     #[arg(long, short)]
@@ -314,13 +444,13 @@ pub struct LyapunovArgs {
     #[command(flatten)]
     pub system: SystemArgs,
     /// Averaging time, model time units.
-    #[arg(long, default_value_t = 500.0)]
+    #[arg(long, default_value_t = 500.0, value_parser = positive, allow_negative_numbers = true)]
     pub duration: f64,
     /// Discarded spin-up, model time units.
-    #[arg(long, default_value_t = 20.0)]
+    #[arg(long, default_value_t = 20.0, value_parser = non_negative, allow_negative_numbers = true)]
     pub spin_up: f64,
     /// Renormalisation interval of the tangent vector, model time units.
-    #[arg(long, default_value_t = 0.1)]
+    #[arg(long, default_value_t = 0.1, value_parser = positive, allow_negative_numbers = true)]
     pub renormalise_every: f64,
     /// Print JSON instead of text.
     #[arg(long)]

@@ -37,9 +37,27 @@ fn main() -> ExitCode {
     }
 }
 
-/// The output directory: as given, or reports/STUDY-NAME.
-fn out_dir(given: Option<PathBuf>, plan: &study::StudyPlan) -> PathBuf {
-    given.unwrap_or_else(|| PathBuf::from("reports").join(&plan.name))
+/// The output directory: as given, or reports/STUDY-NAME; refused when it is a file.
+fn out_dir(given: Option<PathBuf>, plan: &study::StudyPlan) -> anyhow::Result<PathBuf> {
+    let out = match given {
+        Some(p) => {
+            if p.is_file() {
+                bail!("--out {} is a file; give a folder", p.display());
+            }
+            p
+        }
+        None => {
+            let p = PathBuf::from("reports").join(&plan.name);
+            if p.is_file() {
+                bail!(
+                    "the default output folder {} is a file; give a folder with --out DIR",
+                    p.display()
+                );
+            }
+            p
+        }
+    };
+    Ok(out)
 }
 
 fn plural(n: usize) -> &'static str {
@@ -98,12 +116,14 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Run(a) => {
             let plan = load_plan(&a.study)?;
-            let out = out_dir(a.out, &plan);
+            let out = out_dir(a.out, &plan)?;
             let options = RunOptions {
                 out_dir: out.clone(),
                 threads: a.threads,
                 progress: !a.quiet && !a.json && std::io::stderr().is_terminal(),
                 stop: Some(stop_on_ctrl_c()?),
+                adopt: a.adopt,
+                drop_damaged: a.drop_damaged,
             };
             if let Some(shard) = a.shard {
                 let summary = study::run_shard(&plan, &options, shard)?;
@@ -131,30 +151,95 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         }
         Command::Merge(a) => {
             let plan = load_plan(&a.study)?;
-            let out = out_dir(a.out, &plan);
+            let out = out_dir(a.out, &plan)?;
             let options = RunOptions {
                 out_dir: out.clone(),
                 threads: a.threads,
                 progress: !a.quiet && !a.json && std::io::stderr().is_terminal(),
                 stop: None,
+                adopt: a.adopt,
+                drop_damaged: a.drop_damaged,
             };
             let results = study::merge_study(&plan, &options)?;
             finish(&results, &out, a.quiet, a.json)?;
         }
         Command::Status(a) => {
             let plan = load_plan(&a.study)?;
-            let out = out_dir(a.out, &plan);
+            let out = out_dir(a.out, &plan)?;
             let options = RunOptions {
                 out_dir: out,
                 threads: None,
                 progress: !a.json && std::io::stderr().is_terminal(),
                 stop: None,
+                ..RunOptions::default()
             };
             let status = study::study_status(&plan, &options)?;
             if a.json {
                 println!("{}", serde_json::to_string_pretty(&status)?);
             } else {
                 print!("{}", study::status::describe_status(&status));
+            }
+        }
+        Command::Prune(a) => {
+            let plan = load_plan(&a.study)?;
+            let out = out_dir(a.out, &plan)?;
+            let options = RunOptions {
+                out_dir: out,
+                threads: None,
+                progress: !a.json && std::io::stderr().is_terminal(),
+                stop: None,
+                adopt: a.adopt,
+                drop_damaged: a.drop_damaged,
+            };
+            let summary = study::prune_study(&plan, &options)?;
+            if a.json {
+                println!("{}", serde_json::to_string_pretty(&summary)?);
+            } else {
+                println!(
+                    "{}: {} record{} of points the study plans kept, {} removed",
+                    summary.store.display(),
+                    summary.planned,
+                    plural(summary.planned),
+                    summary.removed
+                );
+            }
+        }
+        Command::RepairStore(a) => {
+            let path = if a.store.is_dir() {
+                a.store.join(study::records::RECORDS_FILE)
+            } else {
+                a.store.clone()
+            };
+            if !path.is_file() {
+                bail!(
+                    "{} is neither a study's output folder (with {}) nor a store file; give the folder a run wrote to",
+                    a.store.display(),
+                    study::records::RECORDS_FILE
+                );
+            }
+            let r = study::records::repair(&path)?;
+            if r.moved_lines.is_empty() {
+                println!(
+                    "{}: no damage; {} record{} intact, nothing changed",
+                    r.store.display(),
+                    r.kept,
+                    plural(r.kept)
+                );
+            } else {
+                println!(
+                    "{}: {} intact record{} kept; {} line{} moved to {} (lines {})",
+                    r.store.display(),
+                    r.kept,
+                    plural(r.kept),
+                    r.moved_lines.len(),
+                    plural(r.moved_lines.len()),
+                    r.side_file.display(),
+                    r.moved_lines
+                        .iter()
+                        .map(|l| l.to_string())
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                );
             }
         }
         Command::Slurm(a) => {

@@ -531,3 +531,422 @@ sample-interval = 0.01
         ],
     );
 }
+
+/// Runs the binary in `dir` and asserts it fails with exit code 2 and every needle in its
+/// standard error.
+fn refused(dir: &Path, args: &[&str], needles: &[&str]) {
+    let o = run_in(dir, args);
+    let err = stderr(&o);
+    assert_eq!(o.status.code(), Some(2), "{args:?}: {err}");
+    for n in needles {
+        assert!(err.contains(n), "{args:?}: expected '{n}' in: {err}");
+    }
+}
+
+/// Bad values on the command line: each refused before any work, naming the option, the value
+/// and what is allowed.
+#[test]
+fn command_line_values_out_of_range() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    std::fs::write(d.join("a-file"), "not a folder").unwrap();
+    std::fs::write(d.join("cost.toml"), "core-hours-per-time-unit = 10.0\n").unwrap();
+    std::fs::write(
+        d.join("huge-rate.toml"),
+        "core-hours-per-time-unit = 1e300\n",
+    )
+    .unwrap();
+    std::fs::write(
+        d.join("skill.csv"),
+        "model,n,replicate,skill\na,100,1,0.5\na,200,1,0.6\na,400,1,0.7\n",
+    )
+    .unwrap();
+    let above_0 = "give a number above 0";
+    #[rustfmt::skip]
+    let cases: &[(&[&str], &[&str])] = &[
+        // Negative numbers are range errors naming the option, with a space or with `=`.
+        (&["fit", "skill.csv", "--target", "-1"], &["'--target <TARGETS>'", "-1 is out of range", above_0]),
+        (&["fit", "skill.csv", "--target=-1"], &["'--target <TARGETS>'", "-1 is out of range", above_0]),
+        (&["fit", "skill.csv", "--target", "0"], &["--target", "0 is out of range", above_0]),
+        (&["fit", "skill.csv", "--target", "nan"], &["--target", "not a finite number"]),
+        (&["fit", "skill.csv", "--target", "1", "--confidence", "1.5"], &["--confidence", "between 0 and 1"]),
+        (&["fit", "skill.csv", "--target", "1", "--draws", "0"], &["--draws", "1 or more"]),
+        (&["fit", "skill.csv", "--target", "1", "--draws", "-5"], &["--draws", "-5 is out of range"]),
+        (&["fit", "skill.csv", "--target", "1", "--seed", "-1"], &["--seed", "0 or more"]),
+        (&["fit", "skill.csv", "--target", "1", "--trust-factor", "-2"], &["--trust-factor", above_0]),
+        (&["cost", "--inputs", "cost.toml", "--samples", "100", "--sample-interval", "0.01", "--variables", "0"], &["--variables", "1 or more"]),
+        (&["cost", "--inputs", "cost.toml", "--samples", "-3", "--sample-interval", "0.01"], &["--samples", "-3 is out of range"]),
+        (&["cost", "--inputs", "cost.toml", "--samples", "100", "--sample-interval", "0"], &["--sample-interval", above_0]),
+        (&["cost", "--inputs", "cost.toml", "--sampled-time=-1", "--sample-interval", "0.01"], &["--sampled-time", "-1 is out of range"]),
+        (&["cost", "--inputs", "huge-rate.toml", "--samples", "1e12", "--sample-interval", "0.01"], &["overflow: the cost of 1e12 samples exceeds", "core-hours", "check `samples`"]),
+        (&["simulate", "--system", "lorenz-63", "--samples", "1e12", "--out", "x.npy"], &["this simulation would take 1.000e12 integrator steps", "GB for its saved values", "1e9 steps", "reduce `samples`"]),
+        (&["simulate", "--system", "lorenz-63", "--samples", "0", "--out", "x.npy"], &["--samples", "1 or more"]),
+        (&["simulate", "--system", "lorenz-63", "--samples", "-10", "--out", "x.npy"], &["--samples", "-10 is out of range"]),
+        (&["simulate", "--system", "lorenz-63", "--samples", "2.5", "--out", "x.npy"], &["--samples", "2.5 is not a whole number"]),
+        (&["simulate", "--system", "lorenz-63", "--samples", "10", "--dt", "-0.01", "--out", "x.npy"], &["--dt", above_0]),
+        (&["simulate", "--system", "lorenz-63", "--samples", "10", "--spin-up", "-1", "--out", "x.npy"], &["--spin-up", "0 or a number above it"]),
+        (&["lyapunov", "--system", "lorenz-63", "--duration", "1e12"], &["this Lyapunov estimate would take", "integrator steps", "reduce `duration`"]),
+        (&["lyapunov", "--system", "lorenz-63", "--duration", "-5"], &["--duration", above_0]),
+        (&["lyapunov", "--system", "lorenz-63", "--renormalise-every", "0"], &["--renormalise-every", above_0]),
+        (&["run", "study.toml", "-j", "0"], &["--threads", "1 or more"]),
+        (&["run", "study.toml", "--threads=-1"], &["--threads", "-1 is out of range"]),
+        (&["run", "study.toml", "--shard", "0/3"], &["--shard", "not a shard", "1 ≤ I ≤ N"]),
+        (&["slurm", "study.toml", "--array", "0"], &["--array", "1 or more"]),
+        (&["slurm", "study.toml", "--array", "4", "--cpus", "-2"], &["--cpus", "-2 is out of range"]),
+        (&["repair-store", "nowhere"], &["nowhere is neither a study's output folder", "records.jsonl"]),
+    ];
+    for (args, needles) in cases {
+        refused(d, args, needles);
+    }
+    assert!(!d.join("x.npy").exists(), "nothing simulated");
+    assert!(cases.len() >= 29);
+}
+
+/// A small, fast study of Lorenz-63 with NG-RC models named `models`, in `dir/study.toml`.
+fn tiny_study(dir: &Path, models: &[&str]) -> std::path::PathBuf {
+    std::fs::create_dir_all(dir).unwrap();
+    let mut text = String::from(
+        "title = \"bad-input test (invented)\"\nseed = 5\n\
+         [data.simulate]\nsystem = { name = \"lorenz-63\", sigma = 10.0, rho = 28.0, beta = 2.6666666666666665 }\ndt = 0.01\nsample-interval = 0.01\n\
+         spin-up = 5.0\ntraining-pool = 1200\n\
+         [split]\ninitial-conditions = 8\ngap = 0.5\n\
+         [skill]\nwarm-up = 0.2\nmax-lead = 1.5\n\
+         [subsets]\nsizes = [200, 400, 800]\nreplicates = 2\n",
+    );
+    for (i, m) in models.iter().enumerate() {
+        text.push_str(&format!(
+            "[[model]]\nname = \"{m}\"\nngrc = {{ delays = {} }}\n",
+            2 + i
+        ));
+    }
+    text.push_str(
+        "[plan]\ntargets = [0.3]\nbootstrap-draws = 50\n[cost]\ncore-hours-per-time-unit = 10.0\n",
+    );
+    let p = dir.join("study.toml");
+    std::fs::write(&p, text).unwrap();
+    p
+}
+
+fn run_tiny(study: &Path, out: &Path, extra: &[&str]) -> std::process::Output {
+    let mut args = vec![
+        "run",
+        study.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--quiet",
+    ];
+    args.extend_from_slice(extra);
+    run_in(study.parent().unwrap(), &args)
+}
+
+fn counts(out: &Path) -> closure_budget::study::results::PointCounts {
+    let doc: closure_budget::study::results::PlanDocument =
+        serde_json::from_slice(&std::fs::read(out.join("plan.json")).unwrap()).unwrap();
+    doc.points.unwrap()
+}
+
+fn store_lines(out: &Path) -> usize {
+    std::fs::read(out.join("records.jsonl"))
+        .map(|b| b.iter().filter(|&&c| c == b'\n').count())
+        .unwrap_or(0)
+}
+
+fn ok(o: &std::process::Output) {
+    assert!(o.status.success(), "{}", stderr(o));
+}
+
+/// Removing a model keeps its stored points; restoring it reuses them; only `prune` removes.
+#[test]
+fn a_removed_model_keeps_its_records_until_pruned() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("out");
+    let both = tiny_study(dir.path(), &["ngrc-a", "ngrc-b"]);
+    ok(&run_tiny(&both, &out, &[]));
+    assert_eq!(store_lines(&out), 12);
+
+    tiny_study(dir.path(), &["ngrc-a"]);
+    ok(&run_tiny(&both, &out, &[]));
+    assert_eq!(store_lines(&out), 12, "the removed model's records stay");
+    let c = counts(&out);
+    assert_eq!((c.planned, c.reused, c.computed, c.kept), (6, 6, 0, 6));
+    let o = run_in(
+        dir.path(),
+        &[
+            "run",
+            both.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+        ],
+    );
+    ok(&o);
+    assert!(
+        stdout(&o).contains("6 kept in the store though not planned"),
+        "{}",
+        stdout(&o)
+    );
+
+    // Restored: every point reused, none recomputed.
+    tiny_study(dir.path(), &["ngrc-a", "ngrc-b"]);
+    ok(&run_tiny(&both, &out, &[]));
+    let c = counts(&out);
+    assert_eq!((c.planned, c.reused, c.computed, c.kept), (12, 12, 0, 0));
+
+    // Pruning for the one-model study removes the other model's points.
+    tiny_study(dir.path(), &["ngrc-a"]);
+    let o = run_in(
+        dir.path(),
+        &[
+            "prune",
+            both.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+        ],
+    );
+    ok(&o);
+    assert!(
+        stdout(&o).contains("6 records of points the study plans kept, 6 removed"),
+        "{}",
+        stdout(&o)
+    );
+    assert_eq!(store_lines(&out), 6);
+}
+
+/// Another study's folder is refused (nothing written) unless adopted.
+#[test]
+fn a_folder_of_another_study_is_refused_unless_adopted() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("out");
+    let a = tiny_study(&dir.path().join("a"), &["ngrc-a"]);
+    let b = tiny_study(&dir.path().join("b"), &["ngrc-a", "ngrc-b"]);
+    ok(&run_tiny(&a, &out, &[]));
+    let before = std::fs::read(out.join("records.jsonl")).unwrap();
+    let o = run_tiny(&b, &out, &[]);
+    assert_eq!(o.status.code(), Some(2));
+    let err = stderr(&o);
+    for n in [
+        "holds the points of another study",
+        "a/study.toml",
+        "b/study.toml",
+        "--out DIR",
+        "--adopt",
+    ] {
+        assert!(err.contains(n), "expected '{n}' in: {err}");
+    }
+    assert_eq!(std::fs::read(out.join("records.jsonl")).unwrap(), before);
+    // Adopted: the points of the shared model are reused, the folder is b's now.
+    ok(&run_tiny(&b, &out, &["--adopt"]));
+    let c = counts(&out);
+    assert_eq!((c.planned, c.reused, c.computed), (12, 6, 6));
+    let o = run_tiny(&a, &out, &[]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("another study"), "{}", stderr(&o));
+
+    // A damaged identity file is named, with what to do.
+    std::fs::write(out.join("study-id.json"), "{oops").unwrap();
+    refused(
+        dir.path(),
+        &["run", b.to_str().unwrap(), "--out", out.to_str().unwrap()],
+        &["study-id.json is not a study identity", "--adopt"],
+    );
+}
+
+/// A damaged middle line names the line and the intact records; repair keeps every good one.
+#[test]
+fn a_damaged_store_line_is_named_and_repaired() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("out");
+    let s = tiny_study(dir.path(), &["ngrc-a"]);
+    ok(&run_tiny(&s, &out, &[]));
+    let store = out.join("records.jsonl");
+    let text = std::fs::read_to_string(&store).unwrap();
+    let mut lines: Vec<&str> = text.lines().collect();
+    lines[2] = "{\"key\": \"damaged";
+    std::fs::write(&store, lines.join("\n") + "\n").unwrap();
+    let damaged = std::fs::read(&store).unwrap();
+    let o = run_tiny(&s, &out, &[]);
+    assert_eq!(o.status.code(), Some(2));
+    let err = stderr(&o);
+    for n in [
+        "records.jsonl is damaged: line 3 is not a skill record",
+        "the other 5 records are intact",
+        "records.jsonl.damaged",
+        "closure-budget repair-store",
+        "--drop-damaged",
+    ] {
+        assert!(err.contains(n), "expected '{n}' in: {err}");
+    }
+    assert!(!err.contains("move it aside"), "{err}");
+    assert_eq!(std::fs::read(&store).unwrap(), damaged, "left as it was");
+
+    let o = run_in(dir.path(), &["repair-store", out.to_str().unwrap()]);
+    ok(&o);
+    assert!(
+        stdout(&o).contains("5 intact records kept; 1 line moved"),
+        "{}",
+        stdout(&o)
+    );
+    assert_eq!(store_lines(&out), 5);
+    assert_eq!(
+        std::fs::read_to_string(out.join("records.jsonl.damaged")).unwrap(),
+        "{\"key\": \"damaged\n"
+    );
+    ok(&run_tiny(&s, &out, &[]));
+    let c = counts(&out);
+    assert_eq!((c.reused, c.computed), (5, 1));
+
+    // The same through `run --drop-damaged`.
+    let text = std::fs::read_to_string(&store).unwrap();
+    std::fs::write(&store, text.replacen('\n', "\nnot json\n", 1)).unwrap();
+    ok(&run_tiny(&s, &out, &["--drop-damaged"]));
+    let c = counts(&out);
+    assert_eq!((c.reused, c.computed), (6, 0));
+    assert_eq!(store_lines(&out), 6);
+}
+
+/// `run` after the shards finished merges their stores instead of recomputing.
+#[test]
+fn run_after_shards_merges_their_stores() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("out");
+    let s = tiny_study(dir.path(), &["ngrc-a", "ngrc-b"]);
+    for i in ["1/2", "2/2"] {
+        ok(&run_tiny(&s, &out, &["--shard", i]));
+    }
+    let o = run_in(
+        dir.path(),
+        &["run", s.to_str().unwrap(), "--out", out.to_str().unwrap()],
+    );
+    ok(&o);
+    assert!(
+        stdout(&o).contains(
+            "12 reused from the records store (12 merged from finished shard stores), 0 computed"
+        ),
+        "{}",
+        stdout(&o)
+    );
+    let c = counts(&out);
+    assert_eq!((c.reused, c.computed, c.from_shards), (12, 0, 12));
+    assert!(
+        files_below(&out.join("shards")).is_empty(),
+        "merged shards removed"
+    );
+    assert_eq!(store_lines(&out), 12);
+
+    // One shard of two, then `run`: its points are merged and the rest computed.
+    let out2 = dir.path().join("out2");
+    ok(&run_tiny(&s, &out2, &["--shard", "1/2"]));
+    let in_shard = std::fs::read_to_string(out2.join("shards/shard-1-of-2.jsonl"))
+        .unwrap()
+        .lines()
+        .count();
+    ok(&run_tiny(&s, &out2, &[]));
+    let c = counts(&out2);
+    assert_eq!(
+        (c.reused, c.computed, c.from_shards),
+        (in_shard, 12 - in_shard, in_shard)
+    );
+}
+
+/// A deleted history is said to have started afresh while the store holds earlier points.
+#[test]
+fn a_deleted_history_is_reported() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("out");
+    let s = tiny_study(dir.path(), &["ngrc-a"]);
+    ok(&run_tiny(&s, &out, &[]));
+    std::fs::remove_file(out.join("history.jsonl")).unwrap();
+    let o = run_in(
+        dir.path(),
+        &["run", s.to_str().unwrap(), "--out", out.to_str().unwrap()],
+    );
+    ok(&o);
+    assert!(
+        stdout(&o).contains("history started afresh: no earlier runs found")
+            && stdout(&o).contains("the store holds 6 points from earlier runs"),
+        "{}",
+        stdout(&o)
+    );
+    // The next run has a history again and says nothing of it.
+    let o = run_in(
+        dir.path(),
+        &["run", s.to_str().unwrap(), "--out", out.to_str().unwrap()],
+    );
+    ok(&o);
+    assert!(!stdout(&o).contains("afresh"), "{}", stdout(&o));
+}
+
+/// An output folder that is a file is refused by every command that writes or reads one.
+#[test]
+fn an_out_that_is_a_file_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let s = tiny_study(dir.path(), &["ngrc-a"]);
+    std::fs::write(dir.path().join("taken"), "x").unwrap();
+    for cmd in ["run", "merge", "status", "prune"] {
+        refused(
+            dir.path(),
+            &[cmd, s.to_str().unwrap(), "--out", "taken"],
+            &["--out taken is a file; give a folder"],
+        );
+    }
+}
+
+/// Data files and measured-skill files that look right but are not.
+#[test]
+fn headerless_and_duplicate_column_files() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let data = r#"path = "d.csv"
+sample-interval = 0.01"#;
+    // No header row: the first sample must not become variable names.
+    let body: String = lorenz63_csv(600)
+        .lines()
+        .skip(1)
+        .collect::<Vec<_>>()
+        .join("\n");
+    std::fs::write(d.join("d.csv"), body + "\n").unwrap();
+    let study = file_study(d, data, "[100, 200, 400]", 5);
+    expect_failure(
+        d,
+        &study,
+        &[
+            "d.csv, line 1",
+            "holds numbers, not variable names",
+            "add one",
+        ],
+    );
+    // The same name twice.
+    let csv = lorenz63_csv(600).replacen("x,y,z", "x,y,x", 1);
+    std::fs::write(d.join("d.csv"), csv).unwrap();
+    expect_failure(d, &study, &["d.csv, line 1", "column 'x' twice"]);
+
+    let fit = |name: &str, text: &str, needles: &[&str]| {
+        std::fs::write(d.join(name), text).unwrap();
+        refused(
+            d,
+            &["fit", name, "--target", "1", "--report", "rep"],
+            needles,
+        );
+        assert!(!d.join("rep").exists(), "no partial output");
+    };
+    let good = "a,100,1,0.5\na,200,1,0.6\na,400,1,0.7\n";
+    fit(
+        "dup.csv",
+        &format!("model,n,skill,replicate,skill\n{good}"),
+        &["dup.csv, line 1", "column 'skill' twice"],
+    );
+    fit(
+        "big.csv",
+        "model,n,replicate,skill\na,100,1,0.5\na,200,1,1e308\na,400,1,0.7\n",
+        &[
+            "big.csv, line 3",
+            "skill = 1e308 is too large",
+            "check this row",
+        ],
+    );
+    fit(
+        "inf.csv",
+        "model,n,replicate,skill\na,100,1,0.5\na,200,1,inf\na,400,1,0.7\n",
+        &["inf.csv, line 3", "skill = inf is not finite"],
+    );
+    fit("nohead.csv", good, &["lacks the column 'model'"]);
+}

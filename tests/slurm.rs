@@ -89,7 +89,7 @@ fn bad_options_fail_before_anything_is_written() {
     let study = repo("studies/demo-quick.toml");
     let study = study.to_str().unwrap();
     for (args, needle) in [
-        (vec!["--array", "0"], "--array 0 is out of range"),
+        (vec!["--array", "0"], "'--array <N>': 0 is out of range"),
         (vec!["--array", "2", "--time", "2h"], "--time '2h'"),
         (
             vec!["--array", "2", "--mem", "4GB"],
@@ -100,7 +100,10 @@ fn bad_options_fail_before_anything_is_written() {
             "--partition 'a b'",
         ),
         (vec!["--array", "2", "--account", "x;y"], "--account 'x;y'"),
-        (vec!["--array", "2", "--cpus", "0"], "--cpus 0"),
+        (
+            vec!["--array", "2", "--cpus", "0"],
+            "'--cpus <C>': 0 is out of range",
+        ),
         (
             vec!["--array", "2", "--binary", "no-such-binary"],
             "cannot find the closure-budget binary",

@@ -89,6 +89,7 @@ fn quick_demo_runs_end_to_end() {
             "records.jsonl",
             "report.html",
             "skill.csv",
+            "study-id.json",
             "tables/runs.csv",
             "tables/runs.md",
             "tables/runs.tex"

@@ -42,6 +42,8 @@ use serde::{Deserialize, Serialize};
 /// Errors in the cost inputs. Every message names the study-file key.
 #[derive(Debug, thiserror::Error)]
 pub enum CostError {
+    #[error("overflow: the cost of {samples:e} samples exceeds {:e} {unit} (the largest number a double holds); check `samples`, the solver rate and the scaling exponents", f64::MAX)]
+    Overflow { samples: f64, unit: &'static str },
     #[error("cost setting `{key}` = {value} is invalid; allowed: {allowed}")]
     Invalid {
         key: &'static str,

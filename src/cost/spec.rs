@@ -69,10 +69,17 @@ pub fn cost_report(spec: &CostSpec) -> Result<CostReport, CostError> {
             t / campaign.sample_interval
         }
     };
+    let breakdown = campaign.breakdown(samples);
+    if !(breakdown.total.device_hours.is_finite() && breakdown.simulated_time.is_finite()) {
+        return Err(CostError::Overflow {
+            samples,
+            unit: campaign.device.hours_label(),
+        });
+    }
     Ok(CostReport {
         schema: COST_SCHEMA.into(),
         samples,
-        breakdown: campaign.breakdown(samples),
+        breakdown,
         scaling_description: campaign.scaling.map(|s| s.law.describe()),
         campaign,
     })
@@ -102,6 +109,16 @@ mod tests {
             .unwrap_err()
             .to_string();
         assert!(e.contains("samples") && e.contains("-1"), "{e}");
+        // Beyond what a double holds: an overflow said as such, not a cost of "—".
+        let mut huge = spec(Amount::Samples(1e12));
+        huge.inputs.core_hours_per_time_unit = Some(1e300);
+        let e = cost_report(&huge).unwrap_err().to_string();
+        assert!(
+            e.starts_with(
+                "overflow: the cost of 1e12 samples exceeds 1.7976931348623157e308 core-hours"
+            ),
+            "{e}"
+        );
         let json = serde_json::to_string(&a).unwrap();
         let back: CostReport = serde_json::from_str(&json).unwrap();
         assert_eq!(back.schema, COST_SCHEMA);

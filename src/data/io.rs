@@ -321,6 +321,22 @@ fn read_csv(path: &Path) -> Result<(Array2<f64>, Vec<String>), DataError> {
             "the header row must name every column (variable names)".into(),
         ));
     }
+    if header.iter().all(|h| h.parse::<f64>().is_ok()) {
+        return Err(csv_err(
+            1,
+            format!(
+                "the first row ({}) holds numbers, not variable names: the CSV needs a header row naming every column; add one (e.g. x,y,z)",
+                header.join(",")
+            ),
+        ));
+    }
+    let mut seen = std::collections::BTreeSet::new();
+    if let Some(dup) = header.iter().find(|h| !seen.insert(h.as_str())) {
+        return Err(csv_err(
+            1,
+            format!("the header names the column '{dup}' twice; give every column its own name"),
+        ));
+    }
     let d = header.len();
     let mut values = Vec::new();
     let mut record = csv::StringRecord::new();

@@ -39,12 +39,25 @@ pub fn text_summary(doc: &PlanDocument) -> String {
     if let Some(p) = &doc.points {
         let _ = writeln!(
             s,
-            "points: {} planned, {} reused from the records store, {} computed{}",
+            "points: {} planned, {} reused from the records store{}, {} computed{}{}",
             p.planned,
             p.reused,
+            if p.from_shards > 0 {
+                format!(" ({} merged from finished shard stores)", p.from_shards)
+            } else {
+                String::new()
+            },
             p.computed,
             if p.stale > 0 {
                 format!(" ({} stale: their data or settings changed)", p.stale)
+            } else {
+                String::new()
+            },
+            if p.kept > 0 {
+                format!(
+                    "; {} kept in the store though not planned (`closure-budget prune` removes them)",
+                    p.kept
+                )
             } else {
                 String::new()
             }
@@ -65,7 +78,7 @@ pub fn text_summary(doc: &PlanDocument) -> String {
                         thousands(b.samples),
                         range(e.samples_interval[0], e.samples_interval[1], &thousands),
                         sig3(b.simulated_time),
-                        sig3(b.core_hours),
+                        hours_or_overflow(b.core_hours),
                         range(
                             e.budget_low.map(|b| b.core_hours),
                             e.budget_high.map(|b| b.core_hours),
@@ -191,6 +204,15 @@ fn transfer_summary(s: &mut String, t: &TransferResult, level: f64) {
 }
 
 /// The breakdown of a stand-alone cost question as plain text for the terminal.
+/// Core-hours with three significant figures, or an overflow said as such (never a bare "—").
+fn hours_or_overflow(x: f64) -> String {
+    if x == f64::INFINITY {
+        format!("overflow: the cost exceeds {:.1e}", f64::MAX)
+    } else {
+        sig3(x)
+    }
+}
+
 pub fn cost_text(r: &CostReport) -> String {
     let c = &r.campaign;
     let b = &r.breakdown;

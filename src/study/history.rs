@@ -34,12 +34,13 @@ pub fn append(dir: &Path, entry: &HistoryEntry) -> std::io::Result<Vec<HistoryEn
     Ok(history)
 }
 
-/// The history in `path`, oldest first (empty when there is none).
+/// The history in `path`, oldest first (empty when there is none); lines that are not entries
+/// (torn, damaged, another format, not UTF-8) are skipped.
 pub fn read(path: &Path) -> std::io::Result<Vec<HistoryEntry>> {
-    match std::fs::read_to_string(path) {
-        Ok(text) => Ok(text
-            .lines()
-            .filter_map(|l| serde_json::from_str(l).ok())
+    match std::fs::read(path) {
+        Ok(bytes) => Ok(bytes
+            .split(|&b| b == b'\n')
+            .filter_map(|l| serde_json::from_slice(l).ok())
             .collect()),
         Err(e) if e.kind() == std::io::ErrorKind::NotFound => Ok(Vec::new()),
         Err(e) => Err(e),

@@ -62,9 +62,13 @@ pub struct MeasuredOptions {
     pub seed: u64,
 }
 
+/// Largest skill magnitude accepted: the fits sum squares of skill over thousands of rows and
+/// bootstrap draws, which must stay far from overflow (f64 overflows near 1.8e308).
+pub const MAX_SKILL: f64 = 1e100;
+
 /// Parses a measured-skill CSV (`bytes`, read from `path`) into one size grid per model (sizes
 /// ascending, replicates in label order).
-fn parse_measured(
+pub fn parse_measured(
     path: &Path,
     bytes: &[u8],
 ) -> Result<BTreeMap<String, Vec<SkillGrid>>, MeasuredError> {
@@ -86,6 +90,15 @@ fn parse_measured(
         .headers()
         .map_err(|e| line_err(1, e.to_string()))?
         .clone();
+    let mut seen = std::collections::BTreeSet::new();
+    for h in header.iter() {
+        if !h.is_empty() && !seen.insert(h.to_ascii_lowercase()) {
+            return Err(line_err(
+                1,
+                format!("the header names the column '{h}' twice; give every column its own name"),
+            ));
+        }
+    }
     let col = |name: &'static str| {
         header
             .iter()
@@ -128,7 +141,18 @@ fn parse_measured(
             .parse()
             .map_err(|_| line_err(line, format!("skill = '{s_text}' is not a number")))?;
         if !skill.is_finite() {
-            return Err(line_err(line, format!("skill = {s_text} is not finite")));
+            return Err(line_err(
+                line,
+                format!("skill = {s_text} is not finite; give a finite number"),
+            ));
+        }
+        if skill.abs() > MAX_SKILL {
+            return Err(line_err(
+                line,
+                format!(
+                    "skill = {s_text} is too large to fit: allowed magnitudes are up to {MAX_SKILL:e} (sums of squares must stay finite); check this row"
+                ),
+            ));
         }
         cells
             .entry(model)

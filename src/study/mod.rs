@@ -12,6 +12,7 @@ pub mod history;
 pub mod keys;
 pub mod measured;
 mod outcome;
+pub mod owner;
 pub mod plan;
 pub mod points;
 mod prepare;
@@ -29,10 +30,18 @@ mod transfer;
 
 pub use plan::{load_plan, StudyPlan};
 pub use results::StudyResults;
-pub use runner::{merge_study, run_shard, run_study, study_status, RunOptions};
+pub use runner::{
+    merge_study, prune_study, run_shard, run_study, study_status, PruneSummary, RunOptions,
+};
 pub use shards::Shard;
 
 use std::path::PathBuf;
+
+impl From<records::StoreError> for StudyError {
+    fn from(e: records::StoreError) -> Self {
+        StudyError::Store(Box::new(e))
+    }
+}
 
 /// Errors from reading, checking and running a study.
 #[derive(Debug, thiserror::Error)]
@@ -93,6 +102,18 @@ pub enum StudyError {
     },
     #[error("{failed} point{} of the user's training command failed (the other points are stored; a rerun retries only these):\n{detail}", if *.failed == 1 { "" } else { "s" })]
     CommandPoints { failed: usize, detail: String },
+    #[error(transparent)]
+    Store(Box<records::StoreError>),
+    #[error("{} holds the points of another study ({owner}); give this study ({study}) its own folder with --out DIR, or take the folder over with --adopt (every point stored there is kept)", dir.display())]
+    OtherStudy {
+        dir: PathBuf,
+        owner: String,
+        study: String,
+    },
+    #[error("{} is not a study identity ({message}); remove it, or run with --adopt to write this study's", path.display())]
+    OwnerUnreadable { path: PathBuf, message: String },
+    #[error("the shard store {} is in use by a running shard; wait for the shards to finish, then run `closure-budget merge` (or `run`) again", path.display())]
+    ShardRunning { path: PathBuf },
     #[error("cannot start {threads} worker threads: {message}")]
     Threads { threads: usize, message: String },
 }

@@ -478,6 +478,14 @@ pub struct PointCounts {
     pub stale: usize,
     /// Bytes of an incomplete last line cut from the store (a run killed while writing).
     pub discarded_bytes: usize,
+    /// Records in the store of points this study does not plan (other models, sizes or
+    /// replicates, or earlier data or settings): kept, so a later run that plans them again
+    /// reuses them; `closure-budget prune` removes them.
+    #[serde(default)]
+    pub kept: usize,
+    /// Records merged into the store from finished shard stores by this run.
+    #[serde(default)]
+    pub from_shards: usize,
 }
 
 /// Wall time of each stage, seconds.

@@ -37,10 +37,17 @@ pub struct RunOptions {
     /// Once set (e.g. by Ctrl-C), no new unit of work starts; the points in flight are stored
     /// and the run ends with [`StudyError::Interrupted`].
     pub stop: Option<Arc<AtomicBool>>,
+    /// Take over an output folder that holds another study's store (its points are kept).
+    pub adopt: bool,
+    /// Repair a damaged records store before reading it: keep every intact record and move the
+    /// damaged lines to a side file ([`super::records::repair`]).
+    pub drop_damaged: bool,
 }
 
 /// Runs the study; see the module docs. Points already in the output directory's store are
-/// reused; the missing ones are computed and stored as they finish.
+/// reused, and so are those of finished shard stores in its `shards/` (merged into the store,
+/// checking that they agree); the missing ones are computed and stored as they finish. Points
+/// the study no longer plans stay stored ("kept"; [`prune_study`] removes them).
 pub fn run_study(plan: &StudyPlan, options: &RunOptions) -> Result<StudyResults, StudyError> {
     in_pool(options, |threads| {
         run_in_pool(plan, options, threads, Mode::Compute)
@@ -52,16 +59,9 @@ pub fn run_study(plan: &StudyPlan, options: &RunOptions) -> Result<StudyResults,
 /// store holds is an error ([`StudyError::Gaps`]) that changes nothing on disk, so the shards'
 /// assignment (computed from the study's store) stays the same for the shards still to run.
 pub fn merge_study(plan: &StudyPlan, options: &RunOptions) -> Result<StudyResults, StudyError> {
-    let shards = shards::shard_stores(&options.out_dir)?;
-    let results = in_pool(options, |threads| {
+    in_pool(options, |threads| {
         run_in_pool(plan, options, threads, Mode::StoredOnly)
-    })?;
-    for path in shards {
-        // Their records are in the study's store now; a leftover shard would only be merged
-        // again.
-        let _ = std::fs::remove_file(path);
-    }
-    Ok(results)
+    })
 }
 
 /// Computes one shard's share of the points missing from the study's store into the shard's own
@@ -74,7 +74,9 @@ pub fn run_shard(
     shard: Shard,
 ) -> Result<ShardSummary, StudyError> {
     in_pool(options, |_| {
+        super::owner::check(&options.out_dir, plan, options.adopt)?;
         let prep = prepare(plan, options.progress)?;
+        super::owner::claim(&options.out_dir, plan, options.adopt)?;
         shards::compute_shard(
             plan,
             &prep,
@@ -92,6 +94,62 @@ pub fn study_status(plan: &StudyPlan, options: &RunOptions) -> Result<StudyStatu
     in_pool(options, |_| {
         let prep = prepare(plan, options.progress)?;
         status::status(plan, &prep, &options.out_dir)
+    })
+}
+
+/// What a prune removed.
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct PruneSummary {
+    pub store: PathBuf,
+    /// Records of points the study plans, left in the store.
+    pub planned: usize,
+    /// Records removed: points the study no longer plans (other models, sizes or replicates,
+    /// or earlier data or settings).
+    pub removed: usize,
+}
+
+/// Removes from the study's store every record whose point the study no longer plans; the only
+/// way points leave the store.
+pub fn prune_study(plan: &StudyPlan, options: &RunOptions) -> Result<PruneSummary, StudyError> {
+    in_pool(options, |_| {
+        super::owner::check(&options.out_dir, plan, options.adopt)?;
+        let prep = prepare(plan, options.progress)?;
+        let store_path = options.out_dir.join(RECORDS_FILE);
+        if !store_path.exists() {
+            return Ok(PruneSummary {
+                store: store_path,
+                planned: 0,
+                removed: 0,
+            });
+        }
+        if options.drop_damaged {
+            super::records::repair(&store_path)?;
+        }
+        let (store, contents) = RecordStore::open(&store_path)?;
+        let units = points::plan_units(plan, &prep);
+        let planned: std::collections::HashSet<&str> = units
+            .iter()
+            .flat_map(|u| u.keys.iter().map(|(_, k)| k.as_str()))
+            .collect();
+        let total = contents.records.len();
+        let keep: Vec<SkillRecord> = contents
+            .records
+            .into_iter()
+            .filter(|r| planned.contains(r.key.as_str()))
+            .collect();
+        let summary = PruneSummary {
+            store: store_path.clone(),
+            planned: keep.len(),
+            removed: total - keep.len(),
+        };
+        if summary.removed > 0 {
+            store.rewrite(&keep).map_err(|source| StudyError::Write {
+                path: store_path,
+                source,
+            })?;
+        }
+        Ok(summary)
     })
 }
 
@@ -134,6 +192,9 @@ fn run_in_pool(
         ..Timings::default()
     };
 
+    // The folder must be free or this study's before any work.
+    super::owner::check(&options.out_dir, plan, options.adopt)?;
+
     // Data: the pilot's, and the new regime's, read and checked now so that a bad file fails
     // before any work.
     let t0 = Instant::now();
@@ -155,6 +216,27 @@ fn run_in_pool(
     // Curves, inversion and cost, per model.
     let t0 = Instant::now();
     let mut warnings = outcome::store_warnings(&points.counts);
+    if let Some(previous) = &points.adopted_from {
+        warnings.push(format!(
+            "this study adopted the output folder from {previous}; every point stored there is kept"
+        ));
+    }
+    let history_path = options.out_dir.join(super::history::HISTORY_FILE);
+    let earlier_runs = super::history::read(&history_path).map_err(|source| StudyError::Read {
+        path: history_path.clone(),
+        source,
+    })?;
+    // A finished earlier run left its plan.json; an interrupted first run leaves points but no
+    // history, and that is no restart.
+    let finished_before = options.out_dir.join(crate::report::PLAN_JSON).exists();
+    if earlier_runs.is_empty() && points.stored_before > 0 && finished_before {
+        warnings.push(format!(
+            "history started afresh: no earlier runs found in {} although the store holds {} point{} from earlier runs; the history of the estimates begins with this run",
+            history_path.display(),
+            points.stored_before,
+            if points.stored_before == 1 { "" } else { "s" }
+        ));
+    }
     let models = model_results(plan, &points.records, &prep.cost, &mut warnings);
     timings.fitting = t0.elapsed().as_secs_f64();
 
@@ -221,11 +303,16 @@ struct Points {
     /// Thread-seconds spent training and forecasting the points computed now.
     train_seconds: f64,
     forecast_seconds: f64,
+    /// Records the study's store held before this run (not counting merged shards).
+    stored_before: usize,
+    /// The study that owned the folder before this one adopted it.
+    adopted_from: Option<String>,
 }
 
-/// The points stage: the planned points the store holds (with the shard stores' in a merge),
-/// and the missing ones computed and stored as they finish (a merge computes none: a missing
-/// point is an error). The store is then rewritten to hold exactly the planned points.
+/// The points stage: the planned points the store holds (with those of finished shard stores,
+/// merged in after checking that they agree), and the missing ones computed and stored as they
+/// finish (a merge computes none: a missing point is an error that changes nothing on disk).
+/// Every record stays in the store, planned or not.
 fn stored_and_computed_points(
     plan: &StudyPlan,
     prep: &Prepared,
@@ -237,11 +324,15 @@ fn stored_and_computed_points(
         path: store_path.clone(),
         source,
     };
-    let (store, mut contents) = RecordStore::open(&store_path).map_err(write_error)?;
-    if mode == Mode::StoredOnly {
-        let extra = shard_records(&options.out_dir, &contents.records)?;
-        contents.records.extend(extra);
+    if options.drop_damaged && store_path.exists() {
+        super::records::repair(&store_path)?;
     }
+    let (store, mut contents) = RecordStore::open(&store_path)?;
+    let adopted_from = super::owner::claim(&options.out_dir, plan, options.adopt)?;
+    let stored_before = contents.records.len();
+    let (shard_files, extra) = shard_records(&options.out_dir, &contents.records)?;
+    let from_shards = extra.len();
+    contents.records.extend(extra.iter().cloned());
     let units = points::plan_units(plan, prep);
     let (missing, tally) = points::classify(plan, &units, &contents.records);
     let planned: usize = tally.values().map(|t| t.planned).sum();
@@ -253,6 +344,17 @@ fn stored_and_computed_points(
             missing: to_compute,
             detail: gap_detail(&tally),
         });
+    }
+    // The shards' records go into the study's store (synced) before their files are removed,
+    // so a record is always in one store or the other.
+    for r in &extra {
+        store.append(r).map_err(write_error)?;
+    }
+    for path in &shard_files {
+        let _ = std::fs::remove_file(path);
+    }
+    if !shard_files.is_empty() {
+        let _ = std::fs::remove_dir(options.out_dir.join(shards::SHARDS_DIR));
     }
     let (computed, stopped, train_seconds, forecast_seconds) = points::compute(
         plan,
@@ -275,11 +377,17 @@ fn stored_and_computed_points(
     }
     let mut all = contents.records;
     all.extend(computed);
+    let planned_keys: std::collections::HashSet<&str> = units
+        .iter()
+        .flat_map(|u| u.keys.iter().map(|(_, k)| k.as_str()))
+        .collect();
+    let kept = all
+        .iter()
+        .filter(|r| !planned_keys.contains(r.key.as_str()))
+        .count();
     let records = points::planned_records(plan, &units, all);
     debug_assert_eq!(records.len(), planned);
-    // Only the planned records stay: stale ones (and those of sizes or models no longer in the
-    // study) are dropped now that their replacements are stored.
-    store.rewrite(&records).map_err(write_error)?;
+    drop(store);
     Ok(Points {
         records,
         counts: PointCounts {
@@ -288,8 +396,12 @@ fn stored_and_computed_points(
             computed: to_compute,
             stale,
             discarded_bytes: contents.discarded_bytes,
+            kept,
+            from_shards,
         },
         train_seconds,
         forecast_seconds,
+        stored_before,
+        adopted_from,
     })
 }

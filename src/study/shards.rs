@@ -97,10 +97,7 @@ pub(super) fn compute_shard(
     let units = points::plan_units(plan, prep);
     let main_path = out_dir.join(RECORDS_FILE);
     let main = if main_path.exists() {
-        read_records(&main_path).map_err(|source| StudyError::Read {
-            path: main_path.clone(),
-            source,
-        })?
+        read_records(&main_path)?
     } else {
         Vec::new()
     };
@@ -117,10 +114,7 @@ pub(super) fn compute_shard(
         .collect();
     let mine = shard_units(&costs, shard);
     let path = out_dir.join(SHARDS_DIR).join(shard.file_name());
-    let (store, contents) = RecordStore::open(&path).map_err(|source| StudyError::Write {
-        path: path.clone(),
-        source,
-    })?;
+    let (store, contents) = RecordStore::open(&path)?;
     let have: std::collections::HashSet<&str> =
         contents.records.iter().map(|r| r.key.as_str()).collect();
     let mut already_stored = 0;
@@ -206,23 +200,29 @@ fn same_result(a: &SkillRecord, b: &SkillRecord) -> bool {
     strip(a) == strip(b)
 }
 
-/// The records of every shard store in `out_dir` that `have` (the study's store) lacks, once
-/// per key; a key stored twice with different results is an error naming both files.
+/// The shard stores in `out_dir` and the records of theirs that `have` (the study's store)
+/// lacks, once per key; a key stored twice with different results is an error naming both
+/// files, and so is a shard store still in use by a running shard.
 pub(super) fn shard_records(
     out_dir: &Path,
     have: &[SkillRecord],
-) -> Result<Vec<SkillRecord>, StudyError> {
+) -> Result<(Vec<PathBuf>, Vec<SkillRecord>), StudyError> {
     let main = out_dir.join(RECORDS_FILE);
     let mut seen: std::collections::HashMap<String, (SkillRecord, PathBuf)> = have
         .iter()
         .map(|r| (r.key.clone(), (r.clone(), main.clone())))
         .collect();
     let mut extra = Vec::new();
-    for file in shard_stores(out_dir)? {
-        let records = read_records(&file).map_err(|source| StudyError::Read {
+    let files = shard_stores(out_dir)?;
+    for file in &files {
+        let handle = std::fs::File::open(file).map_err(|source| StudyError::Read {
             path: file.clone(),
             source,
         })?;
+        if let Err(std::fs::TryLockError::WouldBlock) = handle.try_lock_shared() {
+            return Err(StudyError::ShardRunning { path: file.clone() });
+        }
+        let records = read_records(file)?;
         for r in records {
             match seen.get(&r.key) {
                 Some((earlier, from)) if !same_result(earlier, &r) => {
@@ -242,7 +242,7 @@ pub(super) fn shard_records(
             }
         }
     }
-    Ok(extra)
+    Ok((files, extra))
 }
 
 /// Missing points per model, for an error message.

@@ -33,12 +33,7 @@ pub(super) fn status(
 ) -> Result<StudyStatus, StudyError> {
     let units = points::plan_units(plan, prep);
     let store = out_dir.join(RECORDS_FILE);
-    let read = |path: &Path| {
-        read_records(path).map_err(|source| StudyError::Read {
-            path: path.to_path_buf(),
-            source,
-        })
-    };
+    let read = |path: &Path| read_records(path).map_err(StudyError::from);
     let records = if store.exists() {
         read(&store)?
     } else {

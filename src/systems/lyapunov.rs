@@ -70,6 +70,12 @@ impl LyapunovSpec {
         let blocks = LYAPUNOV_BLOCKS.min(intervals);
         let per_block = intervals / blocks;
         let spin_steps = super::spin_up_steps(self.spin_up, self.dt);
+        super::check_work(
+            "this Lyapunov estimate",
+            spin_steps as f64 + intervals as f64 * m as f64,
+            0.0,
+            "reduce `duration` or `spin_up`, or raise `dt`",
+        )?;
         Ok((m, spin_steps, per_block, blocks))
     }
 }

@@ -132,6 +132,64 @@ pub enum SystemError {
          `dt` = {dt}; the integration is unstable, try a smaller `dt`"
     )]
     NonFiniteState { time: f64, dt: f64 },
+    /// The run could not finish: more integrator steps than the ceiling, or more memory for
+    /// its saved samples than the machine has available.
+    #[error(
+        "{what} would take {steps:.3e} integrator steps and {} for its saved values; the limits are {MAX_STEPS:.0e} steps and {} of memory available on this machine: {fix}",
+        gigabytes(*bytes),
+        available.map(gigabytes).unwrap_or_else(|| "the".into())
+    )]
+    TooMuchWork {
+        what: &'static str,
+        steps: f64,
+        bytes: f64,
+        available: Option<f64>,
+        fix: &'static str,
+    },
+}
+
+/// Ceiling on the RK4 steps of one simulation or Lyapunov estimate (about an hour or more of
+/// integration for the larger built-in systems; common practice, from memory).
+pub const MAX_STEPS: f64 = 1e9;
+
+/// Bytes as gigabytes, three significant figures.
+fn gigabytes(bytes: f64) -> String {
+    format!("{:.3} GB", bytes / 1e9)
+}
+
+/// Memory the operating system reports available (Linux `MemAvailable` in /proc/meminfo), or
+/// `None` where it cannot be read.
+pub fn available_memory() -> Option<f64> {
+    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
+    let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?;
+    let kb: f64 = line
+        .trim_start_matches("MemAvailable:")
+        .trim()
+        .trim_end_matches("kB")
+        .trim()
+        .parse()
+        .ok()?;
+    Some(kb * 1024.0)
+}
+
+/// Refuses work beyond [`MAX_STEPS`] or beyond the available memory.
+fn check_work(
+    what: &'static str,
+    steps: f64,
+    bytes: f64,
+    fix: &'static str,
+) -> Result<(), SystemError> {
+    let available = available_memory();
+    if steps > MAX_STEPS || available.is_some_and(|a| bytes > a) {
+        return Err(SystemError::TooMuchWork {
+            what,
+            steps,
+            bytes,
+            available,
+            fix,
+        });
+    }
+    Ok(())
 }
 
 /// A built-in reference system and its parameters.
@@ -528,7 +586,20 @@ impl SimulationSpec {
         if self.samples == 0 {
             return Err(SystemError::NoSamples);
         }
-        Ok((per_sample, spin_up_steps(self.spin_up, self.dt)))
+        let spin = spin_up_steps(self.spin_up, self.dt);
+        let steps = spin as f64 + (self.samples as f64 - 1.0) * per_sample as f64;
+        let subgrid = match self.system {
+            SystemSpec::TwoScaleLorenz96 { k, .. } => k,
+            _ => 0,
+        };
+        let per_row = (self.system.resolved_dim() + subgrid) as f64;
+        check_work(
+            "this simulation",
+            steps,
+            self.samples as f64 * per_row * 8.0,
+            "reduce `samples` or `spin_up`, or raise `dt`",
+        )?;
+        Ok((per_sample, spin))
     }
 }
 

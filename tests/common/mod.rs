@@ -50,3 +50,4 @@ pub fn files_below(dir: &Path) -> Vec<String> {
     out.sort();
     out
 }
+pub mod mutate;

@@ -97,6 +97,8 @@ mod tests {
             computed: 2,
             stale: 0,
             discarded_bytes: 0,
+            kept: 0,
+            from_shards: 0,
         });
         let now = HistoryEntry::of(&o.document, "2026-12-02T10:00:00Z".into()).unwrap();
         o.history = vec![now.clone()];

@@ -168,7 +168,7 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
             "Points",
             &format!(
                 "{} planned (models × sizes × replicates): {} reused from the records store, {} \
-                 computed in this run{}{}",
+                 computed in this run{}{}{}{}",
                 thousands(p.planned as f64),
                 thousands(p.reused as f64),
                 thousands(p.computed as f64),
@@ -184,6 +184,23 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
                     "; an incomplete last line left by an interrupted run was discarded"
                 } else {
                     ""
+                },
+                if p.from_shards > 0 {
+                    format!(
+                        "; {} merged from finished shard stores",
+                        thousands(p.from_shards as f64)
+                    )
+                } else {
+                    String::new()
+                },
+                if p.kept > 0 {
+                    format!(
+                        "; {} more kept in the store though this study does not plan them \
+                         (<code>closure-budget prune</code> removes them)",
+                        thousands(p.kept as f64)
+                    )
+                } else {
+                    String::new()
                 }
             ),
         );
