@@ -25,10 +25,12 @@ pub enum DataSource {
         training_pool: usize,
         seed: u64,
     },
-    /// Read the user's file.
+    /// Read the user's file (`fields`: gridded fields of one or several runs, see
+    /// [`super::own_data`]).
     File {
         path: PathBuf,
         sample_interval: Option<f64>,
+        fields: Option<Box<super::own_data::FieldPlan>>,
     },
 }
 
@@ -496,7 +498,7 @@ fn check(
         None => None,
     };
 
-    Ok(StudyPlan {
+    let plan = StudyPlan {
         name,
         title: f
             .title
@@ -526,7 +528,9 @@ fn check(
         fit_scale: f.plan.fit_scale,
         cost: f.cost,
         transfer,
-    })
+    };
+    super::own_data::check_files(&plan)?;
+    Ok(plan)
 }
 
 type Invalid<'a> = dyn Fn(&str, String, &str) -> StudyError + 'a;
@@ -647,13 +651,13 @@ fn data_source(
             simulate: None,
             file: Some(file),
         } => {
-            if let Some(dt) = file.sample_interval {
-                positive(&format!("{key}.file.sample-interval"), dt)?;
-            }
             let base = path.parent().unwrap_or(Path::new("."));
+            let (path, sample_interval, fields) =
+                super::own_data::plan_file(file, key, base, invalid)?;
             DataSource::File {
-                path: base.join(&file.path),
-                sample_interval: file.sample_interval,
+                path,
+                sample_interval,
+                fields,
             }
         }
         _ => {
@@ -844,6 +848,11 @@ pub fn describe(plan: &StudyPlan) -> String {
                 system.label(),
                 params.join(" ")
             );
+        }
+        DataSource::File {
+            fields: Some(f), ..
+        } => {
+            let _ = writeln!(s, "{}", super::own_data::describe(f));
         }
         DataSource::File { path, .. } => {
             let _ = writeln!(s, "data: file {}", path.display());
