@@ -68,6 +68,7 @@ fn example_script_end_to_end() {
         sample_interval: 0.05,
         mean: mean_x,
         sigma,
+        unresolved: None,
     };
     let longest = skill.max_lead as f64 * skill.sample_interval;
     let studies = repo("studies");

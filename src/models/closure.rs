@@ -952,6 +952,7 @@ mod tests {
             sample_interval: 0.01,
             mean,
             sigma,
+            unresolved: None,
         };
         let ics: Vec<usize> = (0..8).map(|i| 5200 + 200 * i).collect();
         let mean_valid = |m: &CoupledModel| {

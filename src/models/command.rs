@@ -972,6 +972,7 @@ mod tests {
                 sample_interval: 0.1,
                 mean: vec![0.0, 0.0],
                 sigma: vec![0.1, 0.1],
+                unresolved: None,
             },
             variables: vec!["s".into(), "c".into()],
         }

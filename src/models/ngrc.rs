@@ -779,6 +779,7 @@ mod tests {
             sample_interval: 0.025,
             mean,
             sigma,
+            unresolved: None,
         };
         let skill: Vec<_> = (0..ics)
             .map(|i| valid_time(m, test.view(), 10 + i * spacing, &spec))

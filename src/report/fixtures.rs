@@ -217,6 +217,7 @@ pub fn fixture() -> StudyResults {
             sigma: vec![3.5; 8],
             effective_sample_size: None,
             high_fidelity: None,
+            own_data: None,
         }),
         skill: Some(SkillInfo {
             definition: "valid prediction time, threshold 0.5".into(),

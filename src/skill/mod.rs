@@ -28,6 +28,43 @@ pub struct SkillSpec {
     /// Climatological mean and standard deviation per variable.
     pub mean: Vec<f64>,
     pub sigma: Vec<f64>,
+    /// For states of POD coefficients: the truth's energy outside the kept modes, so that the
+    /// error is that of the reconstructed field (`None`: the state is the field itself).
+    pub unresolved: Option<std::sync::Arc<Unresolved>>,
+}
+
+/// The truth's part outside a reduced basis, for skill on the reconstructed field.
+///
+/// With orthonormal modes Φ in a scaled space, a truth snapshot z = Φa + r and a forecast
+/// ẑ = Φâ: ‖z − ẑ‖² = ‖a − â‖² + ‖r‖². The normalised error at lead k from initial condition
+/// i is then e = sqrt((Σ_j (â_j − a_j)² + ‖r(i + k)‖²) / D): coefficients enter unweighted (they
+/// are already in the scaled space), and σ serves only the blow-up check.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Unresolved {
+    /// ‖r‖² of the truth at every row of the truth array.
+    pub energy: Vec<f64>,
+    /// Values per snapshot of the scaled field (D).
+    pub field_dim: f64,
+}
+
+impl Unresolved {
+    /// The valid time of a perfect reduced model (â = a) from `ic`: the truncation error alone.
+    pub fn perfect_valid_time(&self, ic: usize, spec: &SkillSpec) -> IcSkill {
+        let mut last = 0;
+        let mut exceeded = false;
+        for k in 1..=spec.max_lead {
+            if (self.energy[ic + k] / self.field_dim).sqrt() > spec.threshold {
+                exceeded = true;
+                break;
+            }
+            last = k;
+        }
+        IcSkill {
+            valid_time: last as f64 * spec.sample_interval,
+            censored: !exceeded && last == spec.max_lead,
+            blew_up: false,
+        }
+    }
 }
 
 /// Outcome of one forecast from one initial condition.
@@ -58,9 +95,13 @@ impl Scorer<'_, '_> {
     fn lead(&mut self, k: usize, x: &[f64]) -> bool {
         let d = self.truth.ncols();
         let row = self.truth.row(self.ic + k);
+        let reduced = self.spec.unresolved.as_deref();
         let mut sq = 0.0;
         for j in 0..d {
-            let z = (x[j] - row[j]) * self.inv_sigma[j];
+            let z = match reduced {
+                Some(_) => x[j] - row[j],
+                None => (x[j] - row[j]) * self.inv_sigma[j],
+            };
             sq += z * z;
             let excursion = (x[j] - self.spec.mean[j]) * self.inv_sigma[j];
             // NaN counts as a blow-up: a stated choice, not an accident of comparison.
@@ -68,7 +109,10 @@ impl Scorer<'_, '_> {
                 self.blew_up = true;
             }
         }
-        let err = (sq / d as f64).sqrt();
+        let err = match reduced {
+            Some(u) => ((sq + u.energy[self.ic + k]) / u.field_dim).sqrt(),
+            None => (sq / d as f64).sqrt(),
+        };
         if self.blew_up || err.is_nan() || err > self.spec.threshold {
             self.exceeded = true;
             return false;
@@ -181,7 +225,51 @@ mod tests {
             sample_interval: 0.1,
             mean: vec![0.0],
             sigma: vec![1.0],
+            unresolved: None,
         }
+    }
+
+    /// Two coefficients with zero forecast error and the truth's unresolved energy growing by
+    /// 0.05 per row over D = 4 values: e(k) = sqrt(0.05 (10 + k) / 4) passes θ = 0.5 (e² = 0.25,
+    /// energy 1.0) at row 20, so from initial condition 10 the error stays valid up to k = 10
+    /// (energy 1.0, e = 0.5 exactly) and fails at k = 11: valid time 1.0 time units. The perfect
+    /// model's floor is the same, since the forecast error is zero.
+    #[test]
+    fn unresolved_energy_enters_the_error_by_hand() {
+        let truth = Array2::from_shape_fn((40, 2), |(t, j)| (t + j) as f64);
+        let u = std::sync::Arc::new(Unresolved {
+            energy: (0..40).map(|t| t as f64 / 20.0).collect(),
+            field_dim: 4.0,
+        });
+        let mut sp = spec(20);
+        sp.mean = vec![0.0, 0.0];
+        sp.sigma = vec![100.0, 100.0];
+        sp.unresolved = Some(u.clone());
+        struct Oracle(Array2<f64>);
+        impl Forecaster for Oracle {
+            fn forecast(
+                &self,
+                history: ArrayView2<f64>,
+                steps: usize,
+                sink: &mut dyn FnMut(usize, &[f64]) -> bool,
+            ) {
+                let t0 = history[[history.nrows() - 1, 0]] as usize;
+                for k in 1..=steps {
+                    let row: Vec<f64> = self.0.row(t0 + k).to_vec();
+                    if !sink(k, &row) {
+                        return;
+                    }
+                }
+            }
+        }
+        let s = valid_time(&Oracle(truth.clone()), truth.view(), 10, &sp);
+        assert!((s.valid_time - 1.0).abs() < 1e-12, "{s:?}");
+        assert!(!s.censored);
+        assert_eq!(u.perfect_valid_time(10, &sp), s);
+        // Without the unresolved energy the oracle is perfect: censored at the maximum lead.
+        sp.unresolved = None;
+        let s = valid_time(&Oracle(truth.clone()), truth.view(), 10, &sp);
+        assert!(s.censored && (s.valid_time - 2.0).abs() < 1e-12, "{s:?}");
     }
 
     /// A linear ramp x(t) = 0.1·t: persistence error after k steps is 0.1k, so it stays valid

@@ -76,6 +76,11 @@ pub fn test_hash(
     if let Some(u) = subgrid {
         h.update(crate::data::hash_array(u.slice(rows)).as_bytes());
     }
+    if let Some(r) = &skill.unresolved {
+        // Skill on a reconstructed field: the truth's unresolved energy and the field size.
+        h.update(format!("unresolved over {:?} values\n", r.field_dim).as_bytes());
+        r.energy.iter().for_each(|e| h.update(e.to_le_bytes()));
+    }
     h.update(
         format!(
             "ics {:?}\nthreshold {:?}\nwarm-up {}\nmax-lead {}\nsample-interval {:?}\nmean {:?}\nsigma {:?}\n",

@@ -12,6 +12,7 @@ pub mod history;
 pub mod keys;
 pub mod measured;
 mod outcome;
+pub mod own_data;
 pub mod owner;
 pub mod plan;
 pub mod points;
@@ -62,6 +63,8 @@ pub enum StudyError {
     },
     #[error(transparent)]
     Data(#[from] crate::data::DataError),
+    #[error(transparent)]
+    OwnData(#[from] own_data::OwnDataError),
     #[error("simulating the pilot data failed: {0}")]
     System(#[from] crate::systems::SystemError),
     #[error("model '{model}', replicate {replicate}: {source}")]

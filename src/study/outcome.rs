@@ -86,6 +86,10 @@ pub(super) fn document(
         }
     }
     let t = &plan.timing;
+    let own_data = prep.own.as_ref().map(|o| &o.info);
+    if let Some(info) = own_data {
+        super::own_data::warnings(info, &plan.targets, &mut warnings);
+    }
     if let Some(&top) = plan.targets.last() {
         if top > 0.8 * t.max_lead {
             warnings.push(format!(
@@ -132,20 +136,25 @@ pub(super) fn document(
             trust_factor: plan.trust_factor,
             fit_scale: plan.fit_scale,
         },
-        data: Some(data_info(
-            &prep.traj,
-            &prep.split,
-            &prep.skill,
-            &prep.source,
-            prep.high_fidelity,
-            ess.clone(),
-        )),
+        data: Some(DataInfo {
+            own_data: own_data.cloned(),
+            ..data_info(
+                &prep.traj,
+                &prep.split,
+                &prep.skill,
+                &prep.source,
+                prep.high_fidelity,
+                ess.clone(),
+            )
+        }),
         skill: Some(SkillInfo {
-            definition: format!(
+            definition: own_data
+                .and_then(|o| super::own_data::skill_definition(o, t.threshold, ics.len()))
+                .unwrap_or_else(|| format!(
                 "valid prediction time: largest lead at which sqrt(mean_j ((x̂_j − x_j)/σ_j)²) has stayed ≤ {}, σ_j the standard deviation over the held-out test region; mean over {} test initial conditions",
                 t.threshold,
                 ics.len()
-            ),
+            )),
             threshold: t.threshold,
             warm_up: t.warm_up,
             max_lead: t.max_lead,

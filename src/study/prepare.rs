@@ -26,6 +26,13 @@ pub(super) struct Prepared {
     pub coupling: Option<Coupling>,
     /// Measured cost of the high-fidelity simulation (simulated data only).
     pub high_fidelity: Option<HighFidelityCost>,
+    /// The user's gridded data: what the contract records, and the reconstruction floor.
+    pub own: Option<OwnData>,
+}
+
+/// What a study on the user's gridded data adds to its preparation.
+pub(super) struct OwnData {
+    pub info: super::own_data::OwnDataInfo,
 }
 
 /// Resolves the coarse solver for closure models from the data, or says what is missing.
@@ -96,6 +103,7 @@ pub(super) fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, Stud
         skill,
         source,
         high_fidelity,
+        own,
     } = load_regime(
         &plan.data,
         &plan.timing,
@@ -104,7 +112,9 @@ pub(super) fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, Stud
         "simulating pilot data",
     )?;
     let dt = traj.sample_interval();
-    let cost = plan.cost.campaign(traj.dim(), dt)?;
+    // Storage counts the values the simulation saves, not the reduced state.
+    let stored = own.as_ref().map_or(traj.dim(), |o| o.info.selected_columns);
+    let cost = plan.cost.campaign(stored, dt)?;
     let coupling = coupling_for(plan, &traj)?;
     if let Some(c) = &coupling {
         // Checked here so a bad step fails before any training.
@@ -124,6 +134,7 @@ pub(super) fn prepare(plan: &StudyPlan, progress: bool) -> Result<Prepared, Stud
         source,
         coupling,
         high_fidelity,
+        own,
     })
 }
 
@@ -134,6 +145,7 @@ pub(super) struct Regime {
     pub skill: SkillSpec,
     pub source: String,
     pub high_fidelity: Option<HighFidelityCost>,
+    pub own: Option<OwnData>,
 }
 
 /// Simulates or reads a regime's data and splits it for training prefixes up to `largest`.
@@ -151,6 +163,20 @@ pub(super) fn load_regime(
         warm_up: to_samples(t.warm_up, dt).max(1),
         max_lead: to_samples(t.max_lead, dt).max(1),
     };
+    if let DataSource::File {
+        fields: Some(fp), ..
+    } = data
+    {
+        let l = super::own_data::load(fp, t, largest)?;
+        return Ok(Regime {
+            traj: l.traj,
+            split: l.split,
+            skill: l.skill,
+            source: l.source,
+            high_fidelity: None,
+            own: Some(OwnData { info: l.info }),
+        });
+    }
     let mut high_fidelity = None;
     let (traj, source) = match data {
         DataSource::Simulate {
@@ -206,6 +232,7 @@ pub(super) fn load_regime(
         DataSource::File {
             path,
             sample_interval,
+            ..
         } => (
             read_trajectory(path, *sample_interval)?,
             path.display().to_string(),
@@ -240,6 +267,7 @@ pub(super) fn load_regime(
         sample_interval: dt,
         mean,
         sigma,
+        unresolved: None,
     };
     Ok(Regime {
         traj,
@@ -247,6 +275,7 @@ pub(super) fn load_regime(
         skill,
         source,
         high_fidelity,
+        own: None,
     })
 }
 
@@ -276,5 +305,6 @@ pub(super) fn data_info(
         sigma: skill.sigma.clone(),
         effective_sample_size,
         high_fidelity,
+        own_data: None,
     }
 }

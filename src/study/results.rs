@@ -280,6 +280,11 @@ pub struct DataInfo {
     /// Measured cost of the built-in high-fidelity simulation (simulated data only).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub high_fidelity: Option<HighFidelityCost>,
+    /// The user's gridded data: fields with their CF attributes, runs with their content
+    /// hashes and roles, the reduction (POD spectrum, held-out reconstruction error and the
+    /// reconstruction floor); absent for trajectories and simulated data.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub own_data: Option<super::own_data::OwnDataInfo>,
 }
 
 /// Measured cost of the high-fidelity simulation on this machine (one core).

@@ -88,14 +88,61 @@ pub struct SimulateSection {
     pub seed: Option<u64>,
 }
 
-/// `[data.file]`: the user's own trajectory.
+/// `[data.file]`: the user's own trajectory, or gridded fields of one or several runs.
+///
+/// A `.npy` (with optional `.json` sidecar) or `.csv` `path` alone is one trajectory. NetCDF and
+/// `.npz` files (one `path`, one `path` with a `member-dimension`, or one file per run in
+/// `runs`) are read as fields: the keys from `variables` on are described in
+/// [`super::own_data`]. Paths are relative to the study file.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case", deny_unknown_fields)]
 pub struct FileSection {
-    /// `.npy` (with optional `.json` sidecar) or `.csv`; relative to the study file.
-    pub path: PathBuf,
-    /// Needed when no sidecar gives it.
+    /// One file (a trajectory, or one run of fields, or every run along `member-dimension`).
+    pub path: Option<PathBuf>,
+    /// One file per run, in order (the last `test.held-out-runs` are held out).
+    pub runs: Option<Vec<PathBuf>>,
+    /// Needed when no sidecar or evenly spaced time coordinate gives it.
     pub sample_interval: Option<f64>,
+    /// The dimension of `path` that indexes the runs.
+    pub member_dimension: Option<String>,
+    /// Variables stacked as state columns, each field flattened in C order.
+    pub variables: Option<Vec<String>>,
+    /// The time dimension (default: the unlimited one, then one named `time`).
+    pub time: Option<String>,
+    /// `[start, stop, stride]` per dimension name (the time dimension included).
+    pub slice: Option<std::collections::BTreeMap<String, [usize; 3]>>,
+    /// Coarse-graining and POD of the fields before any model sees them.
+    pub reduce: Option<ReduceSection>,
+    /// Where the test initial conditions come from.
+    pub test: Option<FileTestSection>,
+}
+
+/// `reduce = { coarse-grain = [..], pod = { .. } }` of `[data.file]`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct ReduceSection {
+    /// Box-filter factor per grid dimension of every field (block means).
+    pub coarse_grain: Option<Vec<usize>>,
+    /// Proper orthogonal decomposition after coarse-graining.
+    pub pod: Option<PodSection>,
+}
+
+/// `pod = { energy = 0.99 }` or `pod = { modes = 32 }`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct PodSection {
+    /// Keep the fewest modes whose energy fraction reaches this.
+    pub energy: Option<f64>,
+    /// Or keep this many modes.
+    pub modes: Option<usize>,
+}
+
+/// `test = { held-out-runs = k }` of `[data.file]`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct FileTestSection {
+    /// Test initial conditions come from the last k runs, held out whole.
+    pub held_out_runs: Option<usize>,
 }
 
 /// `[split]`: held-out test initial conditions after the training pool.

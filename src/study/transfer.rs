@@ -93,6 +93,7 @@ pub(super) fn run_transfer(
                 skill: spec,
                 source,
                 high_fidelity,
+                ..
             },
         campaign,
     } = new_regime;

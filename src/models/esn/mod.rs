@@ -1065,6 +1065,7 @@ mod tests {
             sample_interval: 0.01,
             mean,
             sigma,
+            unresolved: None,
         };
         let starts: Vec<usize> = (0..ics).map(|i| 200 + 100 * i).collect();
         crate::skill::valid_times(model, test.view(), &starts, &spec)

@@ -33,6 +33,7 @@ pub(super) fn answer(out: &mut String, doc: &PlanDocument) {
     if let Some(p) = &doc.persistence {
         persistence_floor(out, "Floor", p);
     }
+    super::data_reduction::reconstruction_floor(out, doc);
     if let Some(c) = &doc.climatology {
         let _ = writeln!(
             out,

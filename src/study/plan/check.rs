@@ -254,7 +254,7 @@ pub(super) fn check(
         None => None,
     };
 
-    Ok(StudyPlan {
+    let plan = StudyPlan {
         name,
         title: f
             .title
@@ -284,7 +284,9 @@ pub(super) fn check(
         fit_scale: f.plan.fit_scale,
         cost: f.cost,
         transfer,
-    })
+    };
+    crate::study::own_data::check_files(&plan)?;
+    Ok(plan)
 }
 
 type Invalid<'a> = dyn Fn(&str, String, &str) -> StudyError + 'a;
@@ -405,13 +407,13 @@ fn data_source(
             simulate: None,
             file: Some(file),
         } => {
-            if let Some(dt) = file.sample_interval {
-                positive(&format!("{key}.file.sample-interval"), dt)?;
-            }
             let base = path.parent().unwrap_or(Path::new("."));
+            let (path, sample_interval, fields) =
+                crate::study::own_data::plan_file(file, key, base, invalid)?;
             DataSource::File {
-                path: base.join(&file.path),
-                sample_interval: file.sample_interval,
+                path,
+                sample_interval,
+                fields,
             }
         }
         _ => {

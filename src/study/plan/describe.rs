@@ -29,6 +29,11 @@ pub fn describe(plan: &StudyPlan) -> String {
                 params.join(" ")
             );
         }
+        DataSource::File {
+            fields: Some(f), ..
+        } => {
+            let _ = writeln!(s, "{}", crate::study::own_data::describe(f));
+        }
         DataSource::File { path, .. } => {
             let _ = writeln!(s, "data: file {}", path.display());
         }

@@ -31,10 +31,12 @@ pub enum DataSource {
         training_pool: usize,
         seed: u64,
     },
-    /// Read the user's file.
+    /// Read the user's file (`fields`: gridded fields of one or several runs, see
+    /// [`crate::study::own_data`]).
     File {
         path: PathBuf,
         sample_interval: Option<f64>,
+        fields: Option<Box<crate::study::own_data::FieldPlan>>,
     },
 }
 
