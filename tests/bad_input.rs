@@ -333,7 +333,7 @@ fn fit_command_on_a_hand_written_csv() {
     assert!(m.estimates[1].p_unreachable > 0.9);
     assert_eq!(
         files_below(&dir.path().join("rep")),
-        vec!["plan.json", "report.html"]
+        vec!["budget.json", "report.html"]
     );
 
     std::fs::write(
