@@ -84,8 +84,8 @@ fn quick_demo_runs_end_to_end() {
     assert_eq!(
         files_below(&out),
         vec![
-            "history.jsonl",
             "budget.json",
+            "history.jsonl",
             "records.jsonl",
             "report.html",
             "skill.csv",

@@ -323,12 +323,15 @@ mod tests {
         assert_eq!(rate["core-hours-per-time-unit"], 100.0, "{rate}");
         // Older files with the snake_case key still read.
         let old = serde_json::to_string(&value).unwrap().replace(
-            "\"measured\",\"core-hours-per-time-unit\"",
-            "\"measured\",\"core_hours_per_time_unit\"",
+            "\"rate-source\":{\"core-hours-per-time-unit\"",
+            "\"rate-source\":{\"core_hours_per_time_unit\"",
         );
         assert!(old.contains("core_hours_per_time_unit"), "{old}");
         let back: PlanDocument = serde_json::from_str(&old).unwrap();
-        assert_eq!(back.campaign, results.document.campaign);
+        assert_eq!(
+            back.campaign.map(|c| c.rate_source),
+            results.document.campaign.map(|c| c.rate_source)
+        );
     }
 
     #[test]
