@@ -27,7 +27,7 @@
 //! # `budget.json`
 //! The [`PlanDocument`] contract, pretty-printed, with a trailing newline; every key is
 //! kebab-case (a test walks the whole document). Full precision: the other outputs print
-//! figures rounded by one formatter ([`format`](self::format)), this file keeps the values.
+//! figures rounded by one formatter (`format.rs`), this file keeps the values.
 //!
 //! # `skill.csv`
 //! Every skill measurement, one row per (model, replicate, subset size, test initial
