@@ -79,7 +79,7 @@ const AFTER_HELP: &str = "\
 Examples:
   closure-budget run studies/demo.toml
       simulate the demo pilot data, measure learning curves, plan the budget,
-      and write reports/demo/report.html, plan.json, skill.csv
+      and write reports/demo/report.html, budget.json, skill.csv
   closure-budget run studies/demo.toml
       (again, after new data arrived) reuse every stored point still valid and
       compute only the new ones; the report shows how the estimate moved
@@ -209,10 +209,10 @@ pub struct FitArgs {
     /// Fit on the log scale (relative errors), for skill spanning decades.
     #[arg(long)]
     pub log_scale: bool,
-    /// Also write the results as JSON (the plan.json contract) to this file.
+    /// Also write the results as JSON (the budget.json contract) to this file.
     #[arg(long)]
     pub json: Option<PathBuf>,
-    /// Also write an HTML report and plan.json into this directory.
+    /// Also write an HTML report and budget.json into this directory.
     #[arg(long)]
     pub report: Option<PathBuf>,
 }
@@ -339,7 +339,7 @@ It submits an array job of N tasks, task I running
   closure-budget run STUDY --out OUT --shard I/N --threads $SLURM_CPUS_PER_TASK --quiet
 and a merge job that starts after every task succeeded (--dependency=afterok) and runs
   closure-budget merge STUDY --out OUT --quiet
-which writes the report, plan.json, records.jsonl and skill.csv into OUT. It prints both job ids;
+which writes the report, budget.json, records.jsonl and skill.csv into OUT. It prints both job ids;
 Slurm's logs go to OUT/slurm/. The options --partition, --account, --time, --cpus and --mem apply
 to every task and to the merge job. Paths in the script are absolute: the binary, the study file
 and OUT must be visible at the same paths on the compute nodes.

@@ -360,7 +360,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             )?;
             print!("{}", report::text_summary(&doc));
             if let Some(path) = &a.json {
-                closure_budget::atomic::write_atomic(path, &report::plan_json(&doc))
+                closure_budget::atomic::write_atomic(path, &report::budget_json(&doc))
                     .with_context(|| format!("cannot write {}", path.display()))?;
                 println!("written: {}", path.display());
             }

@@ -210,7 +210,7 @@ pub fn batch_script(o: &SlurmOptions) -> Result<String, SlurmError> {
 #      and writes its share of the study's points to OUT/shards/shard-I-of-{n}.jsonl;
 #   2. a job '{merge_name}' that starts only after every task succeeded (afterok) and runs
 #        closure-budget merge STUDY --out OUT --quiet
-#      which combines the shards and writes report.html, plan.json, records.jsonl and skill.csv;
+#      which combines the shards and writes report.html, budget.json, records.jsonl and skill.csv;
 # and prints both job ids. Slurm's logs go to OUT/slurm/.
 # The binary, the study file and OUT must be visible at the same paths on the compute nodes.
 #

@@ -333,7 +333,7 @@ fn fit_command_on_a_hand_written_csv() {
     assert!(m.estimates[1].p_unreachable > 0.9);
     assert_eq!(
         files_below(&dir.path().join("rep")),
-        vec!["plan.json", "report.html"]
+        vec!["budget.json", "report.html"]
     );
 
     std::fs::write(
@@ -641,7 +641,7 @@ fn run_tiny(study: &Path, out: &Path, extra: &[&str]) -> std::process::Output {
 
 fn counts(out: &Path) -> closure_budget::study::results::PointCounts {
     let doc: closure_budget::study::results::PlanDocument =
-        serde_json::from_slice(&std::fs::read(out.join("plan.json")).unwrap()).unwrap();
+        serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap();
     doc.points.unwrap()
 }
 

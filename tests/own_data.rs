@@ -48,7 +48,7 @@ fn example(dir: &Path) {
 }
 
 fn plan_json(out: &Path) -> PlanDocument {
-    serde_json::from_str(&std::fs::read_to_string(out.join("plan.json")).unwrap()).unwrap()
+    serde_json::from_str(&std::fs::read_to_string(out.join("budget.json")).unwrap()).unwrap()
 }
 
 /// Singular values by `numpy.linalg.svd` of the training pool as the study reduces it: the

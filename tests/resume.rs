@@ -101,7 +101,7 @@ fn assert_same(a: &[SkillRecord], b: &[SkillRecord]) {
 
 fn plan(out: &Path) -> PlanDocument {
     let mut d: PlanDocument =
-        serde_json::from_slice(&std::fs::read(out.join("plan.json")).unwrap()).unwrap();
+        serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap();
     d.clear_measured_times();
     d
 }
@@ -178,7 +178,7 @@ fn killed_runs_resume_to_the_uninterrupted_result() {
     assert_eq!(doc, plan(&reference));
     // The last run computed only what the killed runs had not stored.
     let p: PlanDocument =
-        serde_json::from_slice(&std::fs::read(out.join("plan.json")).unwrap()).unwrap();
+        serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap();
     let counts = p.points.unwrap();
     assert_eq!(counts.planned, planned);
     assert!(counts.reused >= *seen.last().unwrap(), "{counts:?}");
@@ -208,7 +208,7 @@ fn ctrl_c_stores_the_points_in_flight_and_resumes() {
     assert_eq!(stored.len(), lines(&out.join("records.jsonl")));
     assert!(stored.len() < 2 * 3 * SIZES.len(), "stopped early");
     assert!(
-        !out.join("plan.json").exists(),
+        !out.join("budget.json").exists(),
         "no report from a stopped run"
     );
 
@@ -323,7 +323,7 @@ fn appended_data_reuse_every_unchanged_point() {
     let o = run(&s, &out, &[]);
     assert!(o.status.success(), "{}", stderr(&o));
     let p: PlanDocument =
-        serde_json::from_slice(&std::fs::read(out.join("plan.json")).unwrap()).unwrap();
+        serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap();
     let c = p.points.unwrap();
     assert_eq!(
         (c.planned, c.reused, c.computed, c.stale),
@@ -365,7 +365,7 @@ fn appended_data_reuse_every_unchanged_point() {
     let o = run(&s, &out, &[]);
     assert!(o.status.success(), "{}", stderr(&o));
     let p: PlanDocument =
-        serde_json::from_slice(&std::fs::read(out.join("plan.json")).unwrap()).unwrap();
+        serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap();
     let c = p.points.unwrap();
     assert!(c.stale > 0 && c.stale == c.computed, "{c:?}");
     assert!(c.reused > 0, "{c:?}");

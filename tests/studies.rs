@@ -72,7 +72,7 @@ fn run_quick(dir: &std::path::Path, threads: &str) -> PlanDocument {
         "{text}"
     );
     let doc: PlanDocument =
-        serde_json::from_slice(&std::fs::read(out.join("plan.json")).unwrap()).unwrap();
+        serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap();
     doc
 }
 
@@ -84,8 +84,8 @@ fn quick_demo_runs_end_to_end() {
     assert_eq!(
         files_below(&out),
         vec![
+            "budget.json",
             "history.jsonl",
-            "plan.json",
             "records.jsonl",
             "report.html",
             "skill.csv",
@@ -180,7 +180,7 @@ fn quick_demo_runs_end_to_end() {
 }
 
 /// Results are bit-for-bit identical whatever the thread count: skill.csv byte for byte, and
-/// plan.json equal once the wall-clock timings are set aside.
+/// budget.json equal once the wall-clock timings are set aside.
 #[test]
 fn results_do_not_depend_on_thread_count() {
     let one = tempfile::tempdir().unwrap();
@@ -231,7 +231,7 @@ seed = {seed}
         ],
     );
     assert!(o.status.success(), "{}", stderr(&o));
-    serde_json::from_slice(&std::fs::read(out.join("plan.json")).unwrap()).unwrap()
+    serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap()
 }
 
 /// At a stronger forcing (F = 20 → 24) the pilot model loses skill zero-shot, and fine-tuning

@@ -70,34 +70,54 @@ impl Device {
 
 /// Where the rate came from, with the inputs at the pilot Reynolds number.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
-#[serde(rename_all = "kebab-case", tag = "kind")]
+#[serde(
+    rename_all = "kebab-case",
+    rename_all_fields = "kebab-case",
+    tag = "kind"
+)]
 pub enum RateSource {
     /// `core-hours-per-time-unit`, measured.
-    Measured { core_hours_per_time_unit: f64 },
+    Measured {
+        /// Read under its older snake_case key too.
+        #[serde(alias = "core_hours_per_time_unit")]
+        core_hours_per_time_unit: f64,
+    },
     /// grid points × core-seconds per point-step ÷ solver time step ÷ 3600.
     CpuPointSteps {
+        #[serde(alias = "grid_points")]
         grid_points: f64,
+        #[serde(alias = "core_seconds_per_point_step")]
         core_seconds_per_point_step: f64,
+        #[serde(alias = "solver_time_step")]
         solver_time_step: f64,
     },
     /// grid points × GPU-seconds per point-step ÷ solver time step ÷ 3600.
     GpuPointSteps {
+        #[serde(alias = "grid_points")]
         grid_points: f64,
+        #[serde(alias = "gpu_seconds_per_point_step")]
         gpu_seconds_per_point_step: f64,
+        #[serde(alias = "solver_time_step")]
         solver_time_step: f64,
+        #[serde(alias = "gpus_per_run")]
         gpus_per_run: u32,
     },
 }
 
 /// How the number of runs is chosen.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
-#[serde(rename_all = "kebab-case", tag = "rule")]
+#[serde(
+    rename_all = "kebab-case",
+    rename_all_fields = "kebab-case",
+    tag = "rule"
+)]
 pub enum RunCount {
     Fixed {
         runs: u32,
     },
     /// The fewest runs whose wall-clock each stays within the limit.
     WallLimit {
+        #[serde(alias = "max_wall_hours_per_run")]
         max_wall_hours_per_run: f64,
     },
 }
@@ -396,7 +416,7 @@ impl Campaign {
         }
     }
 
-    /// The summary [`CostModel`] (plan.json's `cost`). With runs chosen from a wall-clock limit
+    /// The summary [`CostModel`] (budget.json's `cost`). With runs chosen from a wall-clock limit
     /// its `runs` is 1, so its budget omits the extra runs' spin-up: use [`Campaign::budget`].
     pub fn summary(&self) -> CostModel {
         CostModel {

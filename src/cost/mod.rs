@@ -1,7 +1,7 @@
 //! Campaign cost: training samples → simulated time → solver steps → core- (or GPU-) hours,
 //! node-hours, service units, wall-clock and storage; Reynolds-number scaling of a pilot rate.
 //!
-//! The summary model ([`CostModel`], written to `plan.json` as `cost`) keeps the original
+//! The summary model ([`CostModel`], written to `budget.json` as `cost`) keeps the original
 //! formulas:
 //!
 //! simulated time = samples · Δt_save + runs · spin-up;
@@ -78,7 +78,7 @@ pub enum CostError {
     WallLimitTooShort { limit: f64, spin_up_hours: f64 },
 }
 
-/// Checked summary cost model with every default resolved (the `cost` block of `plan.json`).
+/// Checked summary cost model with every default resolved (the `cost` block of `budget.json`).
 ///
 /// Built from a [`Campaign`] ([`Campaign::summary`]): `core-hours-per-time-unit` is the rate at
 /// the target Reynolds number (GPU-hours for a GPU rate), `overhead-factor` the product of every

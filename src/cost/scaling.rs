@@ -36,7 +36,11 @@ use serde::{Deserialize, Serialize};
 
 /// A law carrying grid size and solver cost from a pilot Reynolds number to a target one.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
-#[serde(rename_all = "kebab-case", tag = "law")]
+#[serde(
+    rename_all = "kebab-case",
+    rename_all_fields = "kebab-case",
+    tag = "law"
+)]
 pub enum ScalingLaw {
     /// Homogeneous isotropic turbulence, DNS (Pope 2000, ch. 9); Re = Re_L.
     IsotropicTurbulence,
@@ -48,7 +52,9 @@ pub enum ScalingLaw {
     WallModelledLes,
     /// User-given exponents for grid points and for solver steps per model time unit.
     Custom {
+        #[serde(alias = "grid_exponent")]
         grid_exponent: f64,
+        #[serde(alias = "step_exponent")]
         step_exponent: f64,
     },
 }

@@ -54,7 +54,7 @@ pub trait ModelFamily: Send + Sync + std::fmt::Debug {
     /// Short label of the family ("echo state network").
     fn label(&self) -> &'static str;
 
-    /// The settings as given, defaults resolved (reported in `plan.json`).
+    /// The settings as given, defaults resolved (reported in `budget.json`).
     fn settings(&self) -> serde_json::Value;
 
     /// What determines the family's results, for the cache keys of its points: the settings

@@ -1,7 +1,9 @@
-//! Fixed number formatting and HTML escaping shared by the report writers: thousands
-//! separators, three significant digits for costs, SI byte units, percentages.
+//! The one number formatter of every output (HTML, Markdown, LaTeX, CSV, the terminal) and HTML
+//! escaping: [`sig`] rounds to significant figures and groups thousands; [`sig3`], [`samples`],
+//! [`bytes`] and [`percent`] are its fixed uses; [`csv_sig`] and [`csv_samples`] print the same
+//! rounded figure without separators for CSV, so a figure reads the same in every file.
 //!
-//! Every function is deterministic (no locale); a non-finite value prints as "—".
+//! Every function is deterministic (no locale); a non-finite value prints as "—" (empty in CSV).
 
 /// Escapes `&`, `<`, `>`, `"` and `'` for HTML text and attribute values.
 pub fn escape(text: &str) -> String {
@@ -57,24 +59,51 @@ fn round_sig(x: f64, digits: i32) -> f64 {
     (x * scale).round() / scale
 }
 
-/// Three significant digits, with thousands separators above 1,000: 24312 → "24,300",
-/// 1.23456 → "1.23", 0.012345 → "0.0123". Very large or small values use e-notation.
-pub fn sig3(x: f64) -> String {
+/// `digits` significant figures (at least 1), with thousands separators from 1,000:
+/// `sig(24312.0, 3)` → "24,300", `sig(1.23456, 3)` → "1.23", `sig(64.9, 2)` → "65". Values of
+/// 10¹⁸ and more, or below 10⁻⁴, use e-notation.
+pub fn sig(x: f64, digits: i32) -> String {
+    sig_with(x, digits, true)
+}
+
+fn sig_with(x: f64, digits: i32, grouped: bool) -> String {
+    let digits = digits.max(1);
     if !x.is_finite() {
         return "—".into();
     }
     if x == 0.0 {
         return "0".into();
     }
-    let r = round_sig(x, 3);
+    let r = round_sig(x, digits);
     let mag = r.abs().log10().floor() as i32;
     if !(-4..18).contains(&mag) {
-        return format!("{r:.2e}");
+        return format!("{r:.*e}", (digits - 1) as usize);
     }
-    if mag >= 2 {
-        thousands(r)
+    if mag >= digits - 1 {
+        let whole = format!("{}", r.round() as i64);
+        if grouped {
+            group_digits(&whole)
+        } else {
+            whole
+        }
     } else {
-        format!("{r:.*}", (2 - mag) as usize)
+        format!("{r:.*}", (digits - 1 - mag) as usize)
+    }
+}
+
+/// Three significant digits, with thousands separators above 1,000: 24312 → "24,300",
+/// 1.23456 → "1.23", 0.012345 → "0.0123". Very large or small values use e-notation.
+pub fn sig3(x: f64) -> String {
+    sig(x, 3)
+}
+
+/// A sample count rounded to a whole sample: whole numbers (rounded up) below 1,000, three
+/// significant digits above.
+fn samples_value(x: f64) -> f64 {
+    if x.abs() < 1000.0 {
+        x.ceil()
+    } else {
+        round_sig(x, 3)
     }
 }
 
@@ -83,11 +112,25 @@ pub fn samples(x: f64) -> String {
     if !x.is_finite() {
         return "—".into();
     }
-    if x.abs() < 1000.0 {
-        thousands(x.ceil())
-    } else {
-        sig3(x)
+    thousands(samples_value(x))
+}
+
+/// [`sig`] for CSV: the same rounded figure without thousands separators ("24300"); empty
+/// for a non-finite value.
+pub fn csv_sig(x: f64, digits: i32) -> String {
+    if !x.is_finite() {
+        return String::new();
     }
+    sig_with(x, digits, false)
+}
+
+/// [`samples`] for CSV: the same whole number without separators ("3070"); empty for a
+/// non-finite value.
+pub fn csv_samples(x: f64) -> String {
+    if !x.is_finite() {
+        return String::new();
+    }
+    format!("{}", samples_value(x) as i64)
 }
 
 /// Bytes in SI units (1 kB = 1,000 B) with three significant digits: 2.43e10 → "24.3 GB".
@@ -216,5 +259,13 @@ mod tests {
         assert_eq!(short(2.9), "2.9");
         assert_eq!(short(0.125), "0.125");
         assert_eq!(short(12000.0), "12,000");
+        assert_eq!(sig(64.94, 2), "65");
+        assert_eq!(sig(3316.0, 3), "3,320");
+        assert_eq!(sig(1.5e21, 3), "1.50e21");
+        assert_eq!(csv_sig(212217.8, 3), "212000");
+        assert_eq!(csv_sig(0.0123456, 3), "0.0123");
+        assert_eq!(csv_samples(3073.9), "3070");
+        assert_eq!(csv_samples(511.2), "512");
+        assert_eq!(csv_sig(f64::INFINITY, 3), "");
     }
 }

@@ -6,7 +6,7 @@
 //! | output | exporter | reads |
 //! |---|---|---|
 //! | `report.html` | [`html`] | [`StudyResults`] |
-//! | `plan.json` | [`plan_json`] | its [`PlanDocument`] |
+//! | `budget.json` | [`budget_json`] | its [`PlanDocument`] |
 //! | `skill.csv` | [`skill_csv`] | its single forecasts (none for skill measured outside the tool) |
 //! | `tables/runs.md`, `.tex`, `.csv` | [`tables::runs_markdown`], [`tables::runs_latex`], [`tables::runs_csv`] | its tables of runs |
 //! | `tables/transfer.md`, `.tex`, `.csv` | [`tables::transfer_markdown`], [`tables::transfer_latex`], [`tables::transfer_csv`] | its [`TransferResult`] |
@@ -18,12 +18,16 @@
 //!
 //! # `report.html`
 //! One self-contained page: inline CSS and inline SVG charts, no scripts, no network
-//! references, printable. Sections: the answer (samples and cost per model and target), learning
-//! curves, fits, measured points, the transfer to a new regime (when the study has one), budget
-//! assumptions, warnings, provenance, cautions.
+//! references, printable on A4 and Letter. The first page is the answer on its own (per target
+//! the recommended model, see [`verdict`], with n*, core-hours, intervals and status); then the
+//! evidence: estimates per model with the cost chart, learning curves, fits, measured points,
+//! the transfer to a new regime (when the study has one), budget assumptions, warnings,
+//! provenance, cautions.
 //!
-//! # `plan.json`
-//! The [`PlanDocument`] contract, pretty-printed, with a trailing newline.
+//! # `budget.json`
+//! The [`PlanDocument`] contract, pretty-printed, with a trailing newline; every key is
+//! kebab-case (a test walks the whole document). Full precision: the other outputs print
+//! figures rounded by one formatter (`format.rs`), this file keeps the values.
 //!
 //! # `skill.csv`
 //! Every skill measurement, one row per (model, replicate, subset size, test initial
@@ -48,11 +52,12 @@
 mod csv;
 #[cfg(test)]
 pub(crate) mod fixtures;
-mod format;
+pub(crate) mod format;
 mod html;
 mod svg;
 pub mod tables;
 mod text;
+pub mod verdict;
 
 pub use text::{cost_text, text_summary};
 
@@ -67,7 +72,7 @@ pub use self::csv::HEADER as SKILL_CSV_HEADER;
 
 /// File names of the report's main files in the output directory.
 pub const REPORT_HTML: &str = "report.html";
-pub const PLAN_JSON: &str = "plan.json";
+pub const BUDGET_JSON: &str = "budget.json";
 pub const SKILL_CSV: &str = "skill.csv";
 
 /// Errors from writing the report files.
@@ -81,19 +86,19 @@ pub enum ReportError {
 }
 
 /// Every file of the report as (path under the output directory, bytes), in the order written:
-/// report.html, plan.json, skill.csv (when there are single forecasts), the tables of runs
+/// report.html, budget.json, skill.csv (when there are single forecasts), the tables of runs
 /// (when there are any) and, for a new regime, the transfer tables (see [`tables`]). Each
-/// comes from its exporter; the only value measured here is plan.json's `timings.report`.
+/// comes from its exporter; the only value measured here is budget.json's `timings.report`.
 pub fn report_files(results: &StudyResults) -> Vec<(&'static str, Vec<u8>)> {
     // The report stage's own time (rendering the page and the CSV) is known only after the
-    // page exists, so it reaches plan.json but not the page.
+    // page exists, so it reaches budget.json but not the page.
     let started = std::time::Instant::now();
     let page = html(results).into_bytes();
     let csv = skill_csv(results);
     let mut document = results.document.clone();
     document.timings.report = started.elapsed().as_secs_f64();
     document.timings.total += document.timings.report;
-    let mut files = vec![(REPORT_HTML, page), (PLAN_JSON, plan_json(&document))];
+    let mut files = vec![(REPORT_HTML, page), (BUDGET_JSON, budget_json(&document))];
     // Skill measured outside the tool has no single forecasts to list.
     if let Some(csv) = csv {
         files.push((SKILL_CSV, csv));
@@ -138,8 +143,8 @@ pub fn html(results: &StudyResults) -> String {
     html::html(results)
 }
 
-/// `plan.json`: the document as pretty-printed JSON with a trailing newline. Pure.
-pub fn plan_json(doc: &PlanDocument) -> Vec<u8> {
+/// `budget.json`: the document as pretty-printed JSON with a trailing newline. Pure.
+pub fn budget_json(doc: &PlanDocument) -> Vec<u8> {
     let mut bytes = serde_json::to_vec_pretty(doc).expect("the plan document serialises");
     bytes.push(b'\n');
     bytes
@@ -222,9 +227,9 @@ mod tests {
     use super::*;
 
     #[test]
-    fn plan_json_round_trips() {
+    fn budget_json_round_trips() {
         let results = fixture();
-        let bytes = plan_json(&results.document);
+        let bytes = budget_json(&results.document);
         assert_eq!(bytes.last(), Some(&b'\n'));
         let back: PlanDocument = serde_json::from_slice(&bytes).unwrap();
         // serde_json without its `float_roundtrip` feature may parse a float 1 ulp off, so
@@ -233,7 +238,7 @@ mod tests {
             serde_json::to_value(&back).unwrap(),
             serde_json::to_value(&results.document).unwrap(),
         );
-        assert!(values_close(&a, &b), "plan.json does not round-trip");
+        assert!(values_close(&a, &b), "budget.json does not round-trip");
     }
 
     fn values_close(a: &serde_json::Value, b: &serde_json::Value) -> bool {
@@ -264,7 +269,7 @@ mod tests {
         let written = write_report(&results, &out).unwrap();
         assert_eq!(
             written,
-            [REPORT_HTML, PLAN_JSON, SKILL_CSV]
+            [REPORT_HTML, BUDGET_JSON, SKILL_CSV]
                 .map(|n| out.join(n))
                 .to_vec()
         );
@@ -273,10 +278,59 @@ mod tests {
             .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
             .collect();
         names.sort();
-        assert_eq!(names, ["plan.json", "report.html", "skill.csv"]);
+        assert_eq!(names, ["budget.json", "report.html", "skill.csv"]);
         assert_eq!(
             std::fs::read(out.join(SKILL_CSV)).unwrap(),
             skill_csv(&results).unwrap()
+        );
+    }
+
+    /// Every key of budget.json is kebab-case, including those of tagged enums.
+    #[test]
+    fn budget_json_keys_are_kebab_case() {
+        let mut results = fixture();
+        results.document.campaign = Some(
+            crate::cost::CostInputs {
+                core_hours_per_time_unit: Some(100.0),
+                ..crate::cost::CostInputs::default()
+            }
+            .campaign(8, 0.01)
+            .unwrap(),
+        );
+        let value: serde_json::Value =
+            serde_json::from_slice(&budget_json(&results.document)).unwrap();
+        fn walk(v: &serde_json::Value, path: &str, bad: &mut Vec<String>) {
+            match v {
+                serde_json::Value::Object(map) => {
+                    for (k, x) in map {
+                        // Model settings and fit parameters are user or family names.
+                        if k.contains('_') {
+                            bad.push(format!("{path}/{k}"));
+                        }
+                        if k != "settings" && k != "params" && k != "std-errors" {
+                            walk(x, &format!("{path}/{k}"), bad);
+                        }
+                    }
+                }
+                serde_json::Value::Array(xs) => xs.iter().for_each(|x| walk(x, path, bad)),
+                _ => {}
+            }
+        }
+        let mut bad = Vec::new();
+        walk(&value, "", &mut bad);
+        assert!(bad.is_empty(), "snake_case keys: {bad:?}");
+        let rate = &value["campaign"]["rate-source"];
+        assert_eq!(rate["core-hours-per-time-unit"], 100.0, "{rate}");
+        // Older files with the snake_case key still read.
+        let old = serde_json::to_string(&value).unwrap().replace(
+            "\"rate-source\":{\"core-hours-per-time-unit\"",
+            "\"rate-source\":{\"core_hours_per_time_unit\"",
+        );
+        assert!(old.contains("core_hours_per_time_unit"), "{old}");
+        let back: PlanDocument = serde_json::from_str(&old).unwrap();
+        assert_eq!(
+            back.campaign.map(|c| c.rate_source),
+            results.document.campaign.map(|c| c.rate_source)
         );
     }
 
@@ -320,7 +374,7 @@ mod tests {
             written,
             [
                 REPORT_HTML,
-                PLAN_JSON,
+                BUDGET_JSON,
                 SKILL_CSV,
                 tables::TRANSFER_MD,
                 tables::TRANSFER_TEX,
@@ -341,11 +395,61 @@ mod tests {
         );
     }
 
+    /// One figure, one rounding: n* and core-hours of an estimate read the same in the page,
+    /// the terminal, the Markdown and LaTeX tables, and (without separators) in the CSV.
+    #[test]
+    fn a_figure_prints_the_same_in_every_output() {
+        use crate::cost::CostInputs;
+        let mut doc = fixture().document;
+        let campaign = CostInputs {
+            core_hours_per_time_unit: Some(2400.0),
+            runs: Some(2),
+            spin_up_per_run: 20.0,
+            ..CostInputs::default()
+        }
+        .campaign(8, 0.01)
+        .unwrap();
+        for m in &mut doc.models {
+            for e in &mut m.estimates {
+                e.budget = e.samples.map(|n| campaign.budget(n));
+                e.budget_low = e.samples_interval[0].map(|n| campaign.budget(n));
+                e.budget_high = e.samples_interval[1].map(|n| campaign.budget(n));
+            }
+        }
+        doc.campaign = Some(campaign);
+        let results = StudyResults::new(doc);
+        let e = results.document.models[0]
+            .estimates
+            .iter()
+            .find(|e| e.budget.is_some())
+            .expect("an estimate with a budget");
+        let (n, hours) = (e.samples.unwrap(), e.budget.unwrap().core_hours);
+        let (n_text, h_text) = (format::samples(n), format::sig3(hours));
+        assert!(
+            n_text.contains(',') && h_text.contains(','),
+            "{n_text} {h_text}"
+        );
+        let page = html(&results);
+        let text = text_summary(&results.document);
+        let md = String::from_utf8(tables::runs_markdown(&results.run_tables)).unwrap();
+        let tex = String::from_utf8(tables::runs_latex(&results.run_tables)).unwrap();
+        let csv = String::from_utf8(tables::runs_csv(&results.run_tables)).unwrap();
+        for (name, out) in [("html", &page), ("text", &text), ("md", &md), ("tex", &tex)] {
+            assert!(out.contains(&n_text), "{name} lacks n* {n_text}");
+            assert!(out.contains(&h_text), "{name} lacks core-hours {h_text}");
+        }
+        let cells: Vec<&str> = csv.split([',', '\n']).collect();
+        assert!(cells.contains(&format::csv_samples(n).as_str()), "{csv}");
+        assert!(cells.contains(&format::csv_sig(hours, 3).as_str()), "{csv}");
+        assert_eq!(format::csv_samples(n), n_text.replace(',', ""));
+        assert_eq!(format::csv_sig(hours, 3), h_text.replace(',', ""));
+    }
+
     #[test]
     fn output_is_deterministic() {
         let (a, b) = (fixture(), fixture());
         assert_eq!(html(&a), html(&b));
-        assert_eq!(plan_json(&a.document), plan_json(&b.document));
+        assert_eq!(budget_json(&a.document), budget_json(&b.document));
         assert_eq!(skill_csv(&a), skill_csv(&b));
     }
 }

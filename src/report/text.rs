@@ -1,7 +1,8 @@
 //! Plain text for the terminal: the answer (printed after `run` and `fit`) and the breakdown of
 //! a stand-alone cost question (printed by `cost`).
 
-use super::format::{bytes, grid_points, number, percent, sig3, thousands};
+use super::format::{bytes, grid_points, number, percent, samples, sig3, thousands};
+use super::verdict::{picks, ratio_words, Answer};
 use crate::cost::CostReport;
 use crate::study::results::{EstimateStatus, PlanDocument, TargetEstimate, TransferResult};
 use std::fmt::Write;
@@ -16,8 +17,10 @@ fn range(lo: Option<f64>, hi: Option<f64>, f: &dyn Fn(f64) -> String) -> String 
     }
 }
 
-/// The answer as plain text for the terminal: per model and target, samples, simulated time,
-/// core-hours and storage with intervals; then, for a new regime, the zero-shot gap and per
+/// The answer as plain text for the terminal: first, per target, the recommended model (the
+/// cheapest answering with a number) with n* and core-hours and their intervals; then per model
+/// and target, samples, simulated time, core-hours and storage with intervals; then, for a new
+/// regime, the zero-shot gap and per
 /// model and target k* fine-tuned and from scratch and the saving; then warnings.
 pub fn text_summary(doc: &PlanDocument) -> String {
     let mut s = String::new();
@@ -64,6 +67,7 @@ pub fn text_summary(doc: &PlanDocument) -> String {
         );
     }
     let level = (doc.study.confidence * 100.0).round();
+    answer_block(&mut s, doc, level);
     for m in &doc.models {
         let selected = m.selected.map(|f| f.label()).unwrap_or("none");
         let _ = writeln!(s, "\nmodel {} ({}; curve: {selected})", m.name, m.kind);
@@ -75,8 +79,8 @@ pub fn text_summary(doc: &PlanDocument) -> String {
                         "  target {:>6}: {}: {} samples ({level}% {}), {} time units, {} core-hours ({}), {}",
                         sig3(e.target),
                         status.label(),
-                        thousands(b.samples),
-                        range(e.samples_interval[0], e.samples_interval[1], &thousands),
+                        samples(b.samples),
+                        range(e.samples_interval[0], e.samples_interval[1], &samples),
                         sig3(b.simulated_time),
                         hours_or_overflow(b.core_hours),
                         range(
@@ -93,8 +97,8 @@ pub fn text_summary(doc: &PlanDocument) -> String {
                         "  target {:>6}: {}: {} samples ({level}% {}); {}",
                         sig3(e.target),
                         status.label(),
-                        e.samples.map(thousands).unwrap_or_default(),
-                        range(e.samples_interval[0], e.samples_interval[1], &thousands),
+                        e.samples.map(samples).unwrap_or_default(),
+                        range(e.samples_interval[0], e.samples_interval[1], &samples),
                         e.note
                     );
                 }
@@ -119,6 +123,71 @@ pub fn text_summary(doc: &PlanDocument) -> String {
     s
 }
 
+/// Per target, the recommended model: "target 0.200 time units: esn-tiny, 3,070 samples (90%
+/// 1,840–6,200), 212,000 core-hours (90% 175,000–306,000); next esn-b, 2.1× dearer".
+fn answer_block(s: &mut String, doc: &PlanDocument, level: f64) {
+    let hours = doc
+        .campaign
+        .as_ref()
+        .map_or("core-hours", |c| c.device.hours_label());
+    let _ = writeln!(
+        s,
+        "\nanswer (per target, the cheapest model that reaches it with a number):"
+    );
+    for p in picks(doc) {
+        let t = format!("  to reach {} time units: ", sig3(p.target));
+        let Some((m, e, answer)) = p.choice else {
+            let _ = writeln!(s, "{t}no model reaches it");
+            continue;
+        };
+        let line = match answer {
+            Answer::Number {
+                samples: n,
+                interval: [lo, hi],
+            } => {
+                let mut l = format!(
+                    "{}, {} samples ({level}% {})",
+                    m.name,
+                    samples(n),
+                    range(Some(lo), Some(hi), &samples)
+                );
+                if let Some(b) = &e.budget {
+                    let _ = write!(
+                        l,
+                        ", {} {hours} ({level}% {})",
+                        sig3(b.core_hours),
+                        range(
+                            e.budget_low.map(|b| b.core_hours),
+                            e.budget_high.map(|b| b.core_hours),
+                            &sig3
+                        )
+                    );
+                }
+                let _ = write!(l, "; {}", e.status.label());
+                if let Some((r, ratio)) = p.runner_up {
+                    let _ = write!(l, "; next {}, {}", r.name, ratio_words(ratio));
+                }
+                l
+            }
+            Answer::Bound {
+                at_most: Some(n), ..
+            } => format!(
+                "{}, n* ≤ {} samples (reached at the smallest measured size; fewer may do)",
+                m.name,
+                samples(n)
+            ),
+            Answer::Bound { at_least, .. } => format!(
+                "no model gives a number; best bound {}, n* ≥ {} samples ({})",
+                m.name,
+                at_least.map(samples).unwrap_or_else(|| "?".into()),
+                e.status.label()
+            ),
+            Answer::NotAnswerable => "not answerable".into(),
+        };
+        let _ = writeln!(s, "{t}{line}");
+    }
+}
+
 /// One k*: "1,200 samples (90% 800–2,000)", with the status when it is not plainly reachable,
 /// or the status alone when it gives no sample count.
 fn k_star(e: Option<&TargetEstimate>, status: EstimateStatus, level: f64) -> String {
@@ -126,8 +195,8 @@ fn k_star(e: Option<&TargetEstimate>, status: EstimateStatus, level: f64) -> Str
         Some((e, n)) => {
             let mut k = format!(
                 "{} samples ({level}% {})",
-                thousands(n),
-                range(e.samples_interval[0], e.samples_interval[1], &thousands)
+                samples(n),
+                range(e.samples_interval[0], e.samples_interval[1], &samples)
             );
             if status != EstimateStatus::Reachable {
                 let _ = write!(k, ", {}", status.label());
@@ -188,7 +257,7 @@ fn transfer_summary(s: &mut String, t: &TransferResult, level: f64) {
             };
             let saved = match (saving.core_hours_saved, saving.samples_saved) {
                 (Some(h), _) => saved(h, saving.core_hours_saved_interval, &sig3, hours),
-                (None, Some(n)) => saved(n, saving.samples_saved_interval, &thousands, "samples"),
+                (None, Some(n)) => saved(n, saving.samples_saved_interval, &samples, "samples"),
                 (None, None) if !saving.note.is_empty() => saving.note.clone(),
                 (None, None) => "saving unknown".to_string(),
             };
@@ -259,10 +328,19 @@ pub fn cost_text(r: &CostReport) -> String {
     );
     let _ = writeln!(
         s,
-        "  simulated time    {} time units{}",
+        "  simulated time    {} time units{} (model time integrated, spin-up included)",
         sig3(b.simulated_time),
         steps(b.solver_steps)
     );
+    if b.simulated_time > 0.0 {
+        let _ = writeln!(
+            s,
+            "  spin-up share     {} of the simulated time ({} runs × {} time units, discarded)",
+            percent(b.runs as f64 * b.spin_up_per_run / b.simulated_time),
+            b.runs,
+            sig3(b.spin_up_per_run)
+        );
+    }
     let _ = writeln!(s, "\nCharges");
     let _ = writeln!(
         s,
@@ -353,6 +431,14 @@ mod tests {
         for w in &doc.warnings {
             assert!(text.contains(w.as_str()));
         }
+        // The answer comes first: one line per target, before the models.
+        let answer = text.find("\nanswer (").expect("answer block");
+        assert!(answer < text.find("\nmodel ").unwrap(), "{text}");
+        assert_eq!(
+            text.matches("  to reach ").count(),
+            doc.study.targets.len(),
+            "{text}"
+        );
     }
     #[test]
     fn summary_ends_with_the_new_regime() {

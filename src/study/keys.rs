@@ -4,7 +4,7 @@
 //! A point's key is the SHA-256 of a canonical JSON document ([`point_identity`]: sorted keys,
 //! no white space) naming: the results version
 //! ([`RESULTS_VERSION`]), the model's family and the identity its family gives (its settings
-//! as serialised for `plan.json`, plus the content of the files a command names), its use and
+//! as serialised for `budget.json`, plus the content of the files a command names), its use and
 //! seed, the subset the model is standardised on when that is not its own subset, the subset
 //! size n, the content of the n training samples actually used (and their coupling terms for
 //! closures), the held-out test data with the skill definition, and for closures the coarse
@@ -244,7 +244,7 @@ mod tests {
         assert_eq!(ta, tb);
     }
 
-    /// The model part of a key is the family's key and its settings as written to `plan.json`:
+    /// The model part of a key is the family's key and its settings as written to `budget.json`:
     /// the default written out or left implicit gives the same key; any setting, the family,
     /// the use, the size or the seed changes it; the document of a fixed point is pinned, so a
     /// change to what enters a key shows here (raise [`RESULTS_VERSION`] with it).

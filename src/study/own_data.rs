@@ -677,7 +677,7 @@ pub struct PodInfo {
     pub reconstruction_floor: SkillSummary,
 }
 
-/// The user's gridded data in the data contract (`plan.json` → `data.own-data`).
+/// The user's gridded data in the data contract (`budget.json` → `data.own-data`).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub struct OwnDataInfo {

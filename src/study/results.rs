@@ -1,6 +1,6 @@
-//! The results of a study: the `plan.json` data contract.
+//! The results of a study: the `budget.json` data contract.
 //!
-//! `plan.json` (schema [`PLAN_SCHEMA`]) is one [`PlanDocument`]; `history.jsonl` holds one
+//! `budget.json` (schema [`PLAN_SCHEMA`]) is one [`PlanDocument`]; `history.jsonl` holds one
 //! [`HistoryEntry`] per line; [`StudyResults`] bundles the document with the data behind its
 //! figures (skill records, floors, tables of runs, history) for the report. Conventions: times are in model
 //! time units unless a name says otherwise; sizes are numbers of saved samples; core-hours and
@@ -16,7 +16,7 @@ use crate::skill::{IcSkill, SkillSummary};
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
-/// Version tag of the `plan.json` contract.
+/// Version tag of the `budget.json` contract.
 pub const PLAN_SCHEMA: &str = "closure-budget/plan/1";
 
 /// Everything a study (or a fit of skill measured outside the tool) produced, as the report's
@@ -24,7 +24,7 @@ pub const PLAN_SCHEMA: &str = "closure-budget/plan/1";
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub struct StudyResults {
-    /// `plan.json`.
+    /// `budget.json`.
     pub document: PlanDocument,
     /// Every single forecast behind the figures (`skill.csv`); `None` for skill measured outside
     /// the tool.
@@ -87,7 +87,7 @@ pub struct ForecastSkill {
     pub climatology: Vec<IcSkill>,
 }
 
-/// Everything a study produced (`plan.json`).
+/// Everything a study produced (`budget.json`).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub struct PlanDocument {

@@ -226,9 +226,9 @@ fn run_in_pool(
         path: history_path.clone(),
         source,
     })?;
-    // A finished earlier run left its plan.json; an interrupted first run leaves points but no
+    // A finished earlier run left its budget.json; an interrupted first run leaves points but no
     // history, and that is no restart.
-    let finished_before = options.out_dir.join(crate::report::PLAN_JSON).exists();
+    let finished_before = options.out_dir.join(crate::report::BUDGET_JSON).exists();
     if earlier_runs.is_empty() && points.stored_before > 0 && finished_before {
         warnings.push(format!(
             "history started afresh: no earlier runs found in {} although the store holds {} point{} from earlier runs; the history of the estimates begins with this run",

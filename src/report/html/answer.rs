@@ -4,9 +4,11 @@
 use super::cells::{
     budget_cell, confidence, persistence_floor, samples_cell, status_cell, target_cell,
 };
+use crate::report::format::percent;
 use crate::report::format::{bytes, escape, sig3, thousands};
 use crate::report::svg;
-use crate::study::results::PlanDocument;
+use crate::report::verdict::{classify, smallest_size, Answer};
+use crate::study::results::{PlanDocument, TargetEstimate};
 use std::fmt::Write;
 
 pub(super) fn answer(out: &mut String, doc: &PlanDocument) {
@@ -19,13 +21,15 @@ pub(super) fn answer(out: &mut String, doc: &PlanDocument) {
     };
     let _ = write!(
         out,
-        "<section id=\"answer\">\n<h2>The answer</h2>\n\
+        "<section id=\"answer\">\n<h2>Estimates per model</h2>\n\
          <p>Training samples needed for each target skill ({over}), read from each model's \
          selected learning-curve family, with {} bootstrap intervals over replicates, test \
          initial conditions and curve families{}.</p>\n",
         confidence(doc),
         if doc.cost.is_some() {
-            ", and what simulating and storing those samples costs"
+            ", and what simulating and storing those samples costs. <em>Simulated time</em> is \
+             the model time the high-fidelity solver integrates to produce them (model time \
+             units), spin-up of every run included; its share is given under each figure"
         } else {
             ""
         },
@@ -74,8 +78,17 @@ pub(super) fn answer(out: &mut String, doc: &PlanDocument) {
                  <td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td></tr>",
                 target_cell(doc, e.target),
                 status_cell(e),
-                samples_cell(doc, e, "n*"),
-                budget_cell(doc, e, |b| b.simulated_time, sig3, " time units"),
+                match classify(e, smallest_size(m)) {
+                    Answer::Bound {
+                        at_most: Some(n), ..
+                    } => format!(
+                        "<span class=\"big\">≤ {}</span> samples<span class=\"sub\">≤ smallest \
+                         measured size: fewer may do</span>",
+                        crate::report::format::samples(n)
+                    ),
+                    _ => samples_cell(doc, e, "n*"),
+                },
+                simulated_cell(doc, e),
                 budget_cell(doc, e, |b| b.core_hours, sig3, ""),
                 budget_cell(doc, e, |b| b.storage_bytes, bytes, ""),
                 escape(&e.note),
@@ -86,12 +99,43 @@ pub(super) fn answer(out: &mut String, doc: &PlanDocument) {
     if let Some(chart) = svg::cost_chart(doc) {
         let _ = write!(
             out,
-            "<h3>Cost against target skill</h3>\n<figure>\n{chart}\n<figcaption>What each target \
+            "<h3>Cost against target skill</h3>\n<figure>\n{}\n<figcaption>What each target \
              costs: core-hours against the target skill for every model (read along a curve for \
              the cost of each extra unit of skill, or vertically to compare models at equal \
-             skill); dots are the estimates at the targets, bars their intervals.</figcaption>\n\
-             </figure>\n"
+             skill). Curves are drawn up to {}× the largest measured size (the trust range); \
+             markers are the estimates at the targets, bars their intervals, and an arrow at the \
+             top edge marks an estimate or interval end beyond the chart, labelled with its \
+             value.",
+            chart.svg,
+            sig3(doc.study.trust_factor)
         );
+        if !chart.omitted.is_empty() {
+            let list: Vec<String> = chart
+                .omitted
+                .iter()
+                .map(|(name, why)| format!("<strong>{}</strong>: {}", escape(name), escape(why)))
+                .collect();
+            let _ = write!(out, " Not drawn: {}.", list.join("; "));
+        }
+        out.push_str("</figcaption>\n</figure>\n");
     }
     out.push_str("</section>\n");
+}
+
+/// Simulated time with its interval and the share of it spent on spin-up (discarded).
+fn simulated_cell(doc: &PlanDocument, e: &TargetEstimate) -> String {
+    let mut cell = budget_cell(doc, e, |b| b.simulated_time, sig3, " time units");
+    if let (Some(c), Some(b)) = (&doc.cost, &e.budget) {
+        let spin = c.runs as f64 * c.spin_up_per_run;
+        if spin > 0.0 && b.simulated_time > 0.0 {
+            let _ = write!(
+                cell,
+                "<span class=\"sub\">spin-up {} ({} runs × {} time units)</span>",
+                percent(spin / b.simulated_time),
+                c.runs,
+                sig3(c.spin_up_per_run)
+            );
+        }
+    }
+    cell
 }

@@ -42,7 +42,7 @@ pub(super) fn closures(out: &mut String, doc: &PlanDocument) {
             let _ = writeln!(
                 out,
                 "<tr><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
-                 <td class=\"num\">{} of {} × {}</td><td class=\"num\">{}</td>\
+                 <td class=\"num\">{} of {} runs × {} time units</td><td class=\"num\">{}</td>\
                  <td class=\"num\">{}</td></tr>",
                 thousands(p.n as f64),
                 sig3(p.mean),
@@ -61,12 +61,15 @@ pub(super) fn closures(out: &mut String, doc: &PlanDocument) {
                 out,
                 "<p>Cost at the largest n: the coupled coarse model integrates {} equations at \
                  {} s per model time unit; the high-fidelity system integrates {} equations at \
-                 {} s per time unit (measured on this machine, one core): {}× cheaper.</p>",
+                 {} s per time unit (measured on this machine, one core): the coupled coarse \
+                 model is {} than the high-fidelity system per time unit.</p>",
                 vars,
                 number(c.coupled_seconds_per_time_unit),
                 hf.equations,
                 number(hf.seconds_per_time_unit),
-                sig3(hf.seconds_per_time_unit / c.coupled_seconds_per_time_unit),
+                crate::report::verdict::ratio_words(
+                    c.coupled_seconds_per_time_unit / hf.seconds_per_time_unit
+                ),
             );
         }
     }

@@ -1,4 +1,5 @@
-//! Fits: every family's parameters, weighted residuals and AICc per model.
+//! Fits: every family's parameters, weighted residuals and AICc per model, and the rule that
+//! selected one.
 
 use crate::report::format::{escape, number, opt, sig3};
 use crate::study::results::PlanDocument;
@@ -7,8 +8,11 @@ use std::fmt::Write;
 pub(super) fn fits(out: &mut String, doc: &PlanDocument) {
     out.push_str(
         "<section id=\"fits\">\n<h2>Fits</h2>\n<p>Weighted least-squares fits of each family to \
-         the measured means (weights from the standard errors). The family with the lowest AICc \
-         is selected; ΔAICc above about 2 is a meaningful preference.</p>\n",
+         the measured means (weights from the standard errors). The selected family is the one \
+         with the largest backtest weight (each family fitted on the smaller sizes and scored on \
+         how well it predicts the larger ones, see the backtest); AICc decides only when no \
+         backtest could be run. AICc and ΔAICc are shown for reference (ΔAICc above about 2 is \
+         a meaningful preference in fit quality).</p>\n",
     );
     for m in &doc.models {
         let _ = writeln!(out, "<h3>{}</h3>", escape(&m.name));

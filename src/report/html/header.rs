@@ -42,7 +42,7 @@ pub(super) fn header(out: &mut String, doc: &PlanDocument, title: &str) {
         }
     }
     out.push_str(
-        "<nav class=\"toc\"><a href=\"#answer\">Answer</a><a href=\"#curves\">Learning curves</a>\
+        "<nav class=\"toc\"><a href=\"#summary\">Summary</a><a href=\"#answer\">Per model</a><a href=\"#curves\">Learning curves</a>\
          <a href=\"#fits\">Fits</a><a href=\"#backtest\">Backtest</a><a href=\"#points\">Measured points</a>",
     );
     if doc.models.iter().any(|m| m.role == "closure") {

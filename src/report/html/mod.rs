@@ -1,5 +1,6 @@
 //! `report.html`: one self-contained page (inline CSS and SVG, no scripts, no network) that puts
-//! the answer first (samples and cost per model and target), then the evidence (learning curves,
+//! the answer first (a one-page summary: per target the recommended model, its samples and cost;
+//! then samples and cost per model and target), then the evidence (learning curves,
 //! fits, measured points), the transfer to a new regime when the study has one, the assumptions,
 //! warnings, provenance and cautions. One file per section, in page order; [`cells`] holds the
 //! fragments several sections share.
@@ -20,6 +21,7 @@ mod points;
 mod provenance;
 mod runs;
 mod style;
+mod summary;
 mod transfer;
 mod warnings;
 
@@ -43,6 +45,7 @@ use self::points::measured_points;
 use self::provenance::provenance;
 use self::runs::runs;
 use self::style::CSS;
+use self::summary::summary;
 use self::transfer::transfer;
 use self::warnings::warnings;
 
@@ -63,6 +66,7 @@ pub fn html(results: &StudyResults) -> String {
         escape(title)
     );
     header(&mut out, doc, title);
+    summary(&mut out, doc);
     answer(&mut out, doc);
     learning_curves(&mut out, doc);
     fits(&mut out, doc);

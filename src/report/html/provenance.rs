@@ -210,7 +210,7 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
         "Stage timings",
         &format!(
             "data {} s, points {} s (training {} and forecasting {} thread-seconds), fitting {} s; \
-             total {} s before writing this report (plan.json adds the report stage), on {} \
+             total {} s before writing this report (budget.json adds the report stage), on {} \
              thread{}",
             sig3(t.data),
             sig3(t.points),

@@ -18,8 +18,15 @@ p { margin:.5em 0; max-width:78ch; }
 .lede { font-size:1.05rem; }
 .muted, .sub { color:var(--muted); }
 .sub { display:block; font-size:.85rem; }
-nav.toc { font-size:.9rem; margin:10px 0 0; color:var(--muted); }
-nav.toc a { color:var(--accent); text-decoration:none; margin-right:1em; white-space:nowrap; }
+nav.toc { font-size:.9rem; margin:10px 0 0; color:var(--muted); display:flex; flex-wrap:wrap;
+  gap:.2em 1em; }
+nav.toc a { color:var(--accent); text-decoration:none; white-space:nowrap; }
+.scroll { max-width:100%; overflow-x:auto; }
+section.summary h2 { margin-top:1.2em; }
+table.summary td { padding-top:10px; padding-bottom:10px; }
+ul.verdicts { padding-left:1.2em; max-width:90ch; }
+ul.verdicts li { margin:.35em 0; }
+td code, td.mono { overflow-wrap:anywhere; }
 code, .mono { font-family:ui-monospace,"SFMono-Regular",Menlo,Consolas,"Liberation Mono",monospace;
   font-size:.88em; }
 .hash { word-break:break-all; }
@@ -58,14 +65,32 @@ figcaption { font-size:.88rem; color:var(--muted); margin-top:6px; max-width:78c
 .warnings li { margin:.3em 0; }
 .cautions { border-top:3px solid var(--line); margin-top:2.4em; }
 .cautions li { margin:.4em 0; max-width:80ch; }
+@media (max-width:960px) {
+  main { padding:16px 12px 40px; }
+  table { font-size:.84rem; }
+  th, td { padding:5px 6px; }
+  .answer td:first-child { white-space:normal; }
+  .answer td:nth-child(2), .answer td:nth-child(3), .answer td:last-child { min-width:0; }
+  .big { font-size:1.05rem; }
+}
+@page { size:auto; margin:14mm 12mm; }
 @media print {
-  html { font-size:10.5pt; }
+  html { font-size:10pt; }
   main { max-width:none; padding:0; }
   nav.toc { display:none; }
-  h2 { break-after:avoid; }
-  h3 { break-after:avoid; }
-  figure, tr, .warnings { break-inside:avoid; }
-  svg.chart { border:none; }
+  .page-break { break-after:page; page-break-after:always; }
+  h2, h3, h4 { break-after:avoid; page-break-after:avoid; }
+  h2 + p, h3 + p { break-before:avoid; }
+  figure, tr, .warnings, .floor, .formula { break-inside:avoid; page-break-inside:avoid; }
+  thead { display:table-header-group; }
+  .scroll { overflow:visible; }
+  th, td { padding:4px 6px; }
+  .answer td { padding-top:5px; padding-bottom:5px; }
+  .answer td:nth-child(2), .answer td:nth-child(3), .answer td:last-child { min-width:0; }
+  h2 { margin-top:1.4em; }
+  svg.chart { border:none; max-width:82%; }
+  figure { margin:.3em 0 .8em; }
+  h3 { margin-top:1em; }
   tbody tr:nth-child(even) td { background:none; }
 }
 "#;

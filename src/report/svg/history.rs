@@ -1,8 +1,8 @@
 //! How the estimate of n* moved over the runs of a study.
 
 use super::{
-    chart_builder, compact, draw_legend, render, LegendItem, Swatch, FAMILY_COLOURS, GRID, INK,
-    LEGEND_WIDTH, WIDTH,
+    chart_builder, compact, draw_legend, log_ticks, render, series_style, y_label_area_for,
+    LegendItem, Swatch, GRID, INK, LEGEND_WIDTH, WIDTH,
 };
 use crate::report::format::short;
 use crate::study::results::HistoryEntry;
@@ -39,7 +39,7 @@ pub fn history_chart(history: &[HistoryEntry], target: f64) -> Option<String> {
                     ))
                 })
                 .collect();
-            (*name, FAMILY_COLOURS[i % FAMILY_COLOURS.len()], runs)
+            (*name, series_style(i).colour, runs)
         })
         .filter(|(_, _, runs): &(&str, RGBColor, Vec<Run>)| !runs.is_empty())
         .collect();
@@ -54,6 +54,8 @@ pub fn history_chart(history: &[HistoryEntry], target: f64) -> Option<String> {
     let (lo, hi) = ys.fold((f64::INFINITY, 0.0_f64), |(l, h), y| (l.min(y), h.max(y)));
     let (y_lo, y_hi) = (lo / 1.6, hi * 1.6);
     let runs = history.len() as f64;
+    let y_ticks = log_ticks(y_lo, y_hi);
+    let y_area = y_label_area_for(&y_ticks.iter().map(|v| compact(*v)).collect::<Vec<_>>());
     Some(render(
         360,
         &format!(
@@ -63,8 +65,10 @@ pub fn history_chart(history: &[HistoryEntry], target: f64) -> Option<String> {
         |root| {
             root.fill(&WHITE)?;
             let (plot_area, legend_area) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
-            let mut chart = chart_builder(&plot_area, 64)
-                .build_cartesian_2d(0.5..runs + 0.5, (y_lo..y_hi).log_scale())?;
+            let mut chart = chart_builder(&plot_area, y_area).build_cartesian_2d(
+                0.5..runs + 0.5,
+                (y_lo..y_hi).log_scale().with_key_points(y_ticks.clone()),
+            )?;
             chart
                 .configure_mesh()
                 .x_desc("run (oldest first)")
@@ -72,7 +76,6 @@ pub fn history_chart(history: &[HistoryEntry], target: f64) -> Option<String> {
                 .axis_desc_style(("sans-serif", 14).into_font().color(&INK))
                 .label_style(("sans-serif", 13).into_font().color(&INK))
                 .x_labels(history.len().min(12) + 1)
-                .y_labels(6)
                 .x_label_formatter(&|v| {
                     if (v.fract()).abs() < 1e-9 && *v >= 1.0 {
                         format!("{v:.0}")

@@ -50,6 +50,127 @@ const FAMILY_COLOURS: [RGBColor; 7] = [
     RGBColor(0x7a, 0x5c, 0x44),
 ];
 
+/// The series palette for charts of many models: eight colours of our own, picked to differ in
+/// hue and in lightness (so neighbours stay apart in greyscale), each series also getting its
+/// own marker and dash pattern; the (colour, marker, dash) triple repeats only after 120
+/// series.
+const SERIES_COLOURS: [RGBColor; 8] = [
+    RGBColor(0x1b, 0x4f, 0x8c), // deep blue
+    RGBColor(0xd9, 0x7a, 0x1c), // amber
+    RGBColor(0x2a, 0x8a, 0x4a), // green
+    RGBColor(0x9c, 0x2f, 0x5a), // wine
+    RGBColor(0x5b, 0xa8, 0xd6), // sky (light)
+    RGBColor(0x4a, 0x3a, 0x2c), // umber (dark)
+    RGBColor(0xb3, 0x9d, 0xdb), // lilac (light)
+    RGBColor(0x7a, 0x86, 0x14), // olive
+];
+
+/// A marker shape of a series.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Marker {
+    Circle,
+    Square,
+    Triangle,
+    Diamond,
+    Cross,
+}
+
+const MARKERS: [Marker; 5] = [
+    Marker::Circle,
+    Marker::Square,
+    Marker::Triangle,
+    Marker::Diamond,
+    Marker::Cross,
+];
+
+/// Dash patterns (dash, gap in pixels); `None` is a solid line.
+const DASHES: [Option<(u32, u32)>; 3] = [None, Some((8, 4)), Some((2, 3))];
+
+/// How the `i`-th series of a chart is drawn: colour, marker and dash.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(crate) struct SeriesStyle {
+    pub colour: RGBColor,
+    pub marker: Marker,
+    pub dash: Option<(u32, u32)>,
+}
+
+pub(crate) fn series_style(i: usize) -> SeriesStyle {
+    SeriesStyle {
+        colour: SERIES_COLOURS[i % SERIES_COLOURS.len()],
+        marker: MARKERS[i % MARKERS.len()],
+        dash: DASHES[i % DASHES.len()],
+    }
+}
+
+/// Draws a series marker of `size` pixels (half-width) at a pixel position.
+fn draw_marker<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    marker: Marker,
+    (x, y): (i32, i32),
+    size: i32,
+    colour: RGBColor,
+) -> Result<(), DrawingAreaErrorKind<DB::ErrorType>> {
+    let fill = colour.filled();
+    match marker {
+        Marker::Circle => area.draw(&Circle::new((x, y), size, fill)),
+        Marker::Square => area.draw(&Rectangle::new(
+            [(x - size + 1, y - size + 1), (x + size - 1, y + size - 1)],
+            fill,
+        )),
+        Marker::Triangle => area.draw(&Polygon::new(
+            vec![
+                (x, y - size - 1),
+                (x - size, y + size - 1),
+                (x + size, y + size - 1),
+            ],
+            fill,
+        )),
+        Marker::Diamond => area.draw(&Polygon::new(
+            vec![
+                (x, y - size - 1),
+                (x + size, y),
+                (x, y + size + 1),
+                (x - size, y),
+            ],
+            fill,
+        )),
+        Marker::Cross => {
+            area.draw(&PathElement::new(
+                vec![(x - size, y - size), (x + size, y + size)],
+                colour.stroke_width(2),
+            ))?;
+            area.draw(&PathElement::new(
+                vec![(x - size, y + size), (x + size, y - size)],
+                colour.stroke_width(2),
+            ))
+        }
+    }
+}
+
+/// Estimated width in pixels of `text` in a sans-serif font of `size` pixels: 0.6 em per
+/// character (a generous average for sans-serif digits and letters; common practice).
+pub(crate) fn text_width(text: &str, size: u32) -> u32 {
+    (text.chars().count() as f64 * 0.6 * size as f64).ceil() as u32
+}
+
+/// `text` cut with "…" to fit `width` pixels at `size` px (see [`text_width`]).
+fn fit_text(text: &str, width: u32, size: u32) -> String {
+    if text_width(text, size) <= width {
+        return text.to_string();
+    }
+    let keep = (width as f64 / (0.6 * size as f64)).floor() as usize;
+    let mut cut: String = text.chars().take(keep.saturating_sub(1)).collect();
+    cut.push('…');
+    cut
+}
+
+/// Width of a y label area holding `labels` at 13 px and a rotated axis title at 14 px: the
+/// widest label, the title's line and padding.
+fn y_label_area_for(labels: &[String]) -> u32 {
+    let widest = labels.iter().map(|l| text_width(l, 13)).max().unwrap_or(0);
+    widest + 14 + 22
+}
+
 fn family_colour(f: Family) -> RGBColor {
     let i = Family::ALL.iter().position(|g| *g == f).unwrap_or(0);
     FAMILY_COLOURS[i % FAMILY_COLOURS.len()]
@@ -67,8 +188,12 @@ pub fn param_vector(fit: &FitResult) -> Option<Vec<f64>> {
         .collect()
 }
 
-/// Compact axis label for a sample count: 500, 2k, 15k, 1.5M.
+/// Compact axis label for a sample count: 500, 2k, 15k, 1.5M; e-notation from 10¹² ("3e14").
 fn compact(n: f64) -> String {
+    if n >= 1e12 {
+        let s = format!("{n:.0e}");
+        return s.replace("e+", "e");
+    }
     let (v, suffix) = if n >= 1e9 {
         (n / 1e9, "G")
     } else if n >= 1e6 {
@@ -97,6 +222,9 @@ fn log_ticks(lo: f64, hi: f64) -> Vec<f64> {
             .collect()
     };
     let mut ticks = within(&[1.0, 2.0, 5.0]);
+    if ticks.len() < 3 {
+        ticks = within(&[1.0, 1.5, 2.0, 3.0, 5.0, 7.0]);
+    }
     if ticks.len() > 10 {
         ticks = within(&[1.0]);
     }
@@ -121,6 +249,8 @@ enum Swatch {
         radius: u32,
     },
     Band(RGBColor),
+    /// A series: its line (solid or dashed) with its marker in the middle.
+    Series(SeriesStyle),
 }
 
 struct LegendItem {
@@ -241,6 +371,21 @@ fn draw_legend(area: &DrawingArea<SVGBackend<'_>, Shift>, items: &[LegendItem]) 
                     area.draw(&Circle::new((mid, y), radius, colour.stroke_width(2)))?;
                 }
             }
+            Swatch::Series(st) => {
+                match st.dash {
+                    Some((d, g)) => area.draw(&DashedPathElement::new(
+                        vec![(x0, y), (x1, y)],
+                        d,
+                        g,
+                        st.colour.stroke_width(2),
+                    ))?,
+                    None => area.draw(&PathElement::new(
+                        vec![(x0, y), (x1, y)],
+                        st.colour.stroke_width(2),
+                    ))?,
+                }
+                draw_marker(area, st.marker, (mid, y), 4, st.colour)?;
+            }
             Swatch::Band(band) => {
                 area.draw(&Rectangle::new(
                     [(mid - 5, y - 8), (mid + 5, y + 8)],
@@ -249,7 +394,7 @@ fn draw_legend(area: &DrawingArea<SVGBackend<'_>, Shift>, items: &[LegendItem]) 
             }
         }
         area.draw(&Text::new(
-            it.text.clone(),
+            fit_text(&it.text, LEGEND_WIDTH - tx as u32 - 6, 13),
             (tx, y),
             font.clone().pos(Pos::new(HPos::Left, VPos::Center)),
         ))?;
@@ -274,6 +419,168 @@ mod tests {
     fn log_ticks_by_hand() {
         assert_eq!(log_ticks(600.0, 30000.0), [1e3, 2e3, 5e3, 1e4, 2e4]);
         assert_eq!(log_ticks(1.0, 1e6), [1.0, 10.0, 100.0, 1e3, 1e4, 1e5, 1e6]);
+        assert_eq!(log_ticks(8.5e4, 4.2e5), [1e5, 1.5e5, 2e5, 3e5]);
+    }
+
+    /// A `<text>` element of a chart: anchor point, anchor, font size, rotation, content.
+    #[derive(Debug)]
+    struct TextBox {
+        x: f64,
+        y: f64,
+        anchor: String,
+        size: f64,
+        rotated: bool,
+        text: String,
+    }
+
+    impl TextBox {
+        /// Horizontal extent by the character-width estimate ([`text_width`]).
+        fn span(&self) -> (f64, f64) {
+            let w = text_width(&self.text, self.size as u32) as f64;
+            match self.anchor.as_str() {
+                "end" => (self.x - w, self.x),
+                "middle" => (self.x - w / 2.0, self.x + w / 2.0),
+                _ => (self.x, self.x + w),
+            }
+        }
+    }
+
+    fn attr(tag: &str, name: &str) -> Option<String> {
+        let at = tag.find(&format!(" {name}=\""))? + name.len() + 3;
+        Some(tag[at..at + tag[at..].find('"')?].to_string())
+    }
+
+    /// Every `<text>` element of an SVG string.
+    fn texts(svg: &str) -> Vec<TextBox> {
+        svg.match_indices("<text")
+            .filter_map(|(i, _)| {
+                let close = i + svg[i..].find('>')?;
+                let tag = &svg[i..close];
+                let end = close + svg[close..].find("</text>")?;
+                Some(TextBox {
+                    x: attr(tag, "x")?.parse().ok()?,
+                    y: attr(tag, "y")?.parse().ok()?,
+                    anchor: attr(tag, "text-anchor").unwrap_or_else(|| "start".into()),
+                    size: attr(tag, "font-size")
+                        .and_then(|v| v.trim_end_matches("px").parse().ok())
+                        .unwrap_or(12.0),
+                    rotated: tag.contains("rotate("),
+                    text: svg[close + 1..end]
+                        .replace("&amp;", "&")
+                        .replace("&lt;", "<")
+                        .replace("&gt;", ">"),
+                })
+            })
+            .collect()
+    }
+
+    /// No label of a chart is clipped or runs into the rotated y-axis title: every horizontal
+    /// text lies within the chart's width, and every y tick label (right-aligned, left of the
+    /// plot) starts to the right of the title's line.
+    fn assert_labels_fit(svg: &str) {
+        let boxes = texts(svg);
+        assert!(!boxes.is_empty(), "no text in {svg}");
+        let title = boxes.iter().find(|b| b.rotated);
+        for b in boxes.iter().filter(|b| !b.rotated) {
+            let (l, r) = b.span();
+            assert!(
+                l >= 0.0 && r <= WIDTH as f64 + 0.5,
+                "label {:?} spans {l}..{r}, outside 0..{WIDTH}",
+                b.text
+            );
+            if let (Some(t), "end") = (title, b.anchor.as_str()) {
+                if b.x < 120.0 {
+                    // The rotated title's glyphs occupy about one font size right of its x.
+                    assert!(
+                        l > t.x + t.size * 0.3,
+                        "tick label {:?} ({l}..{r}) overlaps the axis title at x = {}",
+                        b.text,
+                        t.x
+                    );
+                }
+            }
+        }
+        let _ = boxes.iter().map(|b| b.y).sum::<f64>();
+    }
+
+    /// The fixture's document with a campaign cost model, so it has a cost chart.
+    fn doc_with_campaign() -> crate::study::results::PlanDocument {
+        let mut doc = crate::report::fixtures::fixture().document;
+        doc.campaign = Some(
+            crate::cost::CostInputs {
+                core_hours_per_time_unit: Some(2400.0),
+                runs: Some(2),
+                spin_up_per_run: 20.0,
+                ..crate::cost::CostInputs::default()
+            }
+            .campaign(8, 0.01)
+            .unwrap(),
+        );
+        doc
+    }
+
+    #[test]
+    fn chart_labels_are_not_clipped() {
+        let doc = doc_with_campaign();
+        let cost = cost_chart(&doc).expect("a cost chart");
+        assert_labels_fit(&cost.svg);
+        for m in &doc.models {
+            assert_labels_fit(&learning_curve(&doc, m));
+            assert_labels_fit(&backtest_chart(m));
+        }
+    }
+
+    /// An estimate of 10²¹ core-hours beyond the trust range does not stretch the axis: it is
+    /// an arrow with its value, the axis stops near the estimates within the range, and every
+    /// model is drawn or named with the reason.
+    #[test]
+    fn cost_chart_keeps_to_the_trust_range() {
+        use crate::study::results::EstimateStatus;
+        let mut doc = doc_with_campaign();
+        let campaign = doc.campaign.clone().expect("fixture has a campaign");
+        let normal = cost_chart(&doc).expect("a cost chart");
+        let e = &mut doc.models[0].estimates[0];
+        let huge = 1e21 / campaign.budget(1.0).core_hours;
+        e.status = EstimateStatus::Extrapolated;
+        e.samples = Some(huge);
+        e.budget = Some(campaign.budget(huge));
+        e.budget_high = Some(campaign.budget(10.0 * huge));
+        let chart = cost_chart(&doc).expect("a cost chart");
+        assert_labels_fit(&chart.svg);
+        assert!(
+            chart.svg.contains("↑"),
+            "an arrow for the estimate beyond the chart"
+        );
+        let ticks: Vec<String> = texts(&chart.svg)
+            .into_iter()
+            .filter(|b| b.anchor == "end" && !b.rotated)
+            .map(|b| b.text)
+            .collect();
+        assert!(
+            ticks.iter().all(|t| !t.contains("e2") && !t.contains("e1")),
+            "{ticks:?}"
+        );
+        let drawn =
+            |svg: &str, m: &crate::study::results::ModelResult| svg.contains(&escape(&m.name));
+        for m in &doc.models {
+            assert!(
+                drawn(&chart.svg, m) || chart.omitted.iter().any(|(n, _)| n == &m.name),
+                "{} neither drawn nor listed",
+                m.name
+            );
+        }
+        let _ = normal;
+    }
+
+    #[test]
+    fn series_styles_differ_for_twelve_series() {
+        let styles: Vec<SeriesStyle> = (0..12).map(series_style).collect();
+        for (i, a) in styles.iter().enumerate() {
+            for b in &styles[i + 1..] {
+                // Distinct in greyscale: marker or dash differs, not only the colour.
+                assert!(a.marker != b.marker || a.dash != b.dash, "{a:?} {b:?}");
+            }
+        }
     }
 
     #[test]
@@ -282,5 +589,6 @@ mod tests {
         assert_eq!(compact(2000.0), "2k");
         assert_eq!(compact(1500.0), "1.5k");
         assert_eq!(compact(3e6), "3M");
+        assert_eq!(compact(1e21), "1e21");
     }
 }

@@ -1,4 +1,4 @@
-//! Proposal-ready tables (Markdown, LaTeX with booktabs, CSV): the tables of runs per model and
+//! Proposal-ready tables (Markdown, LaTeX with booktabs and tabularx, CSV): the tables of runs per model and
 //! target (`runs.rs`) and, for a study with a new regime, the transfer tables (`transfer.rs`).
 //!
 //! Each exporter is a pure function from [`RunTable`]s (or the [`TransferResult`]) to bytes;
@@ -8,11 +8,22 @@
 //! bootstrap curves reach the target. Numbers: three significant digits for hours and service
 //! units, whole numbers with thousands separators for counts, SI bytes (1 TB = 10¹² B).
 //!
+//! # LaTeX
+//! Each table is a `table` float with a caption and a label (`tab:runs:<model>:<target>`,
+//! `tab:transfer`) holding a booktabs `tabularx` as wide as the text, so it fits any page:
+//! the tables of runs put one quantity per row and one line of the campaign (production runs,
+//! contingency, total) per column. Needs `\usepackage{booktabs}` and `\usepackage{tabularx}`;
+//! the test `tests/latex.rs` compiles the quick demo's tables with pdflatex and refuses any
+//! overfull box.
+//!
 //! # `runs.csv`
-//! One row per table line (production runs, contingency, total) per model and target; interval
-//! ends in `_low`/`_high` columns (empty when unknown or unbounded), floats as the shortest
-//! decimal that reads back to the same value, empty cells where a figure does not apply. The
-//! campaign wall-clock and the scratch/archive storage are on the `total` row.
+//! One row per table line (production runs, contingency, total) per model and target; column
+//! names as in the other tables, in kebab-case (`spin-up-per-run`, `core-hours`, …); one value
+//! per cell, interval ends in `-low`/`-high` columns (empty when unknown or unbounded), n* and
+//! its interval in `samples`, `samples-low`, `samples-high`. Every figure is the one the other
+//! tables print (the shared formatter: three significant digits, whole samples), without
+//! thousands separators; empty cells where a figure does not apply. The campaign wall-clock and
+//! the scratch/archive storage are on the `total` row.
 //!
 //! # Transfer tables
 //! For a study with a new regime, [`transfer_table_files`] lists `tables/transfer.md`,
@@ -20,9 +31,10 @@
 //! the base and from scratch (new-regime samples, with the study's interval), the samples
 //! saved and the device-hours saved in the new regime's cost model (conservative intervals).
 //! `transfer.csv` has one row per model and target: the model's own-regime skill, zero-shot
-//! skill and gap; each status as in `plan.json` (`reachable`, `unreachable`, …); each figure
-//! with `_low`/`_high` columns (empty when unknown or unbounded, all three empty without a
-//! figure); the device-hours unit; the note.
+//! skill and gap; each status as in `budget.json` (`reachable`, `unreachable`, …); each figure
+//! with `-low`/`-high` columns (empty when unknown or unbounded, all three empty without a
+//! figure), figures as the other tables print them; the saving in a column named after its
+//! unit (`core-hours-saved`); the note. Column names are kebab-case.
 
 mod runs;
 mod transfer;

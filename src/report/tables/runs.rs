@@ -4,7 +4,7 @@
 
 use super::{count, latex_escape, ranged, Flavour};
 use crate::cost::{Ranged, RowKind, RunRow, RunTable};
-use crate::report::format::{bytes, grid_points, sig3, thousands};
+use crate::report::format::{bytes, grid_points, samples, short, sig3, thousands};
 use std::fmt::Write;
 
 /// File names of the run tables, inside `tables/`.
@@ -135,13 +135,13 @@ fn heading(t: &RunTable) -> String {
 fn samples_line(t: &RunTable, flavour: Flavour) -> String {
     format!(
         "n* = {} samples ({}% interval {}{}{})",
-        count(t.samples.value),
+        samples(t.samples.value),
         (t.confidence * 100.0).round(),
-        t.samples.low.map(count).unwrap_or_else(|| "?".into()),
+        t.samples.low.map(samples).unwrap_or_else(|| "?".into()),
         flavour.dash(),
         t.samples
             .high
-            .map(count)
+            .map(samples)
             .unwrap_or_else(|| "unbounded".into()),
     )
 }
@@ -259,152 +259,178 @@ pub fn runs_html(tables: &[RunTable]) -> String {
     s
 }
 
-/// The run tables as LaTeX: one booktabs `tabular` per model and target (needs
-/// `\usepackage{booktabs}`), user text escaped.
+/// A LaTeX label key from free text: lowercase ASCII letters, digits, `.` and `-` only.
+pub(super) fn label_key(text: &str) -> String {
+    let mut key = String::new();
+    for c in text.chars() {
+        if c.is_ascii_alphanumeric() || c == '.' {
+            key.push(c.to_ascii_lowercase());
+        } else if !key.ends_with('-') {
+            key.push('-');
+        }
+    }
+    key.trim_matches('-').to_string()
+}
+
+/// The run tables as LaTeX: one `table` float per model and target with a caption (model,
+/// target, n* and its interval) and a label `tab:runs:<model>:<target>`, holding a booktabs
+/// `tabularx` as wide as the text: one row per quantity, one column per line of the campaign
+/// (production runs, contingency, total), so it fits any text width; the notes follow in small
+/// type. Needs `\usepackage{booktabs}` and `\usepackage{tabularx}`; user text escaped.
 pub fn runs_latex(tables: &[RunTable]) -> Vec<u8> {
     let f = Flavour::Latex;
     let mut s = String::from(
         "% Simulation campaign: runs per model and target (closure-budget).\n\
-         % Needs \\usepackage{booktabs}.\n",
+         % Needs \\usepackage{booktabs} and \\usepackage{tabularx}.\n",
     );
     for t in tables {
         let cols = columns(t, f);
         let _ = write!(
             s,
-            "\n\\noindent\\textbf{{{}}}: {}\\par\\smallskip\n",
+            "\n\\begin{{table}}[htbp]\n\\centering\\small\n\\caption{{Simulation campaign for \
+             {}: {}.}}\n\\label{{tab:runs:{}:{}}}\n",
             latex_escape(&heading(t)),
-            latex_escape(&samples_line(t, Flavour::Latex)).replace("n*", "$n^*$")
+            latex_escape(&samples_line(t, Flavour::Latex)).replace("n*", "$n^*$"),
+            label_key(&t.model),
+            label_key(&short(t.target)),
         );
-        let spec: String = std::iter::once('l')
-            .chain(std::iter::repeat_n('r', cols.len() - 1))
+        let spec = format!(
+            "@{{}}>{{\\raggedright\\arraybackslash}}p{{0.24\\linewidth}}{}@{{}}",
+            ">{\\raggedleft\\arraybackslash}X".repeat(t.rows.len())
+        );
+        let _ = writeln!(s, "\\begin{{tabularx}}{{\\linewidth}}{{{spec}}}\n\\toprule");
+        let header: Vec<String> = std::iter::once(String::new())
+            .chain(t.rows.iter().map(|r| latex_escape(&r.case)))
             .collect();
-        let _ = writeln!(s, "\\begin{{tabular}}{{@{{}}{spec}@{{}}}}\n\\toprule");
-        let header: Vec<String> = cols.iter().map(|(h, _)| latex_escape(h)).collect();
         let _ = writeln!(s, "{} \\\\\n\\midrule", header.join(" & "));
-        for row in &t.rows {
-            if row.kind == RowKind::Total {
-                s.push_str("\\midrule\n");
+        // One row per quantity (the columns of the other formats, less the case).
+        for (name, cell) in cols.iter().skip(1) {
+            // A number and its unit never part at a line break ("98.4~kB").
+            let cells: Vec<String> = t
+                .rows
+                .iter()
+                .map(|r| {
+                    [" B", " kB", " MB", " GB", " TB", " PB", " EB"]
+                        .iter()
+                        .fold(cell(r), |c, u| c.replace(u, &u.replace(' ', "~")))
+                })
+                .collect();
+            if cells.iter().all(|c| c.is_empty()) {
+                continue;
             }
-            let cells: Vec<String> = cols.iter().map(|(_, c)| c(row)).collect();
-            let _ = writeln!(s, "{} \\\\", cells.join(" & "));
+            let _ = writeln!(s, "{} & {} \\\\", latex_escape(name), cells.join(" & "));
         }
-        s.push_str("\\bottomrule\n\\end{tabular}\n\\par\\smallskip{\\footnotesize\n");
+        s.push_str("\\bottomrule\n\\end{tabularx}\n\\par\\smallskip{\\footnotesize\n");
         for line in footer_lines(t, f) {
             let _ = writeln!(s, "{}\\par", latex_escape(&line));
         }
-        s.push_str("}\n");
+        s.push_str("}\n\\end{table}\n");
     }
     s.into_bytes()
 }
 
-const CSV_HEADER: [&str; 44] = [
-    "model",
-    "target",
-    "confidence",
-    "case",
-    "runs",
-    "runs_low",
-    "runs_high",
-    "grid_points",
-    "spin_up_time_per_run",
-    "spin_up_steps_per_run",
-    "sampling_time_per_run",
-    "sampling_time_per_run_low",
-    "sampling_time_per_run_high",
-    "sampling_steps_per_run",
-    "sampling_steps_per_run_low",
-    "sampling_steps_per_run_high",
-    "nodes_per_run",
-    "wall_hours_per_run",
-    "wall_hours_per_run_low",
-    "wall_hours_per_run_high",
-    "device_hours_unit",
-    "device_hours",
-    "device_hours_low",
-    "device_hours_high",
-    "node_hours",
-    "node_hours_low",
-    "node_hours_high",
-    "charge_unit",
-    "charge",
-    "charge_low",
-    "charge_high",
-    "storage_bytes",
-    "storage_bytes_low",
-    "storage_bytes_high",
-    "campaign_wall_hours_parallel",
-    "campaign_wall_hours_parallel_low",
-    "campaign_wall_hours_parallel_high",
-    "campaign_wall_hours_serial",
-    "campaign_wall_hours_serial_low",
-    "campaign_wall_hours_serial_high",
-    "scratch_bytes",
-    "archive_bytes",
-    "samples",
-    "samples_interval",
-];
+/// The `runs.csv` columns: names as in the HTML and Markdown tables, in kebab-case; one
+/// value per cell; interval ends in `-low`/`-high` columns. `hours` is the device's hours
+/// column ("core-hours" or "GPU-hours").
+fn csv_header(hours: &str) -> Vec<String> {
+    let mut h: Vec<String> = ["model", "target", "confidence", "case"]
+        .map(String::from)
+        .to_vec();
+    let three = |h: &mut Vec<String>, name: &str| {
+        h.push(name.to_string());
+        h.push(format!("{name}-low"));
+        h.push(format!("{name}-high"));
+    };
+    three(&mut h, "runs");
+    h.push("grid-points".into());
+    h.push("spin-up-per-run".into());
+    h.push("spin-up-steps-per-run".into());
+    three(&mut h, "sampling-per-run");
+    three(&mut h, "sampling-steps-per-run");
+    h.push("nodes-per-run".into());
+    three(&mut h, "wall-hours-per-run");
+    three(&mut h, &hours.to_lowercase());
+    three(&mut h, "node-hours");
+    h.push("charge-unit".into());
+    three(&mut h, "charge");
+    three(&mut h, "storage-bytes");
+    three(&mut h, "campaign-wall-hours-parallel");
+    three(&mut h, "campaign-wall-hours-serial");
+    h.push("scratch-bytes".into());
+    h.push("archive-bytes".into());
+    three(&mut h, "samples");
+    h
+}
 
-/// The run tables as CSV (see the module docs for the columns).
+/// The run tables as CSV (see the module docs for the columns). Every figure is the one the
+/// other tables print (the shared formatter's rounding), without thousands separators: three
+/// significant digits, whole samples, runs, steps and bytes.
 pub fn runs_csv(tables: &[RunTable]) -> Vec<u8> {
-    let num = |x: Option<f64>| x.map(|v| v.to_string()).unwrap_or_default();
-    let three = |r: Option<Ranged>| -> [String; 3] {
+    use crate::report::format::{csv_samples, csv_sig};
+    let fig = |x: f64| csv_sig(x, 3);
+    let whole = |x: f64| {
+        if x.is_finite() {
+            format!("{}", x.round() as i64)
+        } else {
+            String::new()
+        }
+    };
+    let three = |r: Option<Ranged>, f: &dyn Fn(f64) -> String| -> [String; 3] {
         match r {
-            Some(r) => [r.value.to_string(), num(r.low), num(r.high)],
+            Some(r) => [
+                f(r.value),
+                r.low.map(f).unwrap_or_default(),
+                r.high.map(f).unwrap_or_default(),
+            ],
             None => Default::default(),
         }
     };
+    let hours = tables
+        .first()
+        .map_or("core-hours", |t| t.device.hours_label());
     let mut w = ::csv::Writer::from_writer(Vec::new());
     // Writing to a Vec cannot fail; the csv crate quotes user text as needed.
-    w.write_record(CSV_HEADER).expect("csv header");
+    w.write_record(csv_header(hours)).expect("csv header");
     for t in tables {
         for row in &t.rows {
             let total = row.kind == RowKind::Total;
-            let on_total = |r: Option<Ranged>| three(if total { r } else { None });
+            let on_total = |r: Option<Ranged>| three(if total { r } else { None }, &fig);
             let mut rec: Vec<String> = vec![
                 t.model.clone(),
                 t.target.to_string(),
                 t.confidence.to_string(),
                 row.case.clone(),
             ];
-            rec.extend(three(row.runs));
-            rec.push(num(row.grid_points));
-            rec.push(num(row.spin_up_time));
-            rec.push(num(row.spin_up_steps));
-            rec.extend(three(row.sampling_time));
-            rec.extend(three(row.sampling_steps));
+            rec.extend(three(row.runs, &whole));
+            rec.push(row.grid_points.map(whole).unwrap_or_default());
+            rec.push(row.spin_up_time.map(fig).unwrap_or_default());
+            rec.push(row.spin_up_steps.map(fig).unwrap_or_default());
+            rec.extend(three(row.sampling_time, &fig));
+            rec.extend(three(row.sampling_steps, &fig));
             rec.push(row.nodes_per_run.map(|n| n.to_string()).unwrap_or_default());
-            rec.extend(three(row.wall_hours));
-            rec.push(t.device.hours_label().into());
-            rec.extend(three(Some(row.device_hours)));
-            rec.extend(three(row.node_hours));
+            rec.extend(three(row.wall_hours, &fig));
+            rec.extend(three(Some(row.device_hours), &fig));
+            rec.extend(three(row.node_hours, &fig));
             rec.push(if row.charge.is_some() {
                 t.charge_unit.clone().unwrap_or_default()
             } else {
                 String::new()
             });
-            rec.extend(three(row.charge));
-            rec.extend(three(row.storage_bytes));
+            rec.extend(three(row.charge, &fig));
+            rec.extend(three(row.storage_bytes, &fig));
             rec.extend(on_total(t.wall_parallel));
             rec.extend(on_total(t.wall_serial));
             rec.push(if total {
-                t.scratch_bytes.value.to_string()
+                fig(t.scratch_bytes.value)
             } else {
                 String::new()
             });
             rec.push(if total {
-                t.archive_bytes.value.to_string()
+                fig(t.archive_bytes.value)
             } else {
                 String::new()
             });
-            rec.push(t.samples.value.to_string());
-            rec.push(format!(
-                "{}..{}",
-                num(t.samples.low),
-                t.samples
-                    .high
-                    .map(|v| v.to_string())
-                    .unwrap_or_else(|| "unbounded".into())
-            ));
+            rec.extend(three(Some(t.samples), &csv_samples));
             w.write_record(&rec).expect("csv row");
         }
     }
@@ -527,7 +553,7 @@ mod tests {
             "{tex}"
         );
         assert!(
-            tex.contains("total & ") && tex.contains("13,200 [9,900--unbounded]"),
+            tex.contains("& total \\\\") && tex.contains("13,200 [9,900--unbounded]"),
             "{tex}"
         );
         assert!(
@@ -535,18 +561,17 @@ mod tests {
             "{tex}"
         );
         assert!(tex.contains("90\\% interval"), "{tex}");
-        // Every row has as many cells as the column spec.
-        let spec_cols = tex
-            .lines()
-            .find(|l| l.starts_with("\\begin{tabular}"))
-            .map(|l| {
-                l.trim_start_matches("\\begin{tabular}{@{}")
-                    .trim_end_matches("@{}}")
-                    .len()
-            })
-            .unwrap();
+        assert!(
+            tex.contains("\\begin{table}[htbp]")
+                && tex.contains("\\caption{Simulation campaign for esn\\_500")
+                && tex.contains("\\label{tab:runs:esn-500-co-100:0.9}")
+                && tex.contains("\\begin{tabularx}{\\linewidth}")
+                && tex.contains("\\end{table}"),
+            "{tex}"
+        );
+        // Every row has a cell per line of the campaign, after the quantity's name.
         for l in tex.lines().filter(|l| l.ends_with("\\\\")) {
-            assert_eq!(l.matches(" & ").count() + 1, spec_cols, "{l}");
+            assert_eq!(l.matches(" & ").count(), 3, "{l}");
         }
         assert_eq!(
             latex_escape("a&b%c_d$e#f{g}h~i^j\\"),
@@ -559,7 +584,12 @@ mod tests {
         let bytes = runs_csv(&[table()]);
         let mut r = ::csv::Reader::from_reader(bytes.as_slice());
         let header: Vec<String> = r.headers().unwrap().iter().map(String::from).collect();
-        assert_eq!(header, CSV_HEADER);
+        assert_eq!(header, csv_header("core-hours"));
+        assert!(
+            header.iter().all(|h| !h.contains('_')),
+            "kebab-case: {header:?}"
+        );
+        assert!(header.iter().all(|h| !h.contains("device")), "{header:?}");
         let rows: Vec<::csv::StringRecord> = r.records().map(|x| x.unwrap()).collect();
         assert_eq!(rows.len(), 3);
         let col = |name: &str| header.iter().position(|h| h == name).unwrap();
@@ -568,15 +598,22 @@ mod tests {
             &rows[1][col("case")],
             "contingency (×1.1: failed and test runs)"
         );
-        assert_eq!(&rows[1][col("device_hours")], "1200");
-        assert_eq!(&rows[1][col("device_hours_high")], "1800");
+        assert_eq!(&rows[1][col("core-hours")], "1200");
+        assert_eq!(&rows[1][col("core-hours-high")], "1800");
         assert_eq!(&rows[2][col("case")], "total");
-        assert_eq!(&rows[2][col("device_hours")], "13200");
-        assert_eq!(&rows[2][col("device_hours_low")], "9900");
-        assert_eq!(&rows[2][col("device_hours_high")], "", "unbounded is empty");
-        assert_eq!(&rows[2][col("campaign_wall_hours_serial")], "120");
-        assert_eq!(&rows[0][col("campaign_wall_hours_serial")], "");
-        assert_eq!(&rows[0][col("samples_interval")], "7500..unbounded");
+        assert_eq!(&rows[2][col("core-hours")], "13200");
+        assert_eq!(&rows[2][col("core-hours-low")], "9900");
+        assert_eq!(&rows[2][col("core-hours-high")], "", "unbounded is empty");
+        assert_eq!(&rows[2][col("campaign-wall-hours-serial")], "120");
+        assert_eq!(&rows[0][col("campaign-wall-hours-serial")], "");
+        // One value per cell: samples and their interval ends in their own whole-number cells.
+        assert_eq!(&rows[0][col("samples")], "10000");
+        assert_eq!(&rows[0][col("samples-low")], "7500");
+        assert_eq!(&rows[0][col("samples-high")], "");
+        assert!(rows
+            .iter()
+            .flat_map(|r| r.iter().skip(4))
+            .all(|cell| !cell.contains("..") && !cell.contains(' ')));
     }
 
     #[test]

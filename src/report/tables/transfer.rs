@@ -158,20 +158,28 @@ pub fn transfer_markdown(t: &TransferResult, confidence: f64) -> Vec<u8> {
     s.into_bytes()
 }
 
-/// The transfer table as LaTeX: one booktabs `tabular` (needs `\usepackage{booktabs}`), user
-/// text escaped.
+/// The transfer table as LaTeX: a `table` float with a caption and the label `tab:transfer`,
+/// holding a booktabs `tabularx` as wide as the text (the figure columns wrap), then the note in
+/// small type. Needs `\usepackage{booktabs}` and `\usepackage{tabularx}`; user text escaped.
 pub fn transfer_latex(t: &TransferResult, confidence: f64) -> Vec<u8> {
     let f = Flavour::Latex;
     let (header, rows) = transfer_cells(t, f);
     let kstar = |s: String| s.replace("k*", "$k^*$");
     let mut s = String::from(
         "% Transfer to a new regime: fine-tuning against training from scratch (closure-budget).\n\
-         % Needs \\usepackage{booktabs}.\n",
+         % Needs \\usepackage{booktabs} and \\usepackage{tabularx}.\n",
     );
-    let spec: String = std::iter::once('l')
-        .chain(std::iter::repeat_n('r', header.len() - 1))
-        .collect();
-    let _ = writeln!(s, "\\begin{{tabular}}{{@{{}}{spec}@{{}}}}\n\\toprule");
+    let spec = format!(
+        "@{{}}>{{\\raggedright\\arraybackslash}}p{{0.16\\linewidth}}r{}@{{}}",
+        ">{\\raggedleft\\arraybackslash}X".repeat(header.len() - 2)
+    );
+    let _ = writeln!(
+        s,
+        "\\begin{{table}}[htbp]\n\\centering\\small\n\\caption{{Transfer to a new regime: \
+         new-regime samples $k^*$ to reach each target, fine-tuned from the base model and \
+         trained from scratch, and what fine-tuning saves.}}\n\\label{{tab:transfer}}\n\
+         \\begin{{tabularx}}{{\\linewidth}}{{{spec}}}\n\\toprule"
+    );
     let header: Vec<String> = header.iter().map(|h| kstar(latex_escape(h))).collect();
     let _ = writeln!(s, "{} \\\\\n\\midrule", header.join(" & "));
     for row in rows {
@@ -179,44 +187,55 @@ pub fn transfer_latex(t: &TransferResult, confidence: f64) -> Vec<u8> {
     }
     let _ = writeln!(
         s,
-        "\\bottomrule\n\\end{{tabular}}\n\\par\\smallskip{{\\footnotesize\n{}\\par\n}}",
+        "\\bottomrule\n\\end{{tabularx}}\n\\par\\smallskip{{\\footnotesize\n{}\\par\n}}\n\\end{{table}}",
         kstar(latex_escape(&transfer_note(t, confidence, f)))
     );
     s.into_bytes()
 }
 
-const TRANSFER_CSV_HEADER: [&str; 23] = [
-    "model",
-    "kind",
-    "target",
-    "confidence",
-    "base_skill",
-    "zero_shot",
-    "gap",
-    "fine_tuned_status",
-    "fine_tuned_samples",
-    "fine_tuned_samples_low",
-    "fine_tuned_samples_high",
-    "scratch_status",
-    "scratch_samples",
-    "scratch_samples_low",
-    "scratch_samples_high",
-    "samples_saved",
-    "samples_saved_low",
-    "samples_saved_high",
-    "device_hours_unit",
-    "device_hours_saved",
-    "device_hours_saved_low",
-    "device_hours_saved_high",
-    "note",
-];
+/// The `transfer.csv` columns in kebab-case; `hours` names the saving's unit ("core-hours").
+fn transfer_csv_header(hours: &str) -> Vec<String> {
+    let mut h: Vec<String> = [
+        "model",
+        "kind",
+        "target",
+        "confidence",
+        "base-skill",
+        "zero-shot",
+        "gap",
+        "fine-tuned-status",
+        "fine-tuned-k",
+        "fine-tuned-k-low",
+        "fine-tuned-k-high",
+        "scratch-status",
+        "scratch-k",
+        "scratch-k-low",
+        "scratch-k-high",
+        "samples-saved",
+        "samples-saved-low",
+        "samples-saved-high",
+    ]
+    .map(String::from)
+    .to_vec();
+    let hours = hours.to_lowercase();
+    h.push(format!("{hours}-saved"));
+    h.push(format!("{hours}-saved-low"));
+    h.push(format!("{hours}-saved-high"));
+    h.push("note".into());
+    h
+}
 
 /// The transfer table as CSV (see the module docs for the columns).
 pub fn transfer_csv(t: &TransferResult, confidence: f64) -> Vec<u8> {
-    let num = |x: Option<f64>| x.map(|v| v.to_string()).unwrap_or_default();
-    let three = |r: Option<Ranged>| -> [String; 3] {
+    use crate::report::format::{csv_samples, csv_sig};
+    let fig = |x: f64| csv_sig(x, 3);
+    let three = |r: Option<Ranged>, f: &dyn Fn(f64) -> String| -> [String; 3] {
         match r {
-            Some(r) => [r.value.to_string(), num(r.low), num(r.high)],
+            Some(r) => [
+                f(r.value),
+                r.low.map(f).unwrap_or_default(),
+                r.high.map(f).unwrap_or_default(),
+            ],
             None => Default::default(),
         }
     };
@@ -232,7 +251,8 @@ pub fn transfer_csv(t: &TransferResult, confidence: f64) -> Vec<u8> {
         .map_or("core-hours", |c| c.device.hours_label());
     let mut w = ::csv::Writer::from_writer(Vec::new());
     // Writing to a Vec cannot fail; the csv crate quotes user text as needed.
-    w.write_record(TRANSFER_CSV_HEADER).expect("csv header");
+    w.write_record(transfer_csv_header(hours))
+        .expect("csv header");
     for l in transfer_lines(t) {
         let (m, s) = (l.model, l.saving);
         let mut rec: Vec<String> = vec![
@@ -240,21 +260,16 @@ pub fn transfer_csv(t: &TransferResult, confidence: f64) -> Vec<u8> {
             m.kind.clone(),
             s.target.to_string(),
             confidence.to_string(),
-            m.base_skill.to_string(),
-            m.zero_shot.to_string(),
-            m.gap.to_string(),
+            fig(m.base_skill),
+            fig(m.zero_shot),
+            fig(m.gap),
             status(s.fine_tuned_status),
         ];
-        rec.extend(three(l.fine_tuned));
+        rec.extend(three(l.fine_tuned, &csv_samples));
         rec.push(status(s.scratch_status));
-        rec.extend(three(l.scratch));
-        rec.extend(three(l.samples_saved));
-        rec.push(if l.hours_saved.is_some() {
-            hours.to_string()
-        } else {
-            String::new()
-        });
-        rec.extend(three(l.hours_saved));
+        rec.extend(three(l.scratch, &csv_samples));
+        rec.extend(three(l.samples_saved, &csv_samples));
+        rec.extend(three(l.hours_saved, &fig));
         rec.push(s.note.clone());
         w.write_record(&rec).expect("csv row");
     }
@@ -315,25 +330,21 @@ mod tests {
         let bytes = transfer_csv(t, 0.9);
         let mut r = ::csv::Reader::from_reader(bytes.as_slice());
         let header: Vec<String> = r.headers().unwrap().iter().map(String::from).collect();
-        assert_eq!(header, TRANSFER_CSV_HEADER);
+        assert_eq!(header, transfer_csv_header("core-hours"));
+        assert!(header.iter().all(|h| !h.contains('_')), "{header:?}");
         let rows: Vec<::csv::StringRecord> = r.records().map(|x| x.unwrap()).collect();
         assert_eq!(rows.len(), 4);
         let col = |name: &str| header.iter().position(|h| h == name).unwrap();
-        assert_eq!(&rows[0][col("fine_tuned_samples_high")], "2000");
-        assert_eq!(
-            &rows[0][col("scratch_samples_high")],
-            "",
-            "unbounded is empty"
-        );
-        assert_eq!(&rows[0][col("device_hours_unit")], "core-hours");
-        assert_eq!(&rows[0][col("device_hours_saved")], "340");
-        assert_eq!(&rows[1][col("fine_tuned_status")], "unreachable");
-        assert_eq!(&rows[1][col("device_hours_unit")], "", "no saving, no unit");
-        assert_eq!(&rows[2][col("fine_tuned_status")], "extrapolated");
+        assert_eq!(&rows[0][col("fine-tuned-k-high")], "2000");
+        assert_eq!(&rows[0][col("scratch-k-high")], "", "unbounded is empty");
+        assert_eq!(&rows[0][col("core-hours-saved")], "340");
+        assert_eq!(&rows[1][col("fine-tuned-status")], "unreachable");
+        assert_eq!(&rows[1][col("core-hours-saved")], "", "no saving");
+        assert_eq!(&rows[2][col("fine-tuned-status")], "extrapolated");
         assert_eq!(
             &rows[2][col("note")],
             "from scratch saturates at 2.1 <below>"
         );
-        assert_eq!(&rows[3][col("scratch_status")], "no-fit");
+        assert_eq!(&rows[3][col("scratch-status")], "no-fit");
     }
 }
