@@ -55,46 +55,12 @@ pub fn text_summary(doc: &PlanDocument) -> String {
         let selected = m.selected.map(|f| f.label()).unwrap_or("none");
         let _ = writeln!(s, "\nmodel {} ({}; curve: {selected})", m.name, m.kind);
         for e in &m.estimates {
-            match (e.status, &e.budget) {
-                (status, Some(b)) if status.has_budget() => {
-                    let _ = writeln!(
-                        s,
-                        "  target {:>6}: {}: {} samples ({level}% {}), {} time units, {} core-hours ({}), {}",
-                        sig3(e.target),
-                        status.label(),
-                        thousands(b.samples),
-                        range(e.samples_interval[0], e.samples_interval[1], &thousands),
-                        sig3(b.simulated_time),
-                        sig3(b.core_hours),
-                        range(
-                            e.budget_low.map(|b| b.core_hours),
-                            e.budget_high.map(|b| b.core_hours),
-                            &sig3
-                        ),
-                        bytes(b.storage_bytes)
-                    );
-                }
-                (status, _) if status.has_budget() => {
-                    let _ = writeln!(
-                        s,
-                        "  target {:>6}: {}: {} samples ({level}% {}); {}",
-                        sig3(e.target),
-                        status.label(),
-                        e.samples.map(thousands).unwrap_or_default(),
-                        range(e.samples_interval[0], e.samples_interval[1], &thousands),
-                        e.note
-                    );
-                }
-                _ => {
-                    let _ = writeln!(
-                        s,
-                        "  target {:>6}: {}: {}",
-                        sig3(e.target),
-                        e.status.label(),
-                        e.note
-                    );
-                }
-            }
+            let _ = writeln!(
+                s,
+                "  target {:>6}: {}",
+                sig3(e.target),
+                answer_line(e, level)
+            );
         }
     }
     if let Some(t) = &doc.transfer {
@@ -106,6 +72,57 @@ pub fn text_summary(doc: &PlanDocument) -> String {
     s
 }
 
+/// One target's answer after its label: the status, n* with its interval or the bound the
+/// status gives, the simulated time, core-hours with their interval and storage when priced,
+/// or the note.
+fn answer_line(e: &TargetEstimate, level: f64) -> String {
+    let hours = |b: &Option<crate::cost::Budget>| b.as_ref().map(|b| b.core_hours);
+    match (e.status, &e.budget) {
+        (status, Some(b)) if status.has_budget() => {
+            let (lo, hi) = (hours(&e.budget_low), hours(&e.budget_high));
+            let hours_range = match (lo, hi) {
+                (Some(l), Some(h)) if e.upper_beyond_data => {
+                    format!("{} to more than {}", sig3(l), sig3(h))
+                }
+                _ => range(lo, hi, &sig3),
+            };
+            format!(
+                "{}: {} samples ({level}% {}), {} time units, {} core-hours ({}), {}",
+                status.label(),
+                thousands(b.samples),
+                e.samples_range(thousands),
+                sig3(b.simulated_time),
+                sig3(b.core_hours),
+                hours_range,
+                bytes(b.storage_bytes)
+            )
+        }
+        (status, _) if status.has_budget() => format!(
+            "{}: {} samples ({level}% {}); {}",
+            status.label(),
+            e.samples.map(thousands).unwrap_or_default(),
+            e.samples_range(thousands),
+            e.note
+        ),
+        (EstimateStatus::AtSmallestSize | EstimateStatus::BeyondSupport, _) => {
+            let bound = match e.status {
+                EstimateStatus::AtSmallestSize => {
+                    hours(&e.budget_high).map(|h| format!(", at most {} core-hours", sig3(h)))
+                }
+                _ => hours(&e.budget_low).map(|h| format!(", more than {} core-hours", sig3(h))),
+            };
+            format!(
+                "{}: {} samples{}; {}",
+                e.status.label(),
+                e.samples_range(thousands),
+                bound.unwrap_or_default(),
+                e.note
+            )
+        }
+        _ => format!("{}: {}", e.status.label(), e.note),
+    }
+}
+
 /// One k*: "1,200 samples (90% 800–2,000)", with the status when it is not plainly reachable,
 /// or the status alone when it gives no sample count.
 fn k_star(e: Option<&TargetEstimate>, status: EstimateStatus, level: f64) -> String {
@@ -114,9 +131,9 @@ fn k_star(e: Option<&TargetEstimate>, status: EstimateStatus, level: f64) -> Str
             let mut k = format!(
                 "{} samples ({level}% {})",
                 thousands(n),
-                range(e.samples_interval[0], e.samples_interval[1], &thousands)
+                e.samples_range(thousands)
             );
-            if status != EstimateStatus::Reachable {
+            if status != EstimateStatus::ReachedInData {
                 let _ = write!(k, ", {}", status.label());
             }
             k
@@ -357,7 +374,7 @@ mod tests {
         assert!(
             block.contains(
                 "  k* for   2.50: fine-tuned 1,200 samples (90% 800–2,000); from scratch 5,000 \
-                 samples (90% 3,000–unbounded); saves 340 core-hours (120–unbounded)\n"
+                 samples (90% more than 3,000); saves 340 core-hours (120–unbounded)\n"
             ),
             "{block}"
         );
