@@ -25,10 +25,10 @@ pub(super) fn answer(out: &mut String, doc: &PlanDocument) {
          (isotonic means, interpolated in ln n) with a {} bootstrap interval over replicates and \
          test initial conditions that never leaves the measured range. Beyond the data, the \
          learning-curve families extrapolate and the study's own hindsight calibrates the \
-         interval; where it cannot, the answer is only a lower bound{}.</p>\n",
+         interval; where it cannot, the answer is only a lower bound.{}</p>\n",
         confidence(doc),
         if doc.cost.is_some() {
-            ", and what simulating and storing those samples costs"
+            " Each answer is priced: what simulating and storing those samples costs."
         } else {
             ""
         },

@@ -131,10 +131,13 @@ pub(super) fn status_cell(e: &TargetEstimate) -> String {
             "{}× the largest measured size, calibrated by the study's hindsight",
             e.extrapolation.map(sig3).unwrap_or_else(|| "?".into())
         ),
-        EstimateStatus::BeyondSupport => format!(
-            "beyond the {}× the largest measured size that the study's hindsight supports",
-            e.support_factor.map(sig3).unwrap_or_else(|| "—".into())
-        ),
+        EstimateStatus::BeyondSupport => match e.support_factor {
+            Some(f) => format!(
+                "beyond the {}× the largest measured size that the study's hindsight supports",
+                sig3(f)
+            ),
+            None => "the study's hindsight cannot check an extrapolation this far".into(),
+        },
         EstimateStatus::NearPlateau => "within noise of where the curve levels off".into(),
         EstimateStatus::Unreachable => format!(
             "{}; P(unreachable) {}",

@@ -87,9 +87,10 @@ pub(super) fn hindsight(out: &mut String, doc: &PlanDocument) {
                 .map_or_else(|| "no size".into(), |n| format!("{} samples", samples(n)));
             let _ = writeln!(
                 out,
-                "<p>Had the pilot stopped at 1/{} of its largest size ({at}, {} sizes): {}</p>",
+                "<p>Had the pilot stopped at 1/{} of its largest size ({at}, {} size{}): {}</p>",
                 stop.fraction,
                 stop.sizes,
+                if stop.sizes == 1 { "" } else { "s" },
                 if stop.estimates.is_empty() {
                     escape(&stop.note)
                 } else {
