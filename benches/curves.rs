@@ -10,12 +10,12 @@
 //! every checkout times the same work). A second set is the accelerating curve whose means
 //! are 0.52, 0.45, 0.71, 1.10, 1.57, 2.46 at 1,000 … 32,000.
 //!
-//! The file uses only functions whose signatures are unchanged across engine versions, so the
-//! same file times an older checkout too. Run with `cargo bench --bench curves` (add
+//! The analysis takes the study's calibration of extrapolation (none here). Run with `cargo bench --bench curves` (add
 //! `-- quick` for fewer repetitions).
 
+use closure_budget::curves::calibration::Calibration;
 use closure_budget::curves::{self, Family, FitScale, SkillGrid};
-use closure_budget::study::analysis::{analyse_curve, CurveSettings};
+use closure_budget::study::analysis::{analyse_curve, CurveContext, CurveSettings};
 use std::hint::black_box;
 use std::time::Instant;
 
@@ -113,8 +113,14 @@ fn analysis(label: &str, grid: &[SkillGrid], targets: &[f64], reps: usize) {
         let t_boot = best_of(reps, || {
             curves::bootstrap_targets(grid, &bt.weights, &fits, targets, draws, 0.9, 5)
         });
-        let t_all = best_of(reps, || analyse_curve(grid, targets, &s, None));
-        let a = analyse_curve(grid, targets, &s, None);
+        // No hindsight pairs: targets beyond the data are beyond support.
+        let calibration = Calibration::from_pairs(Vec::new(), 0.9);
+        let context = CurveContext {
+            calibration: &calibration,
+            floor: None,
+        };
+        let t_all = best_of(reps, || analyse_curve(grid, targets, &s, None, &context));
+        let a = analyse_curve(grid, targets, &s, None, &context);
         println!(
             "curve analysis {label}: whole analysis {t_all:.4} s on 1 thread \
              (fit all families {t_fit:.4} s, backtest {t_backtest:.4} s, \

@@ -313,6 +313,11 @@ fn curve_analysis(quick: bool) {
         trust_factor: 2.0,
         seed: 5,
     };
+    let calibration = closure_budget::curves::calibration::Calibration::from_pairs(Vec::new(), 0.9);
+    let context = closure_budget::study::analysis::CurveContext {
+        calibration: &calibration,
+        floor: None,
+    };
     let mut results = Vec::new();
     let mut time = |threads: usize| {
         let pool = rayon::ThreadPoolBuilder::new()
@@ -320,7 +325,7 @@ fn curve_analysis(quick: bool) {
             .build()
             .unwrap();
         best_of(2, || {
-            let a = pool.install(|| analyse_curve(&grid, &[1.0, 1.5], &settings, None));
+            let a = pool.install(|| analyse_curve(&grid, &[1.0, 1.5], &settings, None, &context));
             results.push(format!("{:?}", a.estimates));
         })
     };

@@ -200,7 +200,8 @@ pub struct FitArgs {
     /// Two-sided confidence level of the intervals.
     #[arg(long, default_value_t = 0.9, value_parser = fraction, allow_negative_numbers = true)]
     pub confidence: f64,
-    /// Estimates beyond this multiple of the largest measured size are flagged as extrapolated.
+    /// No extrapolated n* beyond this multiple of the largest measured size is given, whatever
+    /// the hindsight of the measured curves supports.
     #[arg(long, default_value_t = 2.0, value_parser = positive, allow_negative_numbers = true)]
     pub trust_factor: f64,
     /// Seed of the bootstrap.

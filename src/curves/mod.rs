@@ -17,6 +17,11 @@
 //!   ordinary least squares with the residual variance when there is none), rejection of
 //!   fits at a bound, checks against the measured points, AICc selection.
 //! - [`mod@backtest`]: fit on the smaller sizes, predict the larger; family weights.
+//! - [`isotonic`]: inside the measured range the data decide — isotonic size means, the
+//!   first crossing interpolated in ln n, and its bootstrap.
+//! - [`calibration`]: beyond it — the extrapolation from the ranked families (a family
+//!   crossing inside the measured range where the data do not is passed over), hindsight
+//!   pairs and the calibrated predictive interval with its support.
 //! - [`uncertainty`]: bootstrap of n* over replicates, test initial conditions and families.
 //! - [`lsq`]: a generic weighted nonlinear least-squares engine on top of the
 //!   `levenberg-marquardt` crate, for models outside the families; validated on NIST StRD
@@ -39,10 +44,12 @@
 
 pub mod backtest;
 pub mod bounds;
+pub mod calibration;
 #[cfg(test)]
 mod coverage;
 pub mod families;
 pub mod fit;
+pub mod isotonic;
 pub mod lsq;
 pub mod uncertainty;
 pub mod varpro;

@@ -131,14 +131,15 @@ pub fn fixture() -> StudyResults {
                     status: EstimateStatus::Extrapolated,
                     samples: Some(40000.0),
                     median_samples: Some(41000.0),
-                    samples_interval: [Some(30000.0), None],
+                    samples_interval: [Some(30000.0), Some(60000.0)],
                     p_unreachable: 0.07,
                     budget: Some(cost.budget(40000.0)),
                     budget_low: Some(cost.budget(30000.0)),
-                    budget_high: None,
+                    budget_high: Some(cost.budget(60000.0)),
                     asymptote: Some(3.0),
                     extrapolation: Some(2.5),
                     note: "extrapolates 2.5× beyond the largest size".into(),
+                    ..TargetEstimate::no_fit(2.9, "")
                 },
                 TargetEstimate {
                     target: 5.0,
@@ -153,6 +154,7 @@ pub fn fixture() -> StudyResults {
                     asymptote: Some(3.0),
                     extrapolation: None,
                     note: "the curve saturates at 3.0 < 5.0".into(),
+                    ..TargetEstimate::no_fit(5.0, "")
                 },
             ];
             (fits, Some(Family::SaturatingPowerLaw), estimates)
@@ -173,6 +175,7 @@ pub fn fixture() -> StudyResults {
             fits,
             selected,
             backtest: None,
+            hindsight: fixture_hindsight(&estimates),
             estimates,
         });
     }
@@ -184,6 +187,7 @@ pub fn fixture() -> StudyResults {
         })
         .collect();
     let document = PlanDocument {
+        calibration: Some(fixture_calibration()),
         schema: PLAN_SCHEMA.into(),
         tool_version: "0.1.0".into(),
         study: StudyInfo {
@@ -258,6 +262,67 @@ pub fn fixture() -> StudyResults {
     }
 }
 
+/// Six hindsight pairs of two curves (errors −0.2 to 0.3 at factors 1.4 to 2.8).
+fn fixture_calibration() -> crate::curves::calibration::Calibration {
+    use crate::curves::calibration::{Calibration, HindsightPair};
+    let pairs = [
+        (1.4, -0.2),
+        (1.7, 0.0),
+        (2.0, 0.1),
+        (2.0, 0.15),
+        (2.4, 0.2),
+        (2.8, 0.3),
+    ]
+    .iter()
+    .enumerate()
+    .map(|(i, &(factor, error))| HindsightPair {
+        curve: if i % 2 == 0 { "esn-500" } else { "esn-200" }.into(),
+        truncated_at: 4000.0,
+        level: 2.0 + 0.1 * i as f64,
+        measured: 4000.0 * factor,
+        predicted: Some(4000.0 * factor * f64::exp(error)),
+        factor,
+        error: Some(error),
+    })
+    .collect();
+    Calibration::from_pairs(pairs, 0.9)
+}
+
+/// Had the pilot stopped at a quarter (2 sizes: too few) or an eighth of its largest size.
+fn fixture_hindsight(estimates: &[TargetEstimate]) -> Vec<crate::study::results::HindsightStop> {
+    use crate::study::results::{HindsightEstimate, HindsightStop};
+    vec![
+        HindsightStop {
+            fraction: 4,
+            stopped_at: Some(4000.0),
+            sizes: 4,
+            estimates: estimates
+                .iter()
+                .map(|e| HindsightEstimate {
+                    estimate: TargetEstimate {
+                        budget: None,
+                        budget_low: None,
+                        budget_high: None,
+                        ..e.clone()
+                    },
+                    measured_now: e.samples.map(|n| 0.9 * n),
+                    covered: e.samples.and_then(|n| e.holds_for(0.9 * n)),
+                })
+                .collect(),
+            note: "calibration from 6 hindsight pairs of the truncated curves".into(),
+        },
+        HindsightStop {
+            fraction: 8,
+            stopped_at: Some(2000.0),
+            sizes: 2,
+            estimates: Vec::new(),
+            note:
+                "too few sizes: 2 measured at or below 1/8 of the largest; a fit needs at least 4"
+                    .into(),
+        },
+    ]
+}
+
 fn transfer_estimate(
     target: f64,
     status: EstimateStatus,
@@ -277,7 +342,7 @@ fn transfer_estimate(
         budget_high: None,
         asymptote,
         extrapolation: (status == EstimateStatus::Extrapolated).then_some(3.75),
-        note: String::new(),
+        ..TargetEstimate::no_fit(target, "")
     }
 }
 
@@ -344,7 +409,7 @@ pub fn transfer_fixture() -> StudyResults {
             a,
             -0.6,
             vec![
-                transfer_estimate(2.5, Reachable, Some(5000.0), [Some(3000.0), None], None),
+                transfer_estimate(2.5, ReachedInData, Some(5000.0), [Some(3000.0), None], None),
                 transfer_estimate(3.5, Unreachable, None, [None, None], Some(2.9)),
             ],
         ),
@@ -354,7 +419,7 @@ pub fn transfer_fixture() -> StudyResults {
             vec![
                 transfer_estimate(
                     2.5,
-                    Reachable,
+                    ReachedInData,
                     Some(1200.0),
                     [Some(800.0), Some(2000.0)],
                     None,
@@ -370,7 +435,7 @@ pub fn transfer_fixture() -> StudyResults {
                 core_hours_saved_interval: [Some(120.0), None],
                 ..transfer_saving(
                     2.5,
-                    [Reachable, Reachable],
+                    [ReachedInData, ReachedInData],
                     [Some(1200.0), Some(5000.0)],
                     "fine-tuning needs a quarter of the samples",
                 )
@@ -426,6 +491,7 @@ pub fn transfer_fixture() -> StudyResults {
         ],
     };
     doc.transfer = Some(TransferResult {
+        calibration: None,
         data,
         sizes: vec![50, 200, 800],
         replicates: 2,

@@ -187,12 +187,7 @@ pub(crate) fn best_transfer(
     transfer: &TransferResult,
     i: usize,
 ) -> Option<(&TransferModel, &TransferSaving)> {
-    let trusted = |s: &TransferSaving| {
-        matches!(
-            s.fine_tuned_status,
-            EstimateStatus::ReachedInData | EstimateStatus::Reachable
-        )
-    };
+    let trusted = |s: &TransferSaving| s.fine_tuned_status == EstimateStatus::ReachedInData;
     // Smaller is better: (not trusted, k*, −saving in hours, −saving in samples).
     let key = |m: &TransferModel, s: &TransferSaving| {
         let k = s

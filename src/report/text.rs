@@ -72,46 +72,12 @@ pub fn text_summary(doc: &PlanDocument) -> String {
         let selected = m.selected.map(|f| f.label()).unwrap_or("none");
         let _ = writeln!(s, "\nmodel {} ({}; curve: {selected})", m.name, m.kind);
         for e in &m.estimates {
-            match (e.status, &e.budget) {
-                (status, Some(b)) if status.has_budget() => {
-                    let _ = writeln!(
-                        s,
-                        "  target {:>6}: {}: {} samples ({level}% {}), {} time units, {} core-hours ({}), {}",
-                        sig3(e.target),
-                        status.label(),
-                        samples(b.samples),
-                        range(e.samples_interval[0], e.samples_interval[1], &samples),
-                        sig3(b.simulated_time),
-                        hours_or_overflow(b.core_hours),
-                        range(
-                            e.budget_low.map(|b| b.core_hours),
-                            e.budget_high.map(|b| b.core_hours),
-                            &sig3
-                        ),
-                        bytes(b.storage_bytes)
-                    );
-                }
-                (status, _) if status.has_budget() => {
-                    let _ = writeln!(
-                        s,
-                        "  target {:>6}: {}: {} samples ({level}% {}); {}",
-                        sig3(e.target),
-                        status.label(),
-                        e.samples.map(samples).unwrap_or_default(),
-                        range(e.samples_interval[0], e.samples_interval[1], &samples),
-                        e.note
-                    );
-                }
-                _ => {
-                    let _ = writeln!(
-                        s,
-                        "  target {:>6}: {}: {}",
-                        sig3(e.target),
-                        e.status.label(),
-                        e.note
-                    );
-                }
-            }
+            let _ = writeln!(
+                s,
+                "  target {:>6}: {}",
+                sig3(e.target),
+                answer_line(e, level)
+            );
         }
     }
     if let Some(t) = &doc.transfer {
@@ -149,7 +115,11 @@ fn answer_block(s: &mut String, doc: &PlanDocument, level: f64) {
                     "{}, {} samples ({level}% {})",
                     m.name,
                     samples(n),
-                    range(Some(lo), Some(hi), &samples)
+                    if e.upper_beyond_data {
+                        e.samples_range(samples)
+                    } else {
+                        range(Some(lo), Some(hi), &samples)
+                    }
                 );
                 if let Some(b) = &e.budget {
                     let _ = write!(
@@ -183,8 +153,60 @@ fn answer_block(s: &mut String, doc: &PlanDocument, level: f64) {
                 e.status.label()
             ),
             Answer::NotAnswerable => "not answerable".into(),
+            Answer::NoTraining => "no training needed (at or below the persistence floor)".into(),
         };
         let _ = writeln!(s, "{t}{line}");
+    }
+}
+
+/// One target's answer after its label: the status, n* with its interval or the bound the
+/// status gives, the simulated time, core-hours with their interval and storage when priced,
+/// or the note.
+fn answer_line(e: &TargetEstimate, level: f64) -> String {
+    let hours = |b: &Option<crate::cost::Budget>| b.as_ref().map(|b| b.core_hours);
+    match (e.status, &e.budget) {
+        (status, Some(b)) if status.has_budget() => {
+            let (lo, hi) = (hours(&e.budget_low), hours(&e.budget_high));
+            let hours_range = match (lo, hi) {
+                (Some(l), Some(h)) if e.upper_beyond_data => {
+                    format!("{} to more than {}", sig3(l), sig3(h))
+                }
+                _ => range(lo, hi, &sig3),
+            };
+            format!(
+                "{}: {} samples ({level}% {}), {} time units, {} core-hours ({}), {}",
+                status.label(),
+                samples(b.samples),
+                e.samples_range(samples),
+                sig3(b.simulated_time),
+                hours_or_overflow(b.core_hours),
+                hours_range,
+                bytes(b.storage_bytes)
+            )
+        }
+        (status, _) if status.has_budget() => format!(
+            "{}: {} samples ({level}% {}); {}",
+            status.label(),
+            e.samples.map(samples).unwrap_or_default(),
+            e.samples_range(samples),
+            e.note
+        ),
+        (EstimateStatus::AtSmallestSize | EstimateStatus::BeyondSupport, _) => {
+            let bound = match e.status {
+                EstimateStatus::AtSmallestSize => {
+                    hours(&e.budget_high).map(|h| format!(", at most {} core-hours", sig3(h)))
+                }
+                _ => hours(&e.budget_low).map(|h| format!(", more than {} core-hours", sig3(h))),
+            };
+            format!(
+                "{}: {} samples{}; {}",
+                e.status.label(),
+                e.samples_range(samples),
+                bound.unwrap_or_default(),
+                e.note
+            )
+        }
+        _ => format!("{}: {}", e.status.label(), e.note),
     }
 }
 
@@ -196,9 +218,9 @@ fn k_star(e: Option<&TargetEstimate>, status: EstimateStatus, level: f64) -> Str
             let mut k = format!(
                 "{} samples ({level}% {})",
                 samples(n),
-                range(e.samples_interval[0], e.samples_interval[1], &samples)
+                e.samples_range(samples)
             );
-            if status != EstimateStatus::Reachable {
+            if status != EstimateStatus::ReachedInData {
                 let _ = write!(k, ", {}", status.label());
             }
             k
@@ -465,7 +487,7 @@ mod tests {
         assert!(
             block.contains(
                 "  k* for   2.50: fine-tuned 1,200 samples (90% 800–2,000); from scratch 5,000 \
-                 samples (90% 3,000–unbounded); saves 340 core-hours (120–unbounded)\n"
+                 samples (90% more than 3,000); saves 340 core-hours (120–unbounded)\n"
             ),
             "{block}"
         );

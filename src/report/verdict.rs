@@ -5,13 +5,13 @@
 //!
 //! | status | answer |
 //! |---|---|
-//! | reached in the data, above the smallest measured size | a number |
-//! | reached in the data at the smallest measured size | a bound: n* ≤ that size |
-//! | reachable within the trust range, bounded interval | a number |
-//! | reachable, interval unbounded above | a bound: n* ≥ its lower end |
-//! | extrapolated beyond the trust range | a bound: more than the trust range supports |
-//! | unreachable (levels off below the target) | not answerable |
-//! | no fit | not answerable |
+//! | reached in the data (between two measured sizes) | a number (its upper end may read "more than the largest size") |
+//! | met at the smallest measured size | a bound: n* ≤ that size |
+//! | extrapolated, calibrated interval bounded | a number |
+//! | extrapolated, interval open above | a bound: n* ≥ its lower end |
+//! | beyond what the pilot supports | a bound: n* more than its lower end |
+//! | no training needed (at or below the persistence floor) | no training |
+//! | near the plateau, unreachable, no fit | not answerable |
 
 use crate::study::results::{EstimateStatus, ModelResult, PlanDocument, TargetEstimate};
 
@@ -27,6 +27,8 @@ pub enum Answer {
     },
     /// No sample count can be given (the curve levels off below the target, or no fit).
     NotAnswerable,
+    /// The target is at or below the persistence floor: no training data needed.
+    NoTraining,
 }
 
 impl Answer {
@@ -36,37 +38,47 @@ impl Answer {
             Answer::Number { .. } => "answered",
             Answer::Bound { .. } => "bound only",
             Answer::NotAnswerable => "not answerable",
+            Answer::NoTraining => "no training needed",
         }
     }
 }
 
-/// Classifies an estimate of a model whose smallest measured size is `smallest` (samples).
-pub fn classify(e: &TargetEstimate, smallest: Option<f64>) -> Answer {
-    let n = e.samples.filter(|v| v.is_finite() && *v >= 0.0);
-    match (e.status, n) {
-        (EstimateStatus::Unreachable | EstimateStatus::NoFit, _) | (_, None) => {
+/// Classifies an estimate. `_smallest` (the model's smallest measured size) is kept for
+/// callers; the status already says whether the target was met there.
+pub fn classify(e: &TargetEstimate, _smallest: Option<f64>) -> Answer {
+    let finite = |v: Option<f64>| v.filter(|v| v.is_finite() && *v >= 0.0);
+    match e.status {
+        EstimateStatus::NoTrainingNeeded => Answer::NoTraining,
+        EstimateStatus::Unreachable | EstimateStatus::NoFit | EstimateStatus::NearPlateau => {
             Answer::NotAnswerable
         }
-        (EstimateStatus::ReachedInData, Some(n)) if smallest.is_some_and(|s| n <= s) => {
-            Answer::Bound {
+        EstimateStatus::AtSmallestSize => match finite(e.samples_interval[1]) {
+            Some(n) => Answer::Bound {
                 at_most: Some(n),
                 at_least: None,
+            },
+            None => Answer::NotAnswerable,
+        },
+        EstimateStatus::BeyondSupport => match finite(e.samples_interval[0]) {
+            Some(n) => Answer::Bound {
+                at_most: None,
+                at_least: Some(n),
+            },
+            None => Answer::NotAnswerable,
+        },
+        EstimateStatus::ReachedInData | EstimateStatus::Extrapolated => {
+            match (finite(e.samples), e.samples_interval) {
+                (None, _) => Answer::NotAnswerable,
+                (Some(n), [Some(lo), Some(hi)]) => Answer::Number {
+                    samples: n,
+                    interval: [lo, hi],
+                },
+                (Some(n), [lo, _]) => Answer::Bound {
+                    at_most: None,
+                    at_least: Some(lo.unwrap_or(n).min(n)),
+                },
             }
         }
-        (EstimateStatus::Extrapolated, Some(n)) => Answer::Bound {
-            at_most: None,
-            at_least: Some(e.samples_interval[0].unwrap_or(n).min(n)),
-        },
-        (_, Some(n)) => match e.samples_interval {
-            [Some(lo), Some(hi)] => Answer::Number {
-                samples: n,
-                interval: [lo, hi],
-            },
-            [lo, _] => Answer::Bound {
-                at_most: None,
-                at_least: Some(lo.unwrap_or(n).min(n)),
-            },
-        },
     }
 }
 
@@ -92,6 +104,9 @@ pub struct Pick<'a> {
 
 /// The figure the models are ranked by: core-hours when there is a cost model, else samples.
 fn price(e: &TargetEstimate) -> f64 {
+    if e.status == EstimateStatus::NoTrainingNeeded {
+        return 0.0;
+    }
     e.budget
         .as_ref()
         .map(|b| b.core_hours)
@@ -114,7 +129,7 @@ pub fn picks(doc: &PlanDocument) -> Vec<Pick<'_>> {
                 };
                 models += 1;
                 match classify(e, smallest_size(m)) {
-                    a @ Answer::Number { .. } => numbers.push((m, e, a)),
+                    a @ (Answer::Number { .. } | Answer::NoTraining) => numbers.push((m, e, a)),
                     a @ Answer::Bound { .. } => bounds.push((m, e, a)),
                     Answer::NotAnswerable => {}
                 }
@@ -195,58 +210,40 @@ mod tests {
             samples: s,
             interval: iv,
         };
+        let c = |st, n, iv| classify(&estimate(st, n, iv), small);
         assert_eq!(
-            classify(
-                &estimate(Reachable, Some(3000.0), [Some(2000.0), Some(5000.0)]),
-                small
-            ),
-            number(3000.0, [2000.0, 5000.0])
-        );
-        assert_eq!(
-            classify(
-                &estimate(ReachedInData, Some(1000.0), [Some(800.0), Some(1200.0)]),
-                small
-            ),
+            c(ReachedInData, Some(1000.0), [Some(800.0), Some(1200.0)]),
             number(1000.0, [800.0, 1200.0])
         );
         assert_eq!(
-            classify(
-                &estimate(ReachedInData, Some(500.0), [Some(500.0), Some(700.0)]),
-                small
-            ),
-            Answer::Bound {
-                at_most: Some(500.0),
-                at_least: None
-            }
+            c(Extrapolated, Some(3000.0), [Some(2000.0), Some(5000.0)]),
+            number(3000.0, [2000.0, 5000.0])
         );
         assert_eq!(
-            classify(
-                &estimate(Reachable, Some(3000.0), [Some(2000.0), None]),
-                small
-            ),
+            c(Extrapolated, Some(3000.0), [Some(2000.0), None]),
             Answer::Bound {
                 at_most: None,
                 at_least: Some(2000.0)
             }
         );
         assert_eq!(
-            classify(
-                &estimate(Extrapolated, Some(9e9), [Some(1e6), Some(1e12)]),
-                small
-            ),
+            c(AtSmallestSize, None, [None, Some(500.0)]),
             Answer::Bound {
-                at_most: None,
-                at_least: Some(1e6)
+                at_most: Some(500.0),
+                at_least: None
             }
         );
         assert_eq!(
-            classify(&estimate(Unreachable, None, [None, None]), small),
-            Answer::NotAnswerable
+            c(BeyondSupport, None, [Some(8000.0), None]),
+            Answer::Bound {
+                at_most: None,
+                at_least: Some(8000.0)
+            }
         );
-        assert_eq!(
-            classify(&estimate(NoFit, None, [None, None]), small),
-            Answer::NotAnswerable
-        );
+        assert_eq!(c(NoTrainingNeeded, None, [None, None]), Answer::NoTraining);
+        for st in [NearPlateau, Unreachable, NoFit] {
+            assert_eq!(c(st, None, [None, None]), Answer::NotAnswerable);
+        }
     }
 
     #[test]

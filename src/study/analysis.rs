@@ -1,74 +1,71 @@
 //! From measured skill to estimates: per model (or transfer curve), the points over subset
 //! sizes, the fitted families, the backtest and family weights, and per target the samples n*
-//! with its bootstrap interval, status and note, priced by the cost model.
+//! with its interval, status and note, priced by the cost model; the study's calibration of
+//! extrapolation from its own hindsight, and per model what the analysis would have said had
+//! the pilot stopped earlier.
 //!
-//! Inside the measured range the data decide (a target the measured mean reaches takes n* from
-//! the measured sizes); beyond it the selected family is inverted and flagged as extrapolated
-//! past the trust range. [`analyse_curve`] is shared by studies and by fits of skill measured
+//! **Inside the measured range the data decide**: the isotonic regression of the size means
+//! (weights 1/se²) gives the first crossing of a target, interpolated in ln n between the
+//! bracketing sizes, and its interval is the bootstrap of that same interpolation over
+//! replicates and initial conditions, clipped to the measured range. **Beyond it**, the ranked
+//! families extrapolate (a family crossing the target inside the measured range, where the data
+//! do not, is passed over and named), and the study's hindsight pairs calibrate the answer
+//! ([`crate::curves::calibration`]); where they cannot, the estimate says the pilot cannot
+//! support a number. [`analyse_curve`] is shared by studies and by fits of skill measured
 //! outside the tool.
 
 use super::plan::{ModelUse, StudyPlan};
 use super::records::{ClosureChecks, SkillRecord};
 use super::results::{
-    ClosurePoint, EstimateStatus, FitResult, ModelResult, PointResult, TargetEstimate,
+    ClosurePoint, EstimateStatus, FitResult, HindsightEstimate, HindsightStop, ModelResult,
+    PointResult, TargetEstimate,
 };
 use super::seeds::derive_seed;
 use crate::cost::campaign::Campaign;
-use crate::curves::{self, Family, Inversion, SizeSamples, SkillGrid};
+use crate::curves::calibration::{
+    extrapolate, fit_and_rank, hindsight_pairs, Calibrated, Calibration, Extrapolation, RankedFits,
+    MIN_HINDSIGHT_SIZES,
+};
+use crate::curves::isotonic::{
+    crossing_draws, first_crossing, isotonic_means, measured_n_star, Crossing, CrossingDraws,
+};
+use crate::curves::{self, Family, FitOptions, SkillGrid};
 use crate::skill::{self, IcSkill};
 use rayon::prelude::*;
 use std::collections::BTreeMap;
 
-/// Points, curves and estimates of every model of the study, from its planned records; models
-/// are fitted in parallel and their warnings join `warnings` in study order.
+/// Truncations of the hindsight section: the pilot stopped at n_max / 4 and n_max / 8.
+pub const HINDSIGHT_FRACTIONS: [usize; 2] = [4, 8];
+
+/// Points, curves and estimates of every model of the study, from its planned records, with
+/// the study's calibration of extrapolation (pooled over its models) and per model the
+/// hindsight of earlier stops; models are fitted in parallel and their warnings join
+/// `warnings` in study order. `floor` is the persistence floor (mean valid time).
 pub(super) fn model_results(
     plan: &StudyPlan,
     records: &[SkillRecord],
     cost: &Campaign,
+    floor: Option<f64>,
     warnings: &mut Vec<String>,
-) -> Vec<ModelResult> {
-    let fitted: Vec<(ModelResult, Vec<String>)> = plan
+) -> (Vec<ModelResult>, Calibration) {
+    let subjects: Vec<(CurveSubject, Vec<&SkillRecord>)> = plan
         .models
-        .par_iter()
-        .enumerate()
-        .map(|(m, model)| {
+        .iter()
+        .map(|model| {
             let mine: Vec<&SkillRecord> =
                 records.iter().filter(|r| r.model == model.name).collect();
-            let mut own = Vec::new();
-            let result = model_result(plan, m, &mine, cost, &mut own);
-            (result, own)
+            (
+                CurveSubject {
+                    name: model.name.clone(),
+                    model,
+                    sizes: &plan.sizes,
+                    targets: &plan.targets,
+                },
+                mine,
+            )
         })
         .collect();
-    fitted
-        .into_iter()
-        .map(|(result, own)| {
-            warnings.extend(own);
-            result
-        })
-        .collect()
-}
-
-/// The result of the plan's `m`-th model from its records.
-fn model_result(
-    plan: &StudyPlan,
-    m: usize,
-    records: &[&SkillRecord],
-    cost: &Campaign,
-    warnings: &mut Vec<String>,
-) -> ModelResult {
-    let model = &plan.models[m];
-    curve_result(
-        plan,
-        &CurveSubject {
-            name: model.name.clone(),
-            model,
-            sizes: &plan.sizes,
-            targets: &plan.targets,
-        },
-        records,
-        cost,
-        warnings,
-    )
+    curve_results(plan, &subjects, cost, floor, true, warnings)
 }
 
 /// What one learning curve is measured for: a model under a name, over sizes, for targets.
@@ -80,16 +77,199 @@ pub(super) struct CurveSubject<'a> {
     pub targets: &'a [f64],
 }
 
-/// Points, fitted curves and estimates from the records of one subject (one per size and
-/// replicate).
-pub(super) fn curve_result(
+/// The curve settings of a study for one named curve.
+fn settings_for(plan: &StudyPlan, name: &str) -> CurveSettings {
+    CurveSettings {
+        scale: plan.fit_scale,
+        draws: plan.bootstrap_draws,
+        level: plan.confidence,
+        trust_factor: plan.trust_factor,
+        seed: derive_seed(plan.seed, name, usize::MAX),
+    }
+}
+
+/// The results of a set of curves measured on one system with one skill definition (the
+/// study's models, or the new regime's curves): one calibration pooled over all of them, then
+/// per curve its points, fits and estimates, and (with `hindsight`) the earlier stops.
+pub(super) fn curve_results(
     plan: &StudyPlan,
+    subjects: &[(CurveSubject, Vec<&SkillRecord>)],
+    cost: &Campaign,
+    floor: Option<f64>,
+    hindsight: bool,
+    warnings: &mut Vec<String>,
+) -> (Vec<ModelResult>, Calibration) {
+    let measured: Vec<(Vec<PointResult>, Vec<SkillGrid>)> = subjects
+        .iter()
+        .map(|(s, records)| curve_points(s, records))
+        .collect();
+    let grids: Vec<(&str, &[SkillGrid])> = subjects
+        .iter()
+        .zip(&measured)
+        .map(|((s, _), (_, g))| (s.name.as_str(), g.as_slice()))
+        .collect();
+    let calibration = calibrate(&grids, plan.fit_scale, plan.confidence);
+    let stops: Vec<Vec<HindsightStop>> = if hindsight {
+        hindsight_stops(plan, &grids, subjects, floor)
+    } else {
+        vec![Vec::new(); subjects.len()]
+    };
+    let fitted: Vec<(ModelResult, Vec<String>)> = subjects
+        .par_iter()
+        .zip(measured.into_par_iter())
+        .zip(stops.into_par_iter())
+        .map(|(((subject, _), (points, grid)), stops)| {
+            let mut own = Vec::new();
+            let result = curve_result(
+                plan,
+                subject,
+                points,
+                &grid,
+                &CurveContext {
+                    calibration: &calibration,
+                    floor,
+                },
+                cost,
+                stops,
+                &mut own,
+            );
+            (result, own)
+        })
+        .collect();
+    let models = fitted
+        .into_iter()
+        .map(|(result, own)| {
+            warnings.extend(own);
+            result
+        })
+        .collect();
+    (models, calibration)
+}
+
+/// The calibration of extrapolation from the hindsight pairs of every named curve, pooled
+/// (see [`crate::curves::calibration`]); curves run in parallel, pairs are collected in order.
+pub fn calibrate(
+    grids: &[(&str, &[SkillGrid])],
+    scale: curves::FitScale,
+    level: f64,
+) -> Calibration {
+    let options = FitOptions::on(scale);
+    let pairs: Vec<_> = grids
+        .par_iter()
+        .map(|(name, grid)| {
+            let samples: Vec<_> = grid.iter().map(|g| g.replicate_means()).collect();
+            hindsight_pairs(name, &samples, &options)
+        })
+        .collect::<Vec<_>>()
+        .into_iter()
+        .flatten()
+        .collect();
+    Calibration::from_pairs(pairs, level)
+}
+
+/// Per subject, the analysis had the pilot stopped at n_max / 4 and n_max / 8 (the largest
+/// measured size at or below that): the whole analysis rerun on the truncated data of every
+/// curve (fits, backtest, bootstrap, calibration), beside the full data's measured n*.
+fn hindsight_stops(
+    plan: &StudyPlan,
+    grids: &[(&str, &[SkillGrid])],
+    subjects: &[(CurveSubject, Vec<&SkillRecord>)],
+    floor: Option<f64>,
+) -> Vec<Vec<HindsightStop>> {
+    let mut out: Vec<Vec<HindsightStop>> = vec![Vec::new(); subjects.len()];
+    for fraction in HINDSIGHT_FRACTIONS {
+        let stops = stop_at(plan, grids, subjects, floor, fraction);
+        for (o, s) in out.iter_mut().zip(stops) {
+            o.push(s);
+        }
+    }
+    out
+}
+
+/// One truncation of [`hindsight_stops`].
+fn stop_at(
+    plan: &StudyPlan,
+    grids: &[(&str, &[SkillGrid])],
+    subjects: &[(CurveSubject, Vec<&SkillRecord>)],
+    floor: Option<f64>,
+    fraction: usize,
+) -> Vec<HindsightStop> {
+    let kept = |grid: &[SkillGrid]| -> usize {
+        let largest = grid.last().map_or(0.0, |g| g.n);
+        let cut = largest / fraction as f64;
+        grid.iter().filter(|g| g.n <= cut * (1.0 + 1e-9)).count()
+    };
+    let truncated: Vec<(&str, &[SkillGrid])> = grids
+        .iter()
+        .map(|(name, grid)| (*name, &grid[..kept(grid)]))
+        .collect();
+    let usable: Vec<(&str, &[SkillGrid])> = truncated
+        .iter()
+        .copied()
+        .filter(|(_, g)| g.len() >= MIN_HINDSIGHT_SIZES)
+        .collect();
+    let calibration = calibrate(&usable, plan.fit_scale, plan.confidence);
+    subjects
+        .par_iter()
+        .zip(grids.par_iter().zip(truncated.par_iter()))
+        .map(|((subject, _), ((_, full), (_, head)))| {
+            let stopped_at = head.last().map(|g| g.n);
+            if head.len() < MIN_HINDSIGHT_SIZES {
+                return HindsightStop {
+                    fraction,
+                    stopped_at,
+                    sizes: head.len(),
+                    estimates: Vec::new(),
+                    note: format!(
+                        "too few sizes: {} measured at or below 1/{fraction} of the largest; a fit needs at least {MIN_HINDSIGHT_SIZES}",
+                        head.len()
+                    ),
+                };
+            }
+            let then = analyse_curve(
+                head,
+                subject.targets,
+                &settings_for(plan, &subject.name),
+                None,
+                &CurveContext {
+                    calibration: &calibration,
+                    floor,
+                },
+            );
+            let full_points =
+                curves::summarise(&full.iter().map(|g| g.replicate_means()).collect::<Vec<_>>());
+            let estimates = then
+                .estimates
+                .into_iter()
+                .map(|e| {
+                    let measured = measured_n_star(&full_points, e.target);
+                    HindsightEstimate {
+                        covered: measured.and_then(|m| e.holds_for(m)),
+                        measured_now: measured,
+                        estimate: e,
+                    }
+                })
+                .collect();
+            HindsightStop {
+                fraction,
+                stopped_at,
+                sizes: head.len(),
+                estimates,
+                note: format!(
+                    "calibration from {} hindsight pairs of the truncated curves",
+                    calibration.pairs.len()
+                ),
+            }
+        })
+        .collect()
+}
+
+/// The points of one subject and the skill grid behind them (one cell per size: replicates ×
+/// initial conditions).
+fn curve_points(
     subject: &CurveSubject,
     records: &[&SkillRecord],
-    cost: &Campaign,
-    warnings: &mut Vec<String>,
-) -> ModelResult {
-    let model = subject.model;
+) -> (Vec<PointResult>, Vec<SkillGrid>) {
     let mut points = Vec::new();
     let mut grid = Vec::new();
     for &n in subject.sizes {
@@ -136,38 +316,33 @@ pub(super) fn curve_result(
         });
         grid.push(cell);
     }
+    (points, grid)
+}
+
+/// Fitted curves and estimates of one subject from its points and grid.
+#[allow(clippy::too_many_arguments)]
+fn curve_result(
+    plan: &StudyPlan,
+    subject: &CurveSubject,
+    mut points: Vec<PointResult>,
+    grid: &[SkillGrid],
+    context: &CurveContext,
+    cost: &Campaign,
+    hindsight: Vec<HindsightStop>,
+    warnings: &mut Vec<String>,
+) -> ModelResult {
+    let model = subject.model;
     let curve = analyse_curve(
-        &grid,
+        grid,
         subject.targets,
-        &CurveSettings {
-            scale: plan.fit_scale,
-            draws: plan.bootstrap_draws,
-            level: plan.confidence,
-            trust_factor: plan.trust_factor,
-            seed: derive_seed(plan.seed, &subject.name, usize::MAX),
-        },
+        &settings_for(plan, &subject.name),
         Some(cost),
+        context,
     );
     for (p, se) in points.iter_mut().zip(&curve.standard_errors) {
         p.standard_error = *se;
     }
-    if curve.selected.is_none() {
-        warnings.push(format!(
-            "{}: no learning-curve family could be fitted; no budget is given for this model",
-            subject.name
-        ));
-    }
-    for e in &curve.estimates {
-        if e.status == EstimateStatus::Extrapolated {
-            warnings.push(format!(
-                "{}: reaching {} needs {:.1}× the largest measured subset, beyond the trust range ({}×); measure larger subsets before relying on it",
-                subject.name,
-                e.target,
-                e.extrapolation.unwrap_or(f64::NAN),
-                plan.trust_factor
-            ));
-        }
-    }
+    curve_warnings(&subject.name, &curve, warnings);
     let settings = model.kind.settings();
     ModelResult {
         name: subject.name.clone(),
@@ -187,6 +362,27 @@ pub(super) fn curve_result(
         selected: curve.selected,
         backtest: curve.backtest,
         estimates: curve.estimates,
+        hindsight,
+    }
+}
+
+/// The warnings of one curve's analysis: no family fitted, skill that falls with n by more than
+/// its noise, targets beyond what the pilot can support.
+pub fn curve_warnings(name: &str, curve: &CurveAnalysis, warnings: &mut Vec<String>) {
+    if curve.selected.is_none() {
+        warnings.push(format!(
+            "{name}: no learning-curve family could be fitted; no budget is given for this model"
+        ));
+    }
+    warnings.extend(curve.drops.iter().map(|d| format!("{name}: {d}")));
+    for e in &curve.estimates {
+        if e.status == EstimateStatus::BeyondSupport {
+            warnings.push(format!(
+                "{name}: reaching {} is beyond what this pilot can support ({}); measure larger subsets, with more sizes per doubling (ratio √2) so that extrapolation can be checked",
+                e.target,
+                e.samples_range(|v| format!("{v:.0}"))
+            ));
+        }
     }
 }
 
@@ -226,8 +422,19 @@ pub struct CurveSettings {
     pub scale: curves::FitScale,
     pub draws: usize,
     pub level: f64,
+    /// Extrapolation is never answered with a number beyond this multiple of the largest
+    /// measured size, whatever the hindsight supports.
     pub trust_factor: f64,
     pub seed: u64,
+}
+
+/// What a curve's estimates depend on beyond its own points: the calibration of its study and
+/// the persistence floor.
+#[derive(Debug, Clone, Copy)]
+pub struct CurveContext<'a> {
+    pub calibration: &'a Calibration,
+    /// Mean valid time of persistence: targets at or below it need no training.
+    pub floor: Option<f64>,
 }
 
 /// Fits, backtest, weights and per-target estimates for one model's measured skill.
@@ -238,64 +445,33 @@ pub struct CurveAnalysis {
     pub selected: Option<Family>,
     pub backtest: Option<curves::Backtest>,
     pub estimates: Vec<TargetEstimate>,
+    /// Sentences about measured skill that falls with n by more than its noise.
+    pub drops: Vec<String>,
 }
 
-/// Fits every family to the measured skill, backtests and weights them, bootstraps n* for
-/// every target over replicates, initial conditions and families, and (when a cost model is
-/// given) prices every estimate. Shared by studies and by fits of user-measured skill.
+/// Fits every family to the measured skill, backtests and ranks them, bootstraps the in-data
+/// crossing and the families' n* for every target over replicates and initial conditions,
+/// decides each target's estimate (see [`estimate`]) and (with a cost model) prices it. Shared
+/// by studies and by fits of user-measured skill.
 pub fn analyse_curve(
     grid: &[SkillGrid],
     targets: &[f64],
     settings: &CurveSettings,
     cost: Option<&Campaign>,
+    context: &CurveContext,
 ) -> CurveAnalysis {
-    let samples: Vec<SizeSamples> = grid.iter().map(|g| g.replicate_means()).collect();
+    let samples: Vec<curves::SizeSamples> = grid.iter().map(|g| g.replicate_means()).collect();
     let curve_points = curves::summarise(&samples);
-    let mut fits = Vec::new();
-    let mut ok_fits = Vec::new();
-    for family in Family::ALL {
-        let names = family.param_names();
-        let named = |v: &[f64]| -> BTreeMap<String, f64> {
-            names
-                .iter()
-                .map(|n| n.to_string())
-                .zip(v.iter().copied())
-                .collect()
-        };
-        match curves::fit_family_on(family, &curve_points, settings.scale) {
-            Ok(fit) => {
-                fits.push(FitResult {
-                    family,
-                    formula: family.formula().into(),
-                    params: named(&fit.params),
-                    std_errors: fit.std_errors.as_deref().map(named),
-                    weighted_rss: Some(fit.weighted_rss),
-                    aicc: fit.aicc,
-                    asymptote: family.asymptote(&fit.params),
-                    error: None,
-                });
-                ok_fits.push(fit);
-            }
-            Err(e) => fits.push(FitResult {
-                family,
-                formula: family.formula().into(),
-                params: BTreeMap::new(),
-                std_errors: None,
-                weighted_rss: None,
-                aicc: None,
-                asymptote: None,
-                error: Some(e.to_string()),
-            }),
-        }
-    }
-    let bt = (!ok_fits.is_empty())
-        .then(|| curves::backtest(&samples, &Family::ALL, &ok_fits, settings.scale));
-    let selected = bt
-        .as_ref()
-        .and_then(|b| b.selected())
-        .and_then(|f| ok_fits.iter().find(|x| x.family == f));
-    let estimates = match (selected, &bt) {
-        (Some(fit), Some(b)) => {
+    let ranked = fit_and_rank(&samples, &FitOptions::on(settings.scale));
+    let fits: Vec<FitResult> = ranked
+        .results
+        .iter()
+        .map(|(family, r)| fit_result(*family, r))
+        .collect();
+    let ok_fits = ranked.fits();
+    let selected = ranked.selected();
+    let estimates = match (selected, &ranked.backtest) {
+        (Some(_), Some(b)) => {
             let draws = curves::bootstrap_targets(
                 grid,
                 &b.weights,
@@ -305,444 +481,703 @@ pub fn analyse_curve(
                 settings.level,
                 settings.seed,
             );
+            let crossings = crossing_draws(grid, targets, settings.draws, settings.seed ^ 0x0150);
             targets
                 .iter()
-                .zip(draws)
-                .map(|(&target, d)| {
-                    estimate(fit, target, &d, &curve_points, settings.trust_factor, cost)
+                .zip(draws.iter().zip(&crossings))
+                .map(|(&target, (d, c))| {
+                    estimate(
+                        &Evidence {
+                            points: &curve_points,
+                            ranked: &ranked,
+                            draws: d,
+                            crossings: c,
+                            level: settings.level,
+                            trust_factor: settings.trust_factor,
+                            context,
+                            cost,
+                        },
+                        target,
+                    )
                 })
                 .collect()
         }
         _ => targets
             .iter()
-            .map(|&target| TargetEstimate::no_fit(target, "no learning curve could be fitted"))
+            .map(|&target| {
+                floor_estimate(target, context.floor).unwrap_or_else(|| {
+                    TargetEstimate::no_fit(target, "no learning curve could be fitted")
+                })
+            })
             .collect(),
     };
     CurveAnalysis {
         standard_errors: curve_points.iter().map(|p| p.standard_error).collect(),
         fits,
         selected: selected.map(|f| f.family),
-        backtest: bt,
+        backtest: ranked.backtest,
         estimates,
+        drops: drops(&curve_points),
     }
 }
 
-/// The estimate for one target from the selected family's fit to all data, the bootstrap
-/// draws of n* over replicates, initial conditions and families, and the measured points:
-///
-/// - **reached in the data** when some measured mean reaches the target: n* is where the curve
-///   crosses the target, kept between the smallest measured size and the first size whose
-///   mean reaches it (that size when the curve crosses later or never);
-/// - otherwise, where the curve crosses the target, **reachable** within `trust_factor` times
-///   the largest measured size and **extrapolated** beyond;
-/// - otherwise **unreachable**: the curve levels off at or below the target.
-///
-/// The interval ends and the bootstrap median are floored at the smallest measured size (a
-/// curve crossing below it is no evidence of fewer samples). With a cost model, n* and the
-/// interval ends are priced. The note says in words which case applies.
-fn estimate(
-    fit: &curves::CurveFit,
-    target: f64,
-    draws: &curves::TargetDraws,
-    points: &[curves::CurvePoint],
+/// The contract's record of one family's fit.
+fn fit_result(family: Family, r: &Result<curves::CurveFit, curves::CurveError>) -> FitResult {
+    let names = family.param_names();
+    let named = |v: &[f64]| -> BTreeMap<String, f64> {
+        names
+            .iter()
+            .map(|n| n.to_string())
+            .zip(v.iter().copied())
+            .collect()
+    };
+    match r {
+        Ok(fit) => FitResult {
+            family,
+            formula: family.formula().into(),
+            params: named(&fit.params),
+            std_errors: fit.std_errors.as_deref().map(named),
+            weighted_rss: Some(fit.weighted_rss),
+            aicc: fit.aicc,
+            asymptote: family.asymptote(&fit.params),
+            error: None,
+        },
+        Err(e) => FitResult {
+            family,
+            formula: family.formula().into(),
+            params: BTreeMap::new(),
+            std_errors: None,
+            weighted_rss: None,
+            aicc: None,
+            asymptote: None,
+            error: Some(e.to_string()),
+        },
+    }
+}
+
+/// Sentences for consecutive sizes whose mean skill falls by more than twice the combined
+/// standard error.
+fn drops(points: &[curves::CurvePoint]) -> Vec<String> {
+    points
+        .windows(2)
+        .filter_map(|w| {
+            let (a, b) = (w[0], w[1]);
+            let noise = (a.standard_error.powi(2) + b.standard_error.powi(2)).sqrt();
+            (noise > 0.0 && a.mean - b.mean > 2.0 * noise).then(|| {
+                format!(
+                    "the measured skill falls from {:.3} at {} samples to {:.3} at {}, more than its noise (± {:.3}); likely causes: an untuned penalty, unstable forecasts, or censoring at the maximum lead",
+                    a.mean, a.n, b.mean, b.n, noise
+                )
+            })
+        })
+        .collect()
+}
+
+/// Everything one target's estimate is decided from.
+struct Evidence<'a> {
+    /// The measured size means and their standard errors.
+    points: &'a [curves::CurvePoint],
+    ranked: &'a RankedFits,
+    /// Bootstrap of the families' n* (families drawn by weight).
+    draws: &'a curves::TargetDraws,
+    /// Bootstrap of the in-data crossing.
+    crossings: &'a CrossingDraws,
+    level: f64,
     trust_factor: f64,
-    cost: Option<&Campaign>,
-) -> TargetEstimate {
-    let largest = points.last().map(|p| p.n).unwrap_or(f64::NAN);
-    // Bootstrap curves crossing the target below the smallest measured size are not evidence of
-    // fewer samples: such draws count at the smallest size.
-    let smallest = points.first().map(|p| p.n).unwrap_or(f64::NAN);
-    let floor = |v: Option<f64>| v.map(|v| v.max(smallest));
-    let interval = [floor(draws.lower), floor(draws.upper)];
-    let price = |n: Option<f64>| n.and_then(|n| cost.map(|c| c.budget(n)));
+    context: &'a CurveContext<'a>,
+    cost: Option<&'a Campaign>,
+}
+
+/// The no-training-needed estimate when the target is at or below the persistence floor.
+fn floor_estimate(target: f64, floor: Option<f64>) -> Option<TargetEstimate> {
+    let floor = floor.filter(|f| target <= *f)?;
+    Some(TargetEstimate {
+        status: EstimateStatus::NoTrainingNeeded,
+        p_unreachable: 0.0,
+        note: format!(
+            "the target is at or below the persistence floor (mean valid time {floor:.3}): repeating the initial state already reaches it, no training data needed"
+        ),
+        ..TargetEstimate::no_fit(target, "")
+    })
+}
+
+/// The estimate for one target:
+///
+/// - **no training needed**: the target is at or below the persistence floor;
+/// - **at the smallest size**: the isotonic size means reach it at the smallest measured size —
+///   "n* ≤ n_min", priced as an upper bound, no point estimate;
+/// - **reached in the data**: they cross it between two measured sizes — n* interpolated in
+///   ln n, its interval the bootstrap of the same interpolation, clipped to the measured range
+///   (the upper end reads "> n_max" when more than (1 − level)/2 of the draws do not cross);
+/// - not reached in the data: the ranked families extrapolate ([`extrapolate`]); a curve that
+///   levels off clearly below the target (asymptote + 2 se < target) is **unreachable**, one
+///   whose plateau is within noise of the target — or measured means that flatten out just
+///   below it — **near plateau**; a curve reaching it is **extrapolated** with the calibrated
+///   interval (hull with the families' bootstrap interval) when the study's hindsight supports
+///   its extrapolation factor (and it is within the trust factor), otherwise **beyond
+///   support** with only the defensible lower bound;
+/// - **no fit**: no family could be used.
+///
+/// The estimate always lies inside its interval (checked).
+fn estimate(ev: &Evidence, target: f64) -> TargetEstimate {
+    if let Some(e) = floor_estimate(target, ev.context.floor) {
+        return e;
+    }
+    let points = ev.points;
+    let ns: Vec<f64> = points.iter().map(|p| p.n).collect();
+    let smallest = ns[0];
+    let largest = *ns.last().expect("at least one size");
+    let price = |n: Option<f64>| n.and_then(|n| ev.cost.map(|c| c.budget(n)));
     let pct = |p: f64| format!("{:.0}%", 100.0 * p);
-    let unreachable_note = if draws.p_unreachable > 0.0 {
-        format!(
-            "; in {} of bootstrap draws the curve never reaches the target",
-            pct(draws.p_unreachable)
-        )
-    } else {
-        String::new()
-    };
-    let first_in_data = points.iter().find(|p| p.mean >= target);
+    let iso = isotonic_means(points);
     let base = TargetEstimate {
-        target,
-        status: EstimateStatus::Unreachable,
-        samples: None,
-        median_samples: floor(draws.median),
-        samples_interval: interval,
-        p_unreachable: draws.p_unreachable,
-        budget: None,
-        budget_low: price(interval[0]),
-        budget_high: price(interval[1]),
-        asymptote: fit.family.asymptote(&fit.params),
-        extrapolation: None,
-        note: String::new(),
+        p_unreachable: 0.0,
+        ..TargetEstimate::no_fit(target, "")
     };
-    match (fit.invert(target), first_in_data) {
-        (inv, Some(p)) => {
-            let n = match inv {
-                // The curve below the smallest measured size is not evidence: report that size.
-                Inversion::Reached { n } if n <= p.n => n.max(points[0].n),
-                _ => p.n,
+    let e = match first_crossing(&ns, &iso, target) {
+        Crossing::AtSmallest => TargetEstimate {
+            status: EstimateStatus::AtSmallestSize,
+            samples_interval: [None, Some(smallest)],
+            budget_high: price(Some(smallest)),
+            note: format!(
+                "met at the smallest measured size: n* ≤ {smallest:.0}; measure smaller subsets to find out how few suffice"
+            ),
+            ..base
+        },
+        Crossing::Between { n, below } => {
+            let beyond = ev.crossings.beyond_share();
+            let (lo, hi, open) = match ev.crossings.interval(ev.level) {
+                Some([lo, hi]) => {
+                    let open = hi.is_infinite();
+                    let hi = if open { largest } else { hi.clamp(n, largest) };
+                    (lo.clamp(smallest, n), hi, open)
+                }
+                // Without draws, the bracketing sizes.
+                None => (ns[below], ns[below + 1], false),
             };
             TargetEstimate {
                 status: EstimateStatus::ReachedInData,
                 samples: Some(n),
+                median_samples: ev
+                    .crossings
+                    .interval(0.0)
+                    .map(|[m, _]| m)
+                    .filter(|m| m.is_finite()),
+                samples_interval: [Some(lo), Some(hi)],
+                upper_beyond_data: open,
                 budget: price(Some(n)),
+                budget_low: price(Some(lo)),
+                budget_high: price(Some(hi)),
                 extrapolation: Some(n / largest),
-                note: if p.n == smallest {
-                    format!(
-                        "already reached at the smallest measured size ({} samples): fewer may do; measure smaller subsets to find out{unreachable_note}",
-                        p.n
-                    )
-                } else {
-                    format!(
-                        "the measured mean reaches the target at {} samples{unreachable_note}",
-                        p.n
-                    )
-                },
-                ..base
-            }
-        }
-        (Inversion::Reached { n }, None) => {
-            let beyond = n > trust_factor * largest;
-            TargetEstimate {
-                status: if beyond {
-                    EstimateStatus::Extrapolated
-                } else {
-                    EstimateStatus::Reachable
-                },
-                samples: Some(n),
-                budget: price(Some(n)),
-                extrapolation: Some(n / largest),
-                note: if beyond {
-                    format!(
-                        "extrapolated {:.1}× beyond the largest measured size (trust range {trust_factor}×){unreachable_note}",
-                        n / largest
-                    )
-                } else if interval[1].is_none() {
-                    format!(
-                        "the upper end is unbounded: n* ≥ {}{unreachable_note}",
-                        interval[0].map(|l| format!("{l:.0}")).unwrap_or_else(|| "?".into())
-                    )
-                } else {
-                    format!("{:.1}× the largest measured size{unreachable_note}", n / largest)
-                },
-                ..base
-            }
-        }
-        (Inversion::Unreachable { asymptote, reason }, None) => TargetEstimate {
-            asymptote: asymptote.or(base.asymptote),
-            note: match asymptote {
-                Some(a) => format!(
-                    "the fitted curve levels off at {a:.3}, at or below the target; unreachable in {} of bootstrap draws",
-                    pct(draws.p_unreachable)
+                note: format!(
+                    "the measured means cross the target between {:.0} and {:.0} samples (isotonic means, interpolated in ln n){}",
+                    ns[below],
+                    ns[below + 1],
+                    if open {
+                        format!(
+                            "; in {} of bootstrap draws the data do not reach it, so the upper end is only > {largest:.0}",
+                            pct(beyond)
+                        )
+                    } else {
+                        String::new()
+                    }
                 ),
-                None => reason,
+                ..base
+            }
+        }
+        Crossing::NotReached => beyond_the_data(ev, target, &iso, base),
+    };
+    e.check_inside();
+    e
+}
+
+/// The estimate of a target the measured means do not reach (see [`estimate`]).
+fn beyond_the_data(
+    ev: &Evidence,
+    target: f64,
+    iso: &[f64],
+    base: TargetEstimate,
+) -> TargetEstimate {
+    let points = ev.points;
+    let largest = points.last().map_or(f64::NAN, |p| p.n);
+    let price = |n: Option<f64>| n.and_then(|n| ev.cost.map(|c| c.budget(n)));
+    let pct = |p: f64| format!("{:.0}%", 100.0 * p);
+    let (extrapolation, rejected_fits) = extrapolate(ev.ranked, points, target);
+    let base = TargetEstimate {
+        p_unreachable: ev.draws.p_unreachable,
+        rejected_fits,
+        ..base
+    };
+    // The measured means flatten out within noise just below the target.
+    let noise = {
+        let se = points.last().map_or(0.0, |p| p.standard_error);
+        if se > 0.0 {
+            se
+        } else {
+            ev.ranked
+                .selected()
+                .and_then(|f| f.residual_sd())
+                .unwrap_or(0.0)
+        }
+    };
+    let m = iso.len();
+    let flattened = m >= 2 && iso[m - 1] - iso[m - 2] < 2.0 * noise;
+    let near_top = target - iso[m - 1] < 2.0 * noise;
+    let near_plateau = |reason: String| {
+        TargetEstimate {
+        status: EstimateStatus::NearPlateau,
+        note: format!(
+            "the target is within noise of where this model levels off ({reason}); more data may not get there"
+        ),
+        ..base.clone()
+    }
+    };
+    if flattened && near_top {
+        return near_plateau(format!(
+            "the measured means flatten out at {:.3}, within twice their noise (± {noise:.3}) of it",
+            iso[m - 1]
+        ));
+    }
+    match extrapolation {
+        Extrapolation::NoCurve => TargetEstimate {
+            status: EstimateStatus::NoFit,
+            p_unreachable: 1.0,
+            note: if base.rejected_fits.is_empty() {
+                "no learning curve could be fitted".into()
+            } else {
+                format!(
+                    "every fitted family was passed over for this target ({} of them; see the rejected fits)",
+                    base.rejected_fits.len()
+                )
             },
             ..base
         },
+        Extrapolation::LevelsOff {
+            asymptote,
+            asymptote_se,
+            reason,
+            ..
+        } => match (asymptote, asymptote_se) {
+            (Some(a), Some(se)) if a + 2.0 * se >= target => near_plateau(format!(
+                "the fitted plateau is {a:.3} ± {se:.3}"
+            )),
+            (Some(a), _) => TargetEstimate {
+                status: EstimateStatus::Unreachable,
+                asymptote: Some(a),
+                note: format!(
+                    "the fitted curve levels off at {a:.3}{}, clearly below the target; unreachable in {} of bootstrap draws",
+                    asymptote_se.map(|s| format!(" ± {s:.3}")).unwrap_or_default(),
+                    pct(ev.draws.p_unreachable)
+                ),
+                ..base
+            },
+            (None, _) => TargetEstimate {
+                status: EstimateStatus::Unreachable,
+                note: reason,
+                ..base
+            },
+        },
+        Extrapolation::Reaches { family, n } => {
+            let fit = ev
+                .ranked
+                .results
+                .iter()
+                .find(|(f, _)| *f == family)
+                .and_then(|(_, r)| r.as_ref().ok())
+                .expect("the extrapolating family was fitted");
+            let (asymptote, asymptote_se) = crate::curves::calibration::asymptote_with_se(fit);
+            // A plateau within its own uncertainty of the target counts only where the measured
+            // means have flattened too (an unconstrained asymptote far from the data is no
+            // evidence of a plateau).
+            if let (Some(a), Some(se), true) = (asymptote, asymptote_se, flattened) {
+                if (a - target).abs() < 2.0 * se {
+                    return near_plateau(format!("the fitted plateau is {a:.3} ± {se:.3}"));
+                }
+            }
+            let calibration = ev.context.calibration;
+            let factor = n / largest;
+            let support = calibration.support.map(|s| s.min(ev.trust_factor));
+            let within_trust = factor <= ev.trust_factor;
+            let boot = [ev.draws.lower, ev.draws.upper];
+            let predicted = if within_trust {
+                calibration.predict(n, largest)
+            } else {
+                match calibration.predict(n, largest) {
+                    Calibrated::Supported { lower, .. } => Calibrated::Unsupported {
+                        lower: Some(lower),
+                    },
+                    other => other,
+                }
+            };
+            let answered = match predicted {
+                Calibrated::Supported {
+                    point,
+                    lower,
+                    upper,
+                } => upper
+                    .or(boot[1].filter(|u| *u >= point))
+                    .map(|upper| (point, lower, upper)),
+                Calibrated::Unsupported { .. } => None,
+            };
+            let base = TargetEstimate {
+                asymptote,
+                curve_samples: Some(n),
+                curve_family: Some(family),
+                support_factor: support,
+                ..base
+            };
+            match answered {
+                Some((point, lower, upper)) => {
+                    let point = point.max(largest);
+                    let lo = boot[0]
+                        .map_or(lower, |b| b.min(lower))
+                        .max(largest)
+                        .min(point);
+                    let hi = boot[1].map_or(upper, |b| b.max(upper)).max(point);
+                    TargetEstimate {
+                        status: EstimateStatus::Extrapolated,
+                        samples: Some(point),
+                        median_samples: ev.draws.median,
+                        samples_interval: [Some(lo), Some(hi)],
+                        budget: price(Some(point)),
+                        budget_low: price(Some(lo)),
+                        budget_high: price(Some(hi)),
+                        extrapolation: Some(point / largest),
+                        note: format!(
+                            "not reached in the data; the {} curve reaches it at {n:.0} samples ({factor:.2}× the largest measured size), calibrated by {} hindsight pairs of this study (checked up to {:.2}×)",
+                            family.label(),
+                            calibration.finite,
+                            support.unwrap_or(f64::NAN)
+                        ),
+                        ..base
+                    }
+                }
+                None => {
+                    let bound = match (predicted, support) {
+                        (Calibrated::Unsupported { lower: Some(l) }, Some(s))
+                            if l > s * largest && s > 1.0 =>
+                        {
+                            s * largest
+                        }
+                        _ => largest,
+                    };
+                    let why = if !calibration.usable() {
+                        format!(
+                            "the study's hindsight has {} usable pairs, fewer than the {} a calibrated interval needs",
+                            calibration.finite,
+                            crate::curves::calibration::MIN_CALIBRATION_PAIRS
+                        )
+                    } else if calibration.infinite > 0 && factor <= support.unwrap_or(0.0) {
+                        format!(
+                            "in {} of the study's hindsight pairs the truncated curve never reached a level the data later reached, so no upper end can be defended",
+                            calibration.infinite
+                        )
+                    } else {
+                        format!(
+                            "the curves put n* beyond the {:.2}× the largest measured size that this study's hindsight {}",
+                            support.unwrap_or(f64::NAN),
+                            if support.is_some_and(|s| s < calibration.support.unwrap_or(0.0)) {
+                                "and the trust factor allow"
+                            } else {
+                                "has checked"
+                            }
+                        )
+                    };
+                    TargetEstimate {
+                        status: EstimateStatus::BeyondSupport,
+                        samples_interval: [Some(bound), None],
+                        budget_low: price(Some(bound)),
+                        note: format!(
+                            "beyond what this pilot can support: needs more than {:.2}× the largest measured size ({largest:.0} samples); {why}",
+                            bound / largest
+                        ),
+                        ..base
+                    }
+                }
+            }
+        }
     }
 }
 
 #[cfg(test)]
 mod tests {
-    //! Today's rules of [`estimate`], pinned case by case on hand-built inputs: the curve
-    //! c − a·n^(−b) with c = 3, a = 20, b = 0.5 (skill 1 at n = 100, 2 at 400, 2.5 at 1,600;
-    //! the inverse is n = (20 / (3 − S))²) and four measured sizes, 100 to 800. Each test
-    //! states the expected estimate in full, so a deliberate change of a rule changes one
-    //! place here.
+    //! The estimate rules on hand-built skill grids: sizes 1,000 · √2^i, three replicates of
+    //! twenty initial conditions each with a small deterministic spread around a chosen mean.
     use super::*;
     use crate::cost::CostInputs;
-    use crate::curves::{CurveFit, CurvePoint, FitScale, TargetDraws};
+    use crate::curves::calibration::HindsightPair;
+    use crate::curves::FitScale;
 
-    /// c − a·n^(−b) with c = 3, a = 20, b = 0.5.
-    fn saturating() -> CurveFit {
-        CurveFit {
-            family: Family::SaturatingPowerLaw,
-            params: vec![3.0, 20.0, 0.5],
-            std_errors: None,
-            weighted_rss: 1.0,
-            aicc: None,
-            points: 4,
-            converged: true,
-            scale: FitScale::Linear,
-            direction: Default::default(),
-            weighting: Default::default(),
-            bounds: Default::default(),
-        }
-    }
-
-    /// Measured means at 100, 200, 400 and 800 samples (close to the curve, 2.05 at 400
-    /// slightly above it).
-    fn measured() -> Vec<CurvePoint> {
-        [(100.0, 1.0), (200.0, 1.6), (400.0, 2.05), (800.0, 2.3)]
+    /// Sizes 1000·√2^i for i < `count`, each with the given mean skill; replicate r and initial
+    /// condition c add `spread`·((7r + 3c) mod 11 − 5)/11 (mean over a replicate ≈ the mean).
+    fn grid(means: &[f64], spread: f64) -> Vec<SkillGrid> {
+        means
             .iter()
-            .map(|&(n, mean)| CurvePoint {
-                n,
-                mean,
-                standard_error: 0.05,
+            .enumerate()
+            .map(|(i, &m)| SkillGrid {
+                n: (1000.0 * 2f64.sqrt().powi(i as i32)).round(),
+                values: (0..3)
+                    .map(|r| {
+                        (0..20)
+                            .map(|c| m + spread * (((7 * r + 3 * c + i) % 11) as f64 - 5.0) / 11.0)
+                            .collect()
+                    })
+                    .collect(),
                 censored: false,
             })
             .collect()
     }
 
-    /// Bootstrap draws for `target` with the given interval, median and unreachable share.
-    fn draws(
-        target: f64,
-        [lower, upper]: [Option<f64>; 2],
-        median: Option<f64>,
-        p_unreachable: f64,
-    ) -> TargetDraws {
-        TargetDraws {
-            target,
+    fn settings() -> CurveSettings {
+        CurveSettings {
+            scale: FitScale::Linear,
             draws: 200,
-            failed: 0,
-            unreachable: (200.0 * p_unreachable) as usize,
-            p_unreachable,
-            median,
-            lower,
-            upper,
             level: 0.9,
-            family_draws: vec![(Family::SaturatingPowerLaw, 200)],
+            trust_factor: 1000.0,
+            seed: 7,
         }
     }
 
-    /// The estimate without a cost model and with a trust range of 4× the largest size.
-    fn estimate_of(target: f64, d: &TargetDraws) -> TargetEstimate {
-        estimate(&saturating(), target, d, &measured(), 4.0, None)
+    /// No hindsight pairs: nothing beyond the data can be supported.
+    fn uncalibrated() -> Calibration {
+        Calibration::from_pairs(Vec::new(), 0.9)
     }
 
-    /// The estimate every case starts from: nothing reached, nothing priced.
-    fn expected(target: f64, d: &TargetDraws) -> TargetEstimate {
-        TargetEstimate {
-            target,
-            status: EstimateStatus::Unreachable,
-            samples: None,
-            median_samples: d.median,
-            samples_interval: [d.lower, d.upper],
-            p_unreachable: d.p_unreachable,
-            budget: None,
-            budget_low: None,
-            budget_high: None,
-            asymptote: Some(3.0),
-            extrapolation: None,
-            note: String::new(),
-        }
+    fn analyse(g: &[SkillGrid], targets: &[f64], c: &Calibration) -> CurveAnalysis {
+        analyse_curve(
+            g,
+            targets,
+            &settings(),
+            None,
+            &CurveContext {
+                calibration: c,
+                floor: Some(0.1),
+            },
+        )
     }
 
-    fn close(a: f64, b: f64) -> bool {
-        (a - b).abs() <= 1e-9 * b.abs()
+    /// A saturating curve 2 − 40/√n.
+    fn saturating(count: usize) -> Vec<f64> {
+        (0..count)
+            .map(|i| 2.0 - 40.0 / (1000.0 * 2f64.sqrt().powi(i as i32)).sqrt())
+            .collect()
     }
 
-    /// Target 1.8: the mean first reaches it at 400 samples; the curve crosses it earlier, at
-    /// (20/1.2)² ≈ 278 samples, and that crossing is n*.
+    /// A target between two measured means takes n* interpolated in ln n between the
+    /// bracketing sizes, strictly inside them, with a bounded interval inside the data.
     #[test]
-    fn reached_in_the_data_takes_the_curve_crossing_below_the_first_size_reaching_it() {
-        let d = draws(1.8, [Some(200.0), Some(380.0)], Some(280.0), 0.0);
-        let e = estimate_of(1.8, &d);
-        let n = (20.0_f64 / 1.2).powi(2);
-        assert!(close(e.samples.unwrap(), n), "{e:?}");
-        assert_eq!(
-            e,
-            TargetEstimate {
-                status: EstimateStatus::ReachedInData,
-                samples: e.samples,
-                extrapolation: Some(e.samples.unwrap() / 800.0),
-                note: "the measured mean reaches the target at 400 samples".into(),
-                ..expected(1.8, &d)
-            }
-        );
+    fn reached_in_the_data_interpolates_between_the_bracketing_sizes() {
+        let means = saturating(7);
+        let g = grid(&means, 0.05);
+        // Halfway between the means at sizes 2 and 3.
+        let target = 0.5 * (means[2] + means[3]);
+        let a = analyse(&g, &[target], &uncalibrated());
+        let e = &a.estimates[0];
+        assert_eq!(e.status, EstimateStatus::ReachedInData, "{e:?}");
+        let n = e.samples.unwrap();
+        let expected = (g[2].n.ln() * 0.5 + g[3].n.ln() * 0.5).exp();
+        assert!((n / expected - 1.0).abs() < 0.02, "{n} vs {expected}");
+        assert!(n > g[2].n && n < g[3].n);
+        let [lo, hi] = e.samples_interval;
+        assert!(lo.unwrap() >= g[0].n && hi.unwrap() <= g[6].n, "{e:?}");
+        assert!(lo.unwrap() <= n && n <= hi.unwrap());
+        assert!(!e.upper_beyond_data);
     }
 
-    /// Target 2.04: the mean reaches it at 400 samples, but the curve crosses only at
-    /// (20/0.96)² ≈ 434: the measured size wins over a curve that disagrees with it.
+    /// A reached-in-data row never has an unbounded upper end: when the data barely reach the
+    /// target at the largest size, the upper end is that size, marked "more than".
     #[test]
-    fn reached_in_the_data_never_takes_more_than_the_first_size_reaching_it() {
-        let d = draws(2.04, [Some(300.0), Some(600.0)], Some(420.0), 0.0);
-        let e = estimate_of(2.04, &d);
-        assert_eq!(
-            e,
-            TargetEstimate {
-                status: EstimateStatus::ReachedInData,
-                samples: Some(400.0),
-                extrapolation: Some(0.5),
-                note: "the measured mean reaches the target at 400 samples".into(),
-                ..expected(2.04, &d)
-            }
-        );
+    fn a_reached_in_data_row_has_no_unbounded_upper_end() {
+        let g = grid(&saturating(6), 0.4);
+        let points = curves::summarise(&g.iter().map(|x| x.replicate_means()).collect::<Vec<_>>());
+        let target = isotonic_means(&points)[5] - 0.001;
+        let e = &analyse(&g, &[target], &uncalibrated()).estimates[0];
+        assert_eq!(e.status, EstimateStatus::ReachedInData, "{e:?}");
+        assert!(e.samples_interval[1].is_some(), "{e:?}");
+        assert!(e.upper_beyond_data, "{e:?}");
+        assert_eq!(e.samples_interval[1], Some(g[5].n));
+        assert!(e
+            .samples_range(|v| format!("{v:.0}"))
+            .contains("to more than"));
     }
 
-    /// Target 0.5: the smallest size already reaches it and the curve crosses at 64 samples,
-    /// below what was measured: n* is the smallest size, and the note says fewer may do. The
-    /// interval's lower end and the median, below 100, are raised to it.
+    /// Met at the smallest size: "at most n_min", no point estimate, priced as an upper bound.
     #[test]
-    fn reached_at_the_smallest_size_reports_that_size_and_floors_the_interval() {
-        let d = draws(0.5, [Some(40.0), Some(150.0)], Some(70.0), 0.0);
-        let e = estimate_of(0.5, &d);
-        assert_eq!(
-            e,
-            TargetEstimate {
-                status: EstimateStatus::ReachedInData,
-                samples: Some(100.0),
-                median_samples: Some(100.0),
-                samples_interval: [Some(100.0), Some(150.0)],
-                extrapolation: Some(0.125),
-                note: "already reached at the smallest measured size (100 samples): fewer may \
-                       do; measure smaller subsets to find out"
-                    .into(),
-                ..expected(0.5, &d)
-            }
-        );
-    }
-
-    /// Target 2.5: no measured mean reaches it; the curve crosses at 1,600 samples, 2× the
-    /// largest size, inside the trust range of 4×.
-    #[test]
-    fn reachable_within_the_trust_range() {
-        let d = draws(2.5, [Some(1200.0), Some(2500.0)], Some(1650.0), 0.0);
-        let e = estimate_of(2.5, &d);
-        assert_eq!(
-            e,
-            TargetEstimate {
-                status: EstimateStatus::Reachable,
-                samples: Some(1600.0),
-                extrapolation: Some(2.0),
-                note: "2.0× the largest measured size".into(),
-                ..expected(2.5, &d)
-            }
-        );
-    }
-
-    /// Target 2.5 with an unbounded upper end: the note gives the one-sided bound instead.
-    #[test]
-    fn reachable_with_an_unbounded_upper_end_says_so() {
-        let d = draws(2.5, [Some(1200.0), None], None, 0.0);
-        let e = estimate_of(2.5, &d);
-        assert_eq!(
-            e,
-            TargetEstimate {
-                status: EstimateStatus::Reachable,
-                samples: Some(1600.0),
-                extrapolation: Some(2.0),
-                note: "the upper end is unbounded: n* ≥ 1200".into(),
-                ..expected(2.5, &d)
-            }
-        );
-    }
-
-    /// Target 2.75: the curve crosses at 6,400 samples, 8× the largest size, beyond the trust
-    /// range of 4×; draws that never reach the target are counted in the note.
-    #[test]
-    fn extrapolated_beyond_the_trust_range() {
-        let d = draws(2.75, [Some(3000.0), None], Some(7000.0), 0.1);
-        let e = estimate_of(2.75, &d);
-        assert_eq!(
-            e,
-            TargetEstimate {
-                status: EstimateStatus::Extrapolated,
-                samples: Some(6400.0),
-                extrapolation: Some(8.0),
-                note: "extrapolated 8.0× beyond the largest measured size (trust range 4×); in \
-                       10% of bootstrap draws the curve never reaches the target"
-                    .into(),
-                ..expected(2.75, &d)
-            }
-        );
-    }
-
-    /// Target 3.2, above the fitted asymptote 3: unreachable, with the level in the note.
-    #[test]
-    fn unreachable_above_the_asymptote() {
-        let d = draws(3.2, [Some(5000.0), None], None, 0.95);
-        let e = estimate_of(3.2, &d);
-        assert_eq!(
-            e,
-            TargetEstimate {
-                note: "the fitted curve levels off at 3.000, at or below the target; \
-                       unreachable in 95% of bootstrap draws"
-                    .into(),
-                ..expected(3.2, &d)
-            }
-        );
-    }
-
-    /// A curve without an asymptote that does not rise (−√n): unreachable, and the note is the
-    /// curve's own reason.
-    #[test]
-    fn unreachable_without_an_asymptote_gives_the_curves_reason() {
-        let falling = CurveFit {
-            family: Family::PowerLaw,
-            params: vec![-1.0, 0.5],
-            ..saturating()
-        };
-        let d = draws(2.5, [None, None], None, 1.0);
-        let e = estimate(&falling, 2.5, &d, &measured(), 4.0, None);
-        let Inversion::Unreachable { reason, .. } = falling.invert(2.5) else {
-            panic!("a falling curve reaches nothing")
-        };
-        assert!(reason.contains("not increasing"), "{reason}");
-        assert_eq!(
-            e,
-            TargetEstimate {
-                asymptote: None,
-                note: reason,
-                ..expected(2.5, &d)
-            }
-        );
-    }
-
-    /// With a cost model, n* and the interval ends (after the floor) are priced.
-    #[test]
-    fn budgets_price_the_estimate_and_the_floored_interval() {
+    fn met_at_the_smallest_size_is_an_upper_bound() {
         let cost = CostInputs {
             core_hours_per_time_unit: Some(100.0),
             ..CostInputs::default()
         }
         .campaign(8, 0.01)
         .unwrap();
-        let d = draws(2.5, [Some(60.0), Some(2500.0)], Some(1650.0), 0.0);
-        let e = estimate(&saturating(), 2.5, &d, &measured(), 4.0, Some(&cost));
-        assert_eq!(e.samples_interval, [Some(100.0), Some(2500.0)]);
-        assert_eq!(e.budget, Some(cost.budget(1600.0)));
-        assert_eq!(e.budget_low, Some(cost.budget(100.0)));
-        assert_eq!(e.budget_high, Some(cost.budget(2500.0)));
-        let unreachable = estimate(
-            &saturating(),
-            3.2,
-            &draws(3.2, [Some(60.0), None], None, 0.95),
-            &measured(),
-            4.0,
+        let g = grid(&saturating(6), 0.05);
+        let c = uncalibrated();
+        let a = analyse_curve(
+            &g,
+            &[0.3],
+            &settings(),
             Some(&cost),
+            &CurveContext {
+                calibration: &c,
+                floor: None,
+            },
         );
-        assert_eq!(unreachable.budget, None);
-        assert_eq!(unreachable.budget_low, Some(cost.budget(100.0)));
-        assert_eq!(unreachable.budget_high, None);
+        let e = &a.estimates[0];
+        assert_eq!(e.status, EstimateStatus::AtSmallestSize);
+        assert_eq!(e.samples, None);
+        assert_eq!(e.samples_interval, [None, Some(1000.0)]);
+        assert_eq!(e.budget, None);
+        assert_eq!(e.budget_high, Some(cost.budget(1000.0)));
+        assert_eq!(e.samples_range(|v| format!("{v:.0}")), "at most 1000");
     }
 
-    /// Two sizes are too few for any family (each needs one point more than its parameters):
-    /// every target gets the no-fit estimate.
+    /// Targets at or below the persistence floor need no training.
     #[test]
-    fn no_family_fitted_gives_no_fit_for_every_target() {
-        let grid: Vec<SkillGrid> = [(100.0, 1.0), (200.0, 1.5)]
+    fn targets_at_the_floor_need_no_training() {
+        let g = grid(&saturating(6), 0.05);
+        let e = &analyse(&g, &[0.05], &uncalibrated()).estimates[0];
+        assert_eq!(e.status, EstimateStatus::NoTrainingNeeded);
+        assert_eq!(e.samples, None);
+    }
+
+    /// A slowly rising curve (0.1·ln n) and a target far beyond it: the curves would put n* at
+    /// an astronomical size; without hindsight support the answer is a lower bound at the
+    /// largest size and no number with twenty digits.
+    #[test]
+    fn far_targets_are_beyond_support_not_astronomical() {
+        let means: Vec<f64> = (0..6)
+            .map(|i| 0.1 * (1000.0 * 2f64.sqrt().powi(i)).ln())
+            .collect();
+        let g = grid(&means, 0.01);
+        let a = analyse(&g, &[3.0], &uncalibrated());
+        let e = &a.estimates[0];
+        assert_eq!(e.status, EstimateStatus::BeyondSupport, "{e:?}");
+        assert_eq!(e.samples, None);
+        assert_eq!(e.budget, None);
+        assert_eq!(e.samples_interval, [Some(g[5].n), None]);
+        assert!(
+            e.note.starts_with("beyond what this pilot can support"),
+            "{}",
+            e.note
+        );
+        assert!(
+            !e.note
+                .split(|c: char| !c.is_ascii_digit())
+                .any(|d| d.len() > 9),
+            "{}",
+            e.note
+        );
+    }
+
+    /// Step-shaped data (flat, then a jump between two sizes, then flat): every accepted fit is
+    /// a learning-curve shape, not a step at the jump, and the in-data answer for a level in the
+    /// jump lies between the bracketing sizes.
+    #[test]
+    fn step_shaped_data_get_no_step_function_fit() {
+        let means = [0.5, 0.5, 0.51, 1.5, 1.5, 1.51, 1.52];
+        let g = grid(&means, 0.05);
+        let a = analyse(&g, &[1.0], &uncalibrated());
+        let (lo, hi) = (g[2].n, g[3].n);
+        for f in a.fits.iter().filter(|f| f.error.is_none()) {
+            let p: Vec<f64> = f
+                .family
+                .param_names()
+                .iter()
+                .map(|k| f.params[*k])
+                .collect();
+            let rise = f.family.eval(&p, hi * 0.999) - f.family.eval(&p, lo * 1.001);
+            let total = f.family.eval(&p, g[6].n) - f.family.eval(&p, g[0].n);
+            let mid = (lo * hi).sqrt();
+            let jump = f.family.eval(&p, mid * 1.001) - f.family.eval(&p, mid * 0.999);
+            assert!(
+                jump < 0.5 * total.abs().max(1e-9) && rise.is_finite(),
+                "{:?} is a step: {f:?}",
+                f.family
+            );
+        }
+        let e = &a.estimates[0];
+        assert_eq!(e.status, EstimateStatus::ReachedInData);
+        let n = e.samples.unwrap();
+        assert!(n > lo && n < hi, "{n}");
+    }
+
+    /// Calibrated extrapolation: with enough hindsight pairs supporting the factor, a target
+    /// above the data gets a bounded interval around a calibrated point beyond the data.
+    #[test]
+    fn supported_extrapolation_is_calibrated_and_bounded() {
+        let means = saturating(6);
+        let g = grid(&means, 0.02);
+        let pairs: Vec<HindsightPair> = [-0.1, 0.0, 0.05, 0.1, 0.15, 0.2]
             .iter()
-            .map(|&(n, m)| SkillGrid {
-                n,
-                values: vec![vec![m * 0.98], vec![m * 1.02]],
-                censored: false,
+            .map(|&e| HindsightPair {
+                curve: "other".into(),
+                truncated_at: 1000.0,
+                level: 1.0,
+                measured: 5000.0,
+                predicted: Some(5000.0 * f64::exp(e)),
+                factor: 5.0,
+                error: Some(e),
             })
             .collect();
-        let settings = CurveSettings {
-            scale: FitScale::Linear,
-            draws: 50,
-            level: 0.9,
-            trust_factor: 2.0,
-            seed: 1,
-        };
-        let a = analyse_curve(&grid, &[1.2, 2.0], &settings, None);
+        let c = Calibration::from_pairs(pairs, 0.9);
+        // 2 − 40/√n reaches 1.5 at n = 6400, about 1.1× the largest size 5657.
+        let a = analyse(&g, &[1.5], &c);
+        let e = &a.estimates[0];
+        assert_eq!(e.status, EstimateStatus::Extrapolated, "{e:?}");
+        let n = e.samples.unwrap();
+        let [lo, hi] = e.samples_interval;
+        assert!(
+            lo.unwrap() >= g[5].n && n <= hi.unwrap() && lo.unwrap() <= n,
+            "{e:?}"
+        );
+        assert!(n > 4000.0 && n < 12000.0, "{e:?}");
+        assert!(e.support_factor == Some(5.0));
+    }
+
+    /// A curve clearly levelling off below the target is unreachable; within noise of its
+    /// plateau it is near-plateau. Every estimate of many grids lies inside its interval and no
+    /// printed range is open on the side the status forbids.
+    #[test]
+    fn every_status_keeps_the_estimate_inside_its_interval() {
+        let flat: Vec<f64> = (0..7).map(|i| 1.0 - 0.5 * 0.5f64.powi(i)).collect();
+        let g = grid(&flat, 0.02);
+        let a = analyse(&g, &[1.5, 1.0 + 1e-4], &uncalibrated());
+        assert_eq!(
+            a.estimates[0].status,
+            EstimateStatus::Unreachable,
+            "{:?}",
+            a.estimates[0]
+        );
+        assert_eq!(
+            a.estimates[1].status,
+            EstimateStatus::NearPlateau,
+            "{:?}",
+            a.estimates[1]
+        );
+        for spread in [0.01, 0.1, 0.5] {
+            for shift in 0..4 {
+                let means: Vec<f64> = saturating(6 + shift % 2)
+                    .iter()
+                    .enumerate()
+                    .map(|(i, m)| m + 0.02 * ((i * 5 + shift) % 3) as f64)
+                    .collect();
+                let targets = [0.05, 0.3, 0.8, 1.2, 1.4, 1.6, 1.9, 2.5];
+                for e in analyse(&grid(&means, spread), &targets, &uncalibrated()).estimates {
+                    e.check_inside();
+                    if e.status == EstimateStatus::ReachedInData {
+                        assert!(e.samples_interval.iter().all(Option::is_some), "{e:?}");
+                    }
+                }
+            }
+        }
+    }
+
+    /// Two sizes are too few for any family: every target gets the no-fit estimate.
+    #[test]
+    fn no_family_fitted_gives_no_fit_for_every_target() {
+        let g = grid(&[1.0, 1.5], 0.02);
+        let a = analyse(&g, &[1.2, 2.0], &uncalibrated());
         assert_eq!(a.selected, None);
-        assert!(a.backtest.is_none());
         assert!(a.fits.iter().all(|f| f.error.is_some()), "{:?}", a.fits);
         assert_eq!(
             a.estimates,
@@ -752,39 +1187,16 @@ mod tests {
         );
     }
 
-    /// A target below the skill already measured at the smallest size is met there; the
-    /// estimate never reports fewer samples than were measured (the curve below the smallest
-    /// size is extrapolation, not evidence).
+    /// A mean that drops by more than its noise is flagged with the sizes.
     #[test]
-    fn targets_met_at_the_smallest_size_report_that_size() {
-        let grid: Vec<SkillGrid> = (0..6)
-            .map(|i| {
-                let n = 1000.0 * 2f64.powi(i);
-                let mean = 2.0 * (1.0 - (-n / 8000.0).exp());
-                SkillGrid {
-                    n,
-                    values: vec![vec![mean * 0.98], vec![mean], vec![mean * 1.02]],
-                    censored: false,
-                }
-            })
-            .collect();
-        let settings = CurveSettings {
-            scale: curves::FitScale::Linear,
-            draws: 50,
-            level: 0.9,
-            trust_factor: 2.0,
-            seed: 1,
-        };
-        let a = analyse_curve(&grid, &[0.05], &settings, None);
-        let e = &a.estimates[0];
-        assert_eq!(e.status, EstimateStatus::ReachedInData);
-        assert_eq!(e.samples, Some(1000.0), "{e:?}");
-        // Nor do the interval's ends or the bootstrap median go below it.
+    fn falling_skill_is_flagged() {
+        let g = grid(&[1.0, 1.2, 0.6, 1.4, 1.5], 0.02);
+        let a = analyse(&g, &[1.3], &uncalibrated());
+        assert_eq!(a.drops.len(), 1, "{:?}", a.drops);
         assert!(
-            e.samples_interval.iter().flatten().all(|&v| v >= 1000.0),
-            "{e:?}"
+            a.drops[0].contains("falls from 1.200 at 1414"),
+            "{}",
+            a.drops[0]
         );
-        assert!(e.median_samples.is_none_or(|m| m >= 1000.0), "{e:?}");
-        assert!(e.note.contains("smallest measured size"), "{}", e.note);
     }
 }

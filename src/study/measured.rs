@@ -8,7 +8,7 @@
 //! measured skill (larger is better). Several rows with the same model, n and replicate are
 //! treated as separate evaluations (e.g. test initial conditions) of one trained model.
 
-use super::analysis::{analyse_curve, CurveSettings};
+use super::analysis::{analyse_curve, calibrate, curve_warnings, CurveContext, CurveSettings};
 use super::results::{ModelResult, PlanDocument, PointResult, StudyInfo, Timings, PLAN_SCHEMA};
 use super::seeds::derive_seed;
 use crate::curves::SkillGrid;
@@ -247,6 +247,11 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
     let mut sizes: Vec<usize> = Vec::new();
     let mut replicates = 0;
     let mut models = Vec::new();
+    let named: Vec<(&str, &[SkillGrid])> = grids
+        .iter()
+        .map(|(name, grid)| (name.as_str(), grid.as_slice()))
+        .collect();
+    let calibration = calibrate(&named, options.scale, options.confidence);
     for (name, grid) in &grids {
         let seed = derive_seed(options.seed, name, usize::MAX);
         let curve = analyse_curve(
@@ -260,6 +265,10 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
                 seed,
             },
             None,
+            &CurveContext {
+                calibration: &calibration,
+                floor: None,
+            },
         );
         let points = grid
             .iter()
@@ -289,9 +298,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
             sizes.push(g.n as usize);
             replicates = replicates.max(g.values.len());
         }
-        if curve.selected.is_none() {
-            warnings.push(format!("{name}: no learning-curve family could be fitted"));
-        }
+        curve_warnings(name, &curve, &mut warnings);
         models.push(ModelResult {
             name: name.clone(),
             kind: "measured outside the tool".into(),
@@ -303,6 +310,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
             selected: curve.selected,
             backtest: curve.backtest,
             estimates: curve.estimates,
+            hindsight: Vec::new(),
         });
     }
     sizes.sort_unstable();
@@ -314,6 +322,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
     let fitting = started.elapsed().as_secs_f64();
     Ok(PlanDocument {
         transfer: None,
+        calibration: Some(calibration),
         schema: PLAN_SCHEMA.into(),
         tool_version: env!("CARGO_PKG_VERSION").into(),
         study: StudyInfo {

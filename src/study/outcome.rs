@@ -40,6 +40,8 @@ pub(super) fn store_warnings(counts: &PointCounts) -> Vec<String> {
 /// What the stages of a run measured and fitted, for its document.
 pub(super) struct Measured<'a> {
     pub models: Vec<ModelResult>,
+    /// The study's calibration of extrapolation.
+    pub calibration: crate::curves::calibration::Calibration,
     pub transfer: Option<TransferResult>,
     /// The floors per test initial condition.
     pub persistence: &'a [IcSkill],
@@ -60,6 +62,7 @@ pub(super) fn document(
 ) -> PlanDocument {
     let Measured {
         models,
+        calibration,
         transfer,
         persistence,
         climatology,
@@ -167,6 +170,7 @@ pub(super) fn document(
         campaign: Some(prep.cost.clone()),
         warnings,
         transfer,
+        calibration: Some(calibration),
         points: Some(reuse),
         timings: Timings {
             total: started.elapsed().as_secs_f64(),

@@ -11,13 +11,14 @@
 
 use super::records::SkillRecord;
 use crate::cost::{Budget, CostModel, RunTable};
+use crate::curves::calibration::{Calibration, RejectedFit};
 use crate::curves::Family;
 use crate::skill::{IcSkill, SkillSummary};
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
 /// Version tag of the `budget.json` contract.
-pub const PLAN_SCHEMA: &str = "closure-budget/plan/1";
+pub const PLAN_SCHEMA: &str = "closure-budget/budget/2";
 
 /// Everything a study (or a fit of skill measured outside the tool) produced, as the report's
 /// exporters read it: the plan document and the data behind its figures.
@@ -57,7 +58,11 @@ impl StudyResults {
                                     e.target,
                                     document.study.confidence,
                                     n,
-                                    e.samples_interval,
+                                    // An upper end that reads "more than" is unbounded here.
+                                    [
+                                        e.samples_interval[0],
+                                        e.samples_interval[1].filter(|_| !e.upper_beyond_data),
+                                    ],
                                 )
                             })
                         })
@@ -121,6 +126,10 @@ pub struct PlanDocument {
     /// Fine-tuning for a new regime; absent when the study has no `[transfer]`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub transfer: Option<TransferResult>,
+    /// The calibration of extrapolation from the study's own hindsight pairs, pooled over its
+    /// models.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub calibration: Option<Calibration>,
 }
 
 /// The new regime: its data, floors and cost, and per model the zero-shot gap and the two
@@ -145,6 +154,10 @@ pub struct TransferResult {
     pub cost: Option<CostModel>,
     pub campaign: Option<crate::cost::campaign::Campaign>,
     pub models: Vec<TransferModel>,
+    /// The calibration of extrapolation from the new regime's curves (from scratch and
+    /// fine-tuned).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub calibration: Option<Calibration>,
 }
 
 /// One model's transfer to the new regime.
@@ -246,7 +259,8 @@ pub struct StudyInfo {
     pub targets: Vec<f64>,
     pub confidence: f64,
     pub bootstrap_draws: usize,
-    /// Estimates beyond this multiple of the largest measured size are flagged as extrapolated.
+    /// No extrapolated n* beyond this multiple of the largest measured size is given, whatever
+    /// the study's hindsight supports (such targets are beyond support).
     pub trust_factor: f64,
     /// Scale of the curve-fit residuals.
     #[serde(default)]
@@ -329,6 +343,10 @@ pub struct ModelResult {
     /// Backtest cases and scores, and the family weights used by the bootstrap.
     pub backtest: Option<crate::curves::Backtest>,
     pub estimates: Vec<TargetEstimate>,
+    /// Had the pilot stopped at n_max / 4 and n_max / 8: the estimates then beside the full
+    /// data's measured n*. Empty for curves without this check (the new regime's).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub hindsight: Vec<HindsightStop>,
 }
 
 /// Skill at one subset size, over replicates and initial conditions.
@@ -406,16 +424,24 @@ pub struct FitResult {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum EstimateStatus {
-    /// A measured size already reaches the target on average.
+    /// The measured (isotonic) means cross the target between two measured sizes: n* is
+    /// interpolated in ln n between them.
     ReachedInData,
-    /// The selected curve reaches the target within the trust range (at most `trust-factor`
-    /// times the largest measured size).
-    Reachable,
-    /// The selected curve reaches the target only beyond the trust range.
+    /// Already met at the smallest measured size: n* ≤ that size, no point estimate.
+    AtSmallestSize,
+    /// Not reached in the data; the curve's extrapolation is within what the study's hindsight
+    /// supports, and n* and its interval come from the calibrated predictive distribution.
     Extrapolated,
-    /// The selected curve levels off below the target.
+    /// Not reached in the data, and the extrapolation lies beyond what the study's hindsight
+    /// supports (or there are too few hindsight pairs): only a lower bound is given.
+    BeyondSupport,
+    /// The target is within noise of where the curve levels off.
+    NearPlateau,
+    /// The selected curve levels off clearly below the target.
     Unreachable,
-    /// No curve could be fitted.
+    /// The target is at or below the persistence floor: no training data needed.
+    NoTrainingNeeded,
+    /// No curve could be fitted (or every one was passed over for this target).
     NoFit,
 }
 
@@ -424,39 +450,50 @@ impl EstimateStatus {
     pub fn label(&self) -> &'static str {
         match self {
             EstimateStatus::ReachedInData => "reached in the data",
-            EstimateStatus::Reachable => "reachable",
+            EstimateStatus::AtSmallestSize => "met at the smallest size",
             EstimateStatus::Extrapolated => "extrapolated",
+            EstimateStatus::BeyondSupport => "beyond what the pilot supports",
+            EstimateStatus::NearPlateau => "near the plateau",
             EstimateStatus::Unreachable => "unreachable",
+            EstimateStatus::NoTrainingNeeded => "no training needed",
             EstimateStatus::NoFit => "no fit",
         }
     }
 
-    /// Whether the estimate carries a sample count and a budget.
+    /// Whether the estimate carries a sample count (n*) and a budget at it.
     pub fn has_budget(&self) -> bool {
         matches!(
             self,
-            EstimateStatus::ReachedInData
-                | EstimateStatus::Reachable
-                | EstimateStatus::Extrapolated
+            EstimateStatus::ReachedInData | EstimateStatus::Extrapolated
         )
     }
 }
 
 /// Samples and cost to reach one target skill with one model.
+///
+/// What each status fills in: `reached-in-data` and `extrapolated` give `samples` (n*) inside
+/// a bounded `samples-interval` and budgets at all three; a reached-in-data interval whose
+/// bootstrap draws often do not cross within the data has `upper-beyond-data` set, and its upper
+/// end (the largest measured size) then reads "more than". `at-smallest-size` gives only the
+/// upper end (the smallest size) and `budget-high` at it, an upper bound. `beyond-support`
+/// gives only the lower end (a lower bound) and `budget-low`. The other statuses give no
+/// sample count.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub struct TargetEstimate {
     /// Target mean valid time, model time units.
     pub target: f64,
     pub status: EstimateStatus,
-    /// n* from the selected family fitted to all data.
+    /// n*: interpolated in the data, or the calibrated extrapolation.
     pub samples: Option<f64>,
-    /// Bootstrap median of n* (`None` when infinite: most draws never reach the target).
+    /// Bootstrap median of n* (in the data: of the interpolation; beyond it: of the curves).
     pub median_samples: Option<f64>,
-    /// Bootstrap interval of n*; `None` for an unbounded side (an unbounded upper end reads
-    /// "n* ≥ lower").
+    /// Interval of n* at the study's confidence; `None` for a side that is not given.
     pub samples_interval: [Option<f64>; 2],
-    /// Share of bootstrap draws whose curve never reaches the target.
+    /// The upper end is the largest measured size and n* may lie beyond it: read "> upper".
+    #[serde(default)]
+    pub upper_beyond_data: bool,
+    /// Share of the curves' bootstrap draws that never reach the target.
     pub p_unreachable: f64,
     /// Budget at n*, and at the interval ends.
     pub budget: Option<Budget>,
@@ -466,7 +503,137 @@ pub struct TargetEstimate {
     pub asymptote: Option<f64>,
     /// n* divided by the largest measured size.
     pub extrapolation: Option<f64>,
+    /// Beyond the data: n̂ where the extrapolating family's curve reaches the target, before
+    /// calibration, and that family.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub curve_samples: Option<f64>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub curve_family: Option<Family>,
+    /// Beyond the data: the largest extrapolation factor the study's hindsight supports
+    /// (capped by the trust factor).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub support_factor: Option<f64>,
+    /// Families passed over for this target, and why.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub rejected_fits: Vec<RejectedFit>,
     pub note: String,
+}
+
+impl TargetEstimate {
+    /// An estimate for a target when no learning curve could be fitted.
+    pub fn no_fit(target: f64, note: &str) -> Self {
+        TargetEstimate {
+            target,
+            status: EstimateStatus::NoFit,
+            samples: None,
+            median_samples: None,
+            samples_interval: [None, None],
+            upper_beyond_data: false,
+            p_unreachable: 1.0,
+            budget: None,
+            budget_low: None,
+            budget_high: None,
+            asymptote: None,
+            extrapolation: None,
+            curve_samples: None,
+            curve_family: None,
+            support_factor: None,
+            rejected_fits: Vec::new(),
+            note: note.to_string(),
+        }
+    }
+
+    /// Panics unless n* lies inside its interval (ends that are given), the interval is
+    /// ordered, and the status gives no sample count it does not allow.
+    pub fn check_inside(&self) {
+        let [lo, hi] = self.samples_interval;
+        if let (Some(l), Some(h)) = (lo, hi) {
+            assert!(
+                l <= h * (1.0 + 1e-12),
+                "interval {l}..{h} reversed: {self:?}"
+            );
+        }
+        if let Some(n) = self.samples {
+            assert!(
+                self.status.has_budget(),
+                "{:?} with n*: {self:?}",
+                self.status
+            );
+            assert!(n.is_finite(), "n* not finite: {self:?}");
+            assert!(
+                lo.is_some_and(|l| l <= n * (1.0 + 1e-12))
+                    && hi.is_some_and(|h| n <= h * (1.0 + 1e-12)),
+                "n* {n} outside its interval {lo:?}..{hi:?}: {self:?}"
+            );
+        }
+        assert!(
+            self.samples_interval
+                .iter()
+                .flatten()
+                .all(|v| v.is_finite()),
+            "{self:?}"
+        );
+    }
+
+    /// The sample statement in words: "18,100 (90%: 12,000–24,000)" is left to the caller;
+    /// this gives the interval or bound alone: "12,000–24,000", "12,000 to more than 64,000",
+    /// "at most 1,000", "more than 64,000", or "" when the status gives none.
+    pub fn samples_range(&self, f: impl Fn(f64) -> String) -> String {
+        match (self.status, self.samples_interval) {
+            (EstimateStatus::AtSmallestSize, [_, Some(h)]) => format!("at most {}", f(h)),
+            (EstimateStatus::BeyondSupport, [Some(l), _]) => format!("more than {}", f(l)),
+            (_, [Some(l), Some(h)]) if self.upper_beyond_data => {
+                format!("{} to more than {}", f(l), f(h))
+            }
+            (_, [Some(l), Some(h)]) => format!("{}–{}", f(l), f(h)),
+            (_, [Some(l), None]) => format!("more than {}", f(l)),
+            (_, [None, Some(h)]) => format!("at most {}", f(h)),
+            (_, [None, None]) => String::new(),
+        }
+    }
+
+    /// Whether what this estimate says holds for a later measured n*: inside the interval
+    /// (an end beyond the data, or a missing upper end, is open), at most the bound
+    /// (at-smallest-size), more than the bound (beyond-support); `None` for statuses that give
+    /// no sample range.
+    pub fn holds_for(&self, measured: f64) -> Option<bool> {
+        let [lo, hi] = self.samples_interval;
+        if lo.is_none() && hi.is_none() {
+            return None;
+        }
+        let above = lo.is_none_or(|l| measured >= l * (1.0 - 1e-9));
+        let below = self.upper_beyond_data || hi.is_none_or(|h| measured <= h * (1.0 + 1e-9));
+        Some(above && below)
+    }
+}
+
+/// What the analysis said had the pilot stopped earlier, beside what the full data measured.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct HindsightStop {
+    /// Stopped at the largest measured size ≤ n_max / `fraction`.
+    pub fraction: usize,
+    /// That size (`None` when no size is that small).
+    pub stopped_at: Option<f64>,
+    /// Sizes kept.
+    pub sizes: usize,
+    /// Per target, the estimate then; empty with too few sizes.
+    pub estimates: Vec<HindsightEstimate>,
+    pub note: String,
+}
+
+/// One target's estimate from the truncated data and the full data's measured n*.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct HindsightEstimate {
+    /// The estimate then (not priced).
+    pub estimate: TargetEstimate,
+    /// n* measured on all data (in-data interpolation); `None` when the full data do not reach
+    /// the target.
+    pub measured_now: Option<f64>,
+    /// Whether the earlier statement holds for `measured-now` (see
+    /// [`TargetEstimate::holds_for`]).
+    pub covered: Option<bool>,
 }
 
 /// How the points of a run were obtained.
@@ -585,25 +752,5 @@ impl HistoryEntry {
         self.estimates
             .iter()
             .find(|e| e.model == model && e.target == target)
-    }
-}
-
-impl TargetEstimate {
-    /// An estimate for a target when no learning curve could be fitted.
-    pub fn no_fit(target: f64, note: &str) -> Self {
-        TargetEstimate {
-            target,
-            status: EstimateStatus::NoFit,
-            samples: None,
-            median_samples: None,
-            samples_interval: [None, None],
-            p_unreachable: 1.0,
-            budget: None,
-            budget_low: None,
-            budget_high: None,
-            asymptote: None,
-            extrapolation: None,
-            note: note.to_string(),
-        }
     }
 }

@@ -20,6 +20,7 @@ use super::shards::{self, gap_detail, shard_records, Shard, ShardSummary};
 use super::status::{self, StudyStatus};
 use super::transfer::{load_new_regime, run_transfer, PilotSide};
 use super::StudyError;
+use crate::skill;
 use std::path::PathBuf;
 use std::sync::atomic::AtomicBool;
 use std::sync::Arc;
@@ -237,7 +238,14 @@ fn run_in_pool(
             if points.stored_before == 1 { "" } else { "s" }
         ));
     }
-    let models = model_results(plan, &points.records, &prep.cost, &mut warnings);
+    let floor = skill::summarise(&persistence).mean;
+    let (models, calibration) = model_results(
+        plan,
+        &points.records,
+        &prep.cost,
+        floor.is_finite().then_some(floor),
+        &mut warnings,
+    );
     timings.fitting = t0.elapsed().as_secs_f64();
 
     // A new regime: zero-shot, from scratch and fine-tuned.
@@ -277,6 +285,7 @@ fn run_in_pool(
         &prep,
         Measured {
             models,
+            calibration,
             transfer,
             persistence: &persistence,
             climatology: &climatology,

@@ -9,7 +9,7 @@
 //! bootstrap), and their inversions give the samples each needs for the new regime's targets,
 //! and so the samples and core-hours transfer saves.
 
-use super::analysis::{curve_result, CurveSubject};
+use super::analysis::{curve_results, CurveSubject};
 use super::plan::{StudyPlan, TransferGoal, TransferPlan};
 use super::points::replicate_window;
 use super::prepare::{data_info, load_regime, Regime};
@@ -189,12 +189,19 @@ pub(super) fn run_transfer(
         .collect::<Result<_, StudyError>>()?;
     progress_bar.finish_and_clear();
 
-    // Curves, inversions and savings per model.
-    let models = tp
+    // Curves, inversions and savings per model; one calibration over every new-regime curve.
+    struct Side<'a> {
+        model: usize,
+        zero_shot_replicates: Vec<f64>,
+        zero_shot: f64,
+        base_skill: f64,
+        targets: Vec<f64>,
+        mine: Vec<&'a Unit>,
+    }
+    let sides: Vec<Side> = tp
         .models
         .iter()
         .map(|&m| {
-            let model = &plan.models[m];
             let mine: Vec<&Unit> = done.iter().filter(|u| u.model == m).collect();
             let zero_shot_replicates: Vec<f64> = mine.iter().map(|u| u.zero_shot).collect();
             let zero_shot = mean(&zero_shot_replicates);
@@ -206,24 +213,57 @@ pub(super) fn run_transfer(
                 TransferGoal::Absolute(v) => v.clone(),
                 TransferGoal::FractionOfBase(f) => f.iter().map(|x| x * base_skill).collect(),
             };
-            let mut side = |label: &str, pick: &dyn Fn(&Unit) -> &Vec<SkillRecord>| {
-                let records: Vec<&SkillRecord> = mine.iter().flat_map(|u| pick(u).iter()).collect();
-                curve_result(
-                    plan,
-                    &CurveSubject {
+            Side {
+                model: m,
+                zero_shot_replicates,
+                zero_shot,
+                base_skill,
+                targets,
+                mine,
+            }
+        })
+        .collect();
+    let subjects: Vec<(CurveSubject, Vec<&SkillRecord>)> = sides
+        .iter()
+        .flat_map(|side| {
+            let model = &plan.models[side.model];
+            let subject = |label: &str, pick: &dyn Fn(&Unit) -> &Vec<SkillRecord>| {
+                let records: Vec<&SkillRecord> =
+                    side.mine.iter().flat_map(|u| pick(u).iter()).collect();
+                (
+                    CurveSubject {
                         name: format!("{} ({label})", model.name),
                         model,
                         sizes: &tp.sizes,
-                        targets: &targets,
+                        targets: &side.targets,
                     },
-                    &records,
-                    &campaign,
-                    warnings,
+                    records,
                 )
             };
-            let scratch = side("from scratch, new regime", &|u| &u.scratch);
-            let fine_tuned = side("fine-tuned, new regime", &|u| &u.fine_tuned);
-            let savings = targets
+            [
+                subject("from scratch, new regime", &|u| &u.scratch),
+                subject("fine-tuned, new regime", &|u| &u.fine_tuned),
+            ]
+        })
+        .collect();
+    let floor = skill::summarise(&persistence).mean;
+    let (curves, calibration) = curve_results(
+        plan,
+        &subjects,
+        &campaign,
+        floor.is_finite().then_some(floor),
+        false,
+        warnings,
+    );
+    let mut curves = curves.into_iter();
+    let models = sides
+        .into_iter()
+        .map(|side| {
+            let model = &plan.models[side.model];
+            let scratch = curves.next().expect("one curve per side");
+            let fine_tuned = curves.next().expect("one curve per side");
+            let savings = side
+                .targets
                 .iter()
                 .zip(scratch.estimates.iter().zip(&fine_tuned.estimates))
                 .map(|(&target, (s, f))| {
@@ -240,11 +280,11 @@ pub(super) fn run_transfer(
                 name: model.name.clone(),
                 kind: model.kind.label().into(),
                 base_samples: largest,
-                base_skill,
-                zero_shot_replicates,
-                zero_shot,
-                gap: base_skill - zero_shot,
-                targets,
+                base_skill: side.base_skill,
+                zero_shot_replicates: side.zero_shot_replicates,
+                zero_shot: side.zero_shot,
+                gap: side.base_skill - side.zero_shot,
+                targets: side.targets,
                 scratch,
                 fine_tuned,
                 savings,
@@ -280,6 +320,7 @@ pub(super) fn run_transfer(
         cost: Some(campaign.summary()),
         campaign: Some(campaign),
         models,
+        calibration: Some(calibration),
     })
 }
 
@@ -306,7 +347,7 @@ fn saving(
     let trusted = |e: &TargetEstimate| {
         matches!(
             e.status,
-            EstimateStatus::ReachedInData | EstimateStatus::Reachable
+            EstimateStatus::ReachedInData | EstimateStatus::Extrapolated
         )
     };
     let both = trusted(scratch) && trusted(tuned);
@@ -316,8 +357,13 @@ fn saving(
         tuned.samples.filter(|_| tuned.status.has_budget()),
     );
     let within = |v: Option<f64>| v.filter(|&k| k <= trust);
-    let [s_lo, s_hi] = scratch.samples_interval.map(within);
-    let [f_lo, f_hi] = tuned.samples_interval.map(within);
+    // An upper end that only reads "more than" is unbounded here.
+    let ends = |e: &TargetEstimate| {
+        let [lo, hi] = e.samples_interval;
+        [within(lo), within(hi.filter(|_| !e.upper_beyond_data))]
+    };
+    let [s_lo, s_hi] = ends(scratch);
+    let [f_lo, f_hi] = ends(tuned);
     let diff = |a: Option<f64>, b: Option<f64>| Some(a? - b?);
     let hours = |a: Option<f64>, b: Option<f64>| Some(core_hours(a?) - core_hours(b?));
     let (samples_saved_interval, core_hours_saved_interval) = if both {
@@ -328,11 +374,12 @@ fn saving(
     } else {
         ([None, None], [None, None])
     };
-    let extrapolated = |e: &TargetEstimate| e.status == EstimateStatus::Extrapolated;
+    let extrapolated = |e: &TargetEstimate| e.status == EstimateStatus::BeyondSupport;
     let note = match (tuned.status.has_budget(), scratch.status.has_budget()) {
         _ if both => String::new(),
         _ if extrapolated(tuned) || extrapolated(scratch) => {
-            "no saving given: an estimate lies beyond the trust range; measure larger k".into()
+            "no saving given: an estimate lies beyond what these curves support; measure larger k"
+                .into()
         }
         (true, false) if scratch.status == EstimateStatus::Unreachable => {
             "training from scratch does not reach this target on its fitted curve; fine-tuning does"
@@ -395,7 +442,7 @@ mod tests {
     fn saving_is_a_conservative_difference_within_the_trust_range() {
         let c = campaign();
         let scratch = estimate(
-            EstimateStatus::Reachable,
+            EstimateStatus::Extrapolated,
             3000.0,
             Some(2000.0),
             Some(9000.0),
@@ -425,13 +472,19 @@ mod tests {
             Some(250.0),
             Some(1000.0),
         );
-        let far = estimate(EstimateStatus::Extrapolated, 90000.0, Some(20000.0), None);
+        let far = TargetEstimate {
+            samples: None,
+            ..estimate(EstimateStatus::BeyondSupport, 0.0, Some(20000.0), None)
+        };
         let s = saving(0.5, &far, &tuned, &c, 8000.0);
         assert_eq!((s.samples_saved, s.core_hours_saved), (None, None));
-        assert!(s.note.contains("trust range"), "{}", s.note);
+        assert!(
+            s.note.contains("beyond what these curves support"),
+            "{}",
+            s.note
+        );
         let flat = TargetEstimate {
             status: EstimateStatus::Unreachable,
-            samples: None,
             ..far.clone()
         };
         let s = saving(0.5, &tuned, &flat, &c, 8000.0);

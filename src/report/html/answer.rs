@@ -22,14 +22,15 @@ pub(super) fn answer(out: &mut String, doc: &PlanDocument) {
     let _ = write!(
         out,
         "<section id=\"answer\">\n<h2>Estimates per model</h2>\n\
-         <p>Training samples needed for each target skill ({over}), read from each model's \
-         selected learning-curve family, with {} bootstrap intervals over replicates, test \
-         initial conditions and curve families{}.</p>\n",
+         <p>Training samples needed for each target skill ({over}). Where the measured sizes \
+         reach a target, the data decide: n* is read between the two sizes that bracket it \
+         (isotonic means, interpolated in ln n) with a {} bootstrap interval over replicates and \
+         test initial conditions that never leaves the measured range. Beyond the data, the \
+         learning-curve families extrapolate and the study's own hindsight calibrates the \
+         interval; where it cannot, the answer is only a lower bound.{}</p>\n",
         confidence(doc),
         if doc.cost.is_some() {
-            ", and what simulating and storing those samples costs. <em>Simulated time</em> is \
-             the model time the high-fidelity solver integrates to produce them (model time \
-             units), spin-up of every run included; its share is given under each figure"
+            " Each answer is priced: what simulating and storing those samples costs."
         } else {
             ""
         },

@@ -53,7 +53,9 @@ pub(super) fn interval(lo: Option<f64>, hi: Option<f64>, f: impl Fn(f64) -> Stri
     }
 }
 
-/// A budget figure with its interval, or "—" when there is no budget.
+/// A budget figure with its interval, or "—" when there is no budget; a status whose only
+/// statement is a bound gives the bound ("at most …" for a target met at the smallest size,
+/// "more than …" beyond what the pilot supports).
 pub(super) fn budget_cell(
     doc: &PlanDocument,
     e: &TargetEstimate,
@@ -61,22 +63,39 @@ pub(super) fn budget_cell(
     f: fn(f64) -> String,
     unit: &str,
 ) -> String {
-    let Some(b) = &e.budget else {
-        return "—".into();
-    };
     let lo = e.budget_low.as_ref().map(field);
     let hi = e.budget_high.as_ref().map(field);
-    let bounded_hi = hi.filter(|_| e.samples_interval[1].is_some());
+    let Some(b) = &e.budget else {
+        return match (e.status, lo, hi) {
+            (EstimateStatus::AtSmallestSize, _, Some(h)) => {
+                format!("at most <span class=\"big\">{}</span>{unit}", f(h))
+            }
+            (EstimateStatus::BeyondSupport, Some(l), _) => {
+                format!("more than <span class=\"big\">{}</span>{unit}", f(l))
+            }
+            _ => "—".into(),
+        };
+    };
+    let range = match (lo, hi) {
+        (Some(l), Some(h)) if e.upper_beyond_data => format!("{} to more than {}", f(l), f(h)),
+        (lo, hi) => interval(lo, hi, f),
+    };
     format!(
         "<span class=\"big\">{}</span>{unit}<span class=\"sub\">{} interval {}</span>",
         f(field(b)),
         confidence(doc),
-        interval(lo, bounded_hi, f)
+        range
     )
 }
 
 pub(super) fn target_cell(doc: &PlanDocument, target: f64) -> String {
-    let mut s = format!("<span class=\"big\">{}</span> time units", sig3(target));
+    // Skill measured outside the tool is in the user's own units.
+    let unit = if doc.data.is_some() {
+        " time units"
+    } else {
+        ""
+    };
+    let mut s = format!("<span class=\"big\">{}</span>{unit}", sig3(target));
     if let Some(l) = doc.skill.as_ref().and_then(|k| k.lyapunov_exponent) {
         let _ = write!(
             s,
@@ -87,13 +106,15 @@ pub(super) fn target_cell(doc: &PlanDocument, target: f64) -> String {
     s
 }
 
-/// The status as a coloured badge: "reachable", "unreachable", …
+/// The status as a coloured badge: "reached in the data", "unreachable", …
 pub(super) fn status_badge(status: EstimateStatus) -> String {
     let class = match status {
-        EstimateStatus::ReachedInData => "met",
-        EstimateStatus::Reachable => "reached",
-        EstimateStatus::Extrapolated => "extrapolated",
-        EstimateStatus::Unreachable => "unreachable",
+        EstimateStatus::ReachedInData
+        | EstimateStatus::AtSmallestSize
+        | EstimateStatus::NoTrainingNeeded => "met",
+        EstimateStatus::Extrapolated => "reached",
+        EstimateStatus::BeyondSupport => "extrapolated",
+        EstimateStatus::NearPlateau | EstimateStatus::Unreachable => "unreachable",
         EstimateStatus::NoFit => "nofit",
     };
     format!("<span class=\"badge {class}\">{}</span>", status.label())
@@ -101,42 +122,62 @@ pub(super) fn status_badge(status: EstimateStatus) -> String {
 
 pub(super) fn status_cell(e: &TargetEstimate) -> String {
     let badge = status_badge(e.status);
-    match e.status {
+    let sub = match e.status {
         EstimateStatus::ReachedInData => {
-            format!("{badge}<span class=\"sub\">a measured size already reaches it</span>")
+            "the measured means cross it between two measured sizes".into()
         }
-        EstimateStatus::Reachable => badge,
+        EstimateStatus::AtSmallestSize => "already met at the smallest measured size".into(),
         EstimateStatus::Extrapolated => format!(
-            "{badge}<span class=\"sub\">{}× the largest measured size</span>",
+            "{}× the largest measured size, calibrated by the study's hindsight",
             e.extrapolation.map(sig3).unwrap_or_else(|| "?".into())
         ),
+        EstimateStatus::BeyondSupport => match e.support_factor {
+            Some(f) => format!(
+                "beyond the {}× the largest measured size that the study's hindsight supports",
+                sig3(f)
+            ),
+            None => "the study's hindsight cannot check an extrapolation this far".into(),
+        },
+        EstimateStatus::NearPlateau => "within noise of where the curve levels off".into(),
         EstimateStatus::Unreachable => format!(
-            "{badge}<span class=\"sub\">{}; P(unreachable) {}</span>",
+            "{}; P(unreachable) {}",
             match e.asymptote {
                 Some(a) => format!("fitted asymptote {} time units", sig3(a)),
                 None => "the fitted curve does not rise to it".into(),
             },
             percent(e.p_unreachable)
         ),
-        EstimateStatus::NoFit => badge,
-    }
+        EstimateStatus::NoTrainingNeeded => "at or below the persistence floor".into(),
+        EstimateStatus::NoFit => return badge,
+    };
+    format!("{badge}<span class=\"sub\">{sub}</span>")
 }
 
-/// A sample count with its interval; `symbol` names it in a one-sided bound ("n* ≥ 30,000").
+/// A sample count with its interval, or the bound a status gives instead ("n* ≤ 1,000",
+/// "n* > 64,000"); `symbol` names it.
 pub(super) fn samples_cell(doc: &PlanDocument, e: &TargetEstimate, symbol: &str) -> String {
     let Some(n) = e.samples.filter(|v| v.is_finite()) else {
-        return "—".into();
-    };
-    let [lo, hi] = e.samples_interval;
-    let range = match (lo, hi) {
-        (Some(l), None) => format!("{symbol} ≥ {}", samples(l)),
-        _ => interval(lo, hi, samples),
+        return match (e.status, e.samples_interval) {
+            (EstimateStatus::AtSmallestSize, [_, Some(h)]) => {
+                format!(
+                    "{symbol} ≤ <span class=\"big\">{}</span> samples",
+                    samples(h)
+                )
+            }
+            (EstimateStatus::BeyondSupport, [Some(l), _]) => {
+                format!(
+                    "{symbol} > <span class=\"big\">{}</span> samples",
+                    samples(l)
+                )
+            }
+            _ => "—".into(),
+        };
     };
     let mut s = format!(
         "<span class=\"big\">{}</span> samples<span class=\"sub\">{} interval {}</span>",
         samples(n),
         confidence(doc),
-        range
+        e.samples_range(samples)
     );
     if let Some(m) = e.median_samples {
         let _ = write!(
@@ -152,7 +193,7 @@ pub(super) fn samples_cell(doc: &PlanDocument, e: &TargetEstimate, symbol: &str)
             sig3(x)
         );
     }
-    if e.p_unreachable > 0.0 {
+    if e.p_unreachable > 0.0 && e.status == EstimateStatus::Extrapolated {
         let _ = write!(
             s,
             "<span class=\"sub\">P(unreachable) {}</span>",

@@ -20,13 +20,21 @@ pub(super) fn learning_curves(out: &mut String, doc: &PlanDocument) {
             escape(&m.name),
             svg::learning_curve(doc, m)
         );
-        let _ = write!(
-            out,
-            "Large markers: mean over {} replicates with ± one standard error; small markers: \
-             each replicate's mean over the test initial conditions; light bars: 10–90% of \
-             single forecasts.",
-            doc.study.replicates
-        );
+        if doc.data.is_some() {
+            let _ = write!(
+                out,
+                "Large markers: mean over {} replicates with ± one standard error; small \
+                 markers: each replicate's mean over the test initial conditions; light bars: \
+                 10–90% of single forecasts.",
+                doc.study.replicates
+            );
+        } else {
+            out.push_str(
+                "Large markers: the measured skill at each size (the mean over replicates, with \
+                 ± one standard error where there are several); small markers: each \
+                 replicate's value.",
+            );
+        }
         let censored = m.points.iter().any(|p| p.censored_share > 0.0);
         close_curve_caption(out, censored, svg::x_range(m));
     }

@@ -16,6 +16,7 @@ mod data_reduction;
 mod decorrelation;
 mod fits;
 mod header;
+mod hindsight;
 mod history;
 mod points;
 mod provenance;
@@ -40,6 +41,7 @@ use self::data_reduction::data_reduction;
 use self::decorrelation::decorrelation;
 use self::fits::fits;
 use self::header::header;
+use self::hindsight::hindsight;
 use self::history::history;
 use self::points::measured_points;
 use self::provenance::provenance;
@@ -71,6 +73,7 @@ pub fn html(results: &StudyResults) -> String {
     learning_curves(&mut out, doc);
     fits(&mut out, doc);
     backtest(&mut out, doc);
+    hindsight(&mut out, doc);
     measured_points(&mut out, doc);
     closures(&mut out, doc);
     transfer(&mut out, doc);
@@ -150,8 +153,8 @@ mod tests {
         assert!(at.windows(2).all(|w| w[0] < w[1]), "sections in order");
         assert!(page.contains("40,000</span> samples"));
         assert!(
-            page.contains("n* ≥ 30,000"),
-            "a one-sided bound when the upper end is infinite"
+            page.contains("interval 30,000–60,000"),
+            "the extrapolated estimate's bounded interval"
         );
         assert!(page.contains("P(unreachable) 7"));
         assert!(page.contains("unreachable"));
@@ -202,8 +205,8 @@ mod tests {
         ));
         let section = transfer_section(&page);
         let lead = "With <strong>esn-500</strong>, fine-tuning needs about <strong>1,200 \
-                    samples</strong> (90% 800–2,000) of the new regime to reach 2.50 time units, \
-                    saving <strong>340 core-hours</strong> (120–unbounded) against training from \
+                    samples</strong> (90% 800–2,000) of the new regime to reach 2.50 time units \
+                    (a measured fine-tuning size already reaches it), saving <strong>340 core-hours</strong> (120–unbounded) against training from \
                     scratch.";
         assert!(section.contains(lead), "{section}");
         assert!(

@@ -13,7 +13,13 @@ fn point_row(p: &PointResult) -> String {
          <td class=\"num\">{}</td></tr>\n",
         thousands(p.n as f64),
         sig3(p.mean),
-        sig3(p.standard_error),
+        // Without replicate spread there is no standard error of a size's mean (the fit then
+        // uses the residual variance): "—", never "0".
+        if p.standard_error > 0.0 {
+            sig3(p.standard_error)
+        } else {
+            "—".into()
+        },
         reps.join(", "),
         sig3(p.q10),
         sig3(p.q90),
@@ -27,12 +33,16 @@ fn point_row(p: &PointResult) -> String {
 }
 
 pub(super) fn measured_points(out: &mut String, doc: &PlanDocument) {
-    out.push_str(
+    out.push_str(if doc.data.is_some() {
         "<section id=\"points\">\n<h2>Measured points</h2>\n<p>Online skill (valid prediction \
          time, model time units) beside offline fit quality (one-step training RMSE in \
          standardised units). The two can disagree: a small training error does not guarantee \
-         a stable free-running forecast.</p>\n",
-    );
+         a stable free-running forecast.</p>\n"
+    } else {
+        "<section id=\"points\">\n<h2>Measured points</h2>\n<p>The skill as measured outside \
+         the tool, per size: mean over replicates (± its standard error where there are \
+         several replicates) and each replicate's value.</p>\n"
+    });
     for m in &doc.models {
         let _ = write!(
             out,

@@ -66,8 +66,15 @@ pub(super) fn summary(out: &mut String, doc: &PlanDocument) {
                     Answer::Number { samples: n, interval: [lo, hi] } => format!(
                         "<span class=\"big\">{}</span><span class=\"sub\">{level} {}</span>",
                         samples(*n),
-                        interval(Some(*lo), Some(*hi), samples)
+                        if e.upper_beyond_data {
+                            e.samples_range(samples)
+                        } else {
+                            interval(Some(*lo), Some(*hi), samples)
+                        }
                     ),
+                    Answer::NoTraining => "<span class=\"big\">0</span><span class=\"sub\">no \
+                         training needed</span>"
+                        .into(),
                     Answer::Bound { at_most: Some(n), .. } => format!(
                         "<span class=\"big\">≤ {}</span><span class=\"sub\">≤ smallest measured \
                          size: fewer may do</span>",
@@ -213,7 +220,11 @@ fn sentence(doc: &PlanDocument, p: &Pick<'_>, level: &str, hours: &str) -> Strin
             "<strong>{t} time units</strong>: train <strong>{name}</strong> on about {} samples \
              ({level} {}){}.",
             samples(*n),
-            interval(Some(*lo), Some(*hi), samples),
+            if e.upper_beyond_data {
+                e.samples_range(samples)
+            } else {
+                interval(Some(*lo), Some(*hi), samples)
+            },
             e.budget.map_or(String::new(), |b| cost(
                 e.budget_low.map(|x| x.core_hours),
                 e.budget_high.map(|x| x.core_hours),
@@ -234,5 +245,9 @@ fn sentence(doc: &PlanDocument, p: &Pick<'_>, level: &str, hours: &str) -> Strin
             escape(e.status.label())
         ),
         Answer::NotAnswerable => format!("<strong>{t} time units</strong>: not answerable."),
+        Answer::NoTraining => format!(
+            "<strong>{t} time units</strong>: at or below the persistence floor: no training \
+             data needed."
+        ),
     }
 }

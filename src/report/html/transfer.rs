@@ -77,14 +77,14 @@ fn transfer_lead(doc: &PlanDocument, t: &TransferResult, i: usize) -> String {
     };
     let (ft, scratch) = saving_estimates(m, s);
     let n = s.fine_tuned_samples.or_else(|| ft.and_then(|e| e.samples));
-    let [lo, hi] = ft.map_or([None, None], |e| e.samples_interval);
+    let range = ft.map_or_else(String::new, |e| e.samples_range(samples));
     let mut lead = format!(
         "With <strong>{}</strong>, fine-tuning needs about <strong>{} samples</strong> ({} {}) \
          of the new regime to reach {}",
         escape(&m.name),
         opt(n, samples),
         confidence(doc),
-        interval(lo, hi, samples),
+        range,
         transfer_goal(t, i, s.target)
     );
     match s.fine_tuned_status {

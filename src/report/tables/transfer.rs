@@ -43,7 +43,8 @@ fn transfer_lines(t: &TransferResult) -> Vec<TransferLine<'_>> {
         Some(Ranged {
             value: e.samples?,
             low: e.samples_interval[0],
-            high: e.samples_interval[1],
+            // An upper end that only reads "more than" is unbounded in a table.
+            high: e.samples_interval[1].filter(|_| !e.upper_beyond_data),
         })
     };
     let saved =
@@ -70,7 +71,7 @@ fn transfer_lines(t: &TransferResult) -> Vec<TransferLine<'_>> {
 /// without a sample count.
 fn k_star(k: Option<Ranged>, status: EstimateStatus, flavour: Flavour) -> String {
     match k {
-        Some(k) if status == EstimateStatus::Reachable => ranged(&k, &count, flavour),
+        Some(k) if status == EstimateStatus::ReachedInData => ranged(&k, &count, flavour),
         Some(k) => format!("{} ({})", ranged(&k, &count, flavour), status.label()),
         None => status.label().into(),
     }
