@@ -739,6 +739,7 @@ mod tests {
             sample_interval: 0.02,
             mean,
             sigma,
+            unresolved: None,
         };
         let ics: Vec<usize> = (0..30).map(|i| 30 + i * 100).collect();
         summarise(&crate::skill::valid_times(m, truth, &ics, &spec)).mean
