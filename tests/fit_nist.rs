@@ -1,6 +1,6 @@
 //! NIST StRD nonlinear regression data fed through the `fit` command itself: one value per
 //! size, so the fit is ordinary least squares with the residual variance, and the certified
-//! parameters and standard deviations must come out of `plan.json` to 6 significant digits.
+//! parameters and standard deviations must come out of `budget.json` to 6 significant digits.
 //!
 //! Of the StRD sets in the reference folder only Misra1a (y = b1·(1 − exp(−b2·x))) is a
 //! learning-curve family the command fits with its default bounds (the exponential saturation
@@ -27,8 +27,10 @@ fn nist_data(name: &str) -> Vec<(f64, f64)> {
     let mut rows = Vec::new();
     let mut in_data = false;
     for line in text.lines() {
+        // The data block is the last `Data:` line's (an earlier one describes the variables).
         if line.trim_start().starts_with("Data:") {
             in_data = true;
+            rows.clear();
             continue;
         }
         if in_data {

@@ -236,8 +236,8 @@ mod tests {
         assert_eq!(table.matches("<tr><td>").count(), 4, "{table}");
         assert!(table.contains("<span class=\"big\">3,800</span> samples<span class=\"sub\">conservative interval 1,000–unbounded</span>"));
         assert!(table.contains("<span class=\"big\">340</span><span class=\"sub\">conservative interval 120–unbounded</span>"));
-        assert!(table.contains("<span class=\"badge extrapolated\">extrapolated</span>"));
-        assert!(table.contains("90% interval k* ≥ 3,000"), "{table}");
+        assert!(table.contains("<span class=\"badge reached\">extrapolated</span>"));
+        assert!(table.contains("90% interval more than 3,000"), "{table}");
         assert_eq!(
             table.matches("<span class=\"badge unreachable\">").count(),
             3
