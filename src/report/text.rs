@@ -98,7 +98,7 @@ fn answer_block(s: &mut String, doc: &PlanDocument, level: f64) {
         .map_or("core-hours", |c| c.device.hours_label());
     let _ = writeln!(
         s,
-        "\nanswer (per target, the cheapest model that reaches it with a number):"
+        "\nanswer (per target, the cheapest model that reaches it with a number or an upper bound):"
     );
     for p in picks(doc) {
         let t = format!("  to reach {} time units: ", sig3(p.target));

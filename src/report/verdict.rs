@@ -107,6 +107,15 @@ fn price(e: &TargetEstimate) -> f64 {
     if e.status == EstimateStatus::NoTrainingNeeded {
         return 0.0;
     }
+    if e.status == EstimateStatus::AtSmallestSize {
+        // An upper bound on the cost: the model is at most this dear.
+        return e
+            .budget_high
+            .as_ref()
+            .map(|b| b.core_hours)
+            .or(e.samples_interval[1])
+            .unwrap_or(f64::INFINITY);
+    }
     e.budget
         .as_ref()
         .map(|b| b.core_hours)
@@ -129,7 +138,13 @@ pub fn picks(doc: &PlanDocument) -> Vec<Pick<'_>> {
                 };
                 models += 1;
                 match classify(e, smallest_size(m)) {
-                    a @ (Answer::Number { .. } | Answer::NoTraining) => numbers.push((m, e, a)),
+                    // "≤ n" (met at the smallest size) is a defensible figure too: the model
+                    // costs at most that much, so it competes with the numbers.
+                    a @ (Answer::Number { .. }
+                    | Answer::NoTraining
+                    | Answer::Bound {
+                        at_most: Some(_), ..
+                    }) => numbers.push((m, e, a)),
                     a @ Answer::Bound { .. } => bounds.push((m, e, a)),
                     Answer::NotAnswerable => {}
                 }

@@ -451,7 +451,7 @@ pub struct CurveAnalysis {
 
 /// Fits every family to the measured skill, backtests and ranks them, bootstraps the in-data
 /// crossing and the families' n* for every target over replicates and initial conditions,
-/// decides each target's estimate (see [`estimate`]) and (with a cost model) prices it. Shared
+/// decides each target's estimate (see `estimate`) and (with a cost model) prices it. Shared
 /// by studies and by fits of user-measured skill.
 pub fn analyse_curve(
     grid: &[SkillGrid],
