@@ -16,35 +16,18 @@ use closure_budget::data::dataset::{
 use closure_budget::data::ensemble::{read_members, read_runs};
 use closure_budget::data::pod::{groups_of, FromDataset, InMemory, Pod, PodMethod, PodSpec};
 use closure_budget::data::write_npy;
+use common::python_ready;
 use common::repo;
 use serde_json::Value;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::sync::OnceLock;
 
-/// Whether `python3` with NumPy and netCDF4 can run; panics when it cannot and CI is set.
-fn python_ready() -> bool {
-    let ok = Command::new("python3")
-        .args(["-c", "import numpy, netCDF4"])
-        .output()
-        .is_ok_and(|o| o.status.success());
-    if !ok {
-        assert!(
-            std::env::var_os("CI").is_none(),
-            "python3 with numpy and netCDF4 is needed for the dataset tests on CI (.ci/run installs them)"
-        );
-        eprintln!(
-            "SKIPPED datasets: python3 with numpy and netCDF4 was not found (`pip install numpy netCDF4` to run these tests)"
-        );
-    }
-    ok
-}
-
 /// The reference files, written once per test binary into a temporary folder.
 fn reference() -> Option<&'static (PathBuf, Value)> {
     static DIR: OnceLock<Option<(PathBuf, Value)>> = OnceLock::new();
     DIR.get_or_init(|| {
-        if !python_ready() {
+        if !python_ready("dataset", "datasets") {
             return None;
         }
         let dir = tempfile::tempdir().unwrap().keep();

@@ -10,24 +10,6 @@ use common::*;
 use std::path::Path;
 use std::process::Command;
 
-/// Whether `python3` with NumPy and netCDF4 can run; panics when it cannot and CI is set.
-fn python_ready() -> bool {
-    let ok = Command::new("python3")
-        .args(["-c", "import numpy, netCDF4"])
-        .output()
-        .is_ok_and(|o| o.status.success());
-    if !ok {
-        assert!(
-            std::env::var_os("CI").is_none(),
-            "python3 with numpy and netCDF4 is needed for the own-data tests on CI (.ci/run installs them)"
-        );
-        eprintln!(
-            "SKIPPED own_data: python3 with numpy and netCDF4 was not found (`pip install numpy netCDF4` to run these tests)"
-        );
-    }
-    ok
-}
-
 /// Writes the example study and its four runs (`data/conv0.nc` … `conv3.nc`) into `dir`.
 fn example(dir: &Path) {
     let out = Command::new("python3")
@@ -83,7 +65,7 @@ fn numpy_singular_values(run: &Path) -> Vec<f64> {
 
 #[test]
 fn a_netcdf_ensemble_runs_reduced_by_pod_and_a_new_held_in_run_reuses_every_point() {
-    if !python_ready() {
+    if !python_ready("own-data", "own_data") {
         return;
     }
     let tmp = tempfile::tempdir().unwrap();
@@ -243,7 +225,7 @@ fn a_netcdf_ensemble_runs_reduced_by_pod_and_a_new_held_in_run_reuses_every_poin
 
 #[test]
 fn data_file_problems_are_reported_together() {
-    if !python_ready() {
+    if !python_ready("own-data", "own_data") {
         return;
     }
     let tmp = tempfile::tempdir().unwrap();

@@ -51,3 +51,22 @@ pub fn files_below(dir: &Path) -> Vec<String> {
     out
 }
 pub mod mutate;
+
+/// Whether `python3` with NumPy and netCDF4 can run (the NetCDF tests write their files with
+/// them); panics when it cannot and CI is set, else prints why `suite` is skipped.
+pub fn python_ready(label: &str, suite: &str) -> bool {
+    let ok = std::process::Command::new("python3")
+        .args(["-c", "import numpy, netCDF4"])
+        .output()
+        .is_ok_and(|o| o.status.success());
+    if !ok {
+        assert!(
+            std::env::var_os("CI").is_none(),
+            "python3 with numpy and netCDF4 is needed for the {label} tests on CI (.ci/run installs them)"
+        );
+        eprintln!(
+            "SKIPPED {suite}: python3 with numpy and netCDF4 was not found (`pip install numpy netCDF4` to run these tests)"
+        );
+    }
+    ok
+}
