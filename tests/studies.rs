@@ -269,6 +269,45 @@ fn transfer_to_a_stronger_forcing() {
     }
 }
 
+/// A rerun with nothing changed reads the new regime's records instead of training again (the
+/// store gains no line and the transfer results are identical); a changed fine-tuning setting
+/// changes the keys, so the new regime is computed afresh.
+#[test]
+fn new_regime_records_are_reused_until_fine_tuning_changes() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut first = run_transfer(dir.path(), 24.0, 99);
+    let store = dir.path().join("out/new-regime-records.jsonl");
+    let lines = |p: &std::path::Path| std::fs::read_to_string(p).unwrap().lines().count();
+    // Per replicate: one zero-shot record and one per k for each of the two curves.
+    assert_eq!(lines(&store), 3 * (1 + 2 * 4));
+    let mut again = run_transfer(dir.path(), 24.0, 99);
+    assert_eq!(lines(&store), 3 * (1 + 2 * 4), "a rerun appended records");
+    first.clear_measured_times();
+    again.clear_measured_times();
+    assert_eq!(first.transfer, again.transfer);
+
+    // Another fine-tuning method: every unit is new.
+    let study = dir.path().join("transfer.toml");
+    let text = std::fs::read_to_string(&study).unwrap().replace(
+        "models = [\"esn-tiny\"]",
+        "models = [\"esn-tiny\"]\nfine-tune = { method = \"pooled\" }",
+    );
+    std::fs::write(&study, text).unwrap();
+    let out = dir.path().join("out");
+    let o = run_in(
+        dir.path(),
+        &[
+            "run",
+            study.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+            "--quiet",
+        ],
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert_eq!(lines(&store), 2 * 3 * (1 + 2 * 4));
+}
+
 /// A "new" regime that is the pilot's own system (another trajectory) has no generalisation gap
 /// beyond sampling noise: |gap| within 3 standard errors of a difference of two means over the
 /// test initial conditions (the spread taken from the pilot's own per-condition valid times).

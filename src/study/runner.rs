@@ -261,6 +261,14 @@ fn run_in_pool(
                     .find(|rec| &rec.model == name && rec.replicate == r && rec.n == largest)
                     .map(|rec| rec.summary.mean)
             };
+            let base_key = |m: usize, r: usize| {
+                let name = &plan.models[m].name;
+                points
+                    .records
+                    .iter()
+                    .find(|rec| &rec.model == name && rec.replicate == r && rec.n == largest)
+                    .map(|rec| rec.key.clone())
+            };
             let result = run_transfer(
                 plan,
                 tp,
@@ -269,7 +277,9 @@ fn run_in_pool(
                     traj: &prep.traj,
                     pool: prep.split.pool.clone(),
                     base_skill: &base_skill,
+                    base_key: &base_key,
                 },
+                Some(&options.out_dir),
                 options.progress,
                 &mut warnings,
             )?;

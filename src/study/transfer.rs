@@ -14,7 +14,7 @@ use super::plan::{StudyPlan, TransferGoal, TransferPlan};
 use super::points::replicate_window;
 use super::prepare::{data_info, load_regime, Regime};
 use super::progress::bar;
-use super::records::{PointCost, SkillRecord};
+use super::records::{PointCost, RecordStore, SkillRecord, StoreError};
 use super::results::{
     EstimateStatus, TargetEstimate, TransferModel, TransferResult, TransferSaving,
 };
@@ -26,6 +26,7 @@ use crate::cost::campaign::Campaign;
 use crate::models::Persistence;
 use crate::skill::{self, IcSkill};
 use rayon::prelude::*;
+use std::collections::HashMap;
 use std::time::Instant;
 
 /// What the pilot study hands over: its data window scheme and the skill of its models at the
@@ -37,6 +38,59 @@ pub(super) struct PilotSide<'a> {
     /// Mean valid time per model (index into the plan's models) and replicate at the largest
     /// pilot size.
     pub base_skill: &'a dyn Fn(usize, usize) -> Option<f64>,
+    /// Key of the pilot's point per model and replicate at the largest pilot size: the base
+    /// model's identity in the new regime's record keys.
+    pub base_key: &'a dyn Fn(usize, usize) -> Option<String>,
+}
+
+/// File of the new regime's records in the output folder, beside the pilot's store: one
+/// record per (model, replicate) for the zero-shot skill and one per fine-tuning size for each
+/// of the two curves, keyed like the pilot's points ([`unit_key`]), so a rerun with nothing
+/// changed reads them instead of training again.
+pub const TRANSFER_RECORDS_FILE: &str = "new-regime-records.jsonl";
+
+/// What determines every record of one (model, replicate) unit of the new regime: the base
+/// model (the pilot point's key at the largest size), the pilot sizes the base is trained on,
+/// the fine-tuning settings, the seed, the new regime's training samples used and its test
+/// data with the skill definition, and the fine-tuning sizes. A hex SHA-256 of the canonical
+/// JSON, like [`super::keys::point_key`].
+fn unit_key(
+    base: &str,
+    pilot_sizes: &[usize],
+    fine_tune: &serde_json::Value,
+    seed: u64,
+    data: &str,
+    test: &str,
+    ks: &[usize],
+) -> String {
+    let doc = serde_json::json!({
+        "results-version": super::keys::RESULTS_VERSION,
+        "new-regime-unit": {
+            "base-point": base,
+            "pilot-sizes": pilot_sizes,
+            "fine-tune": fine_tune,
+            "seed": seed,
+            "training-data": data,
+            "test": test,
+            "sizes": ks,
+        }
+    });
+    let mut text = String::new();
+    super::keys::canonical_json(&doc, &mut text);
+    sha_hex(text.as_bytes())
+}
+
+/// The key of one record of a unit: its curve ("zero-shot", "scratch", "fine-tuned") and size.
+fn record_key(unit: &str, curve: &str, n: usize) -> String {
+    sha_hex(format!("{unit}/{curve}/{n}").as_bytes())
+}
+
+fn sha_hex(bytes: &[u8]) -> String {
+    use sha2::{Digest, Sha256};
+    Sha256::digest(bytes)
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect()
 }
 
 /// The new regime's data and its cost model, checked against the pilot.
@@ -81,6 +135,7 @@ pub(super) fn run_transfer(
     tp: &TransferPlan,
     new_regime: NewRegime,
     pilot: &PilotSide,
+    store_dir: Option<&std::path::Path>,
     progress: bool,
     warnings: &mut Vec<String>,
 ) -> Result<TransferResult, StudyError> {
@@ -115,16 +170,79 @@ pub(super) fn run_transfer(
         .iter()
         .flat_map(|&m| (0..tp.replicates).map(move |r| (m, r)))
         .collect();
-    let progress_bar = bar(progress, units.len() as u64, "new regime: fine-tuning");
     struct Unit {
         model: usize,
         zero_shot: f64,
         scratch: Vec<SkillRecord>,
         fine_tuned: Vec<SkillRecord>,
     }
-    let done: Vec<Unit> = units
-        .par_iter()
+
+    // Keys of every unit, and what the new regime's store already holds.
+    let fine_tune_identity =
+        serde_json::to_value(tp.fine_tune.get()).unwrap_or(serde_json::Value::Null);
+    let test = super::keys::test_hash(truth, None, &split, &spec);
+    let unit_keys: Vec<Option<String>> = units
+        .iter()
         .map(|&(m, r)| {
+            let rb = r % plan.replicates;
+            let base = (pilot.base_key)(m, rb).filter(|k| !k.is_empty())?;
+            let tw = window(r, tp.replicates, &split.pool, &tp.sizes);
+            let data = super::keys::prefix_hashes(truth, None, tw, &[largest_k]).remove(0);
+            Some(unit_key(
+                &base,
+                &plan.sizes,
+                &fine_tune_identity,
+                derive_seed(plan.seed, &plan.models[m].name, rb),
+                &data,
+                &test,
+                &tp.sizes,
+            ))
+        })
+        .collect();
+    let (store, stored) = match store_dir {
+        Some(dir) => {
+            let (store, contents) =
+                RecordStore::open(&dir.join(TRANSFER_RECORDS_FILE)).map_err(StudyError::from)?;
+            let stored: HashMap<String, SkillRecord> = contents
+                .records
+                .into_iter()
+                .map(|r| (r.key.clone(), r))
+                .collect();
+            (Some(store), stored)
+        }
+        None => (None, HashMap::new()),
+    };
+    // A unit whose every record is stored is read back, not trained again.
+    let reused: Vec<Option<Unit>> = units
+        .iter()
+        .zip(&unit_keys)
+        .map(|(&(m, _), key)| {
+            let key = key.as_ref()?;
+            let zero = stored.get(&record_key(key, "zero-shot", largest))?;
+            let side = |curve: &str| {
+                tp.sizes
+                    .iter()
+                    .map(|&k| stored.get(&record_key(key, curve, k)).cloned())
+                    .collect::<Option<Vec<SkillRecord>>>()
+            };
+            Some(Unit {
+                model: m,
+                zero_shot: zero.summary.mean,
+                scratch: side("scratch")?,
+                fine_tuned: side("fine-tuned")?,
+            })
+        })
+        .collect();
+    let missing = reused.iter().filter(|u| u.is_none()).count();
+    let progress_bar = bar(progress, missing as u64, "new regime: fine-tuning");
+    let computed: Vec<Option<Unit>> = units
+        .par_iter()
+        .zip(&unit_keys)
+        .zip(&reused)
+        .map(|((&(m, r), key), reused)| {
+            if reused.is_some() {
+                return Ok(None);
+            }
             let model = &plan.models[m];
             // The base is the pilot study's replicate r (cycled when the new regime asks for
             // more replicates than the pilot study ran).
@@ -148,7 +266,41 @@ pub(super) fn run_transfer(
                 source,
             })?;
             let train_seconds = started.elapsed().as_secs_f64();
-            let (zero, _) = score_batched(fits.base.as_ref(), truth, ics, &spec);
+            let record = |label: &str,
+                          summary: &crate::models::FitSummary,
+                          per_ic: Vec<IcSkill>,
+                          seconds_per_step: f64| SkillRecord {
+                key: key
+                    .as_ref()
+                    .map(|k| record_key(k, label, summary.n))
+                    .unwrap_or_default(),
+                model: format!("{}:{label}", model.name),
+                replicate: r,
+                n: summary.n,
+                seed,
+                window_start: tw,
+                fit: summary.clone(),
+                summary: skill::summarise(&per_ic),
+                initial_conditions: per_ic,
+                cost: PointCost {
+                    train_seconds,
+                    forecast_seconds_per_step: seconds_per_step,
+                },
+                closure: None,
+            };
+            let (zero, zero_seconds) = score_batched(fits.base.as_ref(), truth, ics, &spec);
+            let zero_record = record(
+                "zero-shot",
+                &crate::models::FitSummary {
+                    n: largest,
+                    training_pairs: 0,
+                    ridge_penalty: None,
+                    training_rmse: None,
+                    ridge_selection: None,
+                },
+                zero,
+                zero_seconds,
+            );
             let records = |side: &[(
                 std::sync::Arc<dyn crate::models::Forecaster>,
                 crate::models::FitSummary,
@@ -158,36 +310,40 @@ pub(super) fn run_transfer(
                     .map(|(f, summary)| {
                         let (per_ic, seconds_per_step) =
                             score_batched(f.as_ref(), truth, ics, &spec);
-                        SkillRecord {
-                            key: String::new(),
-                            model: format!("{}:{label}", model.name),
-                            replicate: r,
-                            n: summary.n,
-                            seed,
-                            window_start: tw,
-                            fit: summary.clone(),
-                            summary: skill::summarise(&per_ic),
-                            initial_conditions: per_ic,
-                            cost: PointCost {
-                                train_seconds,
-                                forecast_seconds_per_step: seconds_per_step,
-                            },
-                            closure: None,
-                        }
+                        record(label, summary, per_ic, seconds_per_step)
                     })
                     .collect::<Vec<_>>()
             };
             let unit = Unit {
                 model: m,
-                zero_shot: skill::summarise(&zero).mean,
+                zero_shot: zero_record.summary.mean,
                 scratch: records(&fits.scratch, "scratch"),
                 fine_tuned: records(&fits.fine_tuned, "fine-tuned"),
             };
+            if let (Some(store), Some(_)) = (&store, key) {
+                for rec in std::iter::once(&zero_record)
+                    .chain(&unit.scratch)
+                    .chain(&unit.fine_tuned)
+                {
+                    store.append(rec).map_err(|source| {
+                        StudyError::from(StoreError::Io {
+                            path: store.path().to_path_buf(),
+                            source,
+                        })
+                    })?;
+                }
+            }
             progress_bar.inc(1);
-            Ok(unit)
+            Ok(Some(unit))
         })
         .collect::<Result<_, StudyError>>()?;
     progress_bar.finish_and_clear();
+    drop(store);
+    let done: Vec<Unit> = reused
+        .into_iter()
+        .zip(computed)
+        .map(|(a, b)| a.or(b).expect("each unit reused or computed"))
+        .collect();
 
     // Curves, inversions and savings per model; one calibration over every new-regime curve.
     struct Side<'a> {
