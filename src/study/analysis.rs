@@ -470,47 +470,54 @@ pub fn analyse_curve(
         .collect();
     let ok_fits = ranked.fits();
     let selected = ranked.selected();
-    let estimates = match (selected, &ranked.backtest) {
-        (Some(_), Some(b)) => {
-            let draws = curves::bootstrap_targets(
-                grid,
-                &b.weights,
-                &ok_fits,
-                targets,
-                settings.draws,
-                settings.level,
-                settings.seed,
-            );
-            let crossings = crossing_draws(grid, targets, settings.draws, settings.seed ^ 0x0150);
-            targets
-                .iter()
-                .zip(draws.iter().zip(&crossings))
-                .map(|(&target, (d, c))| {
-                    estimate(
-                        &Evidence {
-                            points: &curve_points,
-                            ranked: &ranked,
-                            draws: d,
-                            crossings: c,
-                            level: settings.level,
-                            trust_factor: settings.trust_factor,
-                            context,
-                            cost,
-                        },
-                        target,
-                    )
-                })
-                .collect()
-        }
+    // The families' bootstrap when a family was selected; without one the measured points
+    // still decide every target they reach, and an empty bootstrap stands in.
+    let draws = match (selected, &ranked.backtest) {
+        (Some(_), Some(b)) => curves::bootstrap_targets(
+            grid,
+            &b.weights,
+            &ok_fits,
+            targets,
+            settings.draws,
+            settings.level,
+            settings.seed,
+        ),
         _ => targets
             .iter()
-            .map(|&target| {
-                floor_estimate(target, context.floor).unwrap_or_else(|| {
-                    TargetEstimate::no_fit(target, "no learning curve could be fitted")
-                })
+            .map(|&target| curves::TargetDraws {
+                target,
+                draws: 0,
+                failed: 0,
+                unreachable: 0,
+                p_unreachable: 0.0,
+                median: None,
+                lower: None,
+                upper: None,
+                level: settings.level,
+                family_draws: Vec::new(),
             })
             .collect(),
     };
+    let crossings = crossing_draws(grid, targets, settings.draws, settings.seed ^ 0x0150);
+    let estimates = targets
+        .iter()
+        .zip(draws.iter().zip(&crossings))
+        .map(|(&target, (d, c))| {
+            estimate(
+                &Evidence {
+                    points: &curve_points,
+                    ranked: &ranked,
+                    draws: d,
+                    crossings: c,
+                    level: settings.level,
+                    trust_factor: settings.trust_factor,
+                    context,
+                    cost,
+                },
+                target,
+            )
+        })
+        .collect();
     CurveAnalysis {
         standard_errors: curve_points.iter().map(|p| p.standard_error).collect(),
         fits,
@@ -738,6 +745,30 @@ fn beyond_the_data(
             iso[m - 1]
         ));
     }
+    // No family fits and the measured means do not rise beyond their noise from the smallest
+    // size to the largest: the data say this model does not learn with more samples here.
+    let first_se = points.first().map_or(0.0, |p| p.standard_error);
+    let flat_noise = (noise * noise + first_se * first_se).sqrt();
+    if matches!(extrapolation, Extrapolation::NoCurve)
+        && m >= 3
+        && iso[m - 1] - iso[0] <= 2.0 * flat_noise
+    {
+        let top = iso[m - 1];
+        let span = format!("{:.0}–{:.0} samples", points[0].n, largest);
+        if target - top < 2.0 * noise {
+            return near_plateau(format!(
+                "the measured means stay flat at about {top:.3} across {span}, within twice their noise (± {noise:.3}) of the target"
+            ));
+        }
+        return TargetEstimate {
+            status: EstimateStatus::Unreachable,
+            asymptote: Some(top),
+            note: format!(
+                "the measured means stay flat at about {top:.3} (± {noise:.3}) across {span}, clearly below the target: this model does not improve with more samples here, and more data of this kind is not expected to reach it"
+            ),
+            ..base
+        };
+    }
     match extrapolation {
         Extrapolation::NoCurve => TargetEstimate {
             status: EstimateStatus::NoFit,
@@ -834,20 +865,33 @@ fn beyond_the_data(
                         .max(largest)
                         .min(point);
                     let hi = boot[1].map_or(upper, |b| b.max(upper)).max(point);
+                    // An upper end beyond what the pilot supports is said as "more than" that
+                    // bound, never printed as a number.
+                    let cap = support.map(|s| s * largest).filter(|c| *c >= point);
+                    let (hi, open) = match cap {
+                        Some(c) if hi > c => (c, true),
+                        _ => (hi, false),
+                    };
                     TargetEstimate {
                         status: EstimateStatus::Extrapolated,
                         samples: Some(point),
                         median_samples: ev.draws.median,
                         samples_interval: [Some(lo), Some(hi)],
+                        upper_beyond_data: open,
                         budget: price(Some(point)),
                         budget_low: price(Some(lo)),
                         budget_high: price(Some(hi)),
                         extrapolation: Some(point / largest),
                         note: format!(
-                            "not reached in the data; the {} curve reaches it at {n:.0} samples ({factor:.2}× the largest measured size), calibrated by {} hindsight pairs of this study (checked up to {:.2}×)",
+                            "not reached in the data; the {} curve reaches it at {n:.0} samples ({factor:.2}× the largest measured size), {point:.0} after correcting for this study's own extrapolation errors ({} hindsight pairs, checked up to {:.2}×){}",
                             family.label(),
                             calibration.finite,
-                            support.unwrap_or(f64::NAN)
+                            support.unwrap_or(f64::NAN),
+                            if open {
+                                format!("; the calibrated upper end lies beyond {hi:.0} samples, the most this pilot can support, so it reads only \"more than {hi:.0}\"")
+                            } else {
+                                String::new()
+                            }
                         ),
                         ..base
                     }
@@ -887,10 +931,16 @@ fn beyond_the_data(
                         status: EstimateStatus::BeyondSupport,
                         samples_interval: [Some(bound), None],
                         budget_low: price(Some(bound)),
-                        note: format!(
-                            "beyond what this pilot can support: needs more than {:.2}× the largest measured size ({largest:.0} samples); {why}",
-                            bound / largest
-                        ),
+                        note: if bound > largest * (1.0 + 1e-9) {
+                            format!(
+                                "beyond what this pilot can support: needs more than {bound:.0} samples ({:.2}× the largest measured size, {largest:.0}); {why}",
+                                bound / largest
+                            )
+                        } else {
+                            format!(
+                                "beyond what this pilot can support: needs more than the largest measured size ({largest:.0} samples); {why}"
+                            )
+                        },
                         ..base
                     }
                 }
@@ -961,6 +1011,33 @@ mod tests {
         (0..count)
             .map(|i| 2.0 - 40.0 / (1000.0 * 2f64.sqrt().powi(i as i32)).sqrt())
             .collect()
+    }
+
+    /// A curve that does not rise (a closure already converged at the smallest size): no
+    /// family fits, yet the measured means still decide — a target below them is met at the
+    /// smallest size, one within noise of them is near the plateau, one clearly above them is
+    /// unreachable (not "no fit").
+    #[test]
+    fn flat_curve_still_answers_every_target() {
+        let flat = [1.40, 1.41, 1.39, 1.40, 1.41, 1.40, 1.39];
+        let g = grid(&flat, 0.3);
+        let a = analyse(&g, &[1.0, 1.405, 2.0], &uncalibrated());
+        let status: Vec<EstimateStatus> = a.estimates.iter().map(|e| e.status).collect();
+        assert_eq!(
+            status,
+            [
+                EstimateStatus::AtSmallestSize,
+                EstimateStatus::NearPlateau,
+                EstimateStatus::Unreachable
+            ],
+            "{:#?}",
+            a.estimates
+        );
+        assert!(
+            a.estimates[2].note.contains("flat"),
+            "{}",
+            a.estimates[2].note
+        );
     }
 
     /// A target between two measured means takes n* interpolated in ln n between the
@@ -1172,18 +1249,22 @@ mod tests {
         }
     }
 
-    /// Two sizes are too few for any family: every target gets the no-fit estimate.
+    /// Two sizes are too few for any family: a target between the measured means is still
+    /// answered from them (inside the data the measurements decide); one beyond them gets the
+    /// no-fit estimate.
     #[test]
-    fn no_family_fitted_gives_no_fit_for_every_target() {
+    fn no_family_fitted_answers_only_inside_the_data() {
         let g = grid(&[1.0, 1.5], 0.02);
         let a = analyse(&g, &[1.2, 2.0], &uncalibrated());
         assert_eq!(a.selected, None);
         assert!(a.fits.iter().all(|f| f.error.is_some()), "{:?}", a.fits);
+        let inside = &a.estimates[0];
+        assert_eq!(inside.status, EstimateStatus::ReachedInData);
+        let n = inside.samples.unwrap();
+        assert!(n > 1000.0 && n < 1415.0, "{n}");
         assert_eq!(
-            a.estimates,
-            [1.2, 2.0]
-                .map(|t| TargetEstimate::no_fit(t, "no learning curve could be fitted"))
-                .to_vec()
+            a.estimates[1],
+            TargetEstimate::no_fit(2.0, "no learning curve could be fitted")
         );
     }
 

@@ -490,7 +490,9 @@ pub struct TargetEstimate {
     pub median_samples: Option<f64>,
     /// Interval of n* at the study's confidence; `None` for a side that is not given.
     pub samples_interval: [Option<f64>; 2],
-    /// The upper end is the largest measured size and n* may lie beyond it: read "> upper".
+    /// The upper end is only a bound n* may lie beyond: the largest measured size (reached in
+    /// the data in too few draws) or, extrapolated, the most this pilot can support; read
+    /// "more than upper".
     #[serde(default)]
     pub upper_beyond_data: bool,
     /// Share of the curves' bootstrap draws that never reach the target.
