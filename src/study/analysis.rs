@@ -375,6 +375,17 @@ pub fn curve_warnings(name: &str, curve: &CurveAnalysis, warnings: &mut Vec<Stri
         ));
     }
     warnings.extend(curve.drops.iter().map(|d| format!("{name}: {d}")));
+    if !curve.identical_replicates.is_empty() {
+        let sizes: Vec<String> = curve
+            .identical_replicates
+            .iter()
+            .map(|n| format!("{n:.0}"))
+            .collect();
+        warnings.push(format!(
+            "{name}: every replicate gave exactly the same skill at n = {}; replicates that do not differ give no measure of the spread between trained models, so the intervals there rest on the spread over sizes alone; check that replicates use different seeds or data windows",
+            sizes.join(", ")
+        ));
+    }
     for e in &curve.estimates {
         if e.status == EstimateStatus::BeyondSupport {
             warnings.push(format!(
@@ -447,6 +458,10 @@ pub struct CurveAnalysis {
     pub estimates: Vec<TargetEstimate>,
     /// Sentences about measured skill that falls with n by more than its noise.
     pub drops: Vec<String>,
+    /// Sizes at which two or more replicates gave exactly the same skill values: the spread
+    /// between replicates is zero there, which almost always means they did not differ (same
+    /// seed, same data window) rather than that the model is exactly reproducible.
+    pub identical_replicates: Vec<f64>,
 }
 
 /// Fits every family to the measured skill, backtests and ranks them, bootstraps the in-data
@@ -525,6 +540,11 @@ pub fn analyse_curve(
         backtest: ranked.backtest,
         estimates,
         drops: drops(&curve_points),
+        identical_replicates: grid
+            .iter()
+            .filter(|g| g.values.len() > 1 && g.values.iter().all(|v| *v == g.values[0]))
+            .map(|g| g.n)
+            .collect(),
     }
 }
 
@@ -654,6 +674,8 @@ fn estimate(ev: &Evidence, target: f64) -> TargetEstimate {
         Crossing::Between { n, below } => {
             let beyond = ev.crossings.beyond_share();
             let (lo, hi, open) = match ev.crossings.interval(ev.level) {
+                // Draws that all agree (no spread to resample): the bracketing sizes.
+                Some([lo, hi]) if hi <= lo => (ns[below], ns[below + 1], false),
                 Some([lo, hi]) => {
                     let open = hi.is_infinite();
                     let hi = if open { largest } else { hi.clamp(n, largest) };
@@ -1266,6 +1288,31 @@ mod tests {
             a.estimates[1],
             TargetEstimate::no_fit(2.0, "no learning curve could be fitted")
         );
+    }
+
+    /// Replicates that gave exactly the same values are flagged, and a crossing measured
+    /// without any spread gets the bracketing sizes as its interval, not a zero-width one.
+    #[test]
+    fn identical_replicates_are_flagged_and_keep_a_width() {
+        let mut g = grid(&saturating(6), 0.0);
+        for s in &mut g {
+            let first = s.values[0].clone();
+            s.values.iter_mut().for_each(|v| *v = first.clone());
+        }
+        let target = 0.5 * (g[2].values[0][0] + g[3].values[0][0]);
+        let a = analyse(&g, &[target], &uncalibrated());
+        assert_eq!(a.identical_replicates.len(), 6);
+        let mut warnings = Vec::new();
+        curve_warnings("m", &a, &mut warnings);
+        assert!(
+            warnings
+                .iter()
+                .any(|w| w.contains("exactly the same skill")),
+            "{warnings:?}"
+        );
+        let e = &a.estimates[0];
+        assert_eq!(e.status, EstimateStatus::ReachedInData);
+        assert_eq!(e.samples_interval, [Some(g[2].n), Some(g[3].n)], "{e:?}");
     }
 
     /// A mean that drops by more than its noise is flagged with the sizes.
