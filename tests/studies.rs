@@ -3,7 +3,7 @@
 
 mod common;
 use closure_budget::study::records::read_records;
-use closure_budget::study::results::{PlanDocument, PLAN_SCHEMA};
+use closure_budget::study::results::{LyapunovSource, PlanDocument, PLAN_SCHEMA};
 use common::*;
 
 #[test]
@@ -86,6 +86,7 @@ fn quick_demo_runs_end_to_end() {
         vec![
             "budget.json",
             "history.jsonl",
+            "lyapunov.json",
             "records.jsonl",
             "report.html",
             "skill.csv",
@@ -167,6 +168,41 @@ fn quick_demo_runs_end_to_end() {
     assert_eq!(csv.lines().count(), 1 + 2 * 3 * 4 * 16 + 2 * 16);
     let html = std::fs::read_to_string(out.join("report.html")).unwrap();
     assert!(html.contains("<svg") && html.contains("esn-tiny"));
+    // The study gives no Lyapunov exponent: the run computed the simulated system's, kept it
+    // beside the points, and the report and skill.csv read valid times in Lyapunov times with
+    // its source. About 19 is this project's own measurement for this system near F = 18–20
+    // (design notes; no published value for these parameters is known to us).
+    let skill = doc.skill.as_ref().unwrap();
+    let l = skill.lyapunov_exponent.expect("computed exponent");
+    assert!((15.0..25.0).contains(&l), "{l}");
+    let Some(LyapunovSource::Computed(c)) = &skill.lyapunov_source else {
+        panic!("{:?}", skill.lyapunov_source)
+    };
+    assert_eq!(
+        (c.system.as_str(), c.dt, c.seed),
+        ("two-scale-lorenz-96", 0.005, 7)
+    );
+    assert_eq!((c.duration, c.segments), (200.0, 20));
+    assert!(
+        c.standard_error > 0.0 && c.standard_error < 0.05 * l,
+        "{c:?}"
+    );
+    let kept: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("lyapunov.json")).unwrap()).unwrap();
+    assert_eq!(kept["estimate"]["exponent"].as_f64(), Some(l));
+    assert!(html.contains("<tr><th>Largest Lyapunov exponent</th><td>"));
+    assert!(html.contains("computed by the tangent-linear method of Benettin et al. (1980)"));
+    assert!(html.contains("Lyapunov times</span>"));
+    let row = csv.lines().nth(1).unwrap();
+    let header: Vec<&str> = csv.lines().next().unwrap().split(',').collect();
+    let cols: Vec<&str> = row.split(',').collect();
+    let at = |name: &str| header.iter().position(|h| *h == name).unwrap();
+    let valid: f64 = cols[at("valid_time")].parse().unwrap();
+    let lyap: f64 = cols[at("valid_lyapunov_times")].parse().unwrap();
+    assert!(
+        (lyap - valid * l).abs() <= 1e-12 * lyap.abs().max(1.0),
+        "{row}"
+    );
     for section in [
         "Cost against target skill",
         "Every number and its source",
@@ -198,9 +234,12 @@ fn results_do_not_depend_on_thread_count() {
     assert_eq!(a, b);
 }
 
-/// The quick demo's pilot with a new regime at `forcing`, run into `dir/out`.
+/// The quick demo's pilot with a new regime at `forcing`, run into `dir/out`; the study gives
+/// its Lyapunov exponent.
 fn run_transfer(dir: &std::path::Path, forcing: f64, seed: u64) -> PlanDocument {
-    let mut text = std::fs::read_to_string(repo("studies/demo-quick.toml")).unwrap();
+    let text = std::fs::read_to_string(repo("studies/demo-quick.toml")).unwrap();
+    assert!(text.contains("\n[skill]\n"));
+    let mut text = text.replace("\n[skill]\n", "\n[skill]\nlyapunov-exponent = 18.5\n");
     text.push_str(&format!(
         r#"
 [transfer]
@@ -241,6 +280,11 @@ seed = {seed}
 fn transfer_to_a_stronger_forcing() {
     let dir = tempfile::tempdir().unwrap();
     let doc = run_transfer(dir.path(), 24.0, 99);
+    // The exponent the study gives wins: none is computed or kept.
+    let skill = doc.skill.as_ref().unwrap();
+    assert_eq!(skill.lyapunov_exponent, Some(18.5));
+    assert_eq!(skill.lyapunov_source, Some(LyapunovSource::Given));
+    assert!(!dir.path().join("out/lyapunov.json").exists());
     let t = doc.transfer.as_ref().expect("transfer results");
     assert_eq!(t.data.parameters["forcing"], 24.0);
     assert_eq!(t.models.len(), 1);

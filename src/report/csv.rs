@@ -60,8 +60,8 @@ fn count(x: Option<usize>) -> String {
     x.map(|v| v.to_string()).unwrap_or_default()
 }
 
-/// `skill.csv` as bytes, with `valid_lyapunov_times` from the study's `lyapunov` exponent when
-/// it sets one. Rows are sorted by model, n, replicate and initial condition; the
+/// `skill.csv` as bytes, with `valid_lyapunov_times` from the document's largest Lyapunov
+/// exponent when it has one. Rows are sorted by model, n, replicate and initial condition; the
 /// persistence rows (empty `replicate` and `n`) sort under the model name `persistence`.
 pub fn skill_csv(forecasts: &ForecastSkill, lyapunov: Option<f64>) -> Vec<u8> {
     let mut rows: Vec<Row<'_>> = forecasts.records.iter().flat_map(rows_of_record).collect();

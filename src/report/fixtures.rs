@@ -229,6 +229,7 @@ pub fn fixture() -> StudyResults {
             warm_up: 0.5,
             max_lead: 3.0,
             lyapunov_exponent: Some(0.5),
+            lyapunov_source: Some(LyapunovSource::Given),
         }),
         persistence: Some(crate::skill::summarise(&persistence)),
         climatology: None,

@@ -41,7 +41,7 @@
 //! | `n` | training subset size in samples (empty for the floors) |
 //! | `initial_condition` | index 0..M−1 of the test initial condition, in split order |
 //! | `valid_time` | valid prediction time, model time units |
-//! | `valid_lyapunov_times` | `valid_time` × the largest Lyapunov exponent; empty when the study sets none |
+//! | `valid_lyapunov_times` | `valid_time` × the largest Lyapunov exponent (the study's, or the one computed from the built-in system of simulated pilot data; `skill.lyapunov-source` in `budget.json` says which); empty without one |
 //! | `censored` | `true` when the forecast was still valid at the maximum lead (the valid time is a lower bound) |
 //! | `blew_up` | `true` when the forecast turned non-finite or left the blow-up bound |
 //! | `ridge_penalty` | ridge penalty used by this fit (empty when the model has no ridge readout, and for persistence) |

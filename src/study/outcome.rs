@@ -49,6 +49,8 @@ pub(super) struct Measured<'a> {
     pub counts: PointCounts,
     /// Warnings of the earlier stages, in order; the document's own follow them.
     pub warnings: Vec<String>,
+    /// The largest Lyapunov exponent and where it came from.
+    pub lyapunov: super::prepare::StudyLyapunov,
 }
 
 /// The plan document of a finished run, with the warnings about the data, the targets and the
@@ -68,6 +70,7 @@ pub(super) fn document(
         climatology,
         counts: reuse,
         mut warnings,
+        lyapunov,
     } = measured;
     let ics = &prep.split.initial_conditions;
     let persistence_summary = skill::summarise(persistence);
@@ -161,7 +164,8 @@ pub(super) fn document(
             threshold: t.threshold,
             warm_up: t.warm_up,
             max_lead: t.max_lead,
-            lyapunov_exponent: t.lyapunov_exponent,
+            lyapunov_exponent: lyapunov.exponent,
+            lyapunov_source: lyapunov.source,
         }),
         persistence: Some(persistence_summary),
         climatology: Some(skill::summarise(climatology)),

@@ -1,10 +1,16 @@
 //! Preparing a study: its pilot data (simulated or read), the split into a training pool and
 //! held-out test initial conditions, the skill definition normalised on the held-out region,
-//! the cost model and, for closures, the coarse solver they are coupled to.
+//! the cost model, for closures the coarse solver they are coupled to, and the largest Lyapunov
+//! exponent that reads valid times in Lyapunov times (given by the study, or computed once from
+//! the built-in system of simulated pilot data and kept in the output folder).
+//!
+//! References: Benettin, Galgani, Giorgilli & Strelcyn (1980), Meccanica 15, 9–20 and 21–30
+//! (the exponent's method); Sprott (2003), "Chaos and Time-Series Analysis" (the Lorenz-63 value
+//! the settings are checked against).
 
 use super::plan::{to_samples, DataSource, StudyPlan};
 use super::progress::bar;
-use super::results::{DataInfo, HighFidelityCost};
+use super::results::{ComputedLyapunov, DataInfo, HighFidelityCost, LyapunovSource};
 use super::StudyError;
 use crate::cost::campaign::Campaign;
 use crate::data::{
@@ -12,7 +18,11 @@ use crate::data::{
 };
 use crate::models::closure::{CoupledModel, Coupling};
 use crate::skill::SkillSpec;
-use crate::systems::{simulate, SimulationSpec};
+use crate::systems::{
+    largest_lyapunov, simulate, LyapunovEstimate, LyapunovSpec, SimulationSpec, SystemSpec,
+};
+use serde::{Deserialize, Serialize};
+use std::path::Path;
 use std::time::Instant;
 
 /// A study's pilot data with everything derived from it before any training.
@@ -306,5 +316,326 @@ pub(super) fn data_info(
         effective_sample_size,
         high_fidelity,
         own_data: None,
+    }
+}
+
+/// The file in the output folder that keeps the computed exponent of a simulated pilot, with
+/// the settings it was computed with (a rerun with the same system, step and seed reads it).
+pub const LYAPUNOV_FILE: &str = "lyapunov.json";
+
+/// Format version of [`LYAPUNOV_FILE`]; raise it when the computation changes, so that kept
+/// exponents are computed afresh once.
+const LYAPUNOV_SCHEMA: &str = "closure-budget/lyapunov/1";
+
+/// Averaging time of a computed exponent, model time units (before the work limit).
+const LYAPUNOV_DURATION: f64 = 200.0;
+/// Spin-up of state and tangent vector before averaging, model time units.
+const LYAPUNOV_SPIN_UP: f64 = 10.0;
+/// RK4 steps between renormalisations of the tangent vector.
+const LYAPUNOV_RENORMALISE_STEPS: usize = 10;
+/// Work limit of a computed exponent: equations × RK4 steps, spin-up included. Measured: the
+/// quick demo's two-scale Lorenz-96 (264 equations, dt 0.005) integrates 1.1e7 of these with its
+/// tangent vector in about 0.13 s on one core, so the limit is about 1 s.
+const LYAPUNOV_WORK: f64 = 1e8;
+/// Shortest averaging time the work limit may leave, model time units; below it the exponent
+/// is not computed.
+const LYAPUNOV_MIN_DURATION: f64 = 20.0;
+
+/// The method a computed exponent names in the contract.
+const LYAPUNOV_METHOD: &str = "tangent-linear method of Benettin et al. (1980): state and tangent vector integrated by RK4, the tangent vector renormalised at fixed intervals, log growth averaged; standard error over segments";
+
+/// The kept computation: what was computed and its result.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+struct KeptLyapunov {
+    schema: String,
+    spec: LyapunovSpec,
+    estimate: LyapunovEstimate,
+}
+
+/// The study's largest Lyapunov exponent and where it came from.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub(super) struct StudyLyapunov {
+    pub exponent: Option<f64>,
+    pub source: Option<LyapunovSource>,
+    /// Why a simulated pilot has no exponent.
+    pub warning: Option<String>,
+    /// Computed in this run, to be kept in the output folder ([`StudyLyapunov::keep`]).
+    fresh: Option<KeptLyapunov>,
+}
+
+/// The computation of a simulated pilot's exponent: the pilot's system, step and seed; 200
+/// time units after 10 of spin-up, renormalised every 10 steps, shortened so that equations ×
+/// steps stay within 1e8. `Err` says why it is not computed.
+fn lyapunov_spec(system: &SystemSpec, dt: f64, seed: u64) -> Result<LyapunovSpec, String> {
+    let equations = system.full_dim() as f64;
+    let affordable = LYAPUNOV_WORK / equations * dt - LYAPUNOV_SPIN_UP;
+    let duration = LYAPUNOV_DURATION.min(affordable);
+    if duration < LYAPUNOV_MIN_DURATION {
+        return Err(format!(
+            "with {equations} equations at dt = {dt} even {LYAPUNOV_MIN_DURATION} time units \
+             would take more than {LYAPUNOV_WORK:.0e} equation-steps"
+        ));
+    }
+    Ok(LyapunovSpec {
+        system: system.clone(),
+        dt,
+        spin_up: LYAPUNOV_SPIN_UP,
+        duration,
+        renormalise_every: LYAPUNOV_RENORMALISE_STEPS as f64 * dt,
+        seed,
+    })
+}
+
+/// The study's exponent: the one the study gives; for simulated pilot data without one, the
+/// built-in system's, read from [`LYAPUNOV_FILE`] in `out_dir` when it was computed with the same
+/// settings, else computed now (about a second at most; see [`StudyLyapunov::keep`]); none for
+/// the user's own data. Writes nothing. A computation that fails leaves a warning, not an error:
+/// the budget does not need the exponent.
+pub(super) fn study_lyapunov(plan: &StudyPlan, out_dir: &Path) -> StudyLyapunov {
+    if let Some(l) = plan.timing.lyapunov_exponent {
+        return StudyLyapunov {
+            exponent: Some(l),
+            source: Some(LyapunovSource::Given),
+            ..StudyLyapunov::default()
+        };
+    }
+    let DataSource::Simulate {
+        system, dt, seed, ..
+    } = &plan.data
+    else {
+        return StudyLyapunov::default();
+    };
+    let not_computed = |why: &str| StudyLyapunov {
+        warning: Some(format!(
+            "the largest Lyapunov exponent of the simulated {} system was not computed ({why}); \
+             valid times are shown in model time units only; set `skill.lyapunov-exponent` in \
+             the study file to show them in Lyapunov times too",
+            system.label()
+        )),
+        ..StudyLyapunov::default()
+    };
+    let spec = match lyapunov_spec(system, *dt, *seed) {
+        Ok(spec) => spec,
+        Err(why) => return not_computed(&why),
+    };
+    let kept = std::fs::read(out_dir.join(LYAPUNOV_FILE))
+        .ok()
+        .and_then(|bytes| serde_json::from_slice::<KeptLyapunov>(&bytes).ok())
+        .filter(|k| k.schema == LYAPUNOV_SCHEMA && k.spec == spec);
+    let (estimate, fresh) = match kept {
+        Some(k) => (k.estimate, None),
+        None => match largest_lyapunov(&spec) {
+            Ok(estimate) => (
+                estimate.clone(),
+                Some(KeptLyapunov {
+                    schema: LYAPUNOV_SCHEMA.into(),
+                    spec: spec.clone(),
+                    estimate,
+                }),
+            ),
+            Err(e) => return not_computed(&e.to_string()),
+        },
+    };
+    StudyLyapunov {
+        exponent: Some(estimate.exponent),
+        source: Some(LyapunovSource::Computed(ComputedLyapunov {
+            method: LYAPUNOV_METHOD.into(),
+            system: spec.system.label().into(),
+            dt: spec.dt,
+            seed: spec.seed,
+            spin_up: spec.spin_up,
+            duration: estimate.duration,
+            renormalise_every: spec.renormalise_every,
+            segments: estimate.blocks,
+            standard_error: estimate.standard_error,
+        })),
+        warning: None,
+        fresh,
+    }
+}
+
+impl StudyLyapunov {
+    /// Keeps an exponent computed in this run in `out_dir` (atomically) for the next run.
+    pub(super) fn keep(&self, out_dir: &Path) -> Result<(), StudyError> {
+        let Some(k) = &self.fresh else {
+            return Ok(());
+        };
+        let path = out_dir.join(LYAPUNOV_FILE);
+        let mut bytes = serde_json::to_vec_pretty(k).expect("the kept exponent serialises");
+        bytes.push(b'\n');
+        crate::atomic::write_atomic(&path, &bytes)
+            .map_err(|source| StudyError::Write { path, source })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::study::plan::load_plan;
+
+    fn lorenz63() -> SystemSpec {
+        SystemSpec::Lorenz63 {
+            sigma: 10.0,
+            rho: 28.0,
+            beta: 8.0 / 3.0,
+        }
+    }
+
+    /// The settings a study computes its exponent with reproduce published exponents within 3
+    /// of their own standard errors, and those stay below 5 % of the exponent:
+    /// - Lorenz-63 at σ = 10, ρ = 28, β = 8/3: λ₁ = 0.9056 (Sprott 2003, "Chaos and Time-Series
+    ///   Analysis", Oxford University Press, table of Lyapunov exponents);
+    /// - Lorenz-96 with K = 40, F = 8: λ₁ ≈ 1.68 (from memory: values of 1.65–1.7 are commonly
+    ///   quoted for this configuration).
+    ///
+    /// Measured (seed 7): 0.896 ± 0.034 and 1.761 ± 0.051 (200 time units each).
+    #[test]
+    fn study_settings_reproduce_published_exponents() {
+        let cases = [
+            (lorenz63(), 0.9056),
+            (
+                SystemSpec::Lorenz96 {
+                    k: 40,
+                    forcing: 8.0,
+                },
+                1.68,
+            ),
+        ];
+        for (system, reference) in cases {
+            let spec = lyapunov_spec(&system, 0.01, 7).unwrap();
+            assert_eq!(spec.duration, LYAPUNOV_DURATION, "far below the work limit");
+            let est = largest_lyapunov(&spec).unwrap();
+            let off = (est.exponent - reference).abs();
+            assert!(
+                off <= 3.0 * est.standard_error && est.standard_error < 0.05 * reference,
+                "{system:?}: {est:?} vs {reference}"
+            );
+        }
+    }
+
+    /// The work limit shortens the averaging time of a large system at a small step, and refuses
+    /// when too little would be left.
+    #[test]
+    fn work_limit_shortens_or_refuses() {
+        let two_scale = |k: usize, j: usize| SystemSpec::TwoScaleLorenz96 {
+            k,
+            j,
+            h: 1.0,
+            c: 10.0,
+            b: 10.0,
+            forcing: 20.0,
+        };
+        // The quick demo's system: 264 equations, 42,000 steps: within the limit.
+        let demo = lyapunov_spec(&two_scale(8, 32), 0.005, 1).unwrap();
+        assert_eq!(demo.duration, 200.0);
+        assert!((demo.renormalise_every - 0.05).abs() < 1e-15);
+        // 40 × 11 = 440 equations at dt = 0.0005: 1e8 / 440 steps = 113.6 time units, 10 of
+        // them spin-up.
+        let long = lyapunov_spec(&two_scale(40, 10), 0.0005, 1).unwrap();
+        assert!((long.duration - (1e8 / 440.0 * 0.0005 - 10.0)).abs() < 1e-9);
+        assert!(long.duration < 200.0);
+        // At dt = 0.0001 only 12.7 time units would be left after spin-up.
+        let why = lyapunov_spec(&two_scale(40, 10), 1e-4, 1).unwrap_err();
+        assert!(why.contains("440 equations at dt = 0.0001"), "{why}");
+    }
+
+    /// The quick demo's plan with Lorenz-63 pilot data (cheap to integrate).
+    fn lorenz63_plan(dt: f64) -> StudyPlan {
+        let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("studies/demo-quick.toml");
+        let mut plan = load_plan(&demo).unwrap();
+        plan.data = DataSource::Simulate {
+            system: lorenz63(),
+            dt,
+            sample_interval: 0.02,
+            spin_up: 5.0,
+            training_pool: 4000,
+            seed: 11,
+        };
+        plan
+    }
+
+    /// A computed exponent is kept in the output folder and read back by the next run with the
+    /// same system, step and seed (a changed value in the file shows it was read, not
+    /// recomputed); another step computes afresh.
+    #[test]
+    fn computed_exponent_is_kept_and_read_back() {
+        let dir = tempfile::tempdir().unwrap();
+        let plan = lorenz63_plan(0.01);
+        let first = study_lyapunov(&plan, dir.path());
+        let Some(LyapunovSource::Computed(c)) = &first.source else {
+            panic!("{first:?}")
+        };
+        assert_eq!((c.system.as_str(), c.dt, c.seed), ("lorenz-63", 0.01, 11));
+        assert_eq!((c.duration, c.segments), (200.0, 20));
+        assert!(c.method.contains("Benettin et al. (1980)"));
+        assert!(first.warning.is_none() && first.fresh.is_some());
+        let l = first.exponent.unwrap();
+        assert!((l - 0.9056).abs() < 0.05, "{l}, Sprott (2003): 0.9056");
+        first.keep(dir.path()).unwrap();
+
+        let path = dir.path().join(LYAPUNOV_FILE);
+        let mut kept: KeptLyapunov =
+            serde_json::from_slice(&std::fs::read(&path).unwrap()).unwrap();
+        assert_eq!(kept.estimate.exponent, l);
+        kept.estimate.exponent = 0.25;
+        std::fs::write(&path, serde_json::to_vec(&kept).unwrap()).unwrap();
+        let again = study_lyapunov(&plan, dir.path());
+        assert_eq!(again.exponent, Some(0.25), "read from {LYAPUNOV_FILE}");
+        assert!(again.fresh.is_none());
+        again.keep(dir.path()).unwrap();
+        assert_eq!(
+            std::fs::read(&path).unwrap(),
+            serde_json::to_vec(&kept).unwrap()
+        );
+
+        let other = study_lyapunov(&lorenz63_plan(0.005), dir.path());
+        let e = other.exponent.unwrap();
+        assert!(other.fresh.is_some() && (e - 0.9056).abs() < 0.05, "{e}");
+        // A damaged file is computed afresh too.
+        std::fs::write(&path, "{oops").unwrap();
+        assert_eq!(study_lyapunov(&plan, dir.path()).exponent, Some(l));
+    }
+
+    /// The study's own exponent wins: nothing is computed or kept. Data read from a file has
+    /// none unless the study gives one; a pilot too costly to integrate leaves a warning.
+    #[test]
+    fn given_exponent_wins() {
+        let dir = tempfile::tempdir().unwrap();
+        let mut plan = lorenz63_plan(0.01);
+        plan.timing.lyapunov_exponent = Some(0.7);
+        let given = study_lyapunov(&plan, dir.path());
+        assert_eq!(given.exponent, Some(0.7));
+        assert_eq!(given.source, Some(LyapunovSource::Given));
+        assert!(given.fresh.is_none() && given.warning.is_none());
+        given.keep(dir.path()).unwrap();
+        assert!(!dir.path().join(LYAPUNOV_FILE).exists());
+
+        plan.timing.lyapunov_exponent = None;
+        plan.data = DataSource::File {
+            path: "pilot.npy".into(),
+            sample_interval: None,
+            fields: None,
+        };
+        assert_eq!(study_lyapunov(&plan, dir.path()), StudyLyapunov::default());
+
+        plan.data = DataSource::Simulate {
+            system: SystemSpec::Lorenz96 {
+                k: 100_000,
+                forcing: 8.0,
+            },
+            dt: 0.01,
+            sample_interval: 0.01,
+            spin_up: 1.0,
+            training_pool: 4000,
+            seed: 1,
+        };
+        let costly = study_lyapunov(&plan, dir.path());
+        assert_eq!(costly.exponent, None);
+        let w = costly.warning.unwrap();
+        assert!(
+            w.contains("lorenz-96") && w.contains("`skill.lyapunov-exponent`"),
+            "{w}"
+        );
     }
 }

@@ -319,7 +319,47 @@ pub struct SkillInfo {
     pub threshold: f64,
     pub warm_up: f64,
     pub max_lead: f64,
+    /// Largest Lyapunov exponent (per model time unit) that converts valid times into Lyapunov
+    /// times; `None` when the study gives none and it could not be computed.
     pub lyapunov_exponent: Option<f64>,
+    /// Where `lyapunov-exponent` came from; absent when there is none.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub lyapunov_source: Option<LyapunovSource>,
+}
+
+/// Where the largest Lyapunov exponent came from: `{"origin": "given"}` or
+/// `{"origin": "computed", "method": …, …}`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "origin", rename_all = "kebab-case")]
+pub enum LyapunovSource {
+    /// The study file's `skill.lyapunov-exponent`.
+    Given,
+    /// Computed from the built-in system that simulated the pilot data.
+    Computed(ComputedLyapunov),
+}
+
+/// How the largest Lyapunov exponent of a simulated pilot was computed.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct ComputedLyapunov {
+    /// The method and its reference.
+    pub method: String,
+    /// The built-in system (its parameters are the data's).
+    pub system: String,
+    /// RK4 step, model time units (the pilot simulation's).
+    pub dt: f64,
+    /// Seed of the initial state and tangent vector (the pilot data's).
+    pub seed: u64,
+    /// Time integrated and discarded before averaging.
+    pub spin_up: f64,
+    /// Averaging time.
+    pub duration: f64,
+    /// Renormalisation interval of the tangent vector.
+    pub renormalise_every: f64,
+    /// Segments of equal length whose means give the standard error.
+    pub segments: usize,
+    /// Standard error: the standard deviation of the segment means over √segments.
+    pub standard_error: f64,
 }
 
 /// One candidate model: measured points, fitted curves, estimates per target.

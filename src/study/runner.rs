@@ -12,7 +12,7 @@ use super::analysis::model_results;
 use super::outcome::{self, Measured};
 use super::plan::StudyPlan;
 use super::points;
-use super::prepare::{prepare, Prepared};
+use super::prepare::{prepare, study_lyapunov, Prepared};
 use super::records::{RecordStore, SkillRecord, RECORDS_FILE};
 use super::results::{PointCounts, StudyResults, Timings};
 use super::score::floors;
@@ -197,13 +197,22 @@ fn run_in_pool(
     super::owner::check(&options.out_dir, plan, options.adopt)?;
 
     // Data: the pilot's, and the new regime's, read and checked now so that a bad file fails
-    // before any work.
+    // before any work; beside them the largest Lyapunov exponent (given, kept from an earlier
+    // run, or computed from the built-in system), kept in the folder once the data are good.
     let t0 = Instant::now();
-    let prep = prepare(plan, options.progress)?;
-    let new_regime = match &plan.transfer {
-        Some(tp) => Some(load_new_regime(plan, tp, &prep.traj, options.progress)?),
-        None => None,
-    };
+    let (data, lyapunov) = rayon::join(
+        || -> Result<_, StudyError> {
+            let prep = prepare(plan, options.progress)?;
+            let new_regime = match &plan.transfer {
+                Some(tp) => Some(load_new_regime(plan, tp, &prep.traj, options.progress)?),
+                None => None,
+            };
+            Ok((prep, new_regime))
+        },
+        || study_lyapunov(plan, &options.out_dir),
+    );
+    let (prep, new_regime) = data?;
+    lyapunov.keep(&options.out_dir)?;
     timings.data = t0.elapsed().as_secs_f64();
 
     // Points: reuse what the store holds, compute the rest.
@@ -217,6 +226,7 @@ fn run_in_pool(
     // Curves, inversion and cost, per model.
     let t0 = Instant::now();
     let mut warnings = outcome::store_warnings(&points.counts);
+    warnings.extend(lyapunov.warning.clone());
     if let Some(previous) = &points.adopted_from {
         warnings.push(format!(
             "this study adopted the output folder from {previous}; every point stored there is kept"
@@ -301,6 +311,7 @@ fn run_in_pool(
             climatology: &climatology,
             counts: points.counts,
             warnings,
+            lyapunov,
         },
         timings,
         started,

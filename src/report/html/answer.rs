@@ -2,7 +2,8 @@
 //! the floors, and the chart of cost against target skill.
 
 use super::cells::{
-    budget_cell, confidence, persistence_floor, samples_cell, status_cell, target_cell,
+    budget_cell, confidence, lyapunov_note, persistence_floor, samples_cell, status_cell,
+    target_cell,
 };
 use crate::report::format::percent;
 use crate::report::format::{bytes, escape, sig3, thousands};
@@ -67,7 +68,7 @@ pub(super) fn answer(out: &mut String, doc: &PlanDocument) {
             continue;
         }
         out.push_str(
-            "<table class=\"answer\">\n<thead><tr><th>Target valid time</th><th>Status</th>\
+            "<div class=\"scroll\"><table class=\"answer\">\n<thead><tr><th>Target valid time</th><th>Status</th>\
              <th class=\"num\">Samples n*</th><th class=\"num\">Simulated time</th>\
              <th class=\"num\">Core-hours</th><th class=\"num\">Storage</th><th>Note</th>\
              </tr></thead>\n<tbody>\n",
@@ -95,7 +96,10 @@ pub(super) fn answer(out: &mut String, doc: &PlanDocument) {
                 escape(&e.note),
             );
         }
-        out.push_str("</tbody>\n</table>\n");
+        out.push_str("</tbody>\n</table></div>\n");
+    }
+    if let Some(note) = lyapunov_note(doc) {
+        let _ = writeln!(out, "<p class=\"muted\">{note}</p>");
     }
     if let Some(chart) = svg::cost_chart(doc) {
         let _ = write!(

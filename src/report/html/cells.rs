@@ -1,11 +1,13 @@
 //! Fragments shared by the sections: table cells for targets, statuses, sample counts and budgets with
-//! their intervals, the data's description, the persistence floor, the end of a curve figure's
-//! caption.
+//! their intervals, the data's description, where the Lyapunov exponent came from, the
+//! persistence floor, the end of a curve figure's caption.
 
 use crate::cost::Budget;
 use crate::report::format::{escape, number, percent, samples, sig3};
 use crate::skill::SkillSummary;
-use crate::study::results::{DataInfo, EstimateStatus, PlanDocument, TargetEstimate};
+use crate::study::results::{
+    ComputedLyapunov, DataInfo, EstimateStatus, LyapunovSource, PlanDocument, TargetEstimate,
+};
 use std::fmt::Write;
 
 /// "simulated two-scale-lorenz96 (F = 20, h = 1)" or "file data/run.npy".
@@ -104,6 +106,75 @@ pub(super) fn target_cell(doc: &PlanDocument, target: f64) -> String {
         );
     }
     s
+}
+
+/// A note for wherever valid times are read in Lyapunov times: the exponent and where it came
+/// from, pointing to the provenance; `None` without an exponent. Short: it sits on the first
+/// page.
+pub(super) fn lyapunov_note(doc: &PlanDocument) -> Option<String> {
+    let skill = doc.skill.as_ref()?;
+    let l = skill.lyapunov_exponent?;
+    let from = match &skill.lyapunov_source {
+        Some(LyapunovSource::Given) => {
+            " given in the study file (<code>skill.lyapunov-exponent</code>)".to_string()
+        }
+        Some(LyapunovSource::Computed(c)) => format!(
+            " of the simulated <strong>{}</strong> system{}, computed by the method of Benettin \
+             et al. (1980)",
+            escape(&c.system),
+            if is_two_scale(c) {
+                " (the whole system, fast variables included)"
+            } else {
+                ""
+            }
+        ),
+        None => String::new(),
+    };
+    Some(format!(
+        "Lyapunov times: valid time × λ₁ = {} per model time unit, the largest Lyapunov \
+         exponent{from}; see <a href=\"#provenance\">Provenance</a>.",
+        sig3(l)
+    ))
+}
+
+fn is_two_scale(c: &ComputedLyapunov) -> bool {
+    c.system == "two-scale-lorenz-96"
+}
+
+/// The provenance of the exponent in full: value, Lyapunov time and how it was obtained.
+pub(super) fn lyapunov_provenance(l: f64, source: Option<&LyapunovSource>) -> String {
+    let head = format!(
+        "{} per model time unit (Lyapunov time {} time units)",
+        number(l),
+        number(1.0 / l)
+    );
+    match source {
+        Some(LyapunovSource::Given) => {
+            format!("{head}: given in the study file (<code>skill.lyapunov-exponent</code>).")
+        }
+        Some(LyapunovSource::Computed(c)) => format!(
+            "{head}: computed by the tangent-linear method of Benettin et al. (1980) from the \
+             simulated <strong>{}</strong> system at the data's parameters, RK4 step {} and \
+             seed {}: {} time units of spin-up, then {} time units averaged with the tangent \
+             vector renormalised every {}; ± {} (standard error over {} segments).{}",
+            escape(&c.system),
+            number(c.dt),
+            c.seed,
+            number(c.spin_up),
+            number(c.duration),
+            number(c.renormalise_every),
+            number(c.standard_error),
+            c.segments,
+            if is_two_scale(c) {
+                " It is the exponent of the whole two-scale system: its fast variables set it, so \
+                 it can be far larger than the rate at which errors of the slow variables grow; \
+                 read the models' skill in time units first."
+            } else {
+                ""
+            }
+        ),
+        None => format!("{head}."),
+    }
 }
 
 /// The status as a coloured badge: "reached in the data", "unreachable", …

@@ -161,6 +161,60 @@ mod tests {
         assert!(page.contains("fitted asymptote 3.00"));
     }
 
+    /// Wherever valid times are read in Lyapunov times (the first page and the estimates), the
+    /// page says where the exponent came from and points to the provenance, which gives it in
+    /// full; without an exponent no Lyapunov time is shown.
+    #[test]
+    fn lyapunov_times_say_where_the_exponent_came_from() {
+        use crate::study::results::{ComputedLyapunov, LyapunovSource};
+        let mut o = fixture();
+        let page = html(&o);
+        let note = "Lyapunov times: valid time × λ₁ = 0.500 per model time unit, the largest \
+                    Lyapunov exponent given in the study file \
+                    (<code>skill.lyapunov-exponent</code>); see <a href=\"#provenance\">\
+                    Provenance</a>.";
+        assert_eq!(page.matches(note).count(), 2, "summary and estimates");
+        let summary = &page[..page.find("id=\"answer\"").unwrap()];
+        assert!(summary.contains(note) && summary.contains("Lyapunov times</span>"));
+        assert!(page.contains(
+            "<tr><th>Largest Lyapunov exponent</th><td>0.5 per model time unit (Lyapunov time 2 \
+             time units): given in the study file (<code>skill.lyapunov-exponent</code>).</td></tr>"
+        ));
+
+        let skill = o.document.skill.as_mut().unwrap();
+        skill.lyapunov_exponent = Some(19.4);
+        skill.lyapunov_source = Some(LyapunovSource::Computed(ComputedLyapunov {
+            method: "tangent-linear".into(),
+            system: "two-scale-lorenz-96".into(),
+            dt: 0.005,
+            seed: 7,
+            spin_up: 10.0,
+            duration: 200.0,
+            renormalise_every: 0.05,
+            segments: 20,
+            standard_error: 0.53,
+        }));
+        let page = html(&o);
+        let note = "λ₁ = 19.4 per model time unit, the largest Lyapunov exponent of the \
+                    simulated <strong>two-scale-lorenz-96</strong> system (the whole system, fast \
+                    variables included), computed by the method of Benettin et al. (1980); see";
+        assert_eq!(page.matches(note).count(), 2, "{page}");
+        assert!(page.contains(
+            "computed by the tangent-linear method of Benettin et al. (1980) from the simulated \
+             <strong>two-scale-lorenz-96</strong> system at the data's parameters, RK4 step \
+             0.005 and seed 7: 10 time units of spin-up, then 200 time units averaged with the \
+             tangent vector renormalised every 0.05; ± 0.53 (standard error over 20 segments)."
+        ));
+        // The two-scale system's exponent comes from its fast variables: the provenance says
+        // what that means for reading the slow variables' skill.
+        assert_eq!(page.matches("fast variables set it").count(), 1);
+
+        let skill = o.document.skill.as_mut().unwrap();
+        skill.lyapunov_exponent = None;
+        skill.lyapunov_source = None;
+        assert!(!html(&o).contains("Lyapunov"));
+    }
+
     #[test]
     fn user_text_is_escaped() {
         let page = html(&fixture());

@@ -1,6 +1,6 @@
 //! Provenance: tool, study, data, seeds, settings, points and stage timings.
 
-use super::cells::{confidence, data_source};
+use super::cells::{confidence, data_source, lyapunov_provenance};
 use crate::report::format::{escape, number, sig3, thousands};
 use crate::study::results::PlanDocument;
 use std::fmt::Write;
@@ -106,16 +106,20 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
     }
     if let Some(k) = &doc.skill {
         kv(out, "Skill", &escape(&k.definition));
-        let mut skill = format!(
+        let skill = format!(
             "threshold {}; warm-up {} and maximum lead {} model time units",
             number(k.threshold),
             number(k.warm_up),
             number(k.max_lead)
         );
-        if let Some(l) = k.lyapunov_exponent {
-            let _ = write!(skill, "; largest Lyapunov exponent {}", number(l));
-        }
         kv(out, "Skill settings", &skill);
+        if let Some(l) = k.lyapunov_exponent {
+            kv(
+                out,
+                "Largest Lyapunov exponent",
+                &lyapunov_provenance(l, k.lyapunov_source.as_ref()),
+            );
+        }
     }
     kv(
         out,

@@ -20,6 +20,7 @@ p { margin:.5em 0; max-width:78ch; }
 .sub { display:block; font-size:.85rem; }
 nav.toc { font-size:.9rem; margin:10px 0 0; color:var(--muted); display:flex; flex-wrap:wrap;
   gap:.2em 1em; }
+a { color:var(--accent); }
 nav.toc a { color:var(--accent); text-decoration:none; white-space:nowrap; }
 .scroll { max-width:100%; overflow-x:auto; }
 section.summary h2 { margin-top:1.2em; }

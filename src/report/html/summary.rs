@@ -2,7 +2,7 @@
 //! see [`verdict`](crate::report::verdict)), its n* and core-hours with their intervals and
 //! status, one sentence per target, the floors and the terms used; printed on a page of its own.
 
-use super::cells::{confidence, interval, status_badge};
+use super::cells::{confidence, interval, lyapunov_note, status_badge};
 use crate::report::format::{escape, percent, samples, sig3};
 use crate::report::verdict::{picks, ratio_words, Answer, Pick};
 use crate::study::results::PlanDocument;
@@ -163,6 +163,9 @@ pub(super) fn summary(out: &mut String, doc: &PlanDocument) {
          cost rate. Intervals come from the bootstrap over replicates, test initial conditions \
          and curve families.</p>\n",
     );
+    if let Some(note) = lyapunov_note(doc) {
+        let _ = writeln!(out, "<p class=\"muted\">{note}</p>");
+    }
     if let (Some(c), Some((_, e, Answer::Number { .. }))) =
         (&doc.cost, picks.first().and_then(|p| p.choice.as_ref()))
     {
