@@ -90,20 +90,27 @@ pub(super) fn summary(out: &mut String, doc: &PlanDocument) {
                     (Some(b), Answer::Number { .. }) => format!(
                         "<span class=\"big\">{}</span><span class=\"sub\">{level} {}</span>",
                         sig3(b.core_hours),
-                        interval(
-                            e.budget_low.map(|b| b.core_hours),
-                            e.budget_high.map(|b| b.core_hours),
-                            sig3
-                        )
+                        match (e.budget_low, e.budget_high) {
+                            // The samples' upper end reads "more than": so does the cost's.
+                            (Some(l), Some(h)) if e.upper_beyond_data => format!(
+                                "{} to more than {}",
+                                sig3(l.core_hours),
+                                sig3(h.core_hours)
+                            ),
+                            (l, h) =>
+                                interval(l.map(|b| b.core_hours), h.map(|b| b.core_hours), sig3),
+                        }
                     ),
                     (
-                        Some(b),
+                        _,
                         Answer::Bound {
                             at_most: Some(_), ..
                         },
-                    ) => {
-                        format!("<span class=\"big\">≤ {}</span>", sig3(b.core_hours))
-                    }
+                    ) if e.budget_high.is_some() => format!(
+                        "<span class=\"big\">≤ {}</span><span class=\"sub\">at most: priced at \
+                         the smallest measured size</span>",
+                        sig3(e.budget_high.map_or(f64::NAN, |b| b.core_hours))
+                    ),
                     (
                         Some(_),
                         Answer::Bound {
@@ -209,7 +216,12 @@ fn sentence(doc: &PlanDocument, p: &Pick<'_>, level: &str, hours: &str) -> Strin
             format!(
                 ", costing {} {hours} ({level} {})",
                 sig3(v),
-                interval(lo, hi, sig3)
+                match (lo, hi) {
+                    (Some(l), Some(h)) if e.upper_beyond_data => {
+                        format!("{} to more than {}", sig3(l), sig3(h))
+                    }
+                    _ => interval(lo, hi, sig3),
+                }
             )
         } else {
             String::new()
@@ -238,8 +250,14 @@ fn sentence(doc: &PlanDocument, p: &Pick<'_>, level: &str, hours: &str) -> Strin
             at_most: Some(n), ..
         } => format!(
             "<strong>{t} time units</strong>: <strong>{name}</strong> already reaches it at the \
-             smallest measured size, so n* ≤ {} samples; measure smaller subsets to pin it down.",
-            samples(*n)
+             smallest measured size, so n* ≤ {} samples{}; measure smaller subsets to pin it down.",
+            samples(*n),
+            match e.budget_high {
+                Some(b) if doc.cost.is_some() => {
+                    format!(", at most {} {hours}", sig3(b.core_hours))
+                }
+                _ => String::new(),
+            }
         ),
         Answer::Bound { at_least, .. } => format!(
             "<strong>{t} time units</strong>: no model gives a number; the best bound is \
