@@ -454,7 +454,7 @@ core-hours-per-time-unit = 10.0
             "half-width = 1\nlstm = { hidden = 8 }",
             TWO_SCALE,
             vec![
-                "`model[0].role` = closure (LSTM network)",
+                "`model \"c\".role` = closure (LSTM network)",
                 "inputs = \"global\" for an LSTM closure",
             ],
         ),
@@ -504,12 +504,12 @@ sample-interval = 0.01
         std::fs::write(&study, text).unwrap();
         study
     };
-    // Missing file.
+    // Missing file: found by the check, before any work.
     let study = with_transfer("gone.csv", "[100, 200, 400]");
     expect_failure(
         dir.path(),
         &study,
-        &["new regime ([transfer])", "cannot read", "gone.csv"],
+        &["`transfer.data.file.path`: cannot read", "gone.csv"],
     );
     // k larger than the new regime's data.
     std::fs::write(dir.path().join("t.csv"), lorenz63_csv(600)).unwrap();
@@ -526,8 +526,8 @@ sample-interval = 0.01
         dir.path(),
         &study,
         &[
-            "new regime's data have 2 resolved variables",
-            "pilot's have 3",
+            "`transfer.data.file.path`",
+            "t2.csv holds 2 variables but the pilot's data have 3",
         ],
     );
 }
@@ -949,4 +949,234 @@ sample-interval = 0.01"#;
         &["inf.csv, line 3", "skill = inf is not finite"],
     );
     fit("nohead.csv", good, &["lacks the column 'model'"]);
+}
+
+/// A small valid study of Lorenz-63 with one echo state network, for the checks below.
+const CHECKED: &str = r#"title = "bad-input checks (invented)"
+seed = 5
+[data.simulate]
+system = { name = "lorenz-63", sigma = 10.0, rho = 28.0, beta = 2.6666666666666665 }
+dt = 0.01
+sample-interval = 0.01
+spin-up = 5.0
+[split]
+initial-conditions = 8
+gap = 0.5
+[skill]
+warm-up = 0.2
+max-lead = 1.5
+[subsets]
+sizes = [200, 400, 800]
+replicates = 2
+[[model]]
+name = "esn"
+esn = { reservoir-size = 40, washout = 20 }
+[plan]
+targets = [0.3]
+bootstrap-draws = 50
+[cost]
+core-hours-per-time-unit = 10.0
+"#;
+
+/// Replacements `(from, to)` in a study file's text.
+type Edits<'a> = &'a [(&'a str, &'a str)];
+
+/// `CHECKED` with each `(from, to)` replaced (every `from` must be there), written to
+/// `dir/study.toml`.
+fn edited(dir: &Path, edits: &[(&str, &str)]) -> std::path::PathBuf {
+    let mut text = CHECKED.to_string();
+    for (from, to) in edits {
+        assert!(text.contains(from), "'{from}' in the study");
+        text = text.replacen(from, to, 1);
+    }
+    let p = dir.join("study.toml");
+    std::fs::write(&p, text).unwrap();
+    p
+}
+
+/// `check` of `study` fails naming every needle, in words of the study file (no type names of
+/// the tool's code, no message wrapped in another), and `run` refuses it before any work.
+fn refused_by_check(dir: &Path, study: &Path, needles: &[&str]) -> String {
+    let o = run_in(dir, &["check", study.to_str().unwrap()]);
+    let err = stderr(&o);
+    assert_eq!(o.status.code(), Some(2), "{err}");
+    for n in needles {
+        assert!(err.contains(n), "expected '{n}' in: {err}");
+    }
+    for word in [
+        "usize",
+        "f64",
+        "Some(",
+        "see the message",
+        "is invalid; allowed: see",
+    ] {
+        assert!(!err.contains(word), "'{word}' in: {err}");
+    }
+    err
+}
+
+/// Each mistake a study file can hold is found by `check`, with the key (a model by its name),
+/// the bad value, what is allowed and what to do.
+#[test]
+fn study_file_mistakes_are_named_by_check() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let esn = "name = \"esn\"\nesn = { reservoir-size = 40, washout = 20 }";
+    #[rustfmt::skip]
+    let cases: &[(Edits, &[&str])] = &[
+        // A washout the smallest subset cannot hold.
+        (&[("washout = 20", "washout = 300")], &["`model \"esn\".esn.washout` = 300 is invalid", "the smallest subset of 200 samples leaves training pairs after the washout", "raise the smallest size to at least 302"]),
+        // Geometric sizes that round to fewer distinct sizes than asked for.
+        (&[("sizes = [200, 400, 800]", "geometric = { smallest = 10, largest = 12, count = 5 }")], &["`subsets.geometric` = smallest 10 largest 12 count 5", "rounding gives only 3 distinct sizes [10, 11, 12]", "merged: 10 (2 times), 11 (2 times)", "set count = 3 or widen the range"]),
+        // A target no forecast runs long enough to measure.
+        (&[("targets = [0.3]", "targets = [0.3, 3.0]")], &["`plan.targets` = 3 (above skill.max-lead = 1.5)", "a target above max-lead cannot be measured", "raise max-lead to at least 3"]),
+        // A normalised-error threshold out of range, far and near.
+        (&[("max-lead = 1.5", "max-lead = 1.5\nthreshold = 1e9")], &["`skill.threshold` = 1000000000 is invalid", "greater than 0 and at most 10"]),
+        (&[("max-lead = 1.5", "max-lead = 1.5\nthreshold = 0.0")], &["`skill.threshold` = 0 is invalid"]),
+        // Integrator steps above the limit: a long spin-up, a tiny step.
+        (&[("spin-up = 5.0", "spin-up = 1e9")], &["`data.simulate`: the simulation would take 1.000e11 integrator steps (1.000e11 for the spin-up", "hours on one core", "the limit is 1e9 steps", "shorten `spin-up`"]),
+        (&[("dt = 0.01", "dt = 1e-9")], &["2.030e10 integrator steps", "1531 samples × 10000000 steps each", "raise `dt`"]),
+        // Sizes whose data would not fit in any machine's memory.
+        (&[("sizes = [200, 400, 800]", "sizes = [200, 400, 1000000000000]")], &["`subsets.sizes`: the study would hold about", "(the pilot data", "1200000000571 samples", "more than the limit of", "reduce the largest subset size"]),
+        // A fit whose design matrix would not.
+        (&[("sizes = [200, 400, 800]", "sizes = [200, 400, 1000000000000]"), (esn, "name = \"poly\"\npolynomial = { degree = 3 }")], &["`model \"poly\".polynomial`: the study would hold about", "the design matrix of 1000000000000 rows × 20 monomials", "give model poly settings with fewer features"]),
+        // A size written as a float: the reader's words, not the code's types.
+        (&[("sizes = [200, 400, 800]", "sizes = [200, 400, 1e10]")], &["is not valid TOML for a study", "expected a whole number ≥ 0"]),
+        // A bad name: the model is keyed by its position, every bad setting of it reported.
+        (&[("name = \"esn\"", "name = \"my esn\""), ("reservoir-size = 40", "reservoir-size = 40, spectral-radius = 3.0, leak-rate = 0.0")], &["has 3 problems", "`model[0].name` = 'my esn'", "`model[0].esn.spectral-radius` = 3 is invalid", "`model[0].esn.leak-rate` = 0 is invalid"]),
+        // Delays spanning the smallest subset.
+        (&[(esn, "name = \"ng\"\nngrc = { delays = 3, stride = 100 }")], &["`model \"ng\".ngrc.delays` = 3 (with stride 100, spanning 200 samples)", "raise the smallest size"]),
+        // A network window the smallest subset cannot hold.
+        (&[(esn, "name = \"net\"\nmlp = { window = 300 }")], &["`model \"net\".mlp.window` = 300", "raise the smallest size to at least 308"]),
+        // More monomials than a polynomial fit accepts: C(45, 5) for 40 variables at degree 5.
+        (&[("{ name = \"lorenz-63\", sigma = 10.0, rho = 28.0, beta = 2.6666666666666665 }", "{ name = \"lorenz-96\", k = 40, forcing = 8.0 }"), (esn, "name = \"poly\"\npolynomial = { degree = 5 }")], &["`model \"poly\".polynomial.degree` = 5", "degree 5 gives 1221759", "lower `degree`"]),
+        // A cost setting, named once (not wrapped in a second message).
+        (&[("core-hours-per-time-unit = 10.0", "core-hours-per-time-unit = 10.0\nbytes-per-value = 3")], &["`cost.bytes-per-value` = 3 is invalid; allowed: 4 or 8"]),
+    ];
+    for (edits, needles) in cases {
+        let study = edited(d, edits);
+        refused_by_check(d, &study, needles);
+    }
+    assert!(cases.len() >= 15);
+
+    // `run` refuses the same before any work and leaves nothing behind.
+    let study = edited(d, &[("spin-up = 5.0", "spin-up = 1e9")]);
+    expect_failure(d, &study, &["the limit is 1e9 steps"]);
+}
+
+/// Three problems in one file are reported together, one line each.
+#[test]
+fn three_problems_in_one_file_are_reported_together() {
+    let dir = tempfile::tempdir().unwrap();
+    let study = edited(
+        dir.path(),
+        &[
+            ("max-lead = 1.5", "max-lead = 1.5\nthreshold = 1e9"),
+            ("targets = [0.3]", "targets = [0.3, 3.0]"),
+            ("washout = 20", "washout = 300"),
+        ],
+    );
+    let err = refused_by_check(
+        dir.path(),
+        &study,
+        &[
+            "has 3 problems; fix them and run `check` again:",
+            "\n  - `skill.threshold` = 1000000000 is invalid",
+            "\n  - `plan.targets` = 3 (above skill.max-lead = 1.5)",
+            "\n  - `model \"esn\".esn.washout` = 300 is invalid",
+        ],
+    );
+    assert_eq!(err.trim_end().lines().count(), 4, "{err}");
+}
+
+/// Data files are found (or not) by `check`, with the reader each file type needs.
+#[test]
+fn data_files_are_checked_before_any_work() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let data = |path: &str| format!("path = \"{path}\"\nsample-interval = 0.01");
+    // Missing, for the pilot.
+    let study = file_study(d, &data("nowhere.csv"), "[100, 200, 400]", 5);
+    refused_by_check(d, &study, &["`data.file.path`: cannot read", "nowhere.csv"]);
+    // No sampling interval and no sidecar.
+    std::fs::write(d.join("d.csv"), lorenz63_csv(1000)).unwrap();
+    let study = file_study(d, "path = \"d.csv\"", "[100, 200, 400]", 5);
+    refused_by_check(d, &study, &["`data.file.sample-interval`", "sidecar"]);
+    // A file type no reader takes.
+    std::fs::write(d.join("d.txt"), lorenz63_csv(1000)).unwrap();
+    let study = file_study(d, &data("d.txt"), "[100, 200, 400]", 5);
+    refused_by_check(
+        d,
+        &study,
+        &[
+            "`data.file.path` = 'd.txt' is invalid",
+            "a trajectory in .npy (with an optional .json sidecar) or .csv, or gridded fields in NetCDF (.nc) or NumPy .npz",
+        ],
+    );
+    // A trajectory given field keys.
+    let study = file_study(
+        d,
+        &format!("{}\nvariables = [\"x\"]", data("d.csv")),
+        "[100, 200, 400]",
+        5,
+    );
+    refused_by_check(
+        d,
+        &study,
+        &[
+            "`data.file.path` = 'd.csv' with gridded-field keys",
+            "read as one trajectory",
+            "drop `variables`",
+        ],
+    );
+    // Fields for the new regime, and a new regime's file that is not there.
+    let with_transfer = |path: &str| {
+        let study = file_study(d, &data("d.csv"), "[100, 200, 400]", 5);
+        let mut text = std::fs::read_to_string(&study).unwrap();
+        text.push_str(&format!(
+            "[transfer]\nsizes = [50, 100, 200]\ntargets = [0.2]\n[transfer.data.file]\n{}\n",
+            data(path)
+        ));
+        std::fs::write(&study, text).unwrap();
+        study
+    };
+    let study = with_transfer("t.nc");
+    refused_by_check(
+        d,
+        &study,
+        &[
+            "`transfer.data.file` = gridded fields ('t.nc')",
+            "for the pilot's [data.file] only",
+        ],
+    );
+    let study = with_transfer("gone.npy");
+    refused_by_check(
+        d,
+        &study,
+        &["`transfer.data.file.path`: cannot read", "gone.npy"],
+    );
+}
+
+/// `check` of a valid study shows the work before any is done: the samples to simulate and
+/// their integrator steps, the training points, the memory at once against the limit.
+#[test]
+fn check_shows_the_work_estimate() {
+    let dir = tempfile::tempdir().unwrap();
+    let study = edited(dir.path(), &[]);
+    let o = run_in(dir.path(), &["check", study.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let text = stdout(&o);
+    // By hand, at sample interval 0.01: a pool of 800 + 800/5 = 960 samples, a gap of 50, and
+    // a test region of 20 warm-up + 7 × 50 spacing + 150 lead + 1 = 521 samples: 1531 samples;
+    // 5/0.01 = 500 spin-up steps and 1530 steps between them: 2030 steps.
+    for n in [
+        "work estimate (before any work):",
+        "simulate (data.simulate): 1531 samples, 2.030e3 integrator steps, under a second on one core (limit 1e9 steps)",
+        "training: 6 points (1 model × 3 sizes × 2 replicates: 2 nested training passes), 48 test forecasts",
+        // 1531 samples × 3 variables × 8 bytes; 3 × 61² + 3 × 61 × 3 doubles for the
+        // normal equations of 1 + 40 + 20 features.
+        "memory: about 130 kB at once (the pilot data 36.7 kB (1531 samples), the largest fit 93.7 kB (model esn: the normal equations of 61 features)); limit",
+    ] {
+        assert!(text.contains(n), "expected '{n}' in: {text}");
+    }
 }

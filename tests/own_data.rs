@@ -243,7 +243,7 @@ fn data_file_problems_are_reported_together() {
     let o = run_in(dir, &["check", "study.toml"]);
     assert_eq!(o.status.code(), Some(2));
     let err = stderr(&o);
-    assert!(err.contains("the data files have 3 problems"), "{err}");
+    assert!(err.contains("has 3 problems"), "{err}");
     assert!(
         err.contains("missing.nc") && err.contains("data.file.runs"),
         "{err}"
@@ -268,7 +268,7 @@ fn data_file_problems_are_reported_together() {
         );
     std::fs::write(dir.join("study.toml"), study).unwrap();
     let err = stderr(&run_in(dir, &["check", "study.toml"]));
-    assert!(err.contains("the data files have 3 problems"), "{err}");
+    assert!(err.contains("has 3 problems"), "{err}");
     assert!(
         err.contains("no variable 'rho'") && err.contains("conv3.nc"),
         "{err}"

@@ -236,6 +236,40 @@ pub fn read_npy<D: Dimension>(path: &Path, shape: &str) -> Result<Array<f64, D>,
     Array::<f64, D>::read_npy(reader).map_err(|e| npy_err(e.to_string()))
 }
 
+/// Samples and variables of a trajectory file as far as its first bytes tell, without reading
+/// its values: a `.npy` header's shape, a `.csv` header's columns (its rows are not counted).
+/// A file that cannot be opened is an error; a shape that cannot be told is `None`, left to
+/// [`read_trajectory`] to judge.
+pub fn trajectory_columns(path: &Path) -> Result<(Option<usize>, Option<usize>), DataError> {
+    let read = |source| DataError::Read {
+        path: path.to_path_buf(),
+        source,
+    };
+    let file = std::fs::File::open(path).map_err(read)?;
+    if file.metadata().map_err(read)?.is_dir() {
+        return Err(read(std::io::Error::other("it is a folder, not a file")));
+    }
+    let mut reader = std::io::BufReader::new(file);
+    let ext = path
+        .extension()
+        .map(|e| e.to_string_lossy().to_lowercase())
+        .unwrap_or_default();
+    Ok(match ext.as_str() {
+        "npy" => match declared_shape(&mut reader).as_deref() {
+            Some(&[rows, columns]) => (Some(rows), Some(columns)),
+            _ => (None, None),
+        },
+        "csv" => {
+            use std::io::BufRead;
+            let mut header = String::new();
+            reader.read_line(&mut header).map_err(read)?;
+            let cells = header.trim_end().split(',').count();
+            (None, (!header.trim().is_empty()).then_some(cells))
+        }
+        _ => (None, None),
+    })
+}
+
 /// The shape declared in a `.npy` header, when the header can be read; `None` leaves the
 /// judgement to the full reader.
 fn declared_shape(reader: &mut impl std::io::Read) -> Option<Vec<usize>> {

@@ -18,7 +18,9 @@ mod io;
 pub mod pod;
 mod split;
 
-pub use io::{read_npy, read_trajectory, write_npy, write_trajectory, OutputFormats};
+pub use io::{
+    read_npy, read_trajectory, trajectory_columns, write_npy, write_trajectory, OutputFormats,
+};
 pub use split::{Split, SplitSpec};
 
 use ndarray::{Array2, ArrayView2};

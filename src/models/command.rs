@@ -25,7 +25,7 @@ use super::family::{
     read_settings, settings_json, ExternalPoint, ExternalTrainer, FamilyError, ModelFamily,
     Registration, RelativeCost, Trainer,
 };
-use super::{out_of_range, Forecaster, ModelError};
+use super::{Forecaster, ModelError};
 use crate::atomic::write_atomic;
 use crate::data::{read_npy, write_npy, DataError};
 use crate::skill::{IcSkill, SkillSpec, BLOW_UP_SIGMAS};
@@ -182,19 +182,20 @@ impl CommandParams {
     /// Checks every setting (see the table on [`CommandParams`]); `base` is the study file's
     /// directory, the default `workdir` and the base of a relative one.
     pub fn check(self, base: &Path) -> Result<ValidCommandParams, ModelError> {
+        let mut bad = super::SettingProblems::default();
         if self.program.trim().is_empty() {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "program",
                 format!("'{}'", self.program),
                 "the name or path of a program, e.g. \"python3\"",
-            ));
+            );
         }
         if !(self.timeout.is_finite() && self.timeout > 0.0 && self.timeout <= MAX_TIMEOUT) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "timeout",
                 self.timeout.to_string(),
                 "a positive number of seconds, at most 31536000 (one year)",
-            ));
+            );
         }
         let base = if base.as_os_str().is_empty() {
             Path::new(".")
@@ -203,16 +204,17 @@ impl CommandParams {
         };
         let workdir = match &self.workdir {
             Some(w) if w.as_os_str().is_empty() => {
-                return Err(out_of_range(
+                bad.out_of_range(
                     "workdir",
                     "''".into(),
                     "a directory (relative to the study file), or no `workdir` for the study file's directory",
-                ))
+                );
+                base.to_path_buf()
             }
             Some(w) => base.join(w),
             None => base.to_path_buf(),
         };
-        Ok(ValidCommandParams {
+        bad.finish(ValidCommandParams {
             params: self,
             workdir,
         })

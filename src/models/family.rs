@@ -48,6 +48,51 @@ pub struct RelativeCost {
     pub per_forecast_step: f64,
 }
 
+/// What a family trains on in a study, known before any data is read: the subset sizes and the
+/// shape of its regression, for the checks and the work estimate of `check`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct TrainingShape {
+    /// Smallest subset size, samples.
+    pub smallest: usize,
+    /// Largest subset size, samples.
+    pub largest: usize,
+    /// Inputs of one regression row (`None`: not known before the data are read, e.g. the
+    /// modes an energy fraction of a POD keeps).
+    pub inputs: Option<usize>,
+    /// Outputs of one regression row (`None` as for `inputs`).
+    pub outputs: Option<usize>,
+    /// Regression rows per saved sample: the number of slow variables for a closure with
+    /// local inputs (one row per variable), else 1.
+    pub rows_per_sample: usize,
+    /// Trained as a closure.
+    pub closure: bool,
+}
+
+/// The largest block of memory one fit holds at once.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TrainingMemory {
+    /// Bytes.
+    pub bytes: f64,
+    /// What it is, e.g. "the normal equations of 451 features".
+    pub what: String,
+}
+
+/// Bytes of `values` doubles.
+pub fn doubles(values: f64) -> f64 {
+    values * std::mem::size_of::<f64>() as f64
+}
+
+/// The memory of a streaming ridge fit with `features` features: the Gram matrix, the copy a
+/// subset size ending inside a block is solved from, and the factor of the solve (three F × F
+/// matrices), as [`super::ridge`] holds them.
+pub fn ridge_memory(features: usize, outputs: usize) -> TrainingMemory {
+    let f = features as f64;
+    TrainingMemory {
+        bytes: doubles(3.0 * f * f + 3.0 * f * outputs as f64),
+        what: format!("the normal equations of {features} features"),
+    }
+}
+
 /// What the study engine needs of a model family: its checked settings, what it refuses, how
 /// it is trained. Implemented once per family, on its checked settings.
 pub trait ModelFamily: Send + Sync + std::fmt::Debug {
@@ -92,6 +137,21 @@ pub trait ModelFamily: Send + Sync + std::fmt::Debug {
     /// to use instead.
     fn closure_unsupported(&self, inputs: ClosureInputs) -> Option<&'static str> {
         let _ = inputs;
+        None
+    }
+
+    /// Settings that cannot work on data of this shape (a washout as long as the smallest
+    /// subset, more features than a fit accepts), each keyed by its setting as
+    /// [`ModelError::InvalidParameter`]: found by `check`, before any work.
+    fn refuses_shape(&self, shape: &TrainingShape) -> Vec<ModelError> {
+        let _ = shape;
+        Vec::new()
+    }
+
+    /// The largest block of memory of one fit on the largest subset (`None`: not known, e.g.
+    /// trained outside the tool or the inputs not known before the data are read).
+    fn training_memory(&self, shape: &TrainingShape) -> Option<TrainingMemory> {
+        let _ = shape;
         None
     }
 

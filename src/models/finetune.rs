@@ -126,34 +126,35 @@ impl FineTuneParams {
 
     /// Checks every setting against its valid range (see the table on [`FineTuneParams`]).
     pub fn check(self) -> Result<ValidFineTuneParams, ModelError> {
+        let mut bad = crate::models::SettingProblems::default();
         let w = &self.base_weights;
         if w.is_empty()
             || w.len() > 32
             || !w.iter().all(|c| c.is_finite() && (0.0..=1e6).contains(c))
         {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "base-weights",
                 format!("{w:?}"),
                 "1 to 32 values, each from 0 to 1e6",
-            ));
+            );
         }
         let v = self.validation_fraction;
         if !(v.is_finite() && v > 0.0 && v <= 0.5) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "validation-fraction",
                 v.to_string(),
                 "greater than 0 and at most 0.5",
-            ));
+            );
         }
         let l = self.learning_rate_factor;
         if !(l.is_finite() && l > 0.0 && l <= 1.0) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "learning-rate-factor",
                 l.to_string(),
                 "greater than 0 and at most 1",
-            ));
+            );
         }
-        Ok(ValidFineTuneParams(self))
+        bad.finish(ValidFineTuneParams(self))
     }
 }
 

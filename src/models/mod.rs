@@ -51,6 +51,9 @@ pub enum ModelError {
         value: String,
         allowed: String,
     },
+    /// Several settings out of range, each an [`ModelError::InvalidParameter`].
+    #[error("{}", .0.iter().map(|e| e.to_string()).collect::<Vec<_>>().join("; "))]
+    InvalidParameters(Vec<ModelError>),
     #[error("no subset sizes to train on")]
     NoSizes,
     #[error(
@@ -77,6 +80,47 @@ pub(crate) fn out_of_range(key: &str, value: String, allowed: &str) -> ModelErro
         key: key.to_string(),
         value,
         allowed: allowed.to_string(),
+    }
+}
+
+/// The out-of-range settings of one family's table, all of them (so a study file's check
+/// reports every one at once); [`SettingProblems::finish`] turns them into one error.
+#[derive(Debug, Default)]
+pub(crate) struct SettingProblems(Vec<ModelError>);
+
+impl SettingProblems {
+    /// Records a setting out of range (see [`out_of_range`]).
+    pub(crate) fn out_of_range(&mut self, key: &str, value: String, allowed: &str) {
+        self.0.push(out_of_range(key, value, allowed));
+    }
+
+    /// Records the problems of a nested settings check.
+    pub(crate) fn add(&mut self, result: Result<(), ModelError>) {
+        if let Err(e) = result {
+            match e {
+                ModelError::InvalidParameters(v) => self.0.extend(v),
+                e => self.0.push(e),
+            }
+        }
+    }
+
+    /// `ok` when no setting was out of range; else the one problem, or all of them.
+    pub(crate) fn finish<T>(mut self, ok: T) -> Result<T, ModelError> {
+        match self.0.len() {
+            0 => Ok(ok),
+            1 => Err(self.0.pop().expect("one problem")),
+            _ => Err(ModelError::InvalidParameters(self.0)),
+        }
+    }
+}
+
+impl ModelError {
+    /// The settings out of range this error names, one error each (itself for any other error).
+    pub fn into_settings(self) -> Vec<ModelError> {
+        match self {
+            ModelError::InvalidParameters(v) => v,
+            e => vec![e],
+        }
     }
 }
 

@@ -11,15 +11,19 @@
 
 use super::closure::{fit_instant, ClosureInputs, Regressor};
 use super::family::{
-    read_settings, settings_json, ClosureData, FamilyError, ModelFamily, Registration,
-    RelativeCost, ClosureFits, Equations, FineTuning, Fits, Train, Trainer,
+    read_settings, ridge_memory, settings_json, ClosureData, FamilyError, ModelFamily,
+    Registration, RelativeCost, ClosureFits, Equations, FineTuning, Fits, Train, Trainer,
+    TrainingMemory, TrainingShape,
 };
 use super::finetune::{fine_tune_readouts, ValidFineTuneParams};
 use super::ridge::{
     nested_pass, nested_readouts, Block, NormalEquations, Penalty, RidgeSelection, RowSource,
     Rows, BLOCK_ROWS,
 };
-use super::{out_of_range, standardisation, FitSummary, Forecaster, ModelError, RidgeScaling};
+use super::{
+    out_of_range, standardisation, FitSummary, Forecaster, ModelError, RidgeScaling,
+    SettingProblems,
+};
 use ndarray::ArrayView2;
 use serde::{Deserialize, Serialize};
 use std::path::Path;
@@ -109,21 +113,22 @@ impl ValidNgrcParams {
 impl NgrcParams {
     /// Checks every setting against its valid range (see the table on [`NgrcParams`]).
     pub fn check(self) -> Result<ValidNgrcParams, ModelError> {
+        let mut bad = SettingProblems::default();
         let p = &self;
         if !(1..=100).contains(&p.delays) {
-            return Err(out_of_range("delays", p.delays.to_string(), "1 to 100"));
+            bad.out_of_range("delays", p.delays.to_string(), "1 to 100");
         }
         if !(1..=10_000).contains(&p.stride) {
-            return Err(out_of_range("stride", p.stride.to_string(), "1 to 10000"));
+            bad.out_of_range("stride", p.stride.to_string(), "1 to 10000");
         }
         if !(p.ridge.is_finite() && p.ridge > 0.0 && p.ridge <= 1e3) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "ridge",
                 p.ridge.to_string(),
                 "greater than 0 and at most 1000",
-            ));
+            );
         }
-        Ok(ValidNgrcParams(self))
+        bad.finish(ValidNgrcParams(self))
     }
 }
 
@@ -1323,6 +1328,48 @@ impl ModelFamily for ValidNgrcParams {
     /// regression standardises on its own rows.
     fn standardised_on_smallest(&self, closure: bool) -> bool {
         !closure
+    }
+
+    /// As [`fit_nested`] refuses: delays that span the smallest subset, more features than
+    /// [`MAX_FEATURES`].
+    fn refuses_shape(&self, shape: &TrainingShape) -> Vec<ModelError> {
+        let p = self.get();
+        let mut out = Vec::new();
+        let span = (p.delays - 1) * p.stride;
+        if !shape.closure && shape.smallest <= span + 1 {
+            out.push(out_of_range(
+                "delays",
+                format!(
+                    "{} (with stride {}, spanning {span} samples)",
+                    p.delays, p.stride
+                ),
+                &format!(
+                    "(delays − 1) × stride below {} so that the smallest subset of {} samples \
+                     leaves a training pair; lower `delays` or `stride`, or raise the smallest size",
+                    shape.smallest.saturating_sub(1),
+                    shape.smallest
+                ),
+            ));
+        }
+        if let Some(d) = shape.inputs {
+            let f = feature_count(p.delays * d);
+            if f > MAX_FEATURES {
+                out.push(out_of_range(
+                    "delays",
+                    format!("{} (with {d} variables: {f} features)", p.delays),
+                    &format!(
+                        "at most {MAX_FEATURES} features (1 + L + L(L + 1)/2 for L = delays × \
+                         variables); lower `delays` or reduce the variables (e.g. a POD)"
+                    ),
+                ));
+            }
+        }
+        out
+    }
+
+    fn training_memory(&self, shape: &TrainingShape) -> Option<TrainingMemory> {
+        let f = feature_count(self.get().delays * shape.inputs?);
+        Some(ridge_memory(f, shape.outputs.unwrap_or(1)))
     }
 
     fn closure_unsupported(&self, _inputs: ClosureInputs) -> Option<&'static str> {

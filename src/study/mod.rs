@@ -54,12 +54,11 @@ pub enum StudyError {
     },
     #[error("study file {path} is not valid TOML for a study: {message}")]
     Parse { path: PathBuf, message: String },
-    #[error("study file {path}: `{key}` = {value} is invalid; allowed: {allowed}")]
-    Invalid {
+    /// Every problem `check` found in a study file, one per line.
+    #[error("{}", plan::problem::problems_text(path, problems))]
+    Problems {
         path: PathBuf,
-        key: String,
-        value: String,
-        allowed: String,
+        problems: Vec<plan::Problem>,
     },
     #[error(transparent)]
     Data(#[from] crate::data::DataError),

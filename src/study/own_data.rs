@@ -36,7 +36,8 @@
 //! ([`crate::skill::Unresolved`]). The valid time of a perfect reduced model (truncation error
 //! alone) is the reconstruction floor.
 
-use super::plan::{to_samples, StudyPlan, Timing};
+use super::plan::problem::Checks;
+use super::plan::Timing;
 use super::schema::FileSection;
 use super::StudyError;
 use crate::data::coarse::{coarse_grain_snapshots, coarse_layout, CoarseError, CoarseGrain};
@@ -57,11 +58,6 @@ pub const SPECTRUM_SHOWN: usize = 200;
 /// Errors from reading and reducing the user's fields.
 #[derive(Debug, thiserror::Error)]
 pub enum OwnDataError {
-    #[error("study file {study}: the data files have {} problem{}; fix them and run `check` again:\n{}", problems.len(), if problems.len() == 1 { "" } else { "s" }, problems.iter().map(|p| format!("  - {p}")).collect::<Vec<_>>().join("\n"))]
-    Problems {
-        study: PathBuf,
-        problems: Vec<String>,
-    },
     #[error(transparent)]
     Dataset(#[from] DatasetError),
     #[error("data.file.reduce.coarse-grain: {0}")]
@@ -97,8 +93,6 @@ pub struct FieldPlan {
     pub held_out_runs: usize,
 }
 
-type Invalid<'a> = dyn Fn(&str, String, &str) -> StudyError + 'a;
-
 /// A `[data.file]` table checked: the first path, the given sampling interval and, for gridded
 /// data, the field plan.
 pub(super) type PlannedFile = (PathBuf, Option<f64>, Option<Box<FieldPlan>>);
@@ -127,62 +121,107 @@ fn wants_fields(f: &FileSection) -> bool {
         || !plain
 }
 
-/// Checks the keys of a `[data.file]` table (`key`: its name). Returns the first path, the
-/// given sampling interval and, for gridded data, the field plan. Files are opened later, by
-/// [`check_files`].
+/// The extensions of the trajectory readers (`.npy` with its sidecar, `.csv`) and of the field
+/// readers (NetCDF, `.npz`; a field file is recognised by its first bytes, these are the names
+/// it usually goes by).
+const TRAJECTORY_EXTENSIONS: [&str; 2] = ["npy", "csv"];
+const FIELD_EXTENSIONS: [&str; 7] = ["nc", "nc4", "cdf", "netcdf", "h5", "hdf5", "npz"];
+
+/// The lowercase extension of `path`.
+fn extension(path: &Path) -> String {
+    path.extension()
+        .and_then(|e| e.to_str())
+        .map(str::to_lowercase)
+        .unwrap_or_default()
+}
+
+/// Checks the keys of a `[data.file]` table (`key`: its name), recording every problem in `c`.
+/// Returns the first path, the given sampling interval and, for gridded data, the field plan,
+/// when the table has no problem. Field files are opened later, by [`check_files`]; a
+/// trajectory's file is looked for here.
 pub(super) fn plan_file(
     f: FileSection,
     key: &str,
     base: &Path,
-    invalid: &Invalid,
-) -> Result<PlannedFile, StudyError> {
+    c: &mut Checks,
+) -> Option<PlannedFile> {
+    let before = c.count();
     let k = |name: &str| format!("{key}.file.{name}");
     if let Some(dt) = f.sample_interval {
         if !(dt.is_finite() && dt > 0.0) {
-            return Err(invalid(
-                &k("sample-interval"),
-                dt.to_string(),
-                "a positive number",
-            ));
+            c.invalid(k("sample-interval"), dt.to_string(), "a positive number");
         }
     }
     let first = match (&f.path, &f.runs) {
         (Some(p), None) => p.clone(),
         (None, Some(r)) if !r.is_empty() => r[0].clone(),
         _ => {
-            return Err(invalid(
-                &format!("{key}.file"),
-                "both or neither of `path` and `runs` (or an empty `runs`)".into(),
+            c.invalid(
+                format!("{key}.file"),
+                "both or neither of `path` and `runs` (or an empty `runs`)",
                 "exactly one of `path = \"..\"` or `runs = [\"..\", ..]`",
-            ))
+            );
+            return None;
         }
     };
+    let ext = extension(&first);
+    if !TRAJECTORY_EXTENSIONS.contains(&ext.as_str()) && !FIELD_EXTENSIONS.contains(&ext.as_str()) {
+        c.invalid(
+            if f.runs.is_some() { k("runs") } else { k("path") },
+            format!("'{}'", first.display()),
+            "a trajectory in .npy (with an optional .json sidecar) or .csv, or gridded fields in NetCDF (.nc) or NumPy .npz; convert the file, or rename it if it is one of these",
+        );
+        return None;
+    }
     if !wants_fields(&f) {
-        return Ok((base.join(first), f.sample_interval, None));
+        let path = base.join(&first);
+        match crate::data::trajectory_columns(&path) {
+            Err(e) => c.message(k("path"), e.to_string()),
+            Ok(_) => {
+                if f.sample_interval.is_none() && !path.with_extension("json").exists() {
+                    c.message(
+                        k("sample-interval"),
+                        crate::data::DataError::MissingSampleInterval { path: path.clone() }
+                            .to_string(),
+                    );
+                }
+            }
+        }
+        return (c.count() == before).then_some((path, f.sample_interval, None));
+    }
+    if TRAJECTORY_EXTENSIONS.contains(&ext.as_str()) {
+        c.invalid(
+            k("path"),
+            format!("'{}' with gridded-field keys", first.display()),
+            "a .npy or .csv file is read as one trajectory, whose columns are its variables: drop `variables`, `runs`, `member-dimension`, `time`, `slice`, `reduce` and `test`, or give the fields in NetCDF (.nc) or .npz",
+        );
+        return None;
     }
     if key != "data" {
-        return Err(invalid(
-            &format!("{key}.file"),
-            "gridded fields, runs or reduction keys".into(),
+        c.invalid(
+            format!("{key}.file"),
+            format!("gridded fields ('{}')", first.display()),
             "a .npy or .csv `path` with an optional `sample-interval`: NetCDF/.npz fields, runs and reductions are read for the pilot's [data.file] only",
-        ));
+        );
+        return None;
     }
     let variables = match f.variables {
         Some(v) if !v.is_empty() => v,
         _ => {
-            return Err(invalid(
-                &k("variables"),
-                "missing or empty".into(),
+            c.invalid(
+                k("variables"),
+                "missing or empty",
                 "the variables to stack as state columns, e.g. `variables = [\"u\", \"v\"]` (NetCDF and .npz files hold several)",
-            ))
+            );
+            Vec::new()
         }
     };
     if f.member_dimension.is_some() && f.runs.is_some() {
-        return Err(invalid(
-            &k("member-dimension"),
-            "member-dimension with `runs`".into(),
+        c.invalid(
+            k("member-dimension"),
+            "member-dimension with `runs`",
             "`member-dimension` with a single `path` only",
-        ));
+        );
     }
     let mut selection = Selection {
         variables,
@@ -191,18 +230,20 @@ pub(super) fn plan_file(
     };
     for (dim, [start, stop, stride]) in f.slice.unwrap_or_default() {
         if stride == 0 || start >= stop {
-            return Err(invalid(
-                &format!("{key}.file.slice.{dim}"),
+            c.invalid(
+                format!("{key}.file.slice.{dim}"),
                 format!("[{start}, {stop}, {stride}]"),
                 "[start, stop, stride] with start < stop and stride ≥ 1",
-            ));
+            );
+            continue;
         }
         if f.member_dimension.as_deref() == Some(dim.as_str()) {
-            return Err(invalid(
-                &format!("{key}.file.slice.{dim}"),
+            c.invalid(
+                format!("{key}.file.slice.{dim}"),
                 format!("a slice of the member dimension '{dim}'"),
                 "slices of the time and grid dimensions; choose runs by listing files in `runs`",
-            ));
+            );
+            continue;
         }
         selection
             .slices
@@ -211,28 +252,42 @@ pub(super) fn plan_file(
     let (coarse_grain, pod) = match f.reduce {
         None => (None, None),
         Some(r) => {
-            if let Some(c) = &r.coarse_grain {
-                if c.is_empty() || c.contains(&0) {
-                    return Err(invalid(
-                        &k("reduce.coarse-grain"),
-                        format!("{c:?}"),
+            if let Some(g) = &r.coarse_grain {
+                if g.is_empty() || g.contains(&0) {
+                    c.invalid(
+                        k("reduce.coarse-grain"),
+                        format!("{g:?}"),
                         "one factor ≥ 1 per grid dimension of the fields, e.g. [4, 4]",
-                    ));
+                    );
                 }
             }
             let pod = match r.pod {
                 None => None,
-                Some(p) => Some(match (p.energy, p.modes) {
-                    (Some(e), None) if e > 0.0 && e <= 1.0 => PodChoice::Energy(e),
-                    (None, Some(m)) if m >= 1 => PodChoice::Modes(m),
+                Some(p) => match (p.energy, p.modes) {
+                    (Some(e), None) if e > 0.0 && e <= 1.0 => Some(PodChoice::Energy(e)),
+                    (None, Some(m)) if m >= 1 => Some(PodChoice::Modes(m)),
                     (e, m) => {
-                        return Err(invalid(
-                            &k("reduce.pod"),
-                            format!("energy {e:?}, modes {m:?}"),
+                        let given =
+                            |name: &str, v: Option<String>| v.map(|v| format!("{name} = {v}"));
+                        let given: Vec<String> = [
+                            given("energy", e.map(|e| e.to_string())),
+                            given("modes", m.map(|m| m.to_string())),
+                        ]
+                        .into_iter()
+                        .flatten()
+                        .collect();
+                        c.invalid(
+                            k("reduce.pod"),
+                            if given.is_empty() {
+                                "neither `energy` nor `modes`".to_string()
+                            } else {
+                                given.join(", ")
+                            },
                             "exactly one of `energy` (a fraction in (0, 1]) or `modes` (≥ 1)",
-                        ))
+                        );
+                        None
                     }
-                }),
+                },
             };
             (r.coarse_grain, pod)
         }
@@ -240,39 +295,43 @@ pub(super) fn plan_file(
     let held_out_runs = match f.test.and_then(|t| t.held_out_runs) {
         None => 0,
         Some(0) => {
-            return Err(invalid(
-                &k("test.held-out-runs"),
-                "0".into(),
+            c.invalid(
+                k("test.held-out-runs"),
+                "0",
                 "at least 1 (or leave `test` out to test inside the first run)",
-            ))
+            );
+            0
         }
         Some(h) => {
             if let Some(r) = &f.runs {
                 if h >= r.len() {
-                    return Err(invalid(
-                        &k("test.held-out-runs"),
+                    c.invalid(
+                        k("test.held-out-runs"),
                         h.to_string(),
-                        &format!(
+                        format!(
                             "fewer than the {} runs listed: at least one run must remain for training",
                             r.len()
                         ),
-                    ));
+                    );
                 }
             } else if f.member_dimension.is_none() {
-                return Err(invalid(
-                    &k("test.held-out-runs"),
+                c.invalid(
+                    k("test.held-out-runs"),
                     h.to_string(),
                     "several runs: list them in `runs`, or give `member-dimension` for one file holding them",
-                ));
+                );
             }
             h
         }
     };
+    if c.count() > before {
+        return None;
+    }
     let files = match f.runs {
         Some(r) => r.iter().map(|p| base.join(p)).collect(),
         None => vec![base.join(&first)],
     };
-    Ok((
+    Some((
         base.join(first),
         f.sample_interval,
         Some(Box::new(FieldPlan {
@@ -403,13 +462,7 @@ fn stems(files: &[PathBuf]) -> Vec<String> {
 
 /// The split of the study in samples.
 fn split_spec(t: &Timing, dt: f64) -> SplitSpec {
-    SplitSpec {
-        initial_conditions: t.initial_conditions,
-        gap: to_samples(t.gap, dt),
-        spacing: to_samples(t.spacing, dt).max(1),
-        warm_up: to_samples(t.warm_up, dt).max(1),
-        max_lead: to_samples(t.max_lead, dt).max(1),
-    }
+    t.split(dt)
 }
 
 /// Test initial conditions a held-out run of `len` samples can hold.
@@ -422,18 +475,17 @@ fn capacity(len: usize, spec: &SplitSpec) -> usize {
     }
 }
 
-/// Opens every data file of the plan and checks it against the study: files readable and of a
-/// known format, variables present with the same shape in every run, the time dimension and the
-/// sampling interval found, slices in range, coarse-graining factors dividing the grid, POD
-/// modes available, and run lengths against the sizes and the split. Reports every problem at
-/// once. Plans without gridded data pass.
-pub fn check_files(plan: &StudyPlan) -> Result<(), OwnDataError> {
-    let super::plan::DataSource::File {
-        fields: Some(fp), ..
-    } = &plan.data
-    else {
-        return Ok(());
-    };
+/// Opens every data file of a field plan and checks it against the study's `sizes` and
+/// `timing`: files readable and of a known format, variables present with the same shape in
+/// every run, the time dimension and the sampling interval found, slices in range,
+/// coarse-graining factors dividing the grid, POD modes available, and run lengths against the
+/// sizes and the split. Returns every problem (each beginning with its key) and, when they can
+/// be told before the POD is fitted, the state variables the models will see.
+pub(super) fn check_files(
+    fp: &FieldPlan,
+    sizes: &[usize],
+    timing: &Timing,
+) -> (Vec<String>, Option<usize>) {
     let mut problems = Vec::new();
     let key = file_key(fp);
     let names = stems(&fp.files);
@@ -491,10 +543,7 @@ pub fn check_files(plan: &StudyPlan) -> Result<(), OwnDataError> {
         runs.extend(shape.runs);
     }
     let Some((_, fields, dt)) = first else {
-        return Err(OwnDataError::Problems {
-            study: plan.source_path.clone(),
-            problems,
-        });
+        return (problems, None);
     };
     // Reduction.
     let mut dim = fields.iter().map(FieldLayout::size).sum::<usize>();
@@ -505,9 +554,9 @@ pub fn check_files(plan: &StudyPlan) -> Result<(), OwnDataError> {
         }
     }
     // Lengths against the sizes and the split.
-    let largest = *plan.sizes.last().expect("sizes");
+    let largest = *sizes.last().expect("sizes");
     if let Some(dt) = dt {
-        let spec = split_spec(&plan.timing, dt);
+        let spec = split_spec(timing, dt);
         let k = fp.held_out_runs;
         if k > 0 && k >= runs.len() && !runs.is_empty() {
             problems.push(format!(
@@ -563,14 +612,12 @@ pub fn check_files(plan: &StudyPlan) -> Result<(), OwnDataError> {
             }
         }
     }
-    if problems.is_empty() {
-        Ok(())
-    } else {
-        Err(OwnDataError::Problems {
-            study: plan.source_path.clone(),
-            problems,
-        })
-    }
+    let variables = match fp.pod {
+        Some(PodChoice::Modes(m)) => Some(m.min(dim)),
+        Some(PodChoice::Energy(_)) => None,
+        None => Some(dim),
+    };
+    (problems, variables)
 }
 
 /// One line for `check`'s description.

@@ -8,13 +8,13 @@
 //! (the exponent's method); Sprott (2003), "Chaos and Time-Series Analysis" (the Lorenz-63 value
 //! the settings are checked against).
 
-use super::plan::{to_samples, DataSource, StudyPlan};
+use super::plan::{DataSource, StudyPlan};
 use super::progress::bar;
 use super::results::{ComputedLyapunov, DataInfo, HighFidelityCost, LyapunovSource};
 use super::StudyError;
 use crate::cost::campaign::Campaign;
 use crate::data::{
-    column_stats, read_trajectory, Split, SplitSpec, Trajectory, TrajectoryMeta, SIDECAR_SCHEMA,
+    column_stats, read_trajectory, Split, Trajectory, TrajectoryMeta, SIDECAR_SCHEMA,
 };
 use crate::models::closure::{CoupledModel, Coupling};
 use crate::skill::SkillSpec;
@@ -166,13 +166,7 @@ pub(super) fn load_regime(
     progress: bool,
     message: &'static str,
 ) -> Result<Regime, StudyError> {
-    let split_for = |dt: f64| SplitSpec {
-        initial_conditions: t.initial_conditions,
-        gap: to_samples(t.gap, dt),
-        spacing: to_samples(t.spacing, dt).max(1),
-        warm_up: to_samples(t.warm_up, dt).max(1),
-        max_lead: to_samples(t.max_lead, dt).max(1),
-    };
+    let split_for = |dt: f64| t.split(dt);
     if let DataSource::File {
         fields: Some(fp), ..
     } = data

@@ -172,6 +172,31 @@ pub fn available_memory() -> Option<f64> {
     Some(kb * 1024.0)
 }
 
+/// The machine's memory (Linux `MemTotal` in /proc/meminfo), or `None` where it cannot be read.
+pub fn total_memory() -> Option<f64> {
+    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
+    let line = text.lines().find(|l| l.starts_with("MemTotal:"))?;
+    let kb: f64 = line
+        .trim_start_matches("MemTotal:")
+        .trim()
+        .trim_end_matches("kB")
+        .trim()
+        .parse()
+        .ok()?;
+    Some(kb * 1024.0)
+}
+
+/// Integrator throughput for the time estimates of `check`, in state variables advanced by one
+/// RK4 step per second, and the fixed cost per step counted in variables. Measured on the
+/// development machine (2 shared cores, release build, `closure-budget simulate` of 2.0e6 steps):
+/// Lorenz-63 0.12 s, Lorenz-96 (K = 40) 0.64 s, two-scale Lorenz-96 (K = 8, J = 32) 3.19 s
+/// (process start and writing included), which (variables + 10) / 1.5e8 s per step matches to
+/// within 45%, on the high side (0.17, 0.67 and 3.65 s).
+pub const VARIABLE_STEPS_PER_SECOND: f64 = 1.5e8;
+
+/// The fixed cost of one RK4 step, in state variables (see [`VARIABLE_STEPS_PER_SECOND`]).
+pub const STEP_OVERHEAD_VARIABLES: f64 = 10.0;
+
 /// Refuses work beyond [`MAX_STEPS`] or beyond the available memory.
 fn check_work(
     what: &'static str,
@@ -571,7 +596,33 @@ pub struct SimulationSpec {
     pub seed: u64,
 }
 
+impl SystemSpec {
+    /// About how long `steps` RK4 steps of this system take on one core, in seconds (see
+    /// [`VARIABLE_STEPS_PER_SECOND`]).
+    pub fn integration_seconds(&self, steps: f64) -> f64 {
+        steps * (self.full_dim() as f64 + STEP_OVERHEAD_VARIABLES) / VARIABLE_STEPS_PER_SECOND
+    }
+}
+
 impl SimulationSpec {
+    /// RK4 steps of the run: the spin-up and the steps between the saved samples (for fields
+    /// already checked: a positive `dt`, a whole multiple for `sample_interval`).
+    pub fn integrator_steps(&self) -> f64 {
+        let per_sample = (self.sample_interval / self.dt).round();
+        spin_up_steps(self.spin_up, self.dt) as f64
+            + (self.samples as f64 - 1.0).max(0.0) * per_sample
+    }
+
+    /// Bytes of the saved values: the resolved state and, for the two-scale system, the
+    /// coupling term of every sample.
+    pub fn saved_bytes(&self) -> f64 {
+        let subgrid = match self.system {
+            SystemSpec::TwoScaleLorenz96 { k, .. } => k,
+            _ => 0,
+        };
+        self.samples as f64 * (self.system.resolved_dim() + subgrid) as f64 * 8.0
+    }
+
     /// Checks the system and every numeric field; returns the first problem found.
     pub fn validate(&self) -> Result<(), SystemError> {
         self.plan().map(|_| ())
@@ -587,16 +638,10 @@ impl SimulationSpec {
             return Err(SystemError::NoSamples);
         }
         let spin = spin_up_steps(self.spin_up, self.dt);
-        let steps = spin as f64 + (self.samples as f64 - 1.0) * per_sample as f64;
-        let subgrid = match self.system {
-            SystemSpec::TwoScaleLorenz96 { k, .. } => k,
-            _ => 0,
-        };
-        let per_row = (self.system.resolved_dim() + subgrid) as f64;
         check_work(
             "this simulation",
-            steps,
-            self.samples as f64 * per_row * 8.0,
+            self.integrator_steps(),
+            self.saved_bytes(),
             "reduce `samples` or `spin_up`, or raise `dt`",
         )?;
         Ok((per_sample, spin))

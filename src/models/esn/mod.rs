@@ -16,14 +16,18 @@ pub use sequence::{fit_sequence_nested, EsnSequence};
 
 use super::closure::memory_form;
 use super::family::{
-    read_settings, settings_json, ClosureData, FamilyError, ModelFamily, Registration,
-    RelativeCost, ClosureFits, Equations, FineTuning, Fits, Train, Trainer,
+    read_settings, ridge_memory, settings_json, ClosureData, FamilyError, ModelFamily,
+    Registration, RelativeCost, ClosureFits, Equations, FineTuning, Fits, Train, Trainer,
+    TrainingMemory, TrainingShape,
 };
 use super::finetune::{fine_tune_readouts, ValidFineTuneParams};
 use super::ridge::{
     nested_pass, nested_readouts, Block, NormalEquations, Penalty, RidgeSelection, RowSource, Rows,
 };
-use super::{out_of_range, standardisation, FitSummary, Forecaster, ModelError, RidgeScaling};
+use super::{
+    out_of_range, standardisation, FitSummary, Forecaster, ModelError, RidgeScaling,
+    SettingProblems,
+};
 use ndarray::ArrayView2;
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
@@ -98,67 +102,61 @@ impl EsnParams {
     /// Checks every setting against its valid range (see the table on [`EsnParams`]).
     pub fn check(self) -> Result<ValidEsnParams, ModelError> {
         let p = &self;
+        let mut bad = SettingProblems::default();
         if !(10..=5000).contains(&p.reservoir_size) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "reservoir-size",
                 p.reservoir_size.to_string(),
                 "10 to 5000",
-            ));
+            );
         }
         if p.degree == 0 || p.degree > p.reservoir_size {
-            return Err(out_of_range(
-                "degree",
-                p.degree.to_string(),
-                "1 to reservoir-size",
-            ));
+            bad.out_of_range("degree", p.degree.to_string(), "1 to reservoir-size");
         }
         let in_range = |v: f64, lo: f64, hi: f64, lo_open: bool| {
             v.is_finite() && v <= hi && if lo_open { v > lo } else { v >= lo }
         };
         if !in_range(p.spectral_radius, 0.0, 2.0, true) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "spectral-radius",
                 p.spectral_radius.to_string(),
                 "greater than 0 and at most 2",
-            ));
+            );
         }
         if !in_range(p.input_scaling, 0.0, 10.0, true) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "input-scaling",
                 p.input_scaling.to_string(),
                 "greater than 0 and at most 10",
-            ));
+            );
         }
         if !in_range(p.bias_scaling, 0.0, 10.0, false) {
-            return Err(out_of_range(
-                "bias-scaling",
-                p.bias_scaling.to_string(),
-                "0 to 10",
-            ));
+            bad.out_of_range("bias-scaling", p.bias_scaling.to_string(), "0 to 10");
         }
         if !in_range(p.leak_rate, 0.0, 1.0, true) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "leak-rate",
                 p.leak_rate.to_string(),
                 "greater than 0 and at most 1",
-            ));
+            );
         }
         if !in_range(p.ridge, 0.0, 1e3, true) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "ridge",
                 p.ridge.to_string(),
                 "greater than 0 and at most 1000",
-            ));
+            );
         }
         if p.washout > 100_000 {
-            return Err(out_of_range(
-                "washout",
-                p.washout.to_string(),
-                "0 to 100000",
-            ));
+            bad.out_of_range("washout", p.washout.to_string(), "0 to 100000");
         }
-        Ok(ValidEsnParams(self))
+        bad.finish(ValidEsnParams(self))
     }
+}
+
+/// Readout features of a reservoir of `size` units: φ(r) = [1, r, r²_{0..D/2}].
+fn reservoir_features(size: usize) -> usize {
+    1 + size + size / 2
 }
 
 /// The fixed random part of an echo state network: recurrent matrix (CSR), input matrix, bias.
@@ -283,7 +281,7 @@ impl Reservoir {
     }
 
     fn features(&self) -> usize {
-        1 + self.size + self.size / 2
+        reservoir_features(self.size)
     }
 
     /// φ(r) = [1, r, r²_{0..D/2}] into `out`.
@@ -636,6 +634,31 @@ impl ModelFamily for ValidEsnParams {
 
     fn standardised_on_smallest(&self, _closure: bool) -> bool {
         true
+    }
+
+    /// The smallest subset must leave training pairs after the washout: more than washout + 1
+    /// samples as an emulator (a pair needs the next sample), more than washout as a closure.
+    fn refuses_shape(&self, shape: &TrainingShape) -> Vec<ModelError> {
+        let washout = self.get().washout;
+        let least = if shape.closure { washout + 1 } else { washout + 2 };
+        if shape.smallest >= least {
+            return Vec::new();
+        }
+        vec![out_of_range(
+            "washout",
+            washout.to_string(),
+            &format!(
+                "at most {} so that the smallest subset of {} samples leaves training pairs after \
+                 the washout; lower `washout` or raise the smallest size to at least {least}",
+                shape.smallest.saturating_sub(least - washout),
+                shape.smallest
+            ),
+        )]
+    }
+
+    fn training_memory(&self, shape: &TrainingShape) -> Option<TrainingMemory> {
+        let features = reservoir_features(self.get().reservoir_size);
+        Some(ridge_memory(features, shape.outputs.unwrap_or(1)))
     }
 
     fn trainer(&self) -> Trainer<'_> {

@@ -8,10 +8,10 @@ use super::{
 };
 use crate::models::closure::{fit_instant, memory_form, ClosureInputs, Regressor};
 use crate::models::family::{
-    read_settings, settings_json, ClosureData, FamilyError, ModelFamily, Registration,
-    RelativeCost, ClosureFits, FineTuning, Fits, Train, Trainer,
+    doubles, read_settings, settings_json, ClosureData, FamilyError, ModelFamily, Registration,
+    RelativeCost, ClosureFits, FineTuning, Fits, Train, Trainer, TrainingMemory, TrainingShape,
 };
-use crate::models::FitSummary;
+use crate::models::{out_of_range, FitSummary, ModelError};
 use ndarray::ArrayView2;
 use std::path::Path;
 use std::sync::Arc;
@@ -30,6 +30,37 @@ pub const LSTM_FAMILY: Registration = Registration {
 
 fn build_mlp(table: toml::Value, _: &Path) -> Result<Box<dyn ModelFamily>, FamilyError> {
     Ok(Box::new(read_settings::<MlpParams>(table)?.check()?))
+}
+
+/// The smallest subset must hold the window and the pairs to fit and validate (as the
+/// networks' size check refuses it); closures with one row per sample and variable are not
+/// limited this way.
+fn window_refused(window: usize, shape: &TrainingShape, sequence: bool) -> Vec<ModelError> {
+    let least = window + super::MIN_FIT_SAMPLES + super::MIN_VALIDATION_SAMPLES;
+    if (shape.closure && !sequence) || shape.smallest >= least {
+        return Vec::new();
+    }
+    vec![out_of_range(
+        "window",
+        window.to_string(),
+        &format!(
+            "a window that leaves {} training pairs in the smallest subset of {} samples; lower \
+             `window` or raise the smallest size to at least {least}",
+            super::MIN_FIT_SAMPLES + super::MIN_VALIDATION_SAMPLES,
+            shape.smallest
+        ),
+    )]
+}
+
+/// The windows of the largest subset as the networks' inputs and targets, and their
+/// standardised copies.
+fn window_memory(window: usize, shape: &TrainingShape) -> Option<TrainingMemory> {
+    let width = window * shape.inputs? + shape.outputs.unwrap_or(1);
+    let rows = shape.largest as f64 * shape.rows_per_sample as f64;
+    Some(TrainingMemory {
+        bytes: doubles(2.0 * rows * width as f64),
+        what: format!("the training windows, {rows:.0} rows × {width} values"),
+    })
 }
 
 fn build_lstm(table: toml::Value, _: &Path) -> Result<Box<dyn ModelFamily>, FamilyError> {
@@ -56,6 +87,14 @@ impl ModelFamily for ValidMlpParams {
         (self.get().window != 1).then_some(
             "window = 1 for a feed-forward closure: the coarse solver asks for the coupling term from the current state at every RK stage (for memory, use an LSTM closure)",
         )
+    }
+
+    fn refuses_shape(&self, shape: &TrainingShape) -> Vec<ModelError> {
+        window_refused(self.get().window, shape, false)
+    }
+
+    fn training_memory(&self, shape: &TrainingShape) -> Option<TrainingMemory> {
+        window_memory(self.get().window, shape)
     }
 
     fn trainer(&self) -> Trainer<'_> {
@@ -115,6 +154,14 @@ impl ModelFamily for ValidLstmParams {
         (inputs != ClosureInputs::Global).then_some(
             "inputs = \"global\" for an LSTM closure: it is trained on the windows of consecutive saved samples of all resolved variables",
         )
+    }
+
+    fn refuses_shape(&self, shape: &TrainingShape) -> Vec<ModelError> {
+        window_refused(self.get().window, shape, true)
+    }
+
+    fn training_memory(&self, shape: &TrainingShape) -> Option<TrainingMemory> {
+        window_memory(self.get().window, shape)
     }
 
     fn trainer(&self) -> Trainer<'_> {

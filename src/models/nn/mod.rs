@@ -184,67 +184,68 @@ impl Default for Training {
 
 impl Training {
     fn check(self) -> Result<Self, ModelError> {
+        let mut bad = crate::models::SettingProblems::default();
         let t = &self;
         if !(t.learning_rate.is_finite() && (0.0..=1.0).contains(&t.learning_rate)) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "learning-rate",
                 t.learning_rate.to_string(),
                 "0 to 1",
-            ));
+            );
         }
         if !(1..=65536).contains(&t.batch_size) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "batch-size",
                 t.batch_size.to_string(),
                 "1 to 65536",
-            ));
+            );
         }
         if !(1..=10_000_000).contains(&t.gradient_steps) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "gradient-steps",
                 t.gradient_steps.to_string(),
                 "1 to 10000000",
-            ));
+            );
         }
         if !(1..=100_000).contains(&t.max_epochs) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "max-epochs",
                 t.max_epochs.to_string(),
                 "1 to 100000",
-            ));
+            );
         }
         if t.min_epochs == 0 || t.min_epochs > t.max_epochs {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "min-epochs",
                 t.min_epochs.to_string(),
                 "1 to max-epochs",
-            ));
+            );
         }
         if !(1..=100_000).contains(&t.patience) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "patience",
                 t.patience.to_string(),
                 "1 to 100000",
-            ));
+            );
         }
         if !(t.validation_fraction.is_finite()
             && t.validation_fraction > 0.0
             && t.validation_fraction <= 0.5)
         {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "validation-fraction",
                 t.validation_fraction.to_string(),
                 "greater than 0 and at most 0.5",
-            ));
+            );
         }
         if !(t.weight_decay.is_finite() && (0.0..=1.0).contains(&t.weight_decay)) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "weight-decay",
                 t.weight_decay.to_string(),
                 "0 to 1",
-            ));
+            );
         }
-        Ok(self)
+        bad.finish(self)
     }
 
     /// Splits `samples` time-ordered samples into (fit, validation) counts: the validation window
@@ -304,19 +305,20 @@ impl ValidMlpParams {
 impl MlpParams {
     /// Checks every setting against its valid range (see the table on [`MlpParams`]).
     pub fn check(self) -> Result<ValidMlpParams, ModelError> {
+        let mut bad = crate::models::SettingProblems::default();
         if self.hidden.len() > 8 || self.hidden.iter().any(|&h| !(1..=4096).contains(&h)) {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "hidden",
                 format!("{:?}", self.hidden),
                 "0 to 8 layers of 1 to 4096 units",
-            ));
+            );
         }
         if !(1..=1000).contains(&self.window) {
-            return Err(out_of_range("window", self.window.to_string(), "1 to 1000"));
+            bad.out_of_range("window", self.window.to_string(), "1 to 1000");
         }
         let valid = ValidMlpParams(self);
-        valid.training().check()?;
-        Ok(valid)
+        bad.add(valid.training().check().map(|_| ()));
+        bad.finish(valid)
     }
 }
 
@@ -347,15 +349,16 @@ impl ValidLstmParams {
 impl LstmParams {
     /// Checks every setting against its valid range (see the table on [`LstmParams`]).
     pub fn check(self) -> Result<ValidLstmParams, ModelError> {
+        let mut bad = crate::models::SettingProblems::default();
         if !(1..=1024).contains(&self.hidden) {
-            return Err(out_of_range("hidden", self.hidden.to_string(), "1 to 1024"));
+            bad.out_of_range("hidden", self.hidden.to_string(), "1 to 1024");
         }
         if !(1..=1000).contains(&self.window) {
-            return Err(out_of_range("window", self.window.to_string(), "1 to 1000"));
+            bad.out_of_range("window", self.window.to_string(), "1 to 1000");
         }
         let valid = ValidLstmParams(self);
-        valid.training().check()?;
-        Ok(valid)
+        bad.add(valid.training().check().map(|_| ()));
+        bad.finish(valid)
     }
 }
 

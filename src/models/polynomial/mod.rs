@@ -25,8 +25,9 @@ pub use features::{monomial_count, MonomialMap};
 pub use fit::{fit_polynomial, least_squares_qr_multi, PolyFitInfo, Polynomial};
 
 use super::family::{
-    read_settings, settings_json, ClosureData, FamilyError, ModelFamily, Registration,
-    RelativeCost, ClosureFits, Equations, FineTuning, Fits, Train, Trainer,
+    doubles, read_settings, settings_json, ClosureData, FamilyError, ModelFamily, Registration,
+    RelativeCost, ClosureFits, Equations, FineTuning, Fits, Train, Trainer, TrainingMemory,
+    TrainingShape,
 };
 use super::closure::fit_instant;
 use super::ridge::RidgeSelection;
@@ -95,23 +96,24 @@ impl ValidPolynomialParams {
 impl PolynomialParams {
     /// Checks every setting against its valid range (see the table on [`PolynomialParams`]).
     pub fn check(self) -> Result<ValidPolynomialParams, ModelError> {
+        let mut bad = crate::models::SettingProblems::default();
         if !(1..=MAX_DEGREE).contains(&self.degree) {
-            return Err(out_of_range("degree", self.degree.to_string(), "1 to 5"));
+            bad.out_of_range("degree", self.degree.to_string(), "1 to 5");
         }
         if !(self.ridge.is_finite() && (0.0..=1e3).contains(&self.ridge)) {
-            return Err(out_of_range("ridge", self.ridge.to_string(), "0 to 1000"));
+            bad.out_of_range("ridge", self.ridge.to_string(), "0 to 1000");
         }
         if self.ridge_selection == RidgeSelection::Gcv && self.ridge != 0.0 {
-            return Err(out_of_range(
+            bad.out_of_range(
                 "ridge",
                 self.ridge.to_string(),
                 "0 when ridge-selection = \"gcv\" (the penalty is chosen per fit)",
-            ));
+            );
         }
         if self.stencil > MAX_STENCIL {
-            return Err(out_of_range("stencil", self.stencil.to_string(), "0 to 16"));
+            bad.out_of_range("stencil", self.stencil.to_string(), "0 to 16");
         }
-        Ok(ValidPolynomialParams(self))
+        bad.finish(ValidPolynomialParams(self))
     }
 }
 
@@ -149,6 +151,41 @@ impl ModelFamily for ValidPolynomialParams {
             per_training_sample: 5.0,
             per_forecast_step: 2.0,
         }
+    }
+
+    /// More monomials than [`MAX_FEATURES`] are refused, as [`fit_polynomial`] refuses them.
+    fn refuses_shape(&self, shape: &TrainingShape) -> Vec<ModelError> {
+        let degree = self.get().degree;
+        match shape.inputs {
+            Some(d) if monomial_count(d, degree) > MAX_FEATURES => vec![out_of_range(
+                "degree",
+                degree.to_string(),
+                &format!(
+                    "a degree whose C({d} + degree, degree) monomials of {d} inputs stay within \
+                     {MAX_FEATURES} (degree {degree} gives {}); lower `degree`, or use fewer inputs",
+                    monomial_count(d, degree)
+                ),
+            )],
+            _ => Vec::new(),
+        }
+    }
+
+    /// The design matrix of the largest subset (one row per training pair) and the copy its
+    /// factorisation works on: two such matrices for least squares by QR, three for the SVD
+    /// of a ridge fit.
+    fn training_memory(&self, shape: &TrainingShape) -> Option<TrainingMemory> {
+        let f = monomial_count(shape.inputs?, self.get().degree);
+        let rows = shape.largest as f64 * shape.rows_per_sample as f64;
+        let p = self.get();
+        let copies = if p.ridge_selection == RidgeSelection::Fixed && p.ridge == 0.0 {
+            2.0
+        } else {
+            3.0
+        };
+        Some(TrainingMemory {
+            bytes: doubles(copies * rows * f as f64),
+            what: format!("the design matrix of {rows:.0} rows × {f} monomials"),
+        })
     }
 
     fn trainer(&self) -> Trainer<'_> {

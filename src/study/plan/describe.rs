@@ -1,7 +1,6 @@
 //! What a checked plan will do, in words (the `check` command).
 
 use super::{DataSource, StudyPlan, TransferGoal};
-use crate::models::family::Trainer;
 
 /// A plain-text description of what a plan will do (for `check`).
 pub fn describe(plan: &StudyPlan) -> String {
@@ -53,25 +52,6 @@ pub fn describe(plan: &StudyPlan) -> String {
         let _ = writeln!(s, "model {}: {}", m.name, m.kind.describe());
     }
     let _ = writeln!(s, "targets (mean valid time): {:?}", plan.targets);
-    let forecasts = plan.models.len() * plan.replicates * plan.sizes.len() * t.initial_conditions;
-    let commands = plan
-        .models
-        .iter()
-        .filter(|m| matches!(m.kind.trainer(), Trainer::External(_)))
-        .count();
-    let runs = if commands > 0 {
-        format!(
-            ", {} runs of training commands",
-            commands * plan.replicates * plan.sizes.len()
-        )
-    } else {
-        String::new()
-    };
-    let _ = writeln!(
-        s,
-        "work: {} nested training passes{runs}, {forecasts} forecasts",
-        (plan.models.len() - commands) * plan.replicates
-    );
     if let Some(tp) = &plan.transfer {
         let names: Vec<&str> = tp
             .models
@@ -103,5 +83,6 @@ pub fn describe(plan: &StudyPlan) -> String {
             names.join(", ")
         );
     }
+    s.push_str(&plan.work.describe());
     s
 }

@@ -2,7 +2,8 @@
 //! samples once the sampling interval is known. Only a plan reaches the computing code.
 //!
 //! The types and [`load_plan`] live here; `check.rs` turns a study file into a plan (each
-//! model family checks its own settings, through [`crate::models::registry`]), and
+//! model family checks its own settings, through [`crate::models::registry`]), collecting every
+//! problem of the file ([`problem`]) and estimating the work before any is done ([`estimate`]);
 //! `describe.rs` says in words what a plan will do ([`describe`]).
 
 use super::schema::StudyFile;
@@ -16,8 +17,12 @@ use std::sync::Arc;
 
 mod check;
 mod describe;
+pub mod estimate;
+pub mod problem;
 
 pub use describe::describe;
+pub use estimate::WorkEstimate;
+pub use problem::{Problem, ProblemKind};
 
 /// Where the pilot data comes from.
 #[derive(Debug, Clone, PartialEq)]
@@ -154,6 +159,20 @@ pub struct Timing {
     pub lyapunov_exponent: Option<f64>,
 }
 
+impl Timing {
+    /// The split in samples of data sampled every `sample_interval` (spans rounded up; spacing,
+    /// warm-up and lead at least one sample).
+    pub fn split(&self, sample_interval: f64) -> crate::data::SplitSpec {
+        crate::data::SplitSpec {
+            initial_conditions: self.initial_conditions,
+            gap: to_samples(self.gap, sample_interval),
+            spacing: to_samples(self.spacing, sample_interval).max(1),
+            warm_up: to_samples(self.warm_up, sample_interval).max(1),
+            max_lead: to_samples(self.max_lead, sample_interval).max(1),
+        }
+    }
+}
+
 /// A checked study.
 #[derive(Debug, Clone)]
 pub struct StudyPlan {
@@ -181,6 +200,8 @@ pub struct StudyPlan {
     pub cost: CostInputs,
     /// Fine-tuning for a new regime, when the study asks for it.
     pub transfer: Option<TransferPlan>,
+    /// The work the study asks for, estimated before any work (within the limits).
+    pub work: WorkEstimate,
 }
 
 /// What the new regime's targets are.
@@ -220,7 +241,7 @@ pub fn load_plan(path: &Path) -> Result<StudyPlan, StudyError> {
     })?;
     let file: StudyFile = toml::from_str(&text).map_err(|e| StudyError::Parse {
         path: path.to_path_buf(),
-        message: e.to_string(),
+        message: problem::plain_words(&e.to_string()),
     })?;
     let name = path
         .file_stem()
@@ -230,15 +251,22 @@ pub fn load_plan(path: &Path) -> Result<StudyPlan, StudyError> {
 }
 
 /// `count` sizes from `smallest` to `largest`, equally spaced in log n, rounded to whole samples
-/// and made strictly increasing.
+/// and made strictly increasing (sizes that round alike merged: see [`geometric_rounded`]).
 pub fn geometric_sizes(smallest: usize, largest: usize, count: usize) -> Vec<usize> {
+    let mut out = geometric_rounded(smallest, largest, count);
+    out.dedup();
+    out
+}
+
+/// `count` sizes from `smallest` to `largest`, equally spaced in log n and rounded to whole
+/// samples, before equal neighbours are merged.
+pub fn geometric_rounded(smallest: usize, largest: usize, count: usize) -> Vec<usize> {
     let (a, b) = ((smallest as f64).ln(), (largest as f64).ln());
     let mut out: Vec<usize> = (0..count)
         .map(|i| (a + (b - a) * i as f64 / (count - 1) as f64).exp().round() as usize)
         .collect();
     out[0] = smallest;
     out[count - 1] = largest;
-    out.dedup();
     out
 }
 
