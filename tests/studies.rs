@@ -313,6 +313,41 @@ fn transfer_to_a_stronger_forcing() {
     }
 }
 
+/// Adding a larger size to a finished study computes only the new size's points: replicate
+/// windows start a smallest size apart whatever the largest size, and the simulated pilot only
+/// grows at its end, so every stored point keeps its key.
+#[test]
+fn a_larger_size_reuses_every_stored_point() {
+    let dir = tempfile::tempdir().unwrap();
+    let study = dir.path().join("grow.toml");
+    let text = std::fs::read_to_string(repo("studies/demo-quick.toml")).unwrap();
+    assert!(text.contains("sizes = [400, 800, 1600, 3200]"));
+    let run = |text: &str| -> PlanDocument {
+        std::fs::write(&study, text).unwrap();
+        let out = dir.path().join("out");
+        let o = run_in(
+            dir.path(),
+            &[
+                "run",
+                study.to_str().unwrap(),
+                "--out",
+                out.to_str().unwrap(),
+                "--quiet",
+            ],
+        );
+        assert!(o.status.success(), "{}", stderr(&o));
+        serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap()
+    };
+    let first = run(&text);
+    assert_eq!(first.points.as_ref().unwrap().computed, 24);
+    let grown = run(&text.replace(
+        "sizes = [400, 800, 1600, 3200]",
+        "sizes = [400, 800, 1600, 3200, 6400]",
+    ));
+    let p = grown.points.as_ref().unwrap();
+    assert_eq!((p.reused, p.computed, p.stale), (24, 6, 0), "{p:?}");
+}
+
 /// A rerun with nothing changed reads the new regime's records instead of training again (the
 /// store gains no line and the transfer results are identical); a changed fine-tuning setting
 /// changes the keys, so the new regime is computed afresh.

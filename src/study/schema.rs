@@ -82,7 +82,8 @@ pub struct SimulateSection {
     /// Discarded spin-up, model time units.
     #[serde(default)]
     pub spin_up: f64,
-    /// Training pool in samples; default: the largest subset plus 20% for replicate windows.
+    /// Training pool in samples; default: the largest subset plus one smallest subset per further
+    /// replicate (their windows start a smallest subset apart).
     pub training_pool: Option<usize>,
     /// Seed of the initial condition; default: the study seed.
     pub seed: Option<u64>,

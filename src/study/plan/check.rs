@@ -58,8 +58,13 @@ pub(super) fn check(
     let timing = timing(&f.split, &f.skill, &mut c);
     let max_lead = (skill_lead_ok(&f.skill)).then_some(f.skill.max_lead);
 
-    // Data.
-    let data = data_source(f.data, "data", largest, f.seed, study_dir, &mut c);
+    // Data: by default the pool holds the largest size plus one smallest size per further
+    // replicate, so replicate windows start a smallest size apart whatever the largest size
+    // (adding a larger size later leaves every stored point's window where it was).
+    let room = sizes
+        .as_ref()
+        .map_or(0, |s| s[0] * f.subsets.replicates.saturating_sub(1));
+    let data = data_source(f.data, "data", largest, room, f.seed, study_dir, &mut c);
 
     // Models.
     let (names, models) = check_models(f.models, data.as_ref(), study_dir, &mut c);
@@ -538,6 +543,7 @@ fn data_source(
     section: DataSection,
     key: &str,
     largest: Option<usize>,
+    room: usize,
     seed: u64,
     study_dir: &Path,
     c: &mut Checks,
@@ -572,7 +578,7 @@ fn data_source(
                 );
             }
             let largest = largest?;
-            let training_pool = s.training_pool.unwrap_or(largest + largest / 5);
+            let training_pool = s.training_pool.unwrap_or(largest + room);
             if training_pool < largest {
                 c.invalid(
                     k("training-pool"),
@@ -720,7 +726,10 @@ fn check_transfer(
     let largest = sizes
         .as_ref()
         .map(|s| *s.last().expect("checked non-empty"));
-    let data = data_source(t.data, "transfer.data", largest, seed, study_dir, c);
+    let room = sizes
+        .as_ref()
+        .map_or(0, |s| s[0] * replicates.saturating_sub(1));
+    let data = data_source(t.data, "transfer.data", largest, room, seed, study_dir, c);
     if let (
         Some(DataSource::Simulate { system: a, .. }),
         Some(DataSource::Simulate { system: b, .. }),
