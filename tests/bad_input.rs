@@ -1035,7 +1035,7 @@ fn study_file_mistakes_are_named_by_check() {
         (&[("max-lead = 1.5", "max-lead = 1.5\nthreshold = 0.0")], &["`skill.threshold` = 0 is invalid"]),
         // Integrator steps above the limit: a long spin-up, a tiny step.
         (&[("spin-up = 5.0", "spin-up = 1e9")], &["`data.simulate`: the simulation would take 1.000e11 integrator steps (1.000e11 for the spin-up", "hours on one core", "the limit is 1e9 steps", "shorten `spin-up`"]),
-        (&[("dt = 0.01", "dt = 1e-9")], &["2.030e10 integrator steps", "1531 samples × 10000000 steps each", "raise `dt`"]),
+        (&[("dt = 0.01", "dt = 1e-9")], &["2.070e10 integrator steps", "1571 samples × 10000000 steps each", "raise `dt`"]),
         // Sizes whose data would not fit in any machine's memory.
         (&[("sizes = [200, 400, 800]", "sizes = [200, 400, 1000000000000]")], &["`subsets.sizes`: the study would hold about", "(the pilot data", "1200000000571 samples", "more than the limit of", "reduce the largest subset size"]),
         // A fit whose design matrix would not.
@@ -1166,16 +1166,17 @@ fn check_shows_the_work_estimate() {
     let o = run_in(dir.path(), &["check", study.to_str().unwrap()]);
     assert!(o.status.success(), "{}", stderr(&o));
     let text = stdout(&o);
-    // By hand, at sample interval 0.01: a pool of 800 + 800/5 = 960 samples, a gap of 50, and
-    // a test region of 20 warm-up + 7 × 50 spacing + 150 lead + 1 = 521 samples: 1531 samples;
-    // 5/0.01 = 500 spin-up steps and 1530 steps between them: 2030 steps.
+    // By hand, at sample interval 0.01: a pool of 800 + 200 (one smallest size for the second
+    // replicate) = 1000 samples, a gap of 50, and a test region of 20 warm-up + 7 × 50 spacing +
+    // 150 lead + 1 = 521 samples: 1571 samples; 5/0.01 = 500 spin-up steps and 1570 steps
+    // between them: 2070 steps.
     for n in [
         "work estimate (before any work):",
-        "simulate (data.simulate): 1531 samples, 2.030e3 integrator steps, under a second on one core (limit 1e9 steps)",
+        "simulate (data.simulate): 1571 samples, 2.070e3 integrator steps, under a second on one core (limit 1e9 steps)",
         "training: 6 points (1 model × 3 sizes × 2 replicates: 2 nested training passes), 48 test forecasts",
-        // 1531 samples × 3 variables × 8 bytes; 3 × 61² + 3 × 61 × 3 doubles for the
+        // 1571 samples × 3 variables × 8 bytes; 3 × 61² + 3 × 61 × 3 doubles for the
         // normal equations of 1 + 40 + 20 features.
-        "memory: about 130 kB at once (the pilot data 36.7 kB (1531 samples), the largest fit 93.7 kB (model esn: the normal equations of 61 features)); limit",
+        "memory: about 131 kB at once (the pilot data 37.7 kB (1571 samples), the largest fit 93.7 kB (model esn: the normal equations of 61 features)); limit",
     ] {
         assert!(text.contains(n), "expected '{n}' in: {text}");
     }
