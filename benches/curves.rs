@@ -83,6 +83,7 @@ fn settings(draws: usize) -> CurveSettings {
         level: 0.9,
         trust_factor: 2.0,
         seed: 5,
+        direction: closure_budget::curves::Direction::Increasing,
     }
 }
 

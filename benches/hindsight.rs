@@ -22,7 +22,7 @@
 //! share said to be beyond support. Run with `cargo bench --bench hindsight`.
 
 use closure_budget::curves::isotonic::{isotonic_means, measured_n_star};
-use closure_budget::curves::{self, Family, FitScale, Inversion, SkillGrid};
+use closure_budget::curves::{self, Direction, Family, FitScale, Inversion, SkillGrid};
 use closure_budget::study::analysis::{analyse_curve, calibrate, CurveContext, CurveSettings};
 use closure_budget::study::results::EstimateStatus;
 use closure_budget::study::{load_plan, run_study, RunOptions};
@@ -221,7 +221,7 @@ fn main() {
                 .filter(|(_, g)| g.len() >= 4)
                 .map(|(n, g)| (n.as_str(), g.as_slice()))
                 .collect();
-            let calibration = calibrate(&usable, FitScale::Linear, LEVEL);
+            let calibration = calibrate(&usable, FitScale::Linear, Direction::Increasing, LEVEL);
             eprintln!(
                 "{study} at 1/{fraction}: {} hindsight pairs ({} finite), support {:?}",
                 calibration.pairs.len(),
@@ -239,7 +239,7 @@ fn main() {
                 let full_points = summary(full);
                 let head_points = summary(head);
                 let top = |p: &[curves::CurvePoint]| {
-                    isotonic_means(p)
+                    isotonic_means(p, Direction::Increasing)
                         .into_iter()
                         .fold(f64::NEG_INFINITY, f64::max)
                 };
@@ -250,7 +250,9 @@ fn main() {
                 let cases: Vec<(f64, f64)> = levels
                     .into_iter()
                     .filter(|&l| l > t_top && floor.is_none_or(|f| l > f))
-                    .filter_map(|l| measured_n_star(&full_points, l).map(|m| (l, m)))
+                    .filter_map(|l| {
+                        measured_n_star(&full_points, l, Direction::Increasing).map(|m| (l, m))
+                    })
                     .filter(|&(_, m)| m > head_points.last().map_or(0.0, |p| p.n))
                     .collect();
                 if cases.is_empty() {
@@ -267,6 +269,7 @@ fn main() {
                         level: LEVEL,
                         trust_factor: 1e6,
                         seed: 11,
+                        direction: Direction::Increasing,
                     },
                     None,
                     &CurveContext {

@@ -387,6 +387,7 @@ fn curve_analysis(quick: bool) {
         level: 0.9,
         trust_factor: 2.0,
         seed: 5,
+        direction: closure_budget::curves::Direction::Increasing,
     };
     let calibration = closure_budget::curves::calibration::Calibration::from_pairs(Vec::new(), 0.9);
     let context = closure_budget::study::analysis::CurveContext {

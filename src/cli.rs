@@ -129,7 +129,8 @@ pub enum Command {
     Simulate(SimulateArgs),
     /// Estimate the largest Lyapunov exponent of a built-in system.
     Lyapunov(LyapunovArgs),
-    /// Fit learning curves to skill measured elsewhere and invert them for target skills.
+    /// Fit learning curves to a metric measured elsewhere (skill, or an error with
+    /// --lower-is-better) and invert them for target values.
     Fit(FitArgs),
     /// Price a number of samples (or simulated time) with a set of cost inputs.
     Cost(CostArgs),
@@ -183,15 +184,21 @@ columns are ignored), and one row per measurement:
   unet-closure,2000,seed2,0.44
   unet-closure,4000,seed1,0.58
 n is the training-set size in samples, replicate a label (e.g. a seed), skill the measured
-skill (larger is better). Rows with the same model, n and replicate count as separate
-evaluations of one trained model. Each model needs skill at 3 or more sizes.";
+value of the metric: larger is better, or smaller with --lower-is-better (an error or a loss;
+n* is then where it first falls to the target). Rows with the same model, n and replicate
+count as separate evaluations of one trained model. Each model needs values at 3 or more
+sizes; with one replicate per size the curves are ordinary least-squares fits.
+
+Examples:
+  closure-budget fit my-skill.csv --target 0.8 --report reports/mine
+  closure-budget fit test-error.csv --lower-is-better --target 0.05 --target 0.02 --json fit.json";
 
 #[derive(Debug, Args)]
 #[command(after_help = FIT_AFTER_HELP)]
 pub struct FitArgs {
-    /// CSV of measured skill (columns model, n, replicate, skill).
+    /// CSV of measured values (columns model, n, replicate, skill).
     pub csv: PathBuf,
-    /// Target skill to invert for (repeatable).
+    /// Target value of the metric to invert for (repeatable).
     #[arg(long = "target", required = true, value_parser = positive, allow_negative_numbers = true)]
     pub targets: Vec<f64>,
     /// Bootstrap draws.
@@ -210,6 +217,10 @@ pub struct FitArgs {
     /// Fit on the log scale (relative errors), for skill spanning decades.
     #[arg(long)]
     pub log_scale: bool,
+    /// Lower values are better (an error or a loss): the curves fall with n, and n* is where
+    /// the metric first falls to the target.
+    #[arg(long)]
+    pub lower_is_better: bool,
     /// Also write the results as JSON (the budget.json contract) to this file.
     #[arg(long)]
     pub json: Option<PathBuf>,

@@ -356,6 +356,11 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     confidence: a.confidence,
                     trust_factor: a.trust_factor,
                     seed: a.seed,
+                    direction: if a.lower_is_better {
+                        closure_budget::curves::Direction::Decreasing
+                    } else {
+                        closure_budget::curves::Direction::Increasing
+                    },
                 },
             )?;
             print!("{}", report::text_summary(&doc));

@@ -9,8 +9,9 @@
 //!
 //! **Hindsight pairs.** For every truncation of a curve to its first j sizes (j ≥
 //! [`MIN_HINDSIGHT_SIZES`]) and every later measured size i, the level L = the isotonic mean at
-//! i (all data) is kept when it lies clearly beyond the truncated data (above their largest
-//! isotonic mean by more than 2 standard errors of the mean at i). Its measured n* comes from
+//! i (all data) is kept when it lies clearly beyond the truncated data (better than their best
+//! isotonic mean by more than 2 standard errors of the mean at i: above it when higher is
+//! better, below it when lower is better). Its measured n* comes from
 //! the in-data interpolation on all data ([`super::isotonic`]); its prediction n̂ from the
 //! truncated data alone, by the same procedure as a real target. The error is
 //! e = ln(n̂ / n_meas) (+∞ when the truncated curve says the level is never reached) at the
@@ -241,24 +242,28 @@ pub fn hindsight_pairs(
     if full.iter().any(|p| !p.mean.is_finite()) {
         return Vec::new();
     }
-    let iso = isotonic_means(&full);
+    let direction = options.direction;
+    // Values oriented so that larger is better (see `Direction::sign`).
+    let sign = direction.sign();
+    let iso = isotonic_means(&full, direction);
     let ns: Vec<f64> = full.iter().map(|p| p.n).collect();
     let mut out = Vec::new();
     for j in MIN_HINDSIGHT_SIZES..samples.len() {
         let head = &samples[..j];
         let head_points = summarise(head);
-        let top = isotonic_means(&head_points)
+        let top = isotonic_means(&head_points, direction)
             .into_iter()
+            .map(|m| sign * m)
             .fold(f64::NEG_INFINITY, f64::max);
         let ranked = fit_and_rank(head, options);
         let mut last_level = f64::NAN;
         for i in j..samples.len() {
             let level = iso[i];
-            if level == last_level || level <= top + 2.0 * full[i].standard_error {
+            if level == last_level || sign * level <= top + 2.0 * full[i].standard_error {
                 continue;
             }
             last_level = level;
-            let measured = match first_crossing(&ns, &iso, level) {
+            let measured = match first_crossing(&ns, &iso, level, direction) {
                 Crossing::Between { n, .. } => n,
                 _ => continue,
             };
@@ -503,5 +508,41 @@ mod tests {
             }
         }
         assert!(pairs.iter().any(|p| p.error.is_some()), "{pairs:?}");
+    }
+
+    /// Lower is better: the hindsight pairs of a falling error curve (1 + 20/√n) take levels
+    /// clearly below what each truncation measured, predicted by the falling families, and the
+    /// mirror image of the rising curve of the test above gives as many pairs.
+    #[test]
+    fn hindsight_pairs_of_a_falling_curve_look_below_the_truncation() {
+        use crate::curves::Direction;
+        let curve = |sign: f64| -> Vec<SizeSamples> {
+            (0..8)
+                .map(|i| {
+                    let n = 100.0 * 2f64.sqrt().powi(i);
+                    let m = 2.0 + sign * (1.0 - 20.0 / n.sqrt());
+                    SizeSamples {
+                        n,
+                        replicate_values: vec![m - 0.005, m, m + 0.005],
+                        censored: false,
+                    }
+                })
+                .collect()
+        };
+        let falling = FitOptions {
+            direction: Direction::Decreasing,
+            ..FitOptions::default()
+        };
+        let down = hindsight_pairs("m", &curve(-1.0), &falling);
+        let up = hindsight_pairs("m", &curve(1.0), &FitOptions::default());
+        assert!(!down.is_empty());
+        assert_eq!(down.len(), up.len(), "{down:?} {up:?}");
+        for p in &down {
+            let lowest = 1.0 + 20.0 / p.truncated_at.sqrt();
+            assert!(p.level < lowest && p.factor > 1.0, "{p:?}");
+        }
+        assert!(down.iter().any(|p| p.error.is_some()), "{down:?}");
+        // Read as higher is better, the same falling data give no pairs: nothing rises.
+        assert!(hindsight_pairs("m", &curve(-1.0), &FitOptions::default()).is_empty());
     }
 }

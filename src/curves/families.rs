@@ -111,11 +111,38 @@ impl Direction {
         }
     }
 
-    /// +1 for increasing, −1 for decreasing.
-    pub(crate) fn sign(self) -> f64 {
+    /// +1 for increasing, −1 for decreasing: `sign · value` grows as the value gets better, so
+    /// one comparison written on such oriented values serves both directions (and leaves the
+    /// increasing case bit for bit as it was, a product by 1 being exact).
+    pub fn sign(self) -> f64 {
         match self {
             Direction::Increasing => 1.0,
             Direction::Decreasing => -1.0,
+        }
+    }
+
+    /// Whether `value` meets `target`: at least it (increasing) or at most it (decreasing).
+    pub fn meets(self, value: f64, target: f64) -> bool {
+        match self {
+            Direction::Increasing => value >= target,
+            Direction::Decreasing => value <= target,
+        }
+    }
+
+    /// "higher is better" or "lower is better".
+    pub fn better(self) -> &'static str {
+        match self {
+            Direction::Increasing => "higher is better",
+            Direction::Decreasing => "lower is better",
+        }
+    }
+
+    /// Where a value that has not met a target lies from it: "below" (increasing) or "above"
+    /// (decreasing).
+    pub fn short_side(self) -> &'static str {
+        match self {
+            Direction::Increasing => "below",
+            Direction::Decreasing => "above",
         }
     }
 }

@@ -6,13 +6,17 @@
 //! The measured means of a learning curve are noisy; a mean that dips below its predecessor is
 //! noise unless it drops by more than its standard error. The isotonic fit (weights 1/se²) is
 //! the closest non-decreasing sequence in the weighted least-squares sense, so a target counts
-//! as reached where that sequence first reaches it, not where one lucky size happens to.
+//! as reached where that sequence first reaches it, not where one lucky size happens to. For a
+//! metric where lower is better ([`Direction::Decreasing`]) the same holds mirrored: the
+//! antitonic (non-increasing) fit, and the first size whose fitted mean is at most the target;
+//! both directions run through one code path on the oriented values `sign · mean`.
 //!
 //! References: Ayer, Brunk, Ewing, Reid & Silverman (1955), Ann. Math. Statist. 26, 641–647
 //! (pool-adjacent-violators); Barlow, Bartholomew, Bremner & Brunk (1972), Statistical
 //! Inference under Order Restrictions; Efron & Tibshirani (1993), An Introduction to the
 //! Bootstrap, ch. 13 (percentile intervals).
 
+use super::families::Direction;
 use super::fit::{summarise, CurvePoint, SizeSamples};
 use super::uncertainty::SkillGrid;
 use rand::{RngExt, SeedableRng};
@@ -43,10 +47,12 @@ pub fn pava(values: &[f64], weights: &[f64]) -> Vec<f64> {
         .collect()
 }
 
-/// The isotonic means of curve points, weighted by 1/se² (equal weights when the points carry no
-/// spread).
-pub fn isotonic_means(points: &[CurvePoint]) -> Vec<f64> {
-    let means: Vec<f64> = points.iter().map(|p| p.mean).collect();
+/// The isotonic means of curve points in the curve's direction (non-decreasing when higher is
+/// better, non-increasing when lower is better), weighted by 1/se² (equal weights when the
+/// points carry no spread).
+pub fn isotonic_means(points: &[CurvePoint], direction: Direction) -> Vec<f64> {
+    let sign = direction.sign();
+    let oriented: Vec<f64> = points.iter().map(|p| sign * p.mean).collect();
     let weights: Vec<f64> = points
         .iter()
         .map(|p| {
@@ -57,10 +63,13 @@ pub fn isotonic_means(points: &[CurvePoint]) -> Vec<f64> {
             }
         })
         .collect();
-    pava(&means, &weights)
+    pava(&oriented, &weights)
+        .into_iter()
+        .map(|m| sign * m)
+        .collect()
 }
 
-/// Where a non-decreasing sequence of means first reaches a target.
+/// Where a monotone sequence of means first reaches a target.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum Crossing {
     /// Already at the smallest size: only "at most the smallest size" is known.
@@ -71,11 +80,12 @@ pub enum Crossing {
     NotReached,
 }
 
-/// The first crossing of `target` by the isotonic means `iso` at sizes `ns` (ascending):
-/// linear interpolation of the mean in ln n between the last size below the target and the
-/// first at or above it.
-pub fn first_crossing(ns: &[f64], iso: &[f64], target: f64) -> Crossing {
-    match iso.iter().position(|&m| m >= target) {
+/// The first crossing of `target` by the isotonic means `iso` at sizes `ns` (ascending), in
+/// the curve's direction: linear interpolation of the mean in ln n between the last size that
+/// has not met the target and the first that meets it (at or above it when higher is better,
+/// at or below it when lower is better).
+pub fn first_crossing(ns: &[f64], iso: &[f64], target: f64, direction: Direction) -> Crossing {
+    match iso.iter().position(|&m| direction.meets(m, target)) {
         None => Crossing::NotReached,
         Some(0) => Crossing::AtSmallest,
         Some(i) => {
@@ -93,9 +103,9 @@ pub fn first_crossing(ns: &[f64], iso: &[f64], target: f64) -> Crossing {
 /// The in-data n* of `target` from curve points: `Some(n)` when the isotonic means cross it
 /// between two measured sizes, the smallest size when they reach it there, `None` when they do
 /// not reach it.
-pub fn measured_n_star(points: &[CurvePoint], target: f64) -> Option<f64> {
+pub fn measured_n_star(points: &[CurvePoint], target: f64, direction: Direction) -> Option<f64> {
     let ns: Vec<f64> = points.iter().map(|p| p.n).collect();
-    match first_crossing(&ns, &isotonic_means(points), target) {
+    match first_crossing(&ns, &isotonic_means(points, direction), target, direction) {
         Crossing::AtSmallest => Some(ns[0]),
         Crossing::Between { n, .. } => Some(n),
         Crossing::NotReached => None,
@@ -147,12 +157,14 @@ pub(crate) fn quantile_with_infinity(v: &[f64], prob: f64) -> f64 {
 /// Bootstraps the in-data crossing of every target: each draw resamples the replicate indices
 /// and the initial-condition indices once (the same at every size, as in
 /// [`super::bootstrap_targets`]), recomputes the size means and their standard errors, takes
-/// their isotonic regression and its first crossing of each target. Deterministic for a seed.
+/// their isotonic regression in `direction` and its first crossing of each target.
+/// Deterministic for a seed.
 pub fn crossing_draws(
     grid: &[SkillGrid],
     targets: &[f64],
     draws: usize,
     seed: u64,
+    direction: Direction,
 ) -> Vec<CrossingDraws> {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let replicates = grid.iter().map(|g| g.values.len()).max().unwrap_or(0);
@@ -190,9 +202,9 @@ pub fn crossing_draws(
                 censored: g.censored,
             })
             .collect();
-        let iso = isotonic_means(&summarise(&samples));
+        let iso = isotonic_means(&summarise(&samples), direction);
         for (j, &t) in targets.iter().enumerate() {
-            out[j].push(match first_crossing(&ns, &iso, t) {
+            out[j].push(match first_crossing(&ns, &iso, t, direction) {
                 Crossing::AtSmallest => ns[0],
                 Crossing::Between { n, .. } => n,
                 Crossing::NotReached => f64::INFINITY,
@@ -210,6 +222,7 @@ pub fn crossing_draws(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use Direction::{Decreasing, Increasing};
 
     /// Hand-computed: 1, 3, 2 with equal weights pools the last two to 2.5; with weight 3 on
     /// the 2 the pool is (3 + 6)/4 = 2.25.
@@ -248,17 +261,23 @@ mod tests {
     fn crossing_interpolates_in_log_n_between_the_bracketing_sizes() {
         let ns = [500.0, 1000.0, 4000.0];
         let iso = [0.5, 1.0, 2.0];
-        match first_crossing(&ns, &iso, 1.5) {
+        match first_crossing(&ns, &iso, 1.5, Increasing) {
             Crossing::Between { n, below } => {
                 assert_eq!(below, 1);
                 assert!((n - 2000.0).abs() < 1e-9, "{n}");
             }
             c => panic!("{c:?}"),
         }
-        assert_eq!(first_crossing(&ns, &iso, 0.4), Crossing::AtSmallest);
-        assert_eq!(first_crossing(&ns, &iso, 2.1), Crossing::NotReached);
+        assert_eq!(
+            first_crossing(&ns, &iso, 0.4, Increasing),
+            Crossing::AtSmallest
+        );
+        assert_eq!(
+            first_crossing(&ns, &iso, 2.1, Increasing),
+            Crossing::NotReached
+        );
         // Exactly at a measured mean: that size.
-        match first_crossing(&ns, &iso, 1.0) {
+        match first_crossing(&ns, &iso, 1.0, Increasing) {
             Crossing::Between { n, below: 0 } => assert!((n - 1000.0).abs() < 1e-9, "{n}"),
             c => panic!("{c:?}"),
         }
@@ -271,7 +290,7 @@ mod tests {
     fn a_dip_is_pooled_before_the_crossing_is_read() {
         let ns = [100.0, 200.0, 400.0, 800.0];
         let iso = pava(&[1.0, 1.6, 1.4, 2.0], &[1.0; 4]);
-        match first_crossing(&ns, &iso, 1.55) {
+        match first_crossing(&ns, &iso, 1.55, Increasing) {
             Crossing::Between { n, below } => {
                 assert_eq!(below, 2);
                 assert!(n > 400.0 && n < 800.0, "{n}");
@@ -303,7 +322,7 @@ mod tests {
     #[test]
     fn crossing_draws_stay_in_the_data_or_read_beyond_it() {
         let g = grid(&[0.5, 0.8, 1.2, 1.5, 1.6], 0.2);
-        let d = crossing_draws(&g, &[1.0, 5.0], 200, 3);
+        let d = crossing_draws(&g, &[1.0, 5.0], 200, 3, Increasing);
         assert_eq!(d[0].sorted.len(), 200);
         assert!(d[0].sorted.iter().all(|&n| (1000.0..=16000.0).contains(&n)));
         let [lo, hi] = d[0].interval(0.9).unwrap();
@@ -312,8 +331,50 @@ mod tests {
         assert_eq!(d[1].interval(0.9).unwrap(), [f64::INFINITY; 2]);
         // Deterministic for a seed.
         assert_eq!(
-            crossing_draws(&g, &[1.0], 50, 9),
-            crossing_draws(&g, &[1.0], 50, 9)
+            crossing_draws(&g, &[1.0], 50, 9, Increasing),
+            crossing_draws(&g, &[1.0], 50, 9, Increasing)
         );
+    }
+
+    /// Lower is better: the antitonic fit pools a rise (noise) instead of a dip, and the first
+    /// crossing is the first fitted mean at or below the target. Hand-computed: 2.0, 1.4, 1.6,
+    /// 1.0 pools to 2.0, 1.5, 1.5, 1.0; 1.45 lies between 1.5 at n = 400 and 1.0 at n = 800,
+    /// a tenth of the way in ln n: n = 400·2^0.1 = 428.7.
+    #[test]
+    fn lower_is_better_mirrors_the_isotonic_fit_and_the_crossing() {
+        let ns = [100.0, 200.0, 400.0, 800.0];
+        let points: Vec<CurvePoint> = ns
+            .iter()
+            .zip([2.0, 1.4, 1.6, 1.0])
+            .map(|(&n, mean)| CurvePoint {
+                n,
+                mean,
+                standard_error: 0.0,
+                censored: false,
+            })
+            .collect();
+        let close = |a: &[f64], b: &[f64]| a.iter().zip(b).all(|(x, y)| (x - y).abs() < 1e-12);
+        let iso = isotonic_means(&points, Decreasing);
+        assert!(close(&iso, &[2.0, 1.5, 1.5, 1.0]), "{iso:?}");
+        match first_crossing(&ns, &iso, 1.45, Decreasing) {
+            Crossing::Between { n, below } => {
+                assert_eq!(below, 2);
+                assert!((n - 400.0 * 2f64.powf(0.1)).abs() < 1e-9, "{n}");
+            }
+            c => panic!("{c:?}"),
+        }
+        // Above every value: met at the smallest size; below every value: not reached.
+        assert_eq!(
+            first_crossing(&ns, &iso, 2.5, Decreasing),
+            Crossing::AtSmallest
+        );
+        assert_eq!(
+            first_crossing(&ns, &iso, 0.5, Decreasing),
+            Crossing::NotReached
+        );
+        assert_eq!(measured_n_star(&points, 2.5, Decreasing), Some(100.0));
+        // The same points read as higher-is-better pool the dip instead.
+        let rising = isotonic_means(&points, Increasing);
+        assert!(close(&rising, &[1.5; 4]), "{rising:?}");
     }
 }

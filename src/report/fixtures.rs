@@ -204,6 +204,7 @@ pub fn fixture() -> StudyResults {
             bootstrap_draws: 200,
             trust_factor: 2.0,
             fit_scale: crate::curves::FitScale::Linear,
+            direction: crate::curves::Direction::Increasing,
         },
         data: Some(DataInfo {
             source: "simulated".into(),

@@ -13,6 +13,11 @@
 //! | the terminal after `run`, `merge` and `fit` | [`text_summary`] | its [`PlanDocument`] |
 //! | the terminal after `cost` | [`cost_text`] | a [`CostReport`](crate::cost::CostReport) |
 //!
+//! What the curves measure is named in one place (`quantity.rs`): a study's mean valid
+//! prediction time in model time units, or (for `fit`) a metric measured outside the tool in
+//! its own units, with the direction that is better; a `fit` document speaks of no forecasts,
+//! initial conditions or model time.
+//!
 //! Output is deterministic: fixed number formatting, no timestamps; the only run-dependent
 //! values are the wall-clock measurements (stage `timings`, training and forecasting times).
 //!
@@ -54,6 +59,7 @@ mod csv;
 pub(crate) mod fixtures;
 pub(crate) mod format;
 mod html;
+pub(crate) mod quantity;
 mod svg;
 pub mod tables;
 mod text;

@@ -92,6 +92,7 @@ pub fn text_summary(doc: &PlanDocument) -> String {
 /// Per target, the recommended model: "target 0.200 time units: esn-tiny, 3,070 samples (90%
 /// 1,840–6,200), 212,000 core-hours (90% 175,000–306,000); next esn-b, 2.1× dearer".
 fn answer_block(s: &mut String, doc: &PlanDocument, level: f64) {
+    let unit = super::quantity::Quantity::of(doc).unit();
     let hours = doc
         .campaign
         .as_ref()
@@ -101,7 +102,7 @@ fn answer_block(s: &mut String, doc: &PlanDocument, level: f64) {
         "\nanswer (per target, the cheapest model that reaches it with a number or an upper bound):"
     );
     for p in picks(doc) {
-        let t = format!("  to reach {} time units: ", sig3(p.target));
+        let t = format!("  to reach {}{unit}: ", sig3(p.target));
         let Some((m, e, answer)) = p.choice else {
             let _ = writeln!(s, "{t}no model reaches it");
             continue;

@@ -13,6 +13,12 @@
 //! ([`crate::curves::calibration`]); where they cannot, the estimate says the pilot cannot
 //! support a number. [`analyse_curve`] is shared by studies and by fits of skill measured
 //! outside the tool.
+//!
+//! **Direction.** A study's skill (valid time) is better when higher; a metric measured
+//! outside the tool may be better when lower (an error, a loss). [`CurveSettings::direction`]
+//! carries it to the fits, the isotonic means (antitonic when lower is better), the crossings,
+//! their bootstrap, the hindsight pairs and the statuses; every comparison is written once, on
+//! values oriented by [`Direction::sign`] so that larger is better.
 
 use super::plan::{ModelUse, StudyPlan};
 use super::records::{ClosureChecks, SkillRecord};
@@ -29,7 +35,7 @@ use crate::curves::calibration::{
 use crate::curves::isotonic::{
     crossing_draws, first_crossing, isotonic_means, measured_n_star, Crossing, CrossingDraws,
 };
-use crate::curves::{self, Family, FitOptions, SkillGrid};
+use crate::curves::{self, Direction, Family, FitOptions, SkillGrid};
 use crate::skill::{self, IcSkill};
 use rayon::prelude::*;
 use std::collections::BTreeMap;
@@ -85,6 +91,7 @@ fn settings_for(plan: &StudyPlan, name: &str) -> CurveSettings {
         level: plan.confidence,
         trust_factor: plan.trust_factor,
         seed: derive_seed(plan.seed, name, usize::MAX),
+        direction: Direction::Increasing,
     }
 }
 
@@ -108,7 +115,12 @@ pub(super) fn curve_results(
         .zip(&measured)
         .map(|((s, _), (_, g))| (s.name.as_str(), g.as_slice()))
         .collect();
-    let calibration = calibrate(&grids, plan.fit_scale, plan.confidence);
+    let calibration = calibrate(
+        &grids,
+        plan.fit_scale,
+        Direction::Increasing,
+        plan.confidence,
+    );
     let stops: Vec<Vec<HindsightStop>> = if hindsight {
         hindsight_stops(plan, &grids, subjects, floor)
     } else {
@@ -147,13 +159,18 @@ pub(super) fn curve_results(
 }
 
 /// The calibration of extrapolation from the hindsight pairs of every named curve, pooled
-/// (see [`crate::curves::calibration`]); curves run in parallel, pairs are collected in order.
+/// (see [`crate::curves::calibration`]), with fits on `scale` in `direction`; curves run in
+/// parallel, pairs are collected in order.
 pub fn calibrate(
     grids: &[(&str, &[SkillGrid])],
     scale: curves::FitScale,
+    direction: Direction,
     level: f64,
 ) -> Calibration {
-    let options = FitOptions::on(scale);
+    let options = FitOptions {
+        direction,
+        ..FitOptions::on(scale)
+    };
     let pairs: Vec<_> = grids
         .par_iter()
         .map(|(name, grid)| {
@@ -208,7 +225,12 @@ fn stop_at(
         .copied()
         .filter(|(_, g)| g.len() >= MIN_HINDSIGHT_SIZES)
         .collect();
-    let calibration = calibrate(&usable, plan.fit_scale, plan.confidence);
+    let calibration = calibrate(
+        &usable,
+        plan.fit_scale,
+        Direction::Increasing,
+        plan.confidence,
+    );
     subjects
         .par_iter()
         .zip(grids.par_iter().zip(truncated.par_iter()))
@@ -242,7 +264,8 @@ fn stop_at(
                 .estimates
                 .into_iter()
                 .map(|e| {
-                    let measured = measured_n_star(&full_points, e.target);
+                    let measured =
+                        measured_n_star(&full_points, e.target, Direction::Increasing);
                     HindsightEstimate {
                         covered: measured.and_then(|m| e.holds_for(m)),
                         measured_now: measured,
@@ -342,7 +365,7 @@ fn curve_result(
     for (p, se) in points.iter_mut().zip(&curve.standard_errors) {
         p.standard_error = *se;
     }
-    curve_warnings(&subject.name, &curve, warnings);
+    curve_warnings(&subject.name, &curve, &STUDY_SETBACKS, warnings);
     let settings = model.kind.settings();
     ModelResult {
         name: subject.name.clone(),
@@ -366,15 +389,44 @@ fn curve_result(
     }
 }
 
-/// The warnings of one curve's analysis: no family fitted, skill that falls with n by more than
-/// its noise, targets beyond what the pilot can support.
-pub fn curve_warnings(name: &str, curve: &CurveAnalysis, warnings: &mut Vec<String>) {
+/// How the warnings about values that move against the curve's direction speak of them: what
+/// the values are, and what such a move likely comes from.
+#[derive(Debug, Clone, Copy)]
+pub struct SetbackWords {
+    /// "skill", "value".
+    pub noun: &'static str,
+    /// The end of the sentence, e.g. "likely causes: …".
+    pub causes: &'static str,
+}
+
+/// A study's skill (valid time) that falls with n.
+pub const STUDY_SETBACKS: SetbackWords = SetbackWords {
+    noun: "skill",
+    causes:
+        "likely causes: an untuned penalty, unstable forecasts, or censoring at the maximum lead",
+};
+
+/// The warnings of one curve's analysis: no family fitted, values that move against the
+/// curve's direction by more than their noise (worded by `words`), targets beyond what the
+/// pilot can support.
+pub fn curve_warnings(
+    name: &str,
+    curve: &CurveAnalysis,
+    words: &SetbackWords,
+    warnings: &mut Vec<String>,
+) {
     if curve.selected.is_none() {
         warnings.push(format!(
             "{name}: no learning-curve family could be fitted; no budget is given for this model"
         ));
     }
-    warnings.extend(curve.drops.iter().map(|d| format!("{name}: {d}")));
+    warnings.extend(curve.setbacks.iter().map(|d| {
+        format!(
+            "{name}: {}; {}",
+            d.sentence(curve.direction, words.noun),
+            words.causes
+        )
+    }));
     if !curve.identical_replicates.is_empty() {
         let sizes: Vec<String> = curve
             .identical_replicates
@@ -437,6 +489,10 @@ pub struct CurveSettings {
     /// measured size, whatever the hindsight supports.
     pub trust_factor: f64,
     pub seed: u64,
+    /// Higher is better (a study's valid time) or lower is better (an error or a loss measured
+    /// outside the tool): the fits' direction, and which way every comparison with a target
+    /// goes.
+    pub direction: Direction,
 }
 
 /// What a curve's estimates depend on beyond its own points: the calibration of its study and
@@ -444,8 +500,37 @@ pub struct CurveSettings {
 #[derive(Debug, Clone, Copy)]
 pub struct CurveContext<'a> {
     pub calibration: &'a Calibration,
-    /// Mean valid time of persistence: targets at or below it need no training.
+    /// What no training already achieves (a study's persistence: its mean valid time): targets
+    /// it meets need no training.
     pub floor: Option<f64>,
+}
+
+/// Consecutive sizes whose mean moves against the curve's direction (falls when higher is
+/// better, rises when lower is better) by more than twice their combined standard error.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Setback {
+    pub from_n: f64,
+    pub from: f64,
+    pub to_n: f64,
+    pub to: f64,
+    /// The combined standard error of the two means.
+    pub noise: f64,
+}
+
+impl Setback {
+    /// "the measured skill falls from 1.200 at 1414 samples to 0.600 at 2000, more than its
+    /// noise (± 0.016)" with `noun` "skill" (for a curve where lower is better: "… rises from
+    /// …").
+    pub fn sentence(&self, direction: Direction, noun: &str) -> String {
+        let moves = match direction {
+            Direction::Increasing => "falls",
+            Direction::Decreasing => "rises",
+        };
+        format!(
+            "the measured {noun} {moves} from {:.3} at {} samples to {:.3} at {}, more than its noise (± {:.3})",
+            self.from, self.from_n, self.to, self.to_n, self.noise
+        )
+    }
 }
 
 /// Fits, backtest, weights and per-target estimates for one model's measured skill.
@@ -456,18 +541,21 @@ pub struct CurveAnalysis {
     pub selected: Option<Family>,
     pub backtest: Option<curves::Backtest>,
     pub estimates: Vec<TargetEstimate>,
-    /// Sentences about measured skill that falls with n by more than its noise.
-    pub drops: Vec<String>,
     /// Sizes at which two or more replicates gave exactly the same skill values: the spread
     /// between replicates is zero there, which almost always means they did not differ (same
     /// seed, same data window) rather than that the model is exactly reproducible.
     pub identical_replicates: Vec<f64>,
+    /// Sizes where the measured values move against the curve's direction by more than their
+    /// noise.
+    pub setbacks: Vec<Setback>,
+    /// The direction the analysis ran in.
+    pub direction: Direction,
 }
 
 /// Fits every family to the measured skill, backtests and ranks them, bootstraps the in-data
 /// crossing and the families' n* for every target over replicates and initial conditions,
-/// decides each target's estimate (see `estimate`) and (with a cost model) prices it. Shared
-/// by studies and by fits of user-measured skill.
+/// decides each target's estimate (see `estimate`) and (with a cost model) prices it, all in
+/// `settings.direction`. Shared by studies and by fits of user-measured skill.
 pub fn analyse_curve(
     grid: &[SkillGrid],
     targets: &[f64],
@@ -477,11 +565,18 @@ pub fn analyse_curve(
 ) -> CurveAnalysis {
     let samples: Vec<curves::SizeSamples> = grid.iter().map(|g| g.replicate_means()).collect();
     let curve_points = curves::summarise(&samples);
-    let ranked = fit_and_rank(&samples, &FitOptions::on(settings.scale));
+    let direction = settings.direction;
+    let ranked = fit_and_rank(
+        &samples,
+        &FitOptions {
+            direction,
+            ..FitOptions::on(settings.scale)
+        },
+    );
     let fits: Vec<FitResult> = ranked
         .results
         .iter()
-        .map(|(family, r)| fit_result(*family, r))
+        .map(|(family, r)| fit_result(*family, direction, r))
         .collect();
     let ok_fits = ranked.fits();
     let selected = ranked.selected();
@@ -513,7 +608,13 @@ pub fn analyse_curve(
             })
             .collect(),
     };
-    let crossings = crossing_draws(grid, targets, settings.draws, settings.seed ^ 0x0150);
+    let crossings = crossing_draws(
+        grid,
+        targets,
+        settings.draws,
+        settings.seed ^ 0x0150,
+        direction,
+    );
     let estimates = targets
         .iter()
         .zip(draws.iter().zip(&crossings))
@@ -526,6 +627,7 @@ pub fn analyse_curve(
                     crossings: c,
                     level: settings.level,
                     trust_factor: settings.trust_factor,
+                    direction,
                     context,
                     cost,
                 },
@@ -539,7 +641,8 @@ pub fn analyse_curve(
         selected: selected.map(|f| f.family),
         backtest: ranked.backtest,
         estimates,
-        drops: drops(&curve_points),
+        setbacks: setbacks(&curve_points, direction),
+        direction,
         identical_replicates: grid
             .iter()
             .filter(|g| g.values.len() > 1 && g.values.iter().all(|v| *v == g.values[0]))
@@ -548,8 +651,12 @@ pub fn analyse_curve(
     }
 }
 
-/// The contract's record of one family's fit.
-fn fit_result(family: Family, r: &Result<curves::CurveFit, curves::CurveError>) -> FitResult {
+/// The contract's record of one family's fit (formula and asymptote in the fit's direction).
+fn fit_result(
+    family: Family,
+    direction: Direction,
+    r: &Result<curves::CurveFit, curves::CurveError>,
+) -> FitResult {
     let names = family.param_names();
     let named = |v: &[f64]| -> BTreeMap<String, f64> {
         names
@@ -561,17 +668,17 @@ fn fit_result(family: Family, r: &Result<curves::CurveFit, curves::CurveError>) 
     match r {
         Ok(fit) => FitResult {
             family,
-            formula: family.formula().into(),
+            formula: fit.formula().into(),
             params: named(&fit.params),
             std_errors: fit.std_errors.as_deref().map(named),
             weighted_rss: Some(fit.weighted_rss),
             aicc: fit.aicc,
-            asymptote: family.asymptote(&fit.params),
+            asymptote: fit.asymptote(),
             error: None,
         },
         Err(e) => FitResult {
             family,
-            formula: family.formula().into(),
+            formula: family.formula_in(direction).into(),
             params: BTreeMap::new(),
             std_errors: None,
             weighted_rss: None,
@@ -582,19 +689,21 @@ fn fit_result(family: Family, r: &Result<curves::CurveFit, curves::CurveError>) 
     }
 }
 
-/// Sentences for consecutive sizes whose mean skill falls by more than twice the combined
+/// Consecutive sizes whose mean moves against `direction` by more than twice the combined
 /// standard error.
-fn drops(points: &[curves::CurvePoint]) -> Vec<String> {
+fn setbacks(points: &[curves::CurvePoint], direction: Direction) -> Vec<Setback> {
+    let sign = direction.sign();
     points
         .windows(2)
         .filter_map(|w| {
             let (a, b) = (w[0], w[1]);
             let noise = (a.standard_error.powi(2) + b.standard_error.powi(2)).sqrt();
-            (noise > 0.0 && a.mean - b.mean > 2.0 * noise).then(|| {
-                format!(
-                    "the measured skill falls from {:.3} at {} samples to {:.3} at {}, more than its noise (± {:.3}); likely causes: an untuned penalty, unstable forecasts, or censoring at the maximum lead",
-                    a.mean, a.n, b.mean, b.n, noise
-                )
+            (noise > 0.0 && sign * a.mean - sign * b.mean > 2.0 * noise).then_some(Setback {
+                from_n: a.n,
+                from: a.mean,
+                to_n: b.n,
+                to: b.mean,
+                noise,
             })
         })
         .collect()
@@ -611,13 +720,15 @@ struct Evidence<'a> {
     crossings: &'a CrossingDraws,
     level: f64,
     trust_factor: f64,
+    direction: Direction,
     context: &'a CurveContext<'a>,
     cost: Option<&'a Campaign>,
 }
 
-/// The no-training-needed estimate when the target is at or below the persistence floor.
-fn floor_estimate(target: f64, floor: Option<f64>) -> Option<TargetEstimate> {
-    let floor = floor.filter(|f| target <= *f)?;
+/// The no-training-needed estimate when the floor already meets the target (a target at or
+/// below the persistence floor when higher is better).
+fn floor_estimate(target: f64, floor: Option<f64>, direction: Direction) -> Option<TargetEstimate> {
+    let floor = floor.filter(|f| direction.meets(*f, target))?;
     Some(TargetEstimate {
         status: EstimateStatus::NoTrainingNeeded,
         p_unreachable: 0.0,
@@ -628,26 +739,29 @@ fn floor_estimate(target: f64, floor: Option<f64>) -> Option<TargetEstimate> {
     })
 }
 
-/// The estimate for one target:
+/// The estimate for one target, in the curve's direction ("reach" is "rise to" when higher is
+/// better and "fall to" when lower is better; "below" the target is short of it):
 ///
-/// - **no training needed**: the target is at or below the persistence floor;
+/// - **no training needed**: the floor already meets the target (at or below the persistence
+///   floor);
 /// - **at the smallest size**: the isotonic size means reach it at the smallest measured size —
-///   "n* ≤ n_min", priced as an upper bound, no point estimate;
+///   "n* ≤ n_min", priced as an upper bound, no point estimate (when lower is better: a target
+///   above every measured value);
 /// - **reached in the data**: they cross it between two measured sizes — n* interpolated in
 ///   ln n, its interval the bootstrap of the same interpolation, clipped to the measured range
 ///   (the upper end reads "> n_max" when more than (1 − level)/2 of the draws do not cross);
 /// - not reached in the data: the ranked families extrapolate ([`extrapolate`]); a curve that
-///   levels off clearly below the target (asymptote + 2 se < target) is **unreachable**, one
-///   whose plateau is within noise of the target — or measured means that flatten out just
-///   below it — **near plateau**; a curve reaching it is **extrapolated** with the calibrated
-///   interval (hull with the families' bootstrap interval) when the study's hindsight supports
-///   its extrapolation factor (and it is within the trust factor), otherwise **beyond
-///   support** with only the defensible lower bound;
+///   levels off clearly short of the target (asymptote + 2 se < target; when lower is better, a
+///   floor − 2 se > target) is **unreachable**, one whose plateau is within noise of the target
+///   — or measured means that flatten out just short of it — **near plateau**; a curve reaching
+///   it is **extrapolated** with the calibrated interval (hull with the families' bootstrap
+///   interval) when the study's hindsight supports its extrapolation factor (and it is within
+///   the trust factor), otherwise **beyond support** with only the defensible lower bound;
 /// - **no fit**: no family could be used.
 ///
 /// The estimate always lies inside its interval (checked).
 fn estimate(ev: &Evidence, target: f64) -> TargetEstimate {
-    if let Some(e) = floor_estimate(target, ev.context.floor) {
+    if let Some(e) = floor_estimate(target, ev.context.floor, ev.direction) {
         return e;
     }
     let points = ev.points;
@@ -656,12 +770,12 @@ fn estimate(ev: &Evidence, target: f64) -> TargetEstimate {
     let largest = *ns.last().expect("at least one size");
     let price = |n: Option<f64>| n.and_then(|n| ev.cost.map(|c| c.budget(n)));
     let pct = |p: f64| format!("{:.0}%", 100.0 * p);
-    let iso = isotonic_means(points);
+    let iso = isotonic_means(points, ev.direction);
     let base = TargetEstimate {
         p_unreachable: 0.0,
         ..TargetEstimate::no_fit(target, "")
     };
-    let e = match first_crossing(&ns, &iso, target) {
+    let e = match first_crossing(&ns, &iso, target, ev.direction) {
         Crossing::AtSmallest => TargetEstimate {
             status: EstimateStatus::AtSmallestSize,
             samples_interval: [None, Some(smallest)],
@@ -732,6 +846,9 @@ fn beyond_the_data(
     let price = |n: Option<f64>| n.and_then(|n| ev.cost.map(|c| c.budget(n)));
     let pct = |p: f64| format!("{:.0}%", 100.0 * p);
     let (extrapolation, rejected_fits) = extrapolate(ev.ranked, points, target);
+    // Values oriented so that larger is better: `o(a) > o(b)` reads "a is better than b".
+    let sign = ev.direction.sign();
+    let o = |v: f64| sign * v;
     let base = TargetEstimate {
         p_unreachable: ev.draws.p_unreachable,
         rejected_fits,
@@ -750,8 +867,8 @@ fn beyond_the_data(
         }
     };
     let m = iso.len();
-    let flattened = m >= 2 && iso[m - 1] - iso[m - 2] < 2.0 * noise;
-    let near_top = target - iso[m - 1] < 2.0 * noise;
+    let flattened = m >= 2 && o(iso[m - 1]) - o(iso[m - 2]) < 2.0 * noise;
+    let near_top = o(target) - o(iso[m - 1]) < 2.0 * noise;
     let near_plateau = |reason: String| {
         TargetEstimate {
         status: EstimateStatus::NearPlateau,
@@ -773,11 +890,11 @@ fn beyond_the_data(
     let flat_noise = (noise * noise + first_se * first_se).sqrt();
     if matches!(extrapolation, Extrapolation::NoCurve)
         && m >= 3
-        && iso[m - 1] - iso[0] <= 2.0 * flat_noise
+        && o(iso[m - 1]) - o(iso[0]) <= 2.0 * flat_noise
     {
         let top = iso[m - 1];
         let span = format!("{:.0}–{:.0} samples", points[0].n, largest);
-        if target - top < 2.0 * noise {
+        if o(target) - o(top) < 2.0 * noise {
             return near_plateau(format!(
                 "the measured means stay flat at about {top:.3} across {span}, within twice their noise (± {noise:.3}) of the target"
             ));
@@ -786,7 +903,8 @@ fn beyond_the_data(
             status: EstimateStatus::Unreachable,
             asymptote: Some(top),
             note: format!(
-                "the measured means stay flat at about {top:.3} (± {noise:.3}) across {span}, clearly below the target: this model does not improve with more samples here, and more data of this kind is not expected to reach it"
+                "the measured means stay flat at about {top:.3} (± {noise:.3}) across {span}, clearly {} the target: this model does not improve with more samples here, and more data of this kind is not expected to reach it",
+                ev.direction.short_side()
             ),
             ..base
         };
@@ -811,15 +929,16 @@ fn beyond_the_data(
             reason,
             ..
         } => match (asymptote, asymptote_se) {
-            (Some(a), Some(se)) if a + 2.0 * se >= target => near_plateau(format!(
+            (Some(a), Some(se)) if o(a) + 2.0 * se >= o(target) => near_plateau(format!(
                 "the fitted plateau is {a:.3} ± {se:.3}"
             )),
             (Some(a), _) => TargetEstimate {
                 status: EstimateStatus::Unreachable,
                 asymptote: Some(a),
                 note: format!(
-                    "the fitted curve levels off at {a:.3}{}, clearly below the target; unreachable in {} of bootstrap draws",
+                    "the fitted curve levels off at {a:.3}{}, clearly {} the target; unreachable in {} of bootstrap draws",
                     asymptote_se.map(|s| format!(" ± {s:.3}")).unwrap_or_default(),
+                    ev.direction.short_side(),
                     pct(ev.draws.p_unreachable)
                 ),
                 ..base
@@ -1007,6 +1126,7 @@ mod tests {
             level: 0.9,
             trust_factor: 1000.0,
             seed: 7,
+            direction: Direction::Increasing,
         }
     }
 
@@ -1089,7 +1209,7 @@ mod tests {
     fn a_reached_in_data_row_has_no_unbounded_upper_end() {
         let g = grid(&saturating(6), 0.4);
         let points = curves::summarise(&g.iter().map(|x| x.replicate_means()).collect::<Vec<_>>());
-        let target = isotonic_means(&points)[5] - 0.001;
+        let target = isotonic_means(&points, Direction::Increasing)[5] - 0.001;
         let e = &analyse(&g, &[target], &uncalibrated()).estimates[0];
         assert_eq!(e.status, EstimateStatus::ReachedInData, "{e:?}");
         assert!(e.samples_interval[1].is_some(), "{e:?}");
@@ -1320,11 +1440,118 @@ mod tests {
     fn falling_skill_is_flagged() {
         let g = grid(&[1.0, 1.2, 0.6, 1.4, 1.5], 0.02);
         let a = analyse(&g, &[1.3], &uncalibrated());
-        assert_eq!(a.drops.len(), 1, "{:?}", a.drops);
-        assert!(
-            a.drops[0].contains("falls from 1.200 at 1414"),
-            "{}",
-            a.drops[0]
+        assert_eq!(a.setbacks.len(), 1, "{:?}", a.setbacks);
+        let said = a.setbacks[0].sentence(Direction::Increasing, "skill");
+        assert!(said.contains("falls from 1.200 at 1414"), "{said}");
+    }
+
+    /// [`analyse`] with lower is better and no floor.
+    fn analyse_falling(g: &[SkillGrid], targets: &[f64], c: &Calibration) -> CurveAnalysis {
+        analyse_curve(
+            g,
+            targets,
+            &CurveSettings {
+                direction: Direction::Decreasing,
+                ..settings()
+            },
+            None,
+            &CurveContext {
+                calibration: c,
+                floor: None,
+            },
+        )
+    }
+
+    /// Mirrored data (v → 3 − v, lower is better) get the mirrored in-data answers: the same
+    /// status and, where the data decide, the same n* and interval as the rising curve for the
+    /// mirrored target (up to rounding); the fits run in the falling direction.
+    #[test]
+    fn a_mirrored_falling_curve_gets_the_same_in_data_answers() {
+        let means = saturating(7);
+        let up = grid(&means, 0.05);
+        let down: Vec<SkillGrid> = up
+            .iter()
+            .map(|g| SkillGrid {
+                values: g
+                    .values
+                    .iter()
+                    .map(|r| r.iter().map(|v| 3.0 - v).collect())
+                    .collect(),
+                ..g.clone()
+            })
+            .collect();
+        // Met at the smallest size, between sizes 2 and 3, between sizes 5 and 6.
+        let targets = [
+            0.3,
+            0.5 * (means[2] + means[3]),
+            0.5 * (means[5] + means[6]),
+        ];
+        let c = uncalibrated();
+        let rising = analyse_curve(
+            &up,
+            &targets,
+            &settings(),
+            None,
+            &CurveContext {
+                calibration: &c,
+                floor: None,
+            },
         );
+        let falling = analyse_falling(&down, &targets.map(|t| 3.0 - t), &c);
+        let close = |a: Option<f64>, b: Option<f64>| match (a, b) {
+            (Some(a), Some(b)) => (a / b - 1.0).abs() < 1e-9,
+            (a, b) => a == b,
+        };
+        for (r, f) in rising.estimates.iter().zip(&falling.estimates) {
+            assert_eq!(r.status, f.status, "{r:?} {f:?}");
+            assert!(close(r.samples, f.samples), "{r:?} {f:?}");
+            for i in 0..2 {
+                assert!(
+                    close(r.samples_interval[i], f.samples_interval[i]),
+                    "{r:?} {f:?}"
+                );
+            }
+        }
+        assert_eq!(falling.estimates[0].status, EstimateStatus::AtSmallestSize);
+        assert_eq!(falling.estimates[1].status, EstimateStatus::ReachedInData);
+        assert_eq!(falling.direction, Direction::Decreasing);
+        let selected = falling
+            .fits
+            .iter()
+            .find(|f| Some(f.family) == falling.selected);
+        let formula = &selected.expect("a selected fit").formula;
+        assert_eq!(
+            formula,
+            falling.selected.unwrap().formula_in(Direction::Decreasing)
+        );
+    }
+
+    /// Lower is better: an error levelling off clearly above the target is unreachable (its
+    /// floor is named), one within noise of its floor is near the plateau, and a value that
+    /// rises with n by more than its noise is flagged.
+    #[test]
+    fn a_falling_curve_levelling_off_above_the_target_is_unreachable() {
+        // 1 + 0.5·0.7^i at n = 1000·√2^i: a saturating power law with exponent ln 0.7 / ln √2
+        // ≈ −1.03, inside the bounds.
+        let floor: Vec<f64> = (0..7).map(|i| 1.0 + 0.5 * 0.7f64.powi(i)).collect();
+        let g = grid(&floor, 0.02);
+        let a = analyse_falling(&g, &[0.5, 1.0 - 1e-4], &uncalibrated());
+        let (far, near) = (&a.estimates[0], &a.estimates[1]);
+        assert_eq!(far.status, EstimateStatus::Unreachable, "{far:?}");
+        assert!(
+            far.note.contains("clearly above the target"),
+            "{}",
+            far.note
+        );
+        assert!(
+            far.asymptote.is_some_and(|f| (f - 1.0).abs() < 0.05),
+            "{far:?}"
+        );
+        assert_eq!(near.status, EstimateStatus::NearPlateau, "{near:?}");
+        let rising = grid(&[1.0, 0.8, 1.4, 0.6, 0.5], 0.02);
+        let b = analyse_falling(&rising, &[0.7], &uncalibrated());
+        assert_eq!(b.setbacks.len(), 1, "{:?}", b.setbacks);
+        let said = b.setbacks[0].sentence(Direction::Decreasing, "value");
+        assert!(said.contains("rises from 0.800 at 1414"), "{said}");
     }
 }

@@ -5,13 +5,18 @@
 //! CSV format: a header row naming at least the columns `model`, `n`, `replicate` and `skill`
 //! (any order; other columns are ignored); one row per measurement. `n` is the training-set
 //! size in samples (a whole number ≥ 1); `replicate` is a label (e.g. a seed); `skill` is the
-//! measured skill (larger is better). Several rows with the same model, n and replicate are
-//! treated as separate evaluations (e.g. test initial conditions) of one trained model.
+//! measured value of the metric: larger is better, or, with [`MeasuredOptions::direction`]
+//! decreasing, smaller is better (an error or a loss; n* is then where the metric first falls
+//! to the target). Several rows with the same model, n and replicate are treated as separate
+//! evaluations of one trained model. One value per size (a single replicate) has no replicate
+//! spread: the curves are then ordinary least-squares fits with the residual variance.
 
-use super::analysis::{analyse_curve, calibrate, curve_warnings, CurveContext, CurveSettings};
+use super::analysis::{
+    analyse_curve, calibrate, curve_warnings, CurveContext, CurveSettings, SetbackWords,
+};
 use super::results::{ModelResult, PlanDocument, PointResult, StudyInfo, Timings, PLAN_SCHEMA};
 use super::seeds::derive_seed;
-use crate::curves::SkillGrid;
+use crate::curves::{CurvePoint, Direction, SkillGrid};
 use crate::data::hash_bytes;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -60,7 +65,15 @@ pub struct MeasuredOptions {
     pub confidence: f64,
     pub trust_factor: f64,
     pub seed: u64,
+    /// Higher is better (skill) or lower is better (an error or a loss).
+    pub direction: Direction,
 }
+
+/// How the warnings about values that move against the chosen direction speak of them.
+const SETBACKS: SetbackWords = SetbackWords {
+    noun: "value",
+    causes: "check those measurements, and whether higher or lower is better for this metric (--lower-is-better)",
+};
 
 /// Largest skill magnitude accepted: the fits sum squares of skill over thousands of rows and
 /// bootstrap draws, which must stay far from overflow (f64 overflows near 1.8e308).
@@ -251,10 +264,10 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
         .iter()
         .map(|(name, grid)| (name.as_str(), grid.as_slice()))
         .collect();
-    let calibration = calibrate(&named, options.scale, options.confidence);
+    let calibration = calibrate(&named, options.scale, options.direction, options.confidence);
     for (name, grid) in &grids {
         let seed = derive_seed(options.seed, name, usize::MAX);
-        let curve = analyse_curve(
+        let mut curve = analyse_curve(
             grid,
             &targets,
             &CurveSettings {
@@ -263,6 +276,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
                 level: options.confidence,
                 trust_factor: options.trust_factor,
                 seed,
+                direction: options.direction,
             },
             None,
             &CurveContext {
@@ -298,7 +312,13 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
             sizes.push(g.n as usize);
             replicates = replicates.max(g.values.len());
         }
-        curve_warnings(name, &curve, &mut warnings);
+        let wrong_way = wrong_way(name, grid, options.direction);
+        if wrong_way.is_some() {
+            // The whole curve runs the other way: one warning says so, not one per step.
+            curve.setbacks.clear();
+        }
+        curve_warnings(name, &curve, &SETBACKS, &mut warnings);
+        warnings.extend(wrong_way);
         models.push(ModelResult {
             name: name.clone(),
             kind: "measured outside the tool".into(),
@@ -327,7 +347,10 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
         tool_version: env!("CARGO_PKG_VERSION").into(),
         study: StudyInfo {
             name: stem.clone(),
-            title: format!("Learning curves of measured skill: {stem}"),
+            title: format!(
+                "Learning curves of a measured metric ({}): {stem}",
+                options.direction.better()
+            ),
             description: String::new(),
             file: path.display().to_string(),
             file_sha256: hash_bytes(&bytes),
@@ -339,6 +362,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
             bootstrap_draws: options.draws,
             trust_factor: options.trust_factor,
             fit_scale: options.scale,
+            direction: options.direction,
         },
         data: None,
         skill: None,
@@ -355,6 +379,32 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
             threads: 1,
             ..Timings::default()
         },
+    })
+}
+
+/// A warning when a model's values go the other way with n than `direction` says is better:
+/// the mean at the largest size is worse than at the smallest by more than twice their combined
+/// standard error (by any amount without replicate spread), which usually means the flag that
+/// says whether lower is better is missing or wrong.
+fn wrong_way(name: &str, grid: &[SkillGrid], direction: Direction) -> Option<String> {
+    let points: Vec<CurvePoint> =
+        crate::curves::summarise(&grid.iter().map(|g| g.replicate_means()).collect::<Vec<_>>());
+    let (first, last) = (points.first()?, points.last()?);
+    let sign = direction.sign();
+    let noise = (first.standard_error.powi(2) + last.standard_error.powi(2)).sqrt();
+    (sign * first.mean - sign * last.mean > 2.0 * noise).then(|| {
+        let (moves, flag) = match direction {
+            Direction::Increasing => ("fall", "give --lower-is-better"),
+            Direction::Decreasing => ("rise", "leave out --lower-is-better"),
+        };
+        format!(
+            "{name}: the measured values {moves} with n (from {:.4} at {} samples to {:.4} at {}), yet the fit takes {}; if the other way is better for this metric, {flag}",
+            first.mean,
+            first.n,
+            last.mean,
+            last.n,
+            direction.better()
+        )
     })
 }
 

@@ -141,6 +141,7 @@ pub(super) fn document(
             bootstrap_draws: plan.bootstrap_draws,
             trust_factor: plan.trust_factor,
             fit_scale: plan.fit_scale,
+            direction: crate::curves::Direction::Increasing,
         },
         data: Some(DataInfo {
             own_data: own_data.cloned(),

@@ -12,7 +12,7 @@
 use super::records::SkillRecord;
 use crate::cost::{Budget, CostModel, RunTable};
 use crate::curves::calibration::{Calibration, RejectedFit};
-use crate::curves::Family;
+use crate::curves::{Direction, Family};
 use crate::skill::{IcSkill, SkillSummary};
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
@@ -265,6 +265,15 @@ pub struct StudyInfo {
     /// Scale of the curve-fit residuals.
     #[serde(default)]
     pub fit_scale: crate::curves::FitScale,
+    /// Whether higher values of the measured quantity are better (a study's valid time; the
+    /// default, then left out of the file) or lower ones (`"decreasing"`: an error or a loss
+    /// measured outside the tool, whose n* is where it first falls to the target).
+    #[serde(default, skip_serializing_if = "is_increasing")]
+    pub direction: Direction,
+}
+
+fn is_increasing(d: &Direction) -> bool {
+    *d == Direction::Increasing
 }
 
 /// The pilot data and its split.
@@ -521,7 +530,8 @@ impl EstimateStatus {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub struct TargetEstimate {
-    /// Target mean valid time, model time units.
+    /// Target mean valid time, model time units (for skill measured outside the tool: the
+    /// target value of its metric, in its own units).
     pub target: f64,
     pub status: EstimateStatus,
     /// n*: interpolated in the data, or the calibrated extrapolation.

@@ -2,34 +2,46 @@
 //! the floors, and the chart of cost against target skill.
 
 use super::cells::{
-    budget_cell, confidence, lyapunov_note, persistence_floor, samples_cell, status_cell,
-    target_cell,
+    budget_cell, confidence, fitted_formula, lyapunov_note, persistence_floor, samples_cell,
+    status_cell, target_cell,
 };
 use crate::report::format::percent;
 use crate::report::format::{bytes, escape, sig3, thousands};
+use crate::report::quantity::Quantity;
 use crate::report::svg;
 use crate::report::verdict::{classify, smallest_size, Answer};
 use crate::study::results::{PlanDocument, TargetEstimate};
 use std::fmt::Write;
 
 pub(super) fn answer(out: &mut String, doc: &PlanDocument) {
-    let over = match &doc.data {
-        Some(d) => format!(
-            "mean valid prediction time over {} test initial conditions",
-            thousands(d.test_initial_conditions as f64)
+    let q = Quantity::of(doc);
+    let (what, over) = match &doc.data {
+        Some(d) => (
+            "skill",
+            format!(
+                "mean valid prediction time over {} test initial conditions",
+                thousands(d.test_initial_conditions as f64)
+            ),
         ),
-        None => "as measured by the user's own code".into(),
+        None => (
+            "value of the metric",
+            format!(
+                "as measured outside the tool; {}",
+                doc.study.direction.better()
+            ),
+        ),
     };
     let _ = write!(
         out,
         "<section id=\"answer\">\n<h2>Estimates per model</h2>\n\
-         <p>Training samples needed for each target skill ({over}). Where the measured sizes \
+         <p>Training samples needed for each target {what} ({over}). Where the measured sizes \
          reach a target, the data decide: n* is read between the two sizes that bracket it \
-         (isotonic means, interpolated in ln n) with a {} bootstrap interval over replicates and \
-         test initial conditions that never leaves the measured range. Beyond the data, the \
-         learning-curve families extrapolate and the study's own hindsight calibrates the \
-         interval; where it cannot, the answer is only a lower bound.{}</p>\n",
+         (isotonic means, interpolated in ln n) with a {} bootstrap interval over {} that \
+         never leaves the measured range. Beyond the data, the learning-curve families \
+         extrapolate and the study's own hindsight calibrates the interval; where it cannot, \
+         the answer is only a lower bound.{}</p>\n",
         confidence(doc),
+        q.resampled(),
         if doc.cost.is_some() {
             " Each answer is priced: what simulating and storing those samples costs."
         } else {
@@ -60,18 +72,24 @@ pub(super) fn answer(out: &mut String, doc: &PlanDocument) {
                 ""
             },
             m.selected
-                .map(|f| format!("{} ({})", f.label(), escape(f.formula())))
+                .map(|f| format!("{} ({})", f.label(), escape(fitted_formula(m, f))))
                 .unwrap_or_else(|| "none (no family could be fitted)".into())
         );
         if m.estimates.is_empty() {
             out.push_str("<p>No targets were estimated for this model.</p>\n");
             continue;
         }
-        out.push_str(
-            "<div class=\"scroll\"><table class=\"answer\">\n<thead><tr><th>Target valid time</th><th>Status</th>\
+        let _ = write!(
+            out,
+            "<div class=\"scroll\"><table class=\"answer\">\n<thead><tr><th>Target {}</th><th>Status</th>\
              <th class=\"num\">Samples n*</th><th class=\"num\">Simulated time</th>\
              <th class=\"num\">Core-hours</th><th class=\"num\">Storage</th><th>Note</th>\
              </tr></thead>\n<tbody>\n",
+            if q.measured_outside {
+                "value"
+            } else {
+                "valid time"
+            }
         );
         for e in &m.estimates {
             let _ = writeln!(
@@ -79,7 +97,7 @@ pub(super) fn answer(out: &mut String, doc: &PlanDocument) {
                 "<tr><td>{}</td><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td>\
                  <td class=\"num\">{}</td><td class=\"num\">{}</td><td>{}</td></tr>",
                 target_cell(doc, e.target),
-                status_cell(e),
+                status_cell(q, e),
                 match classify(e, smallest_size(m)) {
                     Answer::Bound {
                         at_most: Some(n), ..

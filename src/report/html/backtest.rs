@@ -34,14 +34,18 @@ pub(super) fn backtest(out: &mut String, doc: &PlanDocument) {
              <th class=\"num\">RMS error at largest size</th>\
              <th class=\"num\">Mean abs. error, held-out sizes</th>\
              <th class=\"num\">Weight</th></tr></thead>\n<tbody>\n",
-            svg::backtest_chart(m)
+            svg::backtest_chart(m, crate::report::quantity::Quantity::of(doc))
         );
         for s in &bt.scores {
             let weight = s
                 .family
                 .and_then(|f| bt.weights.iter().find(|(g, _)| *g == f).map(|(_, w)| *w));
             let name = match s.family {
-                Some(f) => format!("{} <code>{}</code>", f.label(), escape(f.formula())),
+                Some(f) => format!(
+                    "{} <code>{}</code>",
+                    f.label(),
+                    escape(super::cells::fitted_formula(m, f))
+                ),
                 None => "last observed value (baseline)".into(),
             };
             let _ = writeln!(

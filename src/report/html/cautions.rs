@@ -20,8 +20,12 @@ pub(super) fn cautions(out: &mut String, doc: &PlanDocument) {
          <li>These numbers support an allocation request; they do not replace the allocation \
          program's own rules or review.</li>\n\
          <li>A model used in engineering design must follow licensed engineering practice and be \
-         validated independently; forecast skill on this benchmark is not such a \
-         validation.</li>\n</ul>\n</section>\n",
-        confidence(doc)
+         validated independently; {} is not such a validation.</li>\n</ul>\n</section>\n",
+        confidence(doc),
+        if doc.data.is_some() {
+            "forecast skill on this benchmark"
+        } else {
+            "a metric measured on a test set"
+        }
     );
 }

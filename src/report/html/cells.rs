@@ -3,10 +3,13 @@
 //! persistence floor, the end of a curve figure's caption.
 
 use crate::cost::Budget;
+use crate::curves::Family;
 use crate::report::format::{escape, number, percent, samples, sig3};
+use crate::report::quantity::Quantity;
 use crate::skill::SkillSummary;
 use crate::study::results::{
-    ComputedLyapunov, DataInfo, EstimateStatus, LyapunovSource, PlanDocument, TargetEstimate,
+    ComputedLyapunov, DataInfo, EstimateStatus, LyapunovSource, ModelResult, PlanDocument,
+    TargetEstimate,
 };
 use std::fmt::Write;
 
@@ -14,7 +17,8 @@ use std::fmt::Write;
 pub(super) fn data_source(doc: &PlanDocument) -> String {
     let Some(d) = &doc.data else {
         return format!(
-            "skill measured outside the tool, read from <code>{}</code>",
+            "values of a metric measured outside the tool ({}), read from <code>{}</code>",
+            doc.study.direction.better(),
             escape(&doc.study.file)
         );
     };
@@ -39,6 +43,15 @@ pub(super) fn data_description(d: &DataInfo) -> String {
         }
         None => format!("file <code>{}</code>", escape(&d.source)),
     }
+}
+
+/// How many models have replicate spread (a positive standard error somewhere), so that their
+/// curves are weighted least-squares fits; the others are ordinary least squares.
+pub(super) fn models_with_spread(doc: &PlanDocument) -> usize {
+    doc.models
+        .iter()
+        .filter(|m| m.points.iter().any(|p| p.standard_error > 0.0))
+        .count()
 }
 
 pub(super) fn confidence(doc: &PlanDocument) -> String {
@@ -92,11 +105,7 @@ pub(super) fn budget_cell(
 
 pub(super) fn target_cell(doc: &PlanDocument, target: f64) -> String {
     // Skill measured outside the tool is in the user's own units.
-    let unit = if doc.data.is_some() {
-        " time units"
-    } else {
-        ""
-    };
+    let unit = Quantity::of(doc).unit();
     let mut s = format!("<span class=\"big\">{}</span>{unit}", sig3(target));
     if let Some(l) = doc.skill.as_ref().and_then(|k| k.lyapunov_exponent) {
         let _ = write!(
@@ -177,6 +186,15 @@ pub(super) fn lyapunov_provenance(l: f64, source: Option<&LyapunovSource>) -> St
     }
 }
 
+/// The formula of one of a model's families as it was fitted (in the curve's direction; the
+/// rising form when the model has no record of that family).
+pub(super) fn fitted_formula(m: &ModelResult, family: Family) -> &str {
+    m.fits
+        .iter()
+        .find(|f| f.family == family)
+        .map_or(family.formula(), |f| f.formula.as_str())
+}
+
 /// The status as a coloured badge: "reached in the data", "unreachable", …
 pub(super) fn status_badge(status: EstimateStatus) -> String {
     let class = match status {
@@ -191,7 +209,8 @@ pub(super) fn status_badge(status: EstimateStatus) -> String {
     format!("<span class=\"badge {class}\">{}</span>", status.label())
 }
 
-pub(super) fn status_cell(e: &TargetEstimate) -> String {
+/// The status badge with what it means for this estimate; `q` names the quantity.
+pub(super) fn status_cell(q: Quantity, e: &TargetEstimate) -> String {
     let badge = status_badge(e.status);
     let sub = match e.status {
         EstimateStatus::ReachedInData => {
@@ -213,8 +232,8 @@ pub(super) fn status_cell(e: &TargetEstimate) -> String {
         EstimateStatus::Unreachable => format!(
             "{}; P(unreachable) {}",
             match e.asymptote {
-                Some(a) => format!("fitted asymptote {} time units", sig3(a)),
-                None => "the fitted curve does not rise to it".into(),
+                Some(a) => format!("fitted asymptote {}{}", sig3(a), q.unit()),
+                None => format!("the fitted curve does not {} to it", q.moves()),
             },
             percent(e.p_unreachable)
         ),

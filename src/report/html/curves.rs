@@ -7,11 +7,20 @@ use crate::study::results::PlanDocument;
 use std::fmt::Write;
 
 pub(super) fn learning_curves(out: &mut String, doc: &PlanDocument) {
-    out.push_str(
+    let what = if doc.data.is_some() {
+        "Mean valid prediction time".to_string()
+    } else {
+        format!(
+            "The measured value of the metric ({})",
+            doc.study.direction.better()
+        )
+    };
+    let _ = writeln!(
+        out,
         "<section id=\"curves\">\n<h2>Learning curves</h2>\n\
-         <p>Mean valid prediction time against the number of training samples (log scale). \
-         Each fitted family is drawn beyond the measured sizes up to 1.5 times the largest \
-         size or estimate; the bold line is the selected family.</p>\n",
+         <p>{what} against the number of training samples (log scale). Each fitted family is \
+         drawn beyond the measured sizes up to 1.5 times the largest size or estimate; the bold \
+         line is the selected family.</p>",
     );
     for m in &doc.models {
         let _ = write!(
@@ -30,7 +39,7 @@ pub(super) fn learning_curves(out: &mut String, doc: &PlanDocument) {
             );
         } else {
             out.push_str(
-                "Large markers: the measured skill at each size (the mean over replicates, with \
+                "Large markers: the measured value at each size (the mean over replicates, with \
                  ± one standard error where there are several); small markers: each \
                  replicate's value.",
             );

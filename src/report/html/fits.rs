@@ -1,14 +1,28 @@
 //! Fits: every family's parameters, weighted residuals and AICc per model, and the rule that
 //! selected one.
 
+use super::cells::models_with_spread;
 use crate::report::format::{escape, number, opt, sig3};
 use crate::study::results::PlanDocument;
 use std::fmt::Write;
 
 pub(super) fn fits(out: &mut String, doc: &PlanDocument) {
-    out.push_str(
-        "<section id=\"fits\">\n<h2>Fits</h2>\n<p>Weighted least-squares fits of each family to \
-         the measured means (weights from the standard errors). The selected family is the one \
+    let weighted = models_with_spread(doc);
+    let how = if weighted == doc.models.len() {
+        "Weighted least-squares fits of each family to the measured means (weights from the \
+         standard errors)."
+    } else if weighted == 0 {
+        "Ordinary least-squares fits of each family to the measured values (one value per size, \
+         no replicate spread: the residual variance sets the error scale, and the RSS column is \
+         the plain sum of squares)."
+    } else {
+        "Least-squares fits of each family to the measured means: weighted by the standard \
+         errors where a model has replicate spread, ordinary (the residual variance as the error \
+         scale) where it has one value per size."
+    };
+    let _ = write!(
+        out,
+        "<section id=\"fits\">\n<h2>Fits</h2>\n<p>{how} The selected family is the one \
          with the largest backtest weight (each family fitted on the smaller sizes and scored on \
          how well it predicts the larger ones, see the backtest); AICc decides only when no \
          backtest could be run. AICc and ΔAICc are shown for reference (ΔAICc above about 2 is \

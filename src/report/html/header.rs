@@ -19,11 +19,21 @@ pub(super) fn header(out: &mut String, doc: &PlanDocument, title: &str) {
             escape(&doc.study.description)
         );
     }
-    out.push_str(
-        "<p>This report estimates how much high-fidelity training data a machine-learned model \
-         needs to reach a target forecast skill, from learning curves measured on pilot data, \
-         and what producing that data would cost.</p>\n",
-    );
+    if doc.data.is_some() {
+        out.push_str(
+            "<p>This report estimates how much high-fidelity training data a machine-learned \
+             model needs to reach a target forecast skill, from learning curves measured on pilot \
+             data, and what producing that data would cost.</p>\n",
+        );
+    } else {
+        let _ = writeln!(
+            out,
+            "<p>This report estimates how many training samples a model needs for a metric \
+             measured outside the tool ({}) to reach each target value, from learning curves \
+             fitted to those measurements.</p>",
+            doc.study.direction.better()
+        );
+    }
     match &doc.data {
         Some(d) => {
             let _ = writeln!(

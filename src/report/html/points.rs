@@ -4,6 +4,16 @@ use crate::report::format::{escape, number, opt, percent, sig3, thousands};
 use crate::study::results::{PlanDocument, PointResult};
 use std::fmt::Write;
 
+/// A size's standard error; without replicate spread there is none (the fit then uses the
+/// residual variance): "—", never "0".
+fn standard_error(p: &PointResult) -> String {
+    if p.standard_error > 0.0 {
+        sig3(p.standard_error)
+    } else {
+        "—".into()
+    }
+}
+
 fn point_row(p: &PointResult) -> String {
     let reps: Vec<String> = p.replicate_means.iter().map(|v| sig3(*v)).collect();
     format!(
@@ -13,13 +23,7 @@ fn point_row(p: &PointResult) -> String {
          <td class=\"num\">{}</td></tr>\n",
         thousands(p.n as f64),
         sig3(p.mean),
-        // Without replicate spread there is no standard error of a size's mean (the fit then
-        // uses the residual variance): "—", never "0".
-        if p.standard_error > 0.0 {
-            sig3(p.standard_error)
-        } else {
-            "—".into()
-        },
+        standard_error(p),
         reps.join(", "),
         sig3(p.q10),
         sig3(p.q90),
@@ -33,16 +37,16 @@ fn point_row(p: &PointResult) -> String {
 }
 
 pub(super) fn measured_points(out: &mut String, doc: &PlanDocument) {
-    out.push_str(if doc.data.is_some() {
+    if doc.data.is_none() {
+        measured_outside(out, doc);
+        return;
+    }
+    out.push_str(
         "<section id=\"points\">\n<h2>Measured points</h2>\n<p>Online skill (valid prediction \
          time, model time units) beside offline fit quality (one-step training RMSE in \
          standardised units). The two can disagree: a small training error does not guarantee \
-         a stable free-running forecast.</p>\n"
-    } else {
-        "<section id=\"points\">\n<h2>Measured points</h2>\n<p>The skill as measured outside \
-         the tool, per size: mean over replicates (± its standard error where there are \
-         several replicates) and each replicate's value.</p>\n"
-    });
+         a stable free-running forecast.</p>\n",
+    );
     for m in &doc.models {
         let _ = write!(
             out,
@@ -56,6 +60,43 @@ pub(super) fn measured_points(out: &mut String, doc: &PlanDocument) {
         );
         for p in &m.points {
             out.push_str(&point_row(p));
+        }
+        out.push_str("</tbody>\n</table>\n");
+    }
+    out.push_str("</section>\n");
+}
+
+/// The points of values measured outside the tool: per size the mean over replicates (± its
+/// standard error where there are several), each replicate's value, and the spread of the rows.
+fn measured_outside(out: &mut String, doc: &PlanDocument) {
+    let _ = writeln!(
+        out,
+        "<section id=\"points\">\n<h2>Measured points</h2>\n<p>The values as measured \
+         outside the tool ({}), per size: mean over replicates (± its standard error where \
+         there are several replicates), each replicate's value, and 10–90% of the rows.</p>",
+        doc.study.direction.better()
+    );
+    for m in &doc.models {
+        let _ = write!(
+            out,
+            "<h3>{}</h3>\n<table>\n<thead><tr><th class=\"num\">n</th>\
+             <th class=\"num\">Mean ± s.e.</th><th>Replicate values</th>\
+             <th class=\"num\">10–90%</th></tr></thead>\n<tbody>\n",
+            escape(&m.name)
+        );
+        for p in &m.points {
+            let reps: Vec<String> = p.replicate_means.iter().map(|v| sig3(*v)).collect();
+            let _ = writeln!(
+                out,
+                "<tr><td class=\"num\">{}</td><td class=\"num\">{} ± {}</td>\
+                 <td class=\"mono\">{}</td><td class=\"num\">{}–{}</td></tr>",
+                thousands(p.n as f64),
+                sig3(p.mean),
+                standard_error(p),
+                reps.join(", "),
+                sig3(p.q10),
+                sig3(p.q90),
+            );
         }
         out.push_str("</tbody>\n</table>\n");
     }

@@ -1,6 +1,6 @@
 //! Provenance: tool, study, data, seeds, settings, points and stage timings.
 
-use super::cells::{confidence, data_source, lyapunov_provenance};
+use super::cells::{confidence, data_source, lyapunov_provenance, models_with_spread};
 use crate::report::format::{escape, number, sig3, thousands};
 use crate::study::results::PlanDocument;
 use std::fmt::Write;
@@ -32,14 +32,19 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
         "Results schema",
         &format!("<code>{}</code>", escape(&doc.schema)),
     );
+    let outside = doc.data.is_none();
     kv(
         out,
-        "Study",
+        if outside { "Measurements" } else { "Study" },
         &format!("{} — <code>{}</code>", escape(&s.name), escape(&s.file)),
     );
     kv(
         out,
-        "Study file SHA-256",
+        if outside {
+            "File SHA-256"
+        } else {
+            "Study file SHA-256"
+        },
         &format!("<code class=\"hash\">{}</code>", escape(&s.file_sha256)),
     );
     kv(out, "Data source", &data_source(doc));
@@ -82,7 +87,7 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
             ),
         );
     }
-    let mut seed = format!("study {}", s.seed);
+    let mut seed = format!("{} {}", if outside { "bootstrap" } else { "study" }, s.seed);
     if let Some(ds) = doc.data.as_ref().and_then(|d| d.seed) {
         let _ = write!(seed, "; data {ds}");
     }
@@ -130,22 +135,30 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
             .collect::<Vec<_>>()
             .join(", "),
     );
-    kv(
-        out,
-        "Targets",
-        &format!("{} model time units", list(&s.targets)),
-    );
-    kv(out, "Replicates", &s.replicates.to_string());
-    kv(
-        out,
-        "Curve fits",
-        match s.fit_scale {
-            crate::curves::FitScale::Linear => "weighted least squares on the linear scale",
-            crate::curves::FitScale::Log => {
-                "weighted least squares on the log scale (relative errors)"
-            }
-        },
-    );
+    if outside {
+        kv(
+            out,
+            "Targets",
+            &format!("{} ({})", list(&s.targets), s.direction.better()),
+        );
+        kv(
+            out,
+            "Replicates",
+            &if s.replicates == 1 {
+                "one per size (no replicate spread)".to_string()
+            } else {
+                format!("up to {} per size, as labelled in the file", s.replicates)
+            },
+        );
+    } else {
+        kv(
+            out,
+            "Targets",
+            &format!("{} model time units", list(&s.targets)),
+        );
+        kv(out, "Replicates", &s.replicates.to_string());
+    }
+    kv(out, "Curve fits", &curve_fits(doc));
     kv(
         out,
         "Bootstrap",
@@ -156,14 +169,18 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
         ),
     );
     for m in &doc.models {
+        let settings = if m.settings.is_null() {
+            String::new()
+        } else {
+            format!(
+                " <code class=\"hash\">{}</code>",
+                escape(&m.settings.to_string())
+            )
+        };
         kv(
             out,
             &format!("Model {}", escape(&m.name)),
-            &format!(
-                "{} <code class=\"hash\">{}</code>",
-                escape(&m.kind),
-                escape(&m.settings.to_string())
-            ),
+            &format!("{}{settings}", escape(&m.kind)),
         );
     }
     if let Some(p) = &doc.points {
@@ -209,6 +226,19 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
             ),
         );
     }
+    if outside {
+        kv(
+            out,
+            "Stage timings",
+            &format!(
+                "fitting {} s; total {} s before writing this report",
+                sig3(t.fitting),
+                sig3(t.total)
+            ),
+        );
+        out.push_str("</tbody>\n</table>\n</section>\n");
+        return;
+    }
     kv(
         out,
         "Stage timings",
@@ -227,4 +257,25 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
         ),
     );
     out.push_str("</tbody>\n</table>\n</section>\n");
+}
+
+/// How the curves were fitted: weighted by the replicate spread, or ordinary least squares
+/// with the residual variance where a model has one value per size (every standard error 0),
+/// on the study's scale.
+fn curve_fits(doc: &PlanDocument) -> String {
+    let weighted = models_with_spread(doc);
+    let method = if weighted == doc.models.len() {
+        "weighted least squares"
+    } else if weighted == 0 {
+        "ordinary least squares (one value per size, no replicate spread: the residual variance \
+         sets the error scale)"
+    } else {
+        "weighted least squares where a model has replicate spread, ordinary least squares \
+         where it has one value per size"
+    };
+    let scale = match doc.study.fit_scale {
+        crate::curves::FitScale::Linear => "the linear scale",
+        crate::curves::FitScale::Log => "the log scale (relative errors)",
+    };
+    format!("{method} on {scale}")
 }

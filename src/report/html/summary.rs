@@ -4,11 +4,14 @@
 
 use super::cells::{confidence, interval, lyapunov_note, status_badge};
 use crate::report::format::{escape, percent, samples, sig3};
+use crate::report::quantity::Quantity;
 use crate::report::verdict::{picks, ratio_words, Answer, Pick};
 use crate::study::results::PlanDocument;
 use std::fmt::Write;
 
 pub(super) fn summary(out: &mut String, doc: &PlanDocument) {
+    let q = Quantity::of(doc);
+    let unit = q.unit();
     let level = confidence(doc);
     let picks = picks(doc);
     let hours = doc
@@ -25,10 +28,15 @@ pub(super) fn summary(out: &mut String, doc: &PlanDocument) {
             )
         })
         .unwrap_or_default();
+    let targets = if q.measured_outside {
+        format!("target value of the metric ({})", q.direction.better())
+    } else {
+        format!("target skill (mean valid prediction time{ics})")
+    };
     let _ = write!(
         out,
         "<section id=\"summary\" class=\"summary\">\n<h2>The answer in brief</h2>\n\
-         <p>For each target skill (mean valid prediction time{ics}): the cheapest of the {} \
+         <p>For each {targets}: the cheapest of the {} \
          model{} that reaches it with a number, the training samples n* it needs and{} with \
          {level} intervals. The sections after this page are the evidence.</p>\n\
          <div class=\"scroll\"><table class=\"summary\">\n<thead><tr><th>Target</th>\
@@ -51,7 +59,7 @@ pub(super) fn summary(out: &mut String, doc: &PlanDocument) {
                 sig3(p.target),
                 sig3(p.target * l)
             ),
-            None => format!("{} time units", sig3(p.target)),
+            None => format!("{}{unit}", sig3(p.target)),
         };
         let _ = write!(out, "<tr><td>{target}</td>");
         match &p.choice {
@@ -162,14 +170,26 @@ pub(super) fn summary(out: &mut String, doc: &PlanDocument) {
             floors.join("; ")
         );
     }
-    out.push_str(
-        "<p class=\"muted\"><strong>Terms.</strong> Valid prediction time: how long a forecast \
-         stays within the error threshold, in model time units. n*: the training samples (saved \
-         states) needed. <em>Simulated time</em>: the model time the high-fidelity solver must \
-         integrate to produce them, spin-up included; core-hours are simulated time × the \
-         cost rate. Intervals come from the bootstrap over replicates, test initial conditions \
-         and curve families.</p>\n",
-    );
+    if q.measured_outside {
+        let _ = writeln!(
+            out,
+            "<p class=\"muted\"><strong>Terms.</strong> n*: the training samples at which the \
+             measured value first {}s to the target ({}). Intervals come from the bootstrap \
+             over {} and curve families.</p>",
+            q.moves(),
+            q.direction.better(),
+            q.resampled()
+        );
+    } else {
+        out.push_str(
+            "<p class=\"muted\"><strong>Terms.</strong> Valid prediction time: how long a \
+             forecast stays within the error threshold, in model time units. n*: the training \
+             samples (saved states) needed. <em>Simulated time</em>: the model time the \
+             high-fidelity solver must integrate to produce them, spin-up included; core-hours \
+             are simulated time × the cost rate. Intervals come from the bootstrap over \
+             replicates, test initial conditions and curve families.</p>\n",
+        );
+    }
     if let Some(note) = lyapunov_note(doc) {
         let _ = writeln!(out, "<p class=\"muted\">{note}</p>");
     }
@@ -203,11 +223,12 @@ fn capital(s: &str) -> String {
 /// One target in words: "To reach 0.2 time units, train esn on about 3,070 samples (90%
 /// 1,840–6,200), costing 212,000 core-hours (175,000–306,000)."
 fn sentence(doc: &PlanDocument, p: &Pick<'_>, level: &str, hours: &str) -> String {
-    let t = sig3(p.target);
+    let t = format!("{}{}", sig3(p.target), Quantity::of(doc).unit());
     let Some((m, e, answer)) = &p.choice else {
         return format!(
-            "<strong>{t} time units</strong>: no model reaches it (every curve levels off below \
-             it or could not be fitted); see the estimates per model."
+            "<strong>{t}</strong>: no model reaches it (every curve levels off {} it or could \
+             not be fitted); see the estimates per model.",
+            doc.study.direction.short_side()
         );
     };
     let name = escape(&m.name);
@@ -232,7 +253,7 @@ fn sentence(doc: &PlanDocument, p: &Pick<'_>, level: &str, hours: &str) -> Strin
             samples: n,
             interval: [lo, hi],
         } => format!(
-            "<strong>{t} time units</strong>: train <strong>{name}</strong> on about {} samples \
+            "<strong>{t}</strong>: train <strong>{name}</strong> on about {} samples \
              ({level} {}){}.",
             samples(*n),
             if e.upper_beyond_data {
@@ -249,7 +270,7 @@ fn sentence(doc: &PlanDocument, p: &Pick<'_>, level: &str, hours: &str) -> Strin
         Answer::Bound {
             at_most: Some(n), ..
         } => format!(
-            "<strong>{t} time units</strong>: <strong>{name}</strong> already reaches it at the \
+            "<strong>{t}</strong>: <strong>{name}</strong> already reaches it at the \
              smallest measured size, so n* ≤ {} samples{}; measure smaller subsets to pin it down.",
             samples(*n),
             match e.budget_high {
@@ -260,15 +281,14 @@ fn sentence(doc: &PlanDocument, p: &Pick<'_>, level: &str, hours: &str) -> Strin
             }
         ),
         Answer::Bound { at_least, .. } => format!(
-            "<strong>{t} time units</strong>: no model gives a number; the best bound is \
+            "<strong>{t}</strong>: no model gives a number; the best bound is \
              <strong>{name}</strong> with n* ≥ {} samples ({}).",
             at_least.map(samples).unwrap_or_else(|| "?".into()),
             escape(e.status.label())
         ),
-        Answer::NotAnswerable => format!("<strong>{t} time units</strong>: not answerable."),
+        Answer::NotAnswerable => format!("<strong>{t}</strong>: not answerable."),
         Answer::NoTraining => format!(
-            "<strong>{t} time units</strong>: at or below the persistence floor: no training \
-             data needed."
+            "<strong>{t}</strong>: at or below the persistence floor: no training data needed."
         ),
     }
 }

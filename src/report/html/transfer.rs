@@ -158,7 +158,7 @@ fn k_cell(doc: &PlanDocument, e: Option<&TargetEstimate>, status: EstimateStatus
         Some(e) if e.status.has_budget() => {
             format!("{}{}", samples_cell(doc, e, "k*"), status_badge(e.status))
         }
-        Some(e) => status_cell(e),
+        Some(e) => status_cell(crate::report::quantity::Quantity::of(doc), e),
         None => status_badge(status),
     }
 }

@@ -7,21 +7,27 @@ use super::{
 };
 use crate::curves::Family;
 use crate::report::format::short;
+use crate::report::quantity::Quantity;
 use crate::study::results::ModelResult;
 use plotters::coord::Shift;
 use plotters::element::DashedPathElement;
 use plotters::prelude::*;
 
 /// The backtest chart of one model: for each family (and the last-observed-value baseline),
-/// the skill predicted at the largest measured size from fits on the first k sizes, against
-/// the largest size used in the fit; the observed mean at the largest size as a reference.
-pub fn backtest_chart(model: &ModelResult) -> String {
+/// the skill (`q`) predicted at the largest measured size from fits on the first k sizes,
+/// against the largest size used in the fit; the observed mean at the largest size as a
+/// reference.
+pub fn backtest_chart(model: &ModelResult, q: Quantity) -> String {
     render(340, &format!("Backtest of model {}", model.name), |root| {
-        draw_backtest(root, model)
+        draw_backtest(root, model, q)
     })
 }
 
-fn draw_backtest(root: &DrawingArea<SVGBackend<'_>, Shift>, model: &ModelResult) -> DrawResult {
+fn draw_backtest(
+    root: &DrawingArea<SVGBackend<'_>, Shift>,
+    model: &ModelResult,
+    q: Quantity,
+) -> DrawResult {
     root.fill(&WHITE)?;
     let Some(bt) = model.backtest.as_ref().filter(|b| !b.cases.is_empty()) else {
         root.draw(&Text::new(
@@ -53,7 +59,11 @@ fn draw_backtest(root: &DrawingArea<SVGBackend<'_>, Shift>, model: &ModelResult)
     chart
         .configure_mesh()
         .x_desc("largest size used in the fit (log scale)")
-        .y_desc("predicted skill at the largest size")
+        .y_desc(if q.measured_outside {
+            "predicted value at the largest size"
+        } else {
+            "predicted skill at the largest size"
+        })
         .axis_desc_style(("sans-serif", 14).into_font().color(&INK))
         .label_style(label_font)
         .x_labels(8)

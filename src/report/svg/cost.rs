@@ -5,6 +5,7 @@ use super::{
     series_style, y_label_area_for, LegendItem, SeriesStyle, Swatch, GRID, INK, LEGEND_WIDTH,
     WIDTH,
 };
+use crate::curves::Direction;
 use crate::report::format::{samples, short, sig3};
 use crate::study::results::{ModelResult, PlanDocument};
 use plotters::coord::Shift;
@@ -52,6 +53,7 @@ pub fn cost_chart(doc: &PlanDocument) -> Option<CostChart> {
         .iter()
         .copied()
         .fold(f64::INFINITY, f64::min);
+    let direction = doc.study.direction;
     let mut series: Vec<Series> = Vec::new();
     let mut omitted = Vec::new();
     for (i, m) in doc.models.iter().enumerate() {
@@ -68,9 +70,14 @@ pub fn cost_chart(doc: &PlanDocument) -> Option<CostChart> {
             let (l0, l1) = (lo.ln(), hi.ln());
             for k in 0..=CURVE_POINTS {
                 let n = (l0 + (l1 - l0) * k as f64 / CURVE_POINTS as f64).exp();
-                let s = family.eval(p, n);
+                let s = family.eval_in(direction, p, n);
                 let c = campaign.budget(n).core_hours;
-                if s.is_finite() && c.is_finite() && c > 0.0 && s <= 1.15 * top_target {
+                // Up to a little beyond the hardest target.
+                let in_range = match direction {
+                    Direction::Increasing => s <= 1.15 * top_target,
+                    Direction::Decreasing => s >= low_target / 1.15,
+                };
+                if s.is_finite() && c.is_finite() && c > 0.0 && in_range {
                     curve.push((s, c));
                 }
             }
@@ -80,7 +87,10 @@ pub fn cost_chart(doc: &PlanDocument) -> Option<CostChart> {
             let reason = if m.selected.is_none() || fit.is_none() {
                 "no learning curve could be fitted".to_string()
             } else if m.estimates.iter().all(|e| !e.status.has_budget()) {
-                "its curve levels off below every target".to_string()
+                format!(
+                    "its curve levels off {} every target",
+                    direction.short_side()
+                )
             } else {
                 format!(
                     "its curve stays outside the targets' range up to {} samples (the trust \

@@ -7,8 +7,9 @@ use super::{
     DrawResult, LegendItem, Swatch, BAND, DATA, FLOOR, GRID, HEIGHT, INK, LEGEND_WIDTH, SCRATCH,
     SCRATCH_BAND, TARGET, WIDTH,
 };
-use crate::curves::Family;
+use crate::curves::{Direction, Family};
 use crate::report::format::short;
+use crate::report::quantity::Quantity;
 use crate::study::results::{ModelResult, PlanDocument, TransferModel, TransferResult};
 use plotters::coord::Shift;
 use plotters::element::DashedPathElement;
@@ -84,6 +85,7 @@ pub fn transfer_curves(transfer: &TransferResult, model: &TransferModel) -> Stri
                     targets: &model.targets,
                     floor: transfer.persistence.mean,
                     x_desc: "new-regime samples k (log scale)",
+                    quantity: Quantity::VALID_TIME,
                 },
             )
         },
@@ -112,6 +114,8 @@ struct CurveChart<'a> {
     targets: &'a [f64],
     floor: f64,
     x_desc: &'a str,
+    /// What the values are (axis and legend) and which way the fitted curves run.
+    quantity: Quantity,
 }
 
 fn draw(
@@ -131,6 +135,7 @@ fn draw(
             targets: &doc.study.targets,
             floor: doc.persistence.as_ref().map_or(f64::NAN, |p| p.mean),
             x_desc: "training samples n (log scale)",
+            quantity: Quantity::of(doc),
         },
     )
 }
@@ -185,7 +190,7 @@ fn draw_curves(root: &DrawingArea<SVGBackend<'_>, Shift>, spec: &CurveChart<'_>)
     chart
         .configure_mesh()
         .x_desc(spec.x_desc)
-        .y_desc("mean valid prediction time (model time units)")
+        .y_desc(spec.quantity.axis())
         .axis_desc_style(axis_font)
         .label_style(label_font.clone())
         .x_labels(8)
@@ -260,7 +265,8 @@ fn draw_curves(root: &DrawingArea<SVGBackend<'_>, Shift>, spec: &CurveChart<'_>)
             } else {
                 family_colour(fit.family)
             };
-            for segment in clipped_curve(fit.family, &p, ln_lo, ln_step, y_hi) {
+            let direction = spec.quantity.direction;
+            for segment in clipped_curve(fit.family, direction, &p, ln_lo, ln_step, y_hi) {
                 if selected {
                     chart.draw_series(std::iter::once(PathElement::new(
                         segment,
@@ -328,15 +334,17 @@ fn draw_curves(root: &DrawingArea<SVGBackend<'_>, Shift>, spec: &CurveChart<'_>)
     let items = if several {
         comparison_legend_items(spec)
     } else {
-        legend_items(spec.curves[0].model)
+        legend_items(spec.curves[0].model, spec.quantity)
     };
     draw_legend(&legend_area, &items)?;
     Ok(())
 }
 
-/// Samples a fitted curve on a log grid and splits it where it leaves [0, y_hi].
+/// Samples a fitted curve (in `direction`) on a log grid and splits it where it leaves
+/// [0, y_hi].
 fn clipped_curve(
     family: Family,
+    direction: Direction,
     p: &[f64],
     ln_lo: f64,
     ln_step: f64,
@@ -346,7 +354,7 @@ fn clipped_curve(
     let mut current = vec![];
     for i in 0..CURVE_POINTS {
         let n = (ln_lo + ln_step * i as f64).exp();
-        let y = family.eval(p, n);
+        let y = family.eval_in(direction, p, n);
         if y.is_finite() && (0.0..=y_hi).contains(&y) {
             current.push((n, y));
         } else if !current.is_empty() {
@@ -360,7 +368,9 @@ fn clipped_curve(
     segments
 }
 
-fn legend_items(model: &ModelResult) -> Vec<LegendItem> {
+/// Legend of one model's chart; a quantity measured outside the tool has values, not forecasts,
+/// and no persistence floor.
+fn legend_items(model: &ModelResult, q: Quantity) -> Vec<LegendItem> {
     let item = |swatch, text: &str, second: Option<String>| LegendItem {
         swatch,
         text: text.to_string(),
@@ -382,10 +392,22 @@ fn legend_items(model: &ModelResult) -> Vec<LegendItem> {
                 filled: true,
                 radius: 2,
             },
-            "replicate mean",
+            if q.measured_outside {
+                "replicate value"
+            } else {
+                "replicate mean"
+            },
             None,
         ),
-        item(Swatch::Band(BAND), "10–90% of forecasts", None),
+        item(
+            Swatch::Band(BAND),
+            if q.measured_outside {
+                "10–90% of values"
+            } else {
+                "10–90% of forecasts"
+            },
+            None,
+        ),
     ];
     if model.points.iter().any(|p| p.censored_share > 0.0) {
         items.push(item(
@@ -411,9 +433,9 @@ fn legend_items(model: &ModelResult) -> Vec<LegendItem> {
             },
             &fit.family.label().replace('-', " "),
             Some(if selected {
-                format!("{} (selected)", fit.family.formula())
+                format!("{} (selected)", fit.formula)
             } else {
-                fit.family.formula().to_string()
+                fit.formula.clone()
             }),
         ));
     }
@@ -423,18 +445,24 @@ fn legend_items(model: &ModelResult) -> Vec<LegendItem> {
             width: 2,
             dashed: true,
         },
-        "target skill",
-        None,
-    ));
-    items.push(item(
-        Swatch::Line {
-            colour: FLOOR,
-            width: 2,
-            dashed: false,
+        if q.measured_outside {
+            "target"
+        } else {
+            "target skill"
         },
-        "persistence (mean)",
         None,
     ));
+    if !q.measured_outside {
+        items.push(item(
+            Swatch::Line {
+                colour: FLOOR,
+                width: 2,
+                dashed: false,
+            },
+            "persistence (mean)",
+            None,
+        ));
+    }
     items
 }
 
@@ -465,7 +493,7 @@ fn comparison_legend_items(spec: &CurveChart<'_>) -> Vec<LegendItem> {
                     dashed: false,
                 },
                 text: fit.family.label().replace('-', " "),
-                second_line: Some(fit.family.formula().to_string()),
+                second_line: Some(fit.formula.clone()),
             });
         }
         items.push(LegendItem {
@@ -519,6 +547,7 @@ mod tests {
         // 0.01·n^1 on n ∈ [1, 1e4] leaves [0, 10] at n = 1000.
         let segs = clipped_curve(
             Family::PowerLaw,
+            Direction::Increasing,
             &[0.01, 1.0],
             0.0,
             1e4f64.ln() / 239.0,

@@ -526,7 +526,10 @@ mod tests {
         assert_labels_fit(&cost.svg);
         for m in &doc.models {
             assert_labels_fit(&learning_curve(&doc, m));
-            assert_labels_fit(&backtest_chart(m));
+            assert_labels_fit(&backtest_chart(
+                m,
+                crate::report::quantity::Quantity::VALID_TIME,
+            ));
         }
     }
 
