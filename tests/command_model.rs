@@ -80,6 +80,7 @@ fn example_script_end_to_end() {
             returns,
             timeout: 120.0,
             workdir: None,
+            depends: Vec::new(),
         }
         .check(&studies)
         .unwrap()
@@ -188,4 +189,61 @@ fn command_study_runs_resumes_and_notices_an_edited_script() {
     text.push_str("\n# edited\n");
     std::fs::write(&script, text).unwrap();
     assert_eq!(run(), (16, 8, 8), "the script's 8 points are stale");
+}
+
+/// A file the script depends on but does not name on its command line (a module it imports)
+/// enters the point keys once declared in `depends`: editing it makes the script's points stale,
+/// and a rerun with it unchanged reuses them.
+#[test]
+fn declared_dependencies_make_points_stale_when_edited() {
+    if !python_with_numpy() {
+        return;
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let studies = Path::new(env!("CARGO_MANIFEST_DIR")).join("studies");
+    std::fs::copy(
+        studies.join("command-example.py"),
+        dir.path().join("command-example.py"),
+    )
+    .unwrap();
+    std::fs::create_dir(dir.path().join("lib")).unwrap();
+    std::fs::write(dir.path().join("lib/helper.py"), "SCALE = 1.0\n").unwrap();
+    let study = std::fs::read_to_string(studies.join("command-demo.toml"))
+        .unwrap()
+        .replace(
+            "timeout = 120.0 }",
+            "timeout = 120.0, depends = [\"lib\"] }",
+        );
+    assert!(study.contains("depends = [\"lib\"]"));
+    std::fs::write(dir.path().join("command-demo.toml"), study).unwrap();
+    let run = || {
+        let o = std::process::Command::new(env!("CARGO_BIN_EXE_closure-budget"))
+            .current_dir(dir.path())
+            .args(["run", "command-demo.toml", "--out", "out", "--json"])
+            .output()
+            .unwrap();
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+        let p = &v["points"];
+        (p["reused"].as_u64().unwrap(), p["stale"].as_u64().unwrap())
+    };
+    assert_eq!(run(), (0, 0));
+    assert_eq!(run(), (16, 0));
+    std::fs::write(dir.path().join("lib/helper.py"), "SCALE = 2.0\n").unwrap();
+    assert_eq!(run(), (8, 8), "the script's 8 points are stale");
+    // A declared dependency that does not exist is refused before any work.
+    let text = std::fs::read_to_string(dir.path().join("command-demo.toml"))
+        .unwrap()
+        .replace("depends = [\"lib\"]", "depends = [\"missing.py\"]");
+    std::fs::write(dir.path().join("command-demo.toml"), text).unwrap();
+    let o = std::process::Command::new(env!("CARGO_BIN_EXE_closure-budget"))
+        .current_dir(dir.path())
+        .args(["check", "command-demo.toml"])
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        !o.status.success() && err.contains("missing.py") && err.contains("depends"),
+        "{err}"
+    );
 }

@@ -105,6 +105,7 @@ impl Returns {
 /// | `returns` | `forecasts` | `forecasts`: the script writes `forecasts.npy` and the tool scores it; `skill`: the script writes `skill.json` with valid times it measured itself against `truth.npy` | forecasts, skill |
 /// | `timeout` | 3600 | seconds one point may take before the script's process group is killed | > 0, at most one year |
 /// | `workdir` | the study file's directory | the program's current directory; a relative path is taken from the study file's directory | a directory |
+/// | `depends` | `[]` | further files and folders (relative to `workdir`) the script's results depend on, e.g. a module it imports; their content enters the point keys, so editing them makes the points stale | existing files or folders |
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case", deny_unknown_fields)]
 pub struct CommandParams {
@@ -117,6 +118,8 @@ pub struct CommandParams {
     pub timeout: f64,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub workdir: Option<PathBuf>,
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub depends: Vec<PathBuf>,
 }
 
 fn default_timeout() -> f64 {
@@ -159,12 +162,29 @@ impl ValidCommandParams {
                 }))
             })
             .collect();
-        serde_json::json!({
+        let mut identity = serde_json::json!({
             "program": self.params.program,
             "args": self.params.args,
             "returns": self.params.returns.label(),
             "files": files,
-        })
+        });
+        // Only when declared, so the keys of commands without dependencies stay as they were.
+        if !self.params.depends.is_empty() {
+            let mut depends = Vec::new();
+            for d in &self.params.depends {
+                let mut found = Vec::new();
+                collect_files(&self.workdir.join(d), d, &mut found);
+                found.sort();
+                for (path, f) in found {
+                    let hash = std::fs::read(&f)
+                        .map(|b| crate::data::hash_bytes(&b))
+                        .unwrap_or_else(|e| format!("unreadable: {e}"));
+                    depends.push(serde_json::json!({ "path": path, "sha256": hash }));
+                }
+            }
+            identity["depends"] = serde_json::Value::Array(depends);
+        }
+        identity
     }
 
     /// The program to start: a relative path with a `/` is taken from the working directory.
@@ -175,6 +195,25 @@ impl ValidCommandParams {
         } else {
             program.to_path_buf()
         }
+    }
+}
+
+/// Every file at or under `path` (a file, or a folder walked recursively; hidden entries such
+/// as `.git` skipped below the top), with its path as written (`shown`, then the relative
+/// path below it, `/`-separated).
+fn collect_files(path: &Path, shown: &Path, out: &mut Vec<(String, PathBuf)>) {
+    let label = shown.to_string_lossy().replace('\\', "/");
+    match std::fs::read_dir(path) {
+        Ok(entries) => {
+            for entry in entries.flatten() {
+                let name = entry.file_name();
+                if name.to_string_lossy().starts_with('.') {
+                    continue;
+                }
+                collect_files(&entry.path(), &shown.join(&name), out);
+            }
+        }
+        Err(_) => out.push((label, path.to_path_buf())),
     }
 }
 
@@ -214,6 +253,15 @@ impl CommandParams {
             Some(w) => base.join(w),
             None => base.to_path_buf(),
         };
+        for d in &self.depends {
+            if d.as_os_str().is_empty() || !workdir.join(d).exists() {
+                bad.out_of_range(
+                    "depends",
+                    format!("'{}'", d.display()),
+                    "files or folders that exist, relative to the working directory (the study file's directory unless `workdir` says otherwise)",
+                );
+            }
+        }
         bad.finish(ValidCommandParams {
             params: self,
             workdir,
@@ -1006,6 +1054,7 @@ mod tests {
             returns,
             timeout,
             workdir: None,
+            depends: Vec::new(),
         }
         .check(dir)
         .unwrap()
@@ -1020,6 +1069,7 @@ mod tests {
             returns: Returns::Forecasts,
             timeout,
             workdir: workdir.map(PathBuf::from),
+            depends: Vec::new(),
         };
         assert_eq!(p("python3", 1.0, None).check(base).unwrap().workdir(), base);
         let v = p("./train.sh", 1.0, Some("runs")).check(base).unwrap();
@@ -1292,6 +1342,7 @@ cp "$FORECASTS" forecasts.npy
             returns: Returns::Forecasts,
             timeout: 10.0,
             workdir: None,
+            depends: Vec::new(),
         }
         .check(dir.path())
         .unwrap();

@@ -1423,7 +1423,7 @@ mod tests {
         let a = analyse(&g, &[target], &uncalibrated());
         assert_eq!(a.identical_replicates.len(), 6);
         let mut warnings = Vec::new();
-        curve_warnings("m", &a, &mut warnings);
+        curve_warnings("m", &a, &STUDY_SETBACKS, &mut warnings);
         assert!(
             warnings
                 .iter()
