@@ -18,20 +18,7 @@ use std::path::Path;
 
 /// Whether `python3` with NumPy can run; panics when it cannot and CI is set.
 fn python_with_numpy() -> bool {
-    let ok = std::process::Command::new("python3")
-        .args(["-c", "import numpy"])
-        .output()
-        .is_ok_and(|o| o.status.success());
-    if !ok {
-        assert!(
-            std::env::var_os("CI").is_none(),
-            "python3 with numpy is needed for the command-model test on CI (.ci/run installs it)"
-        );
-        eprintln!(
-            "SKIPPED command_model: python3 with numpy was not found (install numpy, e.g. `pip install numpy`, to run this test)"
-        );
-    }
-    ok
+    common::python_with(&["numpy"], "command-model", "command_model")
 }
 
 fn mean(v: &[IcSkill]) -> f64 {

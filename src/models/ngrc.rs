@@ -20,10 +20,12 @@ use super::ridge::{
     nested_pass, nested_readouts, Block, NormalEquations, Penalty, RidgeSelection, RowSource,
     Rows, BLOCK_ROWS,
 };
+use super::ridge::export::{create_dir, write_manifest, write_readout, ReadoutFit, EXPORT_SCHEMA};
 use super::{
     out_of_range, standardisation, FitSummary, Forecaster, ModelError, RidgeScaling,
     SettingProblems,
 };
+use crate::data::DataError;
 use ndarray::ArrayView2;
 use serde::{Deserialize, Serialize};
 use std::path::Path;
@@ -165,6 +167,76 @@ impl Ngrc {
     pub fn readout(&self) -> &[f64] {
         &self.readout
     }
+}
+
+/// The manifest of an exported NG-RC model (`model.json`).
+#[derive(Serialize)]
+#[serde(rename_all = "kebab-case")]
+struct ExportManifest {
+    schema: &'static str,
+    family: &'static str,
+    features: &'static str,
+    delays: usize,
+    stride: usize,
+    /// Highest degree of the monomials of the linear part.
+    order: usize,
+    constant: bool,
+    standardised: bool,
+    variables: usize,
+    feature_count: usize,
+    files: ExportFiles,
+    readout: ReadoutFit,
+}
+
+#[derive(Serialize)]
+#[serde(rename_all = "kebab-case")]
+struct ExportFiles {
+    mean: &'static str,
+    scale: &'static str,
+}
+
+/// Writes `model`, fitted with `params` as `summary` records, into `dir` (created): its
+/// manifest `model.json` (delays, stride, polynomial order 2 with a constant, the feature
+/// order, the fit of the readout: samples, pairs, first pair, penalty as applied) and the
+/// arrays `mean.npy`, `scale.npy` (u = (x − mean) / scale; 0 and 1 without standardisation)
+/// and `readout.npy` (outputs × features, in the order of [`Ngrc::readout`]).
+pub fn export(
+    model: &Ngrc,
+    params: &ValidNgrcParams,
+    summary: &FitSummary,
+    dir: &Path,
+) -> Result<(), DataError> {
+    let p = params.get();
+    create_dir(dir)?;
+    let d = model.mean.len();
+    write_readout(dir, &model.readout, d, &model.mean, &model.scale)?;
+    let penalty = Penalty {
+        ridge: p.ridge,
+        scaling: p.ridge_scaling,
+        selection: p.ridge_selection,
+    };
+    write_manifest(
+        dir,
+        &ExportManifest {
+            schema: EXPORT_SCHEMA,
+            family: "ngrc",
+            features: "φ(t) = [1, lin, lin_i · lin_j for i ≤ j in row-major order of the upper \
+                       triangle], lin = [u(t), u(t − s), …, u(t − (k − 1)s)] by delay, then \
+                       variable (k delays, stride s); û(t + 1) = u(t) + W φ(t)",
+            delays: model.delays,
+            stride: model.stride,
+            order: 2,
+            constant: true,
+            standardised: p.standardise,
+            variables: d,
+            feature_count: model.features(),
+            files: ExportFiles {
+                mean: "mean.npy",
+                scale: "scale.npy",
+            },
+            readout: ReadoutFit::new(summary, &penalty, model.history_needed() - 1),
+        },
+    )
 }
 
 /// φ from the linear part `lin` into `out` (length [`feature_count`]).

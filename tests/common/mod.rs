@@ -55,17 +55,25 @@ pub mod mutate;
 /// Whether `python3` with NumPy and netCDF4 can run (the NetCDF tests write their files with
 /// them); panics when it cannot and CI is set, else prints why `suite` is skipped.
 pub fn python_ready(label: &str, suite: &str) -> bool {
+    python_with(&["numpy", "netCDF4"], label, suite)
+}
+
+/// Whether `python3` can import every module of `modules`; panics when it cannot and CI is set
+/// (CI installs them, see `.ci/run`), else prints why `suite` is skipped.
+pub fn python_with(modules: &[&str], label: &str, suite: &str) -> bool {
     let ok = std::process::Command::new("python3")
-        .args(["-c", "import numpy, netCDF4"])
+        .args(["-c", &format!("import {}", modules.join(", "))])
         .output()
         .is_ok_and(|o| o.status.success());
+    let names = modules.join(" and ");
     if !ok {
         assert!(
             std::env::var_os("CI").is_none(),
-            "python3 with numpy and netCDF4 is needed for the {label} tests on CI (.ci/run installs them)"
+            "python3 with {names} is needed for the {label} tests on CI (.ci/run installs them)"
         );
         eprintln!(
-            "SKIPPED {suite}: python3 with numpy and netCDF4 was not found (`pip install numpy netCDF4` to run these tests)"
+            "SKIPPED {suite}: python3 with {names} was not found (`pip install {}` to run these tests)",
+            modules.join(" ")
         );
     }
     ok

@@ -54,7 +54,7 @@ impl Esn {
         crate::models::ridge::clear_upper_simd_state();
         let res = &*self.reservoir;
         let (n, d) = (res.size, self.mean.len());
-        let half = res.size / 2;
+        let half = res.squared_units();
         let m = histories.len();
         if m == 0 {
             return;

@@ -10,8 +10,10 @@
 //! half of the units in the readout).
 
 mod batch;
+mod parts;
 mod sequence;
 
+pub use parts::{export, EsnParts};
 pub use sequence::{fit_sequence_nested, EsnSequence};
 
 use super::closure::memory_form;
@@ -156,7 +158,7 @@ impl EsnParams {
 
 /// Readout features of a reservoir of `size` units: φ(r) = [1, r, r²_{0..D/2}].
 fn reservoir_features(size: usize) -> usize {
-    1 + size + size / 2
+    1 + size + size / 2 // the bias, the states and the squares of the first ⌊D/2⌋
 }
 
 /// The fixed random part of an echo state network: recurrent matrix (CSR), input matrix, bias.
@@ -171,6 +173,21 @@ struct Reservoir {
     /// size × inputs, row-major.
     w_in: Vec<f64>,
     bias: Vec<f64>,
+    /// The spectral radius asked for, the estimate of the drawn matrix before scaling, and the
+    /// factor its entries were multiplied by (1 when the estimate was 0).
+    radius: SpectralScaling,
+}
+
+/// How the recurrent matrix was scaled to its target spectral radius.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct SpectralScaling {
+    /// `spectral-radius` as set.
+    pub target: f64,
+    /// The estimate of the drawn matrix's spectral radius before scaling (Gelfand's formula).
+    pub estimated_before_scaling: f64,
+    /// The factor every recurrent weight was multiplied by: target / estimate.
+    pub factor: f64,
 }
 
 /// tanh(x) from one exponential: 1 − 2/(e^{2x} + 1); exact in real arithmetic, absolute error
@@ -225,11 +242,18 @@ impl Reservoir {
             val,
             w_in,
             bias,
+            radius: SpectralScaling {
+                target: p.spectral_radius,
+                estimated_before_scaling: 0.0,
+                factor: 1.0,
+            },
         };
         let rho = res.spectral_radius_estimate(start);
+        res.radius.estimated_before_scaling = rho;
         if rho > 0.0 {
             let scale = p.spectral_radius / rho;
             res.val.iter_mut().for_each(|v| *v *= scale);
+            res.radius.factor = scale;
         }
         res
     }
@@ -280,16 +304,22 @@ impl Reservoir {
         }
     }
 
+    /// How many units have their square as a feature: the first ⌊D/2⌋ (units 0 … ⌊D/2⌋ − 1).
+    fn squared_units(&self) -> usize {
+        self.size / 2
+    }
+
     fn features(&self) -> usize {
         reservoir_features(self.size)
     }
 
-    /// φ(r) = [1, r, r²_{0..D/2}] into `out`.
+    /// φ(r) = [1, r, r²_{0..⌊D/2⌋}] into `out`.
     #[inline]
     fn write_features(&self, r: &[f64], out: &mut [f64]) {
         out[0] = 1.0;
         out[1..=self.size].copy_from_slice(r);
-        for (o, x) in out[1 + self.size..].iter_mut().zip(r) {
+        let half = self.squared_units();
+        for (o, x) in out[1 + self.size..].iter_mut().zip(&r[..half]) {
             *o = x * x;
         }
     }

@@ -10,6 +10,8 @@
 //!   every ridge fit uses ([`select`]);
 //! * [`svd`]: ridge on an explicit design with an unpenalised constant, by SVD (the polynomial
 //!   fit);
+//! * [`export`]: a solved readout written out for an independent check (the rows of its
+//!   problem, its penalty as applied, its weights and the standardisation);
 //! * [`nested`]: the one nested pass every ridge-readout family runs ([`nested_pass`]): a
 //!   source of feature/target rows, blocks at fixed positions, and the equations of every
 //!   prefix, the same bit for bit whatever other prefixes the pass evaluates.
@@ -29,6 +31,7 @@
 //! Wahba (1979), "Generalized cross-validation as a method for choosing a good ridge parameter",
 //! Technometrics 21(2).
 
+pub mod export;
 pub mod nested;
 pub mod normal;
 pub mod penalty;
