@@ -1037,7 +1037,7 @@ fn study_file_mistakes_are_named_by_check() {
         (&[("spin-up = 5.0", "spin-up = 1e9")], &["`data.simulate`: the simulation would take 1.000e11 integrator steps (1.000e11 for the spin-up", "hours on one core", "the limit is 1e9 steps", "shorten `spin-up`"]),
         (&[("dt = 0.01", "dt = 1e-9")], &["2.070e10 integrator steps", "1571 samples × 10000000 steps each", "raise `dt`"]),
         // Sizes whose data would not fit in any machine's memory.
-        (&[("sizes = [200, 400, 800]", "sizes = [200, 400, 1000000000000]")], &["`subsets.sizes`: the study would hold about", "(the pilot data", "1200000000571 samples", "more than the limit of", "reduce the largest subset size"]),
+        (&[("sizes = [200, 400, 800]", "sizes = [200, 400, 1000000000000]")], &["`subsets.sizes`: the study would hold about", "(the pilot data", "1000000000771 samples", "more than the limit of", "reduce the largest subset size"]),
         // A fit whose design matrix would not.
         (&[("sizes = [200, 400, 800]", "sizes = [200, 400, 1000000000000]"), (esn, "name = \"poly\"\npolynomial = { degree = 3 }")], &["`model \"poly\".polynomial`: the study would hold about", "the design matrix of 1000000000000 rows × 20 monomials", "give model poly settings with fewer features"]),
         // A size written as a float: the reader's words, not the code's types.
