@@ -65,10 +65,15 @@ fn fma_peak_gflops() -> (f64, &'static str) {
             let a = _mm512_set1_pd(0.999_999_9);
             let b = _mm512_set1_pd(1e-9);
             let mut acc = [_mm512_set1_pd(1.0); 12];
-            for _ in 0..iters {
-                for x in acc.iter_mut() {
-                    *x = _mm512_fmadd_pd(*x, a, b);
+            // The accumulators pass through black_box every 1,000 steps, so the loop cannot be
+            // removed or shortened.
+            for _ in 0..iters / 1000 {
+                for _ in 0..1000 {
+                    for x in acc.iter_mut() {
+                        *x = _mm512_fmadd_pd(*x, a, b);
+                    }
                 }
+                acc = std::hint::black_box(acc);
             }
             let mut out = [0.0f64; 8];
             let mut sum = _mm512_setzero_pd();
@@ -83,10 +88,15 @@ fn fma_peak_gflops() -> (f64, &'static str) {
             let a = _mm256_set1_pd(0.999_999_9);
             let b = _mm256_set1_pd(1e-9);
             let mut acc = [_mm256_set1_pd(1.0); 12];
-            for _ in 0..iters {
-                for x in acc.iter_mut() {
-                    *x = _mm256_fmadd_pd(*x, a, b);
+            // The accumulators pass through black_box every 1,000 steps, so the loop cannot be
+            // removed or shortened.
+            for _ in 0..iters / 1000 {
+                for _ in 0..1000 {
+                    for x in acc.iter_mut() {
+                        *x = _mm256_fmadd_pd(*x, a, b);
+                    }
                 }
+                acc = std::hint::black_box(acc);
             }
             let mut out = [0.0f64; 4];
             let mut sum = _mm256_setzero_pd();
@@ -111,10 +121,13 @@ fn fma_peak_gflops() -> (f64, &'static str) {
     let iters = 50_000_000usize;
     let t = best_of(3, || {
         let mut acc = [1.0f64; 12];
-        for _ in 0..iters {
-            for x in acc.iter_mut() {
-                *x = x.mul_add(0.999_999_9, 1e-9);
+        for _ in 0..iters / 1000 {
+            for _ in 0..1000 {
+                for x in acc.iter_mut() {
+                    *x = x.mul_add(0.999_999_9, 1e-9);
+                }
             }
+            acc = std::hint::black_box(acc);
         }
         acc.iter().sum::<f64>()
     });

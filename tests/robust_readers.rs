@@ -192,3 +192,32 @@ fn history_reader_survives_mutations() {
     let all = history::append(dir.path(), &entry).unwrap();
     assert_eq!(history::read(&path).unwrap().last(), all.last());
 }
+
+/// The study-file reader and its checks meet 10,000 mutations of the quick demo's study (and of
+/// the demo's): none may panic, and a mutant `load_plan` accepts is a plan `run` could start —
+/// sizes ascending, positive and within the pool, at least one model and one target.
+#[test]
+fn study_file_reader_survives_mutations() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("study.toml");
+    let seeds = ["studies/demo-quick.toml", "studies/demo.toml"]
+        .map(|f| std::fs::read(Path::new(env!("CARGO_MANIFEST_DIR")).join(f)).unwrap());
+    let inputs = mutants(&seeds, MUTANTS, 17);
+    let mut accepted = 0;
+    no_panics("study", &inputs, |bytes| {
+        std::fs::write(&path, bytes).unwrap();
+        if let Ok(plan) = closure_budget::study::load_plan(&path) {
+            accepted += 1;
+            assert!(!plan.sizes.is_empty() && plan.sizes[0] > 0);
+            assert!(
+                plan.sizes.windows(2).all(|w| w[0] < w[1]),
+                "{:?}",
+                plan.sizes
+            );
+            assert!(!plan.models.is_empty() && !plan.targets.is_empty());
+            assert!(plan.targets.iter().all(|t| t.is_finite()));
+        }
+    });
+    // The mutations keep some files valid (e.g. changes inside comments or the description).
+    assert!(accepted > 0, "no mutant was accepted");
+}
