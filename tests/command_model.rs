@@ -128,6 +128,24 @@ fn example_script_end_to_end() {
     }
 }
 
+/// Runs `command-demo.toml` in `dir` into `dir/out` and returns its points (planned, reused,
+/// stale) from the JSON summary.
+fn point_counts(dir: &Path) -> (u64, u64, u64) {
+    let o = std::process::Command::new(env!("CARGO_BIN_EXE_closure-budget"))
+        .current_dir(dir)
+        .args(["run", "command-demo.toml", "--out", "out", "--json"])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    let p = &v["points"];
+    (
+        p["planned"].as_u64().unwrap(),
+        p["reused"].as_u64().unwrap(),
+        p["stale"].as_u64().unwrap(),
+    )
+}
+
 /// The demo study with the example script runs through `run`: every point of the script is
 /// stored, a rerun reuses them all, and editing the script makes them stale.
 #[test]
@@ -146,21 +164,7 @@ fn command_study_runs_resumes_and_notices_an_edited_script() {
         .unwrap();
     }
     let out = dir.path().join("out");
-    let run = || {
-        let o = std::process::Command::new(env!("CARGO_BIN_EXE_closure-budget"))
-            .current_dir(dir.path())
-            .args(["run", "command-demo.toml", "--out", "out", "--json"])
-            .output()
-            .unwrap();
-        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-        let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
-        let p = &v["points"];
-        (
-            p["planned"].as_u64().unwrap(),
-            p["reused"].as_u64().unwrap(),
-            p["stale"].as_u64().unwrap(),
-        )
-    };
+    let run = || point_counts(dir.path());
     // Two models × 4 sizes × 2 replicates.
     assert_eq!(run(), (16, 0, 0));
     assert!(
@@ -204,15 +208,8 @@ fn declared_dependencies_make_points_stale_when_edited() {
     assert!(study.contains("depends = [\"lib\"]"));
     std::fs::write(dir.path().join("command-demo.toml"), study).unwrap();
     let run = || {
-        let o = std::process::Command::new(env!("CARGO_BIN_EXE_closure-budget"))
-            .current_dir(dir.path())
-            .args(["run", "command-demo.toml", "--out", "out", "--json"])
-            .output()
-            .unwrap();
-        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-        let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
-        let p = &v["points"];
-        (p["reused"].as_u64().unwrap(), p["stale"].as_u64().unwrap())
+        let (_, reused, stale) = point_counts(dir.path());
+        (reused, stale)
     };
     assert_eq!(run(), (0, 0));
     assert_eq!(run(), (16, 0));

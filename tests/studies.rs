@@ -234,6 +234,23 @@ fn results_do_not_depend_on_thread_count() {
     assert_eq!(a, b);
 }
 
+/// Runs `study` into `dir/out` (quietly) and reads its budget.json.
+fn run_into_out(dir: &std::path::Path, study: &std::path::Path) -> PlanDocument {
+    let out = dir.join("out");
+    let o = run_in(
+        dir,
+        &[
+            "run",
+            study.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+            "--quiet",
+        ],
+    );
+    assert!(o.status.success(), "{}", stderr(&o));
+    serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap()
+}
+
 /// The quick demo's pilot with a new regime at `forcing`, run into `dir/out`; the study gives
 /// its Lyapunov exponent.
 fn run_transfer(dir: &std::path::Path, forcing: f64, seed: u64) -> PlanDocument {
@@ -258,19 +275,7 @@ seed = {seed}
     ));
     let study = dir.join("transfer.toml");
     std::fs::write(&study, text).unwrap();
-    let out = dir.join("out");
-    let o = run_in(
-        dir,
-        &[
-            "run",
-            study.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--quiet",
-        ],
-    );
-    assert!(o.status.success(), "{}", stderr(&o));
-    serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap()
+    run_into_out(dir, &study)
 }
 
 /// At a stronger forcing (F = 20 → 24) the pilot model loses skill zero-shot, and fine-tuning
@@ -324,19 +329,7 @@ fn a_larger_size_reuses_every_stored_point() {
     assert!(text.contains("sizes = [400, 800, 1600, 3200]"));
     let run = |text: &str| -> PlanDocument {
         std::fs::write(&study, text).unwrap();
-        let out = dir.path().join("out");
-        let o = run_in(
-            dir.path(),
-            &[
-                "run",
-                study.to_str().unwrap(),
-                "--out",
-                out.to_str().unwrap(),
-                "--quiet",
-            ],
-        );
-        assert!(o.status.success(), "{}", stderr(&o));
-        serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap()
+        run_into_out(dir.path(), &study)
     };
     let first = run(&text);
     assert_eq!(first.points.as_ref().unwrap().computed, 24);
@@ -372,18 +365,7 @@ fn new_regime_records_are_reused_until_fine_tuning_changes() {
         "models = [\"esn-tiny\"]\nfine-tune = { method = \"pooled\" }",
     );
     std::fs::write(&study, text).unwrap();
-    let out = dir.path().join("out");
-    let o = run_in(
-        dir.path(),
-        &[
-            "run",
-            study.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--quiet",
-        ],
-    );
-    assert!(o.status.success(), "{}", stderr(&o));
+    run_into_out(dir.path(), &study);
     assert_eq!(lines(&store), 2 * 3 * (1 + 2 * 4));
 }
 
