@@ -167,6 +167,18 @@ fn quick_demo_runs_end_to_end() {
     let csv = std::fs::read_to_string(out.join("skill.csv")).unwrap();
     assert_eq!(csv.lines().count(), 1 + 2 * 3 * 4 * 16 + 2 * 16);
     let html = std::fs::read_to_string(out.join("report.html")).unwrap();
+    // No number the study cannot defend, even in page source: no run of 13 or more digits
+    // (content hashes are shown by their first 12 characters) and no font size to 17 digits.
+    let mut run = 0;
+    for c in html.chars() {
+        run = if c.is_ascii_digit() { run + 1 } else { 0 };
+        assert!(run < 13, "a run of {run} digits in report.html");
+    }
+    assert!(
+        !html.contains(&doc.study.file_sha256),
+        "full study hash in report.html"
+    );
+    assert!(!html.contains("font-size=\"11.29"), "unrounded font size");
     assert!(html.contains("<svg") && html.contains("esn-tiny"));
     // The study gives no Lyapunov exponent: the run computed the simulated system's, kept it
     // beside the points, and the report and skill.csv read valid times in Lyapunov times with

@@ -14,6 +14,17 @@ use crate::study::results::{
 use std::fmt::Write;
 
 /// "simulated two-scale-lorenz96 (F = 20, h = 1)" or "file data/run.npy".
+/// Characters of a content hash the report shows (like a short commit id); the full value is
+/// in `budget.json`.
+pub(super) const SHORT_HASH: usize = 12;
+
+/// A content hash as the report shows it: its first [`SHORT_HASH`] characters. A full
+/// 64-digit hexadecimal string reads as a number no study defends; budget.json keeps it whole.
+pub(super) fn short_hash(hex: &str) -> String {
+    let short: String = hex.chars().take(SHORT_HASH).collect();
+    format!("<code class=\"hash\">{}…</code>", escape(&short))
+}
+
 pub(super) fn data_source(doc: &PlanDocument) -> String {
     let Some(d) = &doc.data else {
         return format!(

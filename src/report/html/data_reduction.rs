@@ -2,6 +2,7 @@
 //! content hashes, where the test comes from, the coarse-graining and the POD (energy spectrum,
 //! modes kept, held-out reconstruction error) and the reconstruction floor.
 
+use super::cells::short_hash;
 use crate::report::format::{escape, percent, sig3};
 use crate::study::own_data::OwnDataInfo;
 use crate::study::results::PlanDocument;
@@ -96,14 +97,14 @@ pub(super) fn data_reduction(out: &mut String, doc: &PlanDocument) {
     for r in &o.runs {
         let _ = writeln!(
             out,
-            "<tr><td>{}</td><td>{}</td><td class=\"num\">{}</td><td><code>{}</code></td><td><code>{}</code></td></tr>",
+            "<tr><td>{}</td><td>{}</td><td class=\"num\">{}</td><td>{}</td><td>{}</td></tr>",
             escape(&r.name),
             escape(&r.role),
             r.samples,
-            &r.selection_sha256[..12.min(r.selection_sha256.len())],
+            short_hash(&r.selection_sha256),
             r.reduced_sha256
                 .as_deref()
-                .map(|h| h[..12.min(h.len())].to_string())
+                .map(short_hash)
                 .unwrap_or_else(dash)
         );
     }

@@ -1,6 +1,6 @@
 //! Provenance: tool, study, data, seeds, settings, points and stage timings.
 
-use super::cells::{confidence, data_source, lyapunov_provenance, models_with_spread};
+use super::cells::{confidence, data_source, lyapunov_provenance, models_with_spread, short_hash};
 use crate::report::format::{escape, number, sig3, thousands};
 use crate::study::results::PlanDocument;
 use std::fmt::Write;
@@ -45,7 +45,10 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
         } else {
             "Study file SHA-256"
         },
-        &format!("<code class=\"hash\">{}</code>", escape(&s.file_sha256)),
+        &format!(
+            "{} (in full in budget.json, <code>study.file-sha256</code>)",
+            short_hash(&s.file_sha256)
+        ),
     );
     kv(out, "Data source", &data_source(doc));
     if let Some(d) = &doc.data {
@@ -69,7 +72,10 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
         kv(
             out,
             "Data content SHA-256",
-            &format!("<code class=\"hash\">{}</code>", escape(&d.content_sha256)),
+            &format!(
+                "{} (in full in budget.json, <code>data.content-sha256</code>)",
+                short_hash(&d.content_sha256)
+            ),
         );
         kv(
             out,
@@ -100,12 +106,11 @@ pub(super) fn provenance(out: &mut String, doc: &PlanDocument) {
             out,
             "New-regime data",
             &format!(
-                "{}; {} samples every {} model time units; content SHA-256 \
-                 <code class=\"hash\">{}</code>",
+                "{}; {} samples every {} model time units; content SHA-256 {}",
                 escape(&t.data.source),
                 thousands(t.data.samples as f64),
                 number(t.data.sample_interval),
-                escape(&t.data.content_sha256)
+                short_hash(&t.data.content_sha256)
             ),
         );
     }

@@ -317,8 +317,31 @@ fn finish(svg: &str, title: &str) -> String {
     format!(
         "{open} class=\"chart\" role=\"img\"><title>{}</title>{}",
         escape(title),
-        &rest[1..]
+        round_font_sizes(&rest[1..])
     )
+}
+
+/// Font sizes to 0.1 px: the drawing library scales them to 17 significant digits
+/// (`font-size="11.290322580645162"`), which a reader of the page source cannot use.
+fn round_font_sizes(svg: &str) -> String {
+    const KEY: &str = "font-size=\"";
+    let mut out = String::with_capacity(svg.len());
+    let mut rest = svg;
+    while let Some(i) = rest.find(KEY) {
+        let (head, tail) = rest.split_at(i + KEY.len());
+        out.push_str(head);
+        let end = tail.find('"').unwrap_or(tail.len());
+        match tail[..end].parse::<f64>() {
+            Ok(v) => {
+                let r = format!("{v:.1}");
+                out.push_str(r.strip_suffix(".0").unwrap_or(&r));
+            }
+            Err(_) => out.push_str(&tail[..end]),
+        }
+        rest = &tail[end..];
+    }
+    out.push_str(rest);
+    out
 }
 
 type DrawResult = Result<(), Box<dyn std::error::Error>>;
