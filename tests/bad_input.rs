@@ -37,17 +37,7 @@ core-hours-per-time-unit = 10.0
 }
 
 fn expect_failure(dir: &Path, study: &Path, needles: &[&str]) {
-    let out = dir.join("out");
-    let o = run_in(
-        dir,
-        &[
-            "run",
-            study.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--quiet",
-        ],
-    );
+    let (o, out) = run_quietly(dir, study);
     assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
     let err = stderr(&o);
     for n in needles {
@@ -242,17 +232,7 @@ fn simulated_file_round_trip_through_a_file_study() {
         "[200, 400, 800, 1600]",
         8,
     );
-    let out = dir.path().join("out");
-    let o = run_in(
-        dir.path(),
-        &[
-            "run",
-            study.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--quiet",
-        ],
-    );
+    let (o, out) = run_quietly(dir.path(), &study);
     assert!(o.status.success(), "{}", stderr(&o));
     assert!(out.join("report.html").exists());
 }

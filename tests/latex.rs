@@ -6,7 +6,7 @@
 
 mod common;
 
-use common::{repo, run_in, stderr};
+use common::{repo, run_quietly, stderr};
 use std::path::Path;
 use std::process::Command;
 
@@ -56,17 +56,7 @@ fn tex_ready() -> bool {
 
 /// Runs `study` into `dir/out` and returns the text of `out/tables/{table}`.
 fn table_of(dir: &Path, study: &Path, table: &str) -> String {
-    let out = dir.join("out");
-    let o = run_in(
-        dir,
-        &[
-            "run",
-            study.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--quiet",
-        ],
-    );
+    let (o, out) = run_quietly(dir, study);
     assert!(o.status.success(), "{}", stderr(&o));
     std::fs::read_to_string(out.join("tables").join(table)).unwrap()
 }

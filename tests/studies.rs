@@ -248,17 +248,7 @@ fn results_do_not_depend_on_thread_count() {
 
 /// Runs `study` into `dir/out` (quietly) and reads its budget.json.
 fn run_into_out(dir: &std::path::Path, study: &std::path::Path) -> PlanDocument {
-    let out = dir.join("out");
-    let o = run_in(
-        dir,
-        &[
-            "run",
-            study.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--quiet",
-        ],
-    );
+    let (o, out) = run_quietly(dir, study);
     assert!(o.status.success(), "{}", stderr(&o));
     serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap()
 }

@@ -156,9 +156,20 @@ pub fn point_identity(p: &PointIdentity) -> serde_json::Value {
 
 /// The key of one point: hex SHA-256 of the canonical JSON of [`point_identity`].
 pub fn point_key(p: &PointIdentity) -> String {
+    document_key(&point_identity(p))
+}
+
+/// Hex SHA-256 of the canonical JSON of `doc` ([`canonical_json`]): the key of whatever `doc`
+/// names in full.
+pub fn document_key(doc: &serde_json::Value) -> String {
     let mut text = String::new();
-    canonical_json(&point_identity(p), &mut text);
-    hex(&Sha256::digest(text.as_bytes()))
+    canonical_json(doc, &mut text);
+    hex_sha256(text.as_bytes())
+}
+
+/// Hex SHA-256 of `bytes`.
+pub fn hex_sha256(bytes: &[u8]) -> String {
+    hex(&Sha256::digest(bytes))
 }
 
 /// Writes `v` as JSON with every object's keys in sorted order and no white space, whatever

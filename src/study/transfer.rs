@@ -75,22 +75,12 @@ fn unit_key(
             "sizes": ks,
         }
     });
-    let mut text = String::new();
-    super::keys::canonical_json(&doc, &mut text);
-    sha_hex(text.as_bytes())
+    super::keys::document_key(&doc)
 }
 
 /// The key of one record of a unit: its curve ("zero-shot", "scratch", "fine-tuned") and size.
 fn record_key(unit: &str, curve: &str, n: usize) -> String {
-    sha_hex(format!("{unit}/{curve}/{n}").as_bytes())
-}
-
-fn sha_hex(bytes: &[u8]) -> String {
-    use sha2::{Digest, Sha256};
-    Sha256::digest(bytes)
-        .iter()
-        .map(|b| format!("{b:02x}"))
-        .collect()
+    super::keys::hex_sha256(format!("{unit}/{curve}/{n}").as_bytes())
 }
 
 /// The new regime's data and its cost model, checked against the pilot.

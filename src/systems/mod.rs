@@ -160,24 +160,20 @@ fn gigabytes(bytes: f64) -> String {
 /// Memory the operating system reports available (Linux `MemAvailable` in /proc/meminfo), or
 /// `None` where it cannot be read.
 pub fn available_memory() -> Option<f64> {
-    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
-    let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?;
-    let kb: f64 = line
-        .trim_start_matches("MemAvailable:")
-        .trim()
-        .trim_end_matches("kB")
-        .trim()
-        .parse()
-        .ok()?;
-    Some(kb * 1024.0)
+    meminfo("MemAvailable:")
 }
 
 /// The machine's memory (Linux `MemTotal` in /proc/meminfo), or `None` where it cannot be read.
 pub fn total_memory() -> Option<f64> {
+    meminfo("MemTotal:")
+}
+
+/// One field of /proc/meminfo in bytes.
+fn meminfo(field: &str) -> Option<f64> {
     let text = std::fs::read_to_string("/proc/meminfo").ok()?;
-    let line = text.lines().find(|l| l.starts_with("MemTotal:"))?;
+    let line = text.lines().find(|l| l.starts_with(field))?;
     let kb: f64 = line
-        .trim_start_matches("MemTotal:")
+        .trim_start_matches(field)
         .trim()
         .trim_end_matches("kB")
         .trim()

@@ -24,6 +24,22 @@ pub fn run_in(dir: &Path, args: &[&str]) -> Output {
         .expect("binary runs")
 }
 
+/// Runs `run STUDY --out DIR/out --quiet` in `dir`; returns the output and the output folder.
+pub fn run_quietly(dir: &Path, study: &Path) -> (Output, PathBuf) {
+    let out = dir.join("out");
+    let o = run_in(
+        dir,
+        &[
+            "run",
+            study.to_str().expect("UTF-8 path"),
+            "--out",
+            out.to_str().expect("UTF-8 path"),
+            "--quiet",
+        ],
+    );
+    (o, out)
+}
+
 pub fn stderr(o: &Output) -> String {
     String::from_utf8_lossy(&o.stderr).into_owned()
 }

@@ -79,6 +79,20 @@ pub(super) fn interval(lo: Option<f64>, hi: Option<f64>, f: impl Fn(f64) -> Stri
     }
 }
 
+/// [`interval`] of an estimate's figures, with an upper end that reads "more than" when the
+/// estimate's does ([`TargetEstimate::upper_beyond_data`]): "8,000 to more than 16,000".
+pub(super) fn estimate_interval(
+    e: &TargetEstimate,
+    lo: Option<f64>,
+    hi: Option<f64>,
+    f: impl Fn(f64) -> String,
+) -> String {
+    match (lo, hi) {
+        (Some(l), Some(h)) if e.upper_beyond_data => format!("{} to more than {}", f(l), f(h)),
+        (lo, hi) => interval(lo, hi, f),
+    }
+}
+
 /// A budget figure with its interval, or "—" when there is no budget; a status whose only
 /// statement is a bound gives the bound ("at most …" for a target met at the smallest size,
 /// "more than …" beyond what the pilot supports).
@@ -102,10 +116,7 @@ pub(super) fn budget_cell(
             _ => "—".into(),
         };
     };
-    let range = match (lo, hi) {
-        (Some(l), Some(h)) if e.upper_beyond_data => format!("{} to more than {}", f(l), f(h)),
-        (lo, hi) => interval(lo, hi, f),
-    };
+    let range = estimate_interval(e, lo, hi, f);
     format!(
         "<span class=\"big\">{}</span>{unit}<span class=\"sub\">{} interval {}</span>",
         f(field(b)),

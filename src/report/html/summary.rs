@@ -2,7 +2,7 @@
 //! see [`verdict`](crate::report::verdict)), its n* and core-hours with their intervals and
 //! status, one sentence per target, the floors and the terms used; printed on a page of its own.
 
-use super::cells::{confidence, interval, lyapunov_note, status_badge};
+use super::cells::{confidence, estimate_interval, interval, lyapunov_note, status_badge};
 use crate::report::format::{escape, percent, samples, sig3};
 use crate::report::quantity::Quantity;
 use crate::report::verdict::{picks, ratio_words, Answer, Pick};
@@ -98,16 +98,13 @@ pub(super) fn summary(out: &mut String, doc: &PlanDocument) {
                     (Some(b), Answer::Number { .. }) => format!(
                         "<span class=\"big\">{}</span><span class=\"sub\">{level} {}</span>",
                         sig3(b.core_hours),
-                        match (e.budget_low, e.budget_high) {
-                            // The samples' upper end reads "more than": so does the cost's.
-                            (Some(l), Some(h)) if e.upper_beyond_data => format!(
-                                "{} to more than {}",
-                                sig3(l.core_hours),
-                                sig3(h.core_hours)
-                            ),
-                            (l, h) =>
-                                interval(l.map(|b| b.core_hours), h.map(|b| b.core_hours), sig3),
-                        }
+                        // The samples' upper end reads "more than": so does the cost's.
+                        estimate_interval(
+                            e,
+                            e.budget_low.map(|b| b.core_hours),
+                            e.budget_high.map(|b| b.core_hours),
+                            sig3
+                        )
                     ),
                     (
                         _,
@@ -237,12 +234,7 @@ fn sentence(doc: &PlanDocument, p: &Pick<'_>, level: &str, hours: &str) -> Strin
             format!(
                 ", costing {} {hours} ({level} {})",
                 sig3(v),
-                match (lo, hi) {
-                    (Some(l), Some(h)) if e.upper_beyond_data => {
-                        format!("{} to more than {}", sig3(l), sig3(h))
-                    }
-                    _ => interval(lo, hi, sig3),
-                }
+                estimate_interval(e, lo, hi, sig3)
             )
         } else {
             String::new()
