@@ -23,6 +23,7 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
 
 fn main() -> ExitCode {
+    restore_default_sigpipe();
     let cli = Cli::parse();
     match run(cli) {
         Ok(code) => code,
@@ -34,6 +35,16 @@ fn main() -> ExitCode {
                 _ => ExitCode::from(2),
             }
         }
+    }
+}
+
+/// Rust ignores SIGPIPE, so printing into a closed pipe (`closure-budget fit x.csv | head`)
+/// would panic; with the default action the process ends quietly, as Unix tools do.
+fn restore_default_sigpipe() {
+    #[cfg(unix)]
+    // SAFETY: called first thing in main, before any thread exists; SIG_DFL is a valid action.
+    unsafe {
+        libc::signal(libc::SIGPIPE, libc::SIG_DFL);
     }
 }
 

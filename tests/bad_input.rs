@@ -334,6 +334,47 @@ fn fit_command_on_a_hand_written_csv() {
     assert!(!dir.path().join("bad-rep").exists());
 }
 
+/// `closure-budget fit … | head -1`: the reader closes the pipe after one line. The tool must end
+/// quietly (SIGPIPE, as Unix tools do), not panic with "failed printing to stdout".
+#[cfg(unix)]
+#[test]
+fn output_into_a_closed_pipe_ends_quietly() {
+    use std::io::Read;
+    use std::os::unix::process::ExitStatusExt;
+    use std::process::{Command, Stdio};
+    let dir = tempfile::tempdir().unwrap();
+    let mut csv = String::from("model,n,replicate,skill\n");
+    for n in [500, 1000, 2000, 4000, 8000] {
+        for r in 0..3 {
+            let skill = 1.5 * (1.0 - (-(n as f64) / 3000.0).exp()) + 0.01 * r as f64;
+            csv.push_str(&format!("my-closure,{n},seed{r},{skill:.4}\n"));
+        }
+    }
+    std::fs::write(dir.path().join("skill.csv"), &csv).unwrap();
+    let mut child = Command::new(env!("CARGO_BIN_EXE_closure-budget"))
+        .current_dir(dir.path())
+        .args(["fit", "skill.csv", "--target", "1.0", "--draws", "50"])
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    // Close the reading end before the tool prints anything.
+    drop(child.stdout.take());
+    let mut err = String::new();
+    child
+        .stderr
+        .take()
+        .unwrap()
+        .read_to_string(&mut err)
+        .unwrap();
+    let status = child.wait().unwrap();
+    assert!(!err.contains("panicked"), "{err}");
+    assert!(
+        status.success() || status.signal() == Some(libc::SIGPIPE),
+        "{status:?}: {err}"
+    );
+}
+
 #[test]
 fn cost_command_prices_samples() {
     let o = bin()
