@@ -347,6 +347,7 @@ fn learning_curve_against_numpy() {
         spacing: samples(t.spacing).max(1),
         warm_up: samples(t.warm_up).max(1),
         max_lead: samples(t.max_lead).max(1),
+        validation_conditions: t.validation_conditions,
     };
     let largest = *plan.sizes.last().unwrap();
     let data = simulate(

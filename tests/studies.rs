@@ -400,3 +400,74 @@ fn identical_regime_has_no_generalisation_gap() {
         3.0 * se
     );
 }
+
+/// A learning curve is only as good as the model at each size. The quick demo's small echo
+/// state network with a fixed per-sample penalty (1e-6) against the same network with its
+/// penalty tuned at every size and replicate by forecasts from 16 validation initial
+/// conditions: the tuned curve forecasts longer on the test conditions, on average over the
+/// sizes and at the smallest size (measured: 0.16 against 0.07 at 400 samples); every tuned
+/// point records its validation skill; the validation conditions sit apart from the test
+/// conditions; and the choice does not depend on the thread count.
+#[test]
+fn a_penalty_tuned_by_validation_forecasts_beats_a_fixed_one() {
+    let text = std::fs::read_to_string(repo("studies/demo-quick.toml")).unwrap();
+    let fixed = "esn = { reservoir-size = 60, ridge = 1e-6, washout = 50 }\n";
+    assert!(text.contains(fixed));
+    let text = text.replace(
+        fixed,
+        &format!(
+            "{fixed}\n[[model]]\nname = \"esn-tuned\"\n\
+             esn = {{ reservoir-size = 60, washout = 50, ridge-selection = \"forecast\" }}\n"
+        ),
+    );
+    let run = |threads: &str| {
+        let dir = tempfile::tempdir().unwrap();
+        let study = dir.path().join("tuned.toml");
+        std::fs::write(&study, &text).unwrap();
+        let out = dir.path().join("out");
+        let o = run_in(
+            dir.path(),
+            &[
+                "run",
+                study.to_str().unwrap(),
+                "--out",
+                out.to_str().unwrap(),
+                "--quiet",
+                "-j",
+                threads,
+            ],
+        );
+        assert!(o.status.success(), "{}", stderr(&o));
+        let doc: PlanDocument =
+            serde_json::from_slice(&std::fs::read(out.join("budget.json")).unwrap()).unwrap();
+        let report = std::fs::read_to_string(out.join("report.html")).unwrap();
+        let skill = std::fs::read(out.join("skill.csv")).unwrap();
+        (doc, report, skill, dir)
+    };
+    let (doc, report, skill, _dir) = run("2");
+    let model = |name: &str| doc.models.iter().find(|m| m.name == name).unwrap();
+    let (plain, tuned) = (model("esn-tiny"), model("esn-tuned"));
+    let mean = |m: &closure_budget::study::results::ModelResult| {
+        m.points.iter().map(|p| p.mean).sum::<f64>() / m.points.len() as f64
+    };
+    assert!(
+        mean(tuned) > mean(plain) && tuned.points[0].mean > plain.points[0].mean,
+        "tuned {:?} against fixed {:?}",
+        tuned.points.iter().map(|p| p.mean).collect::<Vec<_>>(),
+        plain.points.iter().map(|p| p.mean).collect::<Vec<_>>()
+    );
+    assert!(tuned
+        .points
+        .iter()
+        .all(|p| p.validation_valid_time.is_some_and(|v| v > 0.0)));
+    assert!(plain
+        .points
+        .iter()
+        .all(|p| p.validation_valid_time.is_none()));
+    let data = doc.data.as_ref().unwrap();
+    assert_eq!(data.validation_initial_conditions, 16);
+    assert!(report.contains("16 validation initial conditions"));
+    // One thread chooses the same penalties and measures the same skill.
+    let (_, _, skill_one, _dir_one) = run("1");
+    assert_eq!(skill, skill_one);
+}

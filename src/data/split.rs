@@ -1,11 +1,16 @@
-//! The split of one trajectory into held-out test initial conditions and a training pool (used
-//! as nested prefixes) after them, separated by a gap.
+//! The split of one trajectory into held-out test initial conditions, optional validation
+//! initial conditions, and a training pool (used as nested prefixes) after them, separated by
+//! gaps.
 //!
-//! Layout along time: `[ warm-up, IC₀, IC₁ … IC_{M−1}, maximum lead | gap | training pool ]`.
-//! Each test initial condition needs `warm-up` samples of truth before it and `max-lead` samples
-//! after it; consecutive initial conditions are `spacing` samples apart, and the training pool
-//! starts `gap` samples after the last forecast window ends, so no test window touches training
-//! data.
+//! Layout along time: `[ warm-up, IC₀, IC₁ … IC_{M−1}, maximum lead | gap | training pool ]`, or
+//! with V validation initial conditions
+//! `[ test region | gap | warm-up, VC₀ … VC_{V−1}, maximum lead | gap | training pool ]`.
+//! Each initial condition needs `warm-up` samples of truth before it and `max-lead` samples
+//! after it; consecutive initial conditions are `spacing` samples apart, and each region starts
+//! `gap` samples after the last forecast window before it ends, so no test window touches
+//! validation or training data and no validation window touches training data. Validation
+//! forecasts tune a model (its ridge penalty at every size); the test forecasts then measure it
+//! on data neither its fit nor its tuning saw.
 //!
 //! The test region comes first so that the split is stable when data are appended: more samples
 //! only lengthen the training pool, while the test initial conditions, and every prefix of the
@@ -22,6 +27,9 @@ pub struct SplitSpec {
     pub spacing: usize,
     pub warm_up: usize,
     pub max_lead: usize,
+    /// Validation initial conditions between the test region and the pool (0: none, and the
+    /// layout is the one without them).
+    pub validation_conditions: usize,
 }
 
 /// Resolved split of a trajectory.
@@ -34,18 +42,36 @@ pub struct Split {
     pub held_out: Range<usize>,
     /// Sample index of every test initial condition.
     pub initial_conditions: Vec<usize>,
+    /// The validation region (empty when there are no validation initial conditions).
+    pub validation: Range<usize>,
+    /// Sample index of every validation initial condition.
+    pub validation_conditions: Vec<usize>,
     pub spec: SplitSpec,
 }
 
 impl SplitSpec {
-    /// Samples the test region occupies after the gap.
+    /// Samples a region of `conditions` initial conditions occupies.
+    fn region(&self, conditions: usize) -> usize {
+        self.warm_up + conditions.saturating_sub(1) * self.spacing + self.max_lead + 1
+    }
+
+    /// Samples the test region occupies.
     pub fn test_region(&self) -> usize {
-        self.warm_up + self.initial_conditions.saturating_sub(1) * self.spacing + self.max_lead + 1
+        self.region(self.initial_conditions)
+    }
+
+    /// Samples the validation region and the gap after it occupy (0 without validation).
+    pub fn validation_region(&self) -> usize {
+        if self.validation_conditions == 0 {
+            0
+        } else {
+            self.region(self.validation_conditions) + self.gap
+        }
     }
 
     /// Total samples needed for a training pool of `pool` samples.
     pub fn total_for_pool(&self, pool: usize) -> usize {
-        pool + self.gap + self.test_region()
+        pool + self.gap + self.test_region() + self.validation_region()
     }
 }
 
@@ -58,20 +84,39 @@ impl Split {
                 available: total,
                 needed,
                 detail: format!(
-                    "a training pool of {min_pool} samples, a gap of {}, and {} test initial conditions \
+                    "a training pool of {min_pool} samples, a gap of {}, and {} test{} initial conditions \
                      spaced {} apart with {} warm-up and {} forecast samples each",
-                    spec.gap, spec.initial_conditions, spec.spacing, spec.warm_up, spec.max_lead
+                    spec.gap,
+                    spec.initial_conditions,
+                    if spec.validation_conditions > 0 {
+                        format!(" and {} validation", spec.validation_conditions)
+                    } else {
+                        String::new()
+                    },
+                    spec.spacing,
+                    spec.warm_up,
+                    spec.max_lead
                 ),
             });
         }
         let test_end = spec.test_region();
-        let initial_conditions = (0..spec.initial_conditions)
-            .map(|i| spec.warm_up + i * spec.spacing)
-            .collect();
+        let conditions = |first: usize, count: usize| -> Vec<usize> {
+            (0..count)
+                .map(|i| first + spec.warm_up + i * spec.spacing)
+                .collect()
+        };
+        let validation_start = test_end + spec.gap;
+        let validation = if spec.validation_conditions == 0 {
+            validation_start..validation_start
+        } else {
+            validation_start..validation_start + spec.region(spec.validation_conditions)
+        };
         Ok(Split {
-            pool: test_end + spec.gap..total,
+            pool: test_end + spec.gap + spec.validation_region()..total,
             held_out: 0..test_end,
-            initial_conditions,
+            initial_conditions: conditions(0, spec.initial_conditions),
+            validation_conditions: conditions(validation.start, spec.validation_conditions),
+            validation,
             spec,
         })
     }
@@ -88,6 +133,7 @@ mod tests {
             spacing: 5,
             warm_up: 4,
             max_lead: 6,
+            validation_conditions: 0,
         }
     }
 
@@ -112,6 +158,33 @@ mod tests {
         assert_eq!(a.held_out, b.held_out);
         assert_eq!(a.pool.start, b.pool.start);
         assert_eq!(b.pool.len(), a.pool.len() + 150);
+    }
+
+    /// Validation initial conditions sit between the test region and the pool, a gap from
+    /// each: no validation window touches a test window or the pool; without them the layout
+    /// is unchanged.
+    #[test]
+    fn validation_conditions_sit_between_test_and_pool() {
+        let plain = Split::new(200, spec(), 50).unwrap();
+        assert!(plain.validation.is_empty() && plain.validation_conditions.is_empty());
+        let v = SplitSpec {
+            validation_conditions: 2,
+            ..spec()
+        };
+        let s = Split::new(200, v, 50).unwrap();
+        assert_eq!(s.held_out, plain.held_out);
+        assert_eq!(s.initial_conditions, plain.initial_conditions);
+        // validation region: 21 + 10 = 31 .. 31 + (4 + 5 + 6 + 1) = 47; pool from 47 + 10.
+        assert_eq!(s.validation, 31..47);
+        assert_eq!(s.validation_conditions, vec![35, 40]);
+        assert_eq!(s.pool, 57..200);
+        let last_test = *s.initial_conditions.last().unwrap() + v.max_lead;
+        assert_eq!(s.validation.start - (last_test + 1), v.gap);
+        let last_validation = *s.validation_conditions.last().unwrap() + v.max_lead;
+        assert_eq!(last_validation + 1, s.validation.end);
+        assert_eq!(s.pool.start - s.validation.end, v.gap);
+        assert_eq!(v.total_for_pool(50), 107);
+        assert!(Split::new(106, v, 50).is_err() && Split::new(107, v, 50).is_ok());
     }
 
     #[test]

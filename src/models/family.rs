@@ -124,6 +124,14 @@ pub trait ModelFamily: Send + Sync + std::fmt::Debug {
         false
     }
 
+    /// Whether the family tunes a setting at every size by forecasts from validation initial
+    /// conditions (`ridge-selection = "forecast"`): the study then lays out validation
+    /// conditions, keys the family's points by them and hands the family a
+    /// [`ForecastScore`].
+    fn tunes_by_forecasts(&self) -> bool {
+        false
+    }
+
     /// Whether a fit at size n also depends on the smallest size of the study (as a closure when
     /// `closure`, else as an emulator): the nested ridge families standardise their inputs on
     /// the smallest subset, which every larger one contains. Other fits depend on their own
@@ -172,12 +180,14 @@ pub enum Trainer<'a> {
 pub trait Trainable: Send + Sync {
     /// Emulators fitted on the prefixes `sizes` (ascending) of the resolved states `x`, one per
     /// size in that order, each the same bit for bit whatever other sizes are listed (given the
-    /// same smallest size, for families standardised on it).
+    /// same smallest size, for families standardised on it). `score` measures a candidate by
+    /// its forecasts from validation initial conditions, for families that tune by it.
     fn fit_emulator(
         &self,
         x: ArrayView2<f64>,
         sizes: &[usize],
         seed: u64,
+        score: Option<ForecastScore>,
     ) -> Fits<Arc<dyn Forecaster>>;
 
     /// Closures fitted on the prefixes `sizes` of `data`, in the same way: the coupling term as
@@ -198,6 +208,10 @@ pub trait Trainable: Send + Sync {
         seed: u64,
     ) -> Result<TransferFits, ModelError>;
 }
+
+/// A candidate model's skill on validation data (the mean valid prediction time from the
+/// study's validation initial conditions): higher is better.
+pub type ForecastScore<'a> = &'a (dyn Fn(&dyn Forecaster) -> f64 + Sync);
 
 /// Fitted models of one type with their fit summaries, one per subset size.
 pub type Fits<M> = Result<Vec<(M, FitSummary)>, ModelError>;
@@ -230,6 +244,20 @@ pub trait Train: ModelFamily {
     /// Emulators fitted on the prefixes `sizes` of `x` (see [`Trainable::fit_emulator`]).
     fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], seed: u64) -> Fits<Self::Model>;
 
+    /// [`Train::fit`] with forecasts on validation data at hand, for families that tune a
+    /// setting by them at every size ([`ModelFamily::tunes_by_forecasts`]); the others ignore
+    /// `score`.
+    fn fit_scored(
+        &self,
+        x: ArrayView2<f64>,
+        sizes: &[usize],
+        seed: u64,
+        score: Option<ForecastScore>,
+    ) -> Fits<Self::Model> {
+        let _ = score;
+        self.fit(x, sizes, seed)
+    }
+
     /// Closures fitted on the prefixes `sizes` of `data` (see [`Trainable::fit_closure`]).
     fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits;
 
@@ -252,8 +280,9 @@ impl<F: Train> Trainable for F {
         x: ArrayView2<f64>,
         sizes: &[usize],
         seed: u64,
+        score: Option<ForecastScore>,
     ) -> Fits<Arc<dyn Forecaster>> {
-        Ok(fits(self.fit(x, sizes, seed)?))
+        Ok(fits(self.fit_scored(x, sizes, seed, score)?))
     }
 
     fn fit_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits {

@@ -12,13 +12,13 @@
 use super::closure::{fit_instant, ClosureInputs, Regressor};
 use super::family::{
     read_settings, ridge_memory, settings_json, ClosureData, FamilyError, ModelFamily,
-    Registration, RelativeCost, ClosureFits, Equations, FineTuning, Fits, Train, Trainer,
+    Registration, RelativeCost, ClosureFits, Equations, FineTuning, Fits, ForecastScore, Train, Trainer,
     TrainingMemory, TrainingShape,
 };
 use super::finetune::{fine_tune_readouts, ValidFineTuneParams};
 use super::ridge::{
-    nested_pass, nested_readouts, Block, NormalEquations, Penalty, RidgeSelection, RowSource,
-    Rows, BLOCK_ROWS,
+    nested_pass, nested_readouts, Block, NormalEquations, Penalty, ReadoutScore, RidgeSelection,
+    RowSource, Rows, BLOCK_ROWS,
 };
 use super::ridge::export::{create_dir, write_manifest, write_readout, ReadoutFit, EXPORT_SCHEMA};
 use super::{
@@ -43,7 +43,7 @@ pub const MAX_FEATURES: usize = 5000;
 /// | `stride` | 1 | s, samples between delayed states | 1 ..= 10000 |
 /// | `ridge` | 1e-6 | λ (per training pair under the default `ridge-scaling = "per-sample"`) | (0, 1e3] |
 /// | `ridge-scaling` | per-sample | penalty λ·n (per-sample) or λ (fixed) | per-sample, fixed |
-/// | `ridge-selection` | fixed | `ridge` with `ridge-scaling`, or λ chosen per subset size by generalised cross-validation (`gcv`) | fixed, gcv |
+/// | `ridge-selection` | fixed | `ridge` with `ridge-scaling`, or λ chosen per subset size by generalised cross-validation (`gcv`), or by forecasts from the study's validation initial conditions (`forecast`, emulators only) | fixed, gcv, forecast |
 /// | `standardise` | true | standardise every variable by the mean and standard deviation of the smallest subset | true, false |
 ///
 /// The defaults of `delays` and `stride` are the published Lorenz-63 setting (Gauthier et al.
@@ -268,6 +268,18 @@ pub fn fit_nested(
     train: ArrayView2<f64>,
     sizes: &[usize],
 ) -> Result<Vec<(Ngrc, FitSummary)>, ModelError> {
+    fit_nested_scored(params, train, sizes, None)
+}
+
+/// [`fit_nested`] with the penalty at every size chosen by `score` under
+/// `ridge-selection = "forecast"` (the candidates share the feature map; only the readout
+/// differs).
+pub fn fit_nested_scored(
+    params: &ValidNgrcParams,
+    train: ArrayView2<f64>,
+    sizes: &[usize],
+    score: Option<ForecastScore>,
+) -> Result<Vec<(Ngrc, FitSummary)>, ModelError> {
     let p = params.get();
     let d = train.ncols();
     let smallest = *sizes.first().ok_or(ModelError::NoSizes)?;
@@ -323,8 +335,19 @@ pub fn fit_nested(
         selection: p.ridge_selection,
     };
     let mut pairs = DelayPairs::new(p.delays, p.stride, &u, d);
+    let mut candidate = |_size: usize, w: &[f64]| -> f64 {
+        let model = Ngrc {
+            delays: p.delays,
+            stride: p.stride,
+            mean: mean.clone(),
+            scale: scale.clone(),
+            readout: w.to_vec(),
+        };
+        score.map_or(f64::NAN, |s| s(&model))
+    };
+    let scorer: Option<ReadoutScore> = score.is_some().then_some(&mut candidate);
     Ok(
-        nested_readouts(&mut pairs, sizes, |n| n - 1 - span, &penalty)?
+        nested_readouts(&mut pairs, sizes, |n| n - 1 - span, &penalty, scorer)?
             .into_iter()
             .map(|(readout, summary)| {
                 let model = Ngrc {
@@ -1280,7 +1303,7 @@ pub fn fit_regression(
         phi: vec![0.0; feature_count(l)],
         y: vec![0.0; outputs],
     };
-    let (readout, summary) = nested_readouts(&mut source, &[rows], |n| n, &penalty)?
+    let (readout, summary) = nested_readouts(&mut source, &[rows], |n| n, &penalty, None)?
         .pop()
         .expect("one size");
     Ok((
@@ -1385,6 +1408,10 @@ impl ModelFamily for ValidNgrcParams {
         "next-generation reservoir computer"
     }
 
+    fn tunes_by_forecasts(&self) -> bool {
+        self.get().ridge_selection == RidgeSelection::Forecast
+    }
+
     fn settings(&self) -> serde_json::Value {
         settings_json(self.get())
     }
@@ -1460,6 +1487,16 @@ impl Train for ValidNgrcParams {
 
     fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], _seed: u64) -> Fits<Ngrc> {
         fit_nested(self, x, sizes)
+    }
+
+    fn fit_scored(
+        &self,
+        x: ArrayView2<f64>,
+        sizes: &[usize],
+        _seed: u64,
+        score: Option<ForecastScore>,
+    ) -> Fits<Ngrc> {
+        fit_nested_scored(self, x, sizes, score)
     }
 
     fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], _seed: u64) -> ClosureFits {

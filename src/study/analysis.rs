@@ -330,7 +330,10 @@ fn curve_points(
             q90: s.q90,
             censored_share: s.censored_share,
             blow_up_share: s.blow_up_share,
-            ridge_penalty: mean_of(&|r| r.fit.ridge_penalty),
+            ridge_penalty: geometric_mean(at.iter().filter_map(|r| r.fit.ridge_penalty)),
+            validation_valid_time: mean_of(&|r| {
+                r.fit.ridge_selection.and_then(|c| c.validation_valid_time)
+            }),
             training_rmse: mean_of(&|r| r.fit.training_rmse),
             train_seconds: mean_of(&|r| Some(r.cost.train_seconds)).unwrap_or(0.0),
             forecast_seconds_per_step: mean_of(&|r| Some(r.cost.forecast_seconds_per_step))
@@ -340,6 +343,17 @@ fn curve_points(
         grid.push(cell);
     }
     (points, grid)
+}
+
+/// The geometric mean of `values` (`None` when empty): their common value when all are equal,
+/// bit for bit.
+fn geometric_mean(values: impl Iterator<Item = f64>) -> Option<f64> {
+    let v: Vec<f64> = values.collect();
+    let first = *v.first()?;
+    if v.iter().all(|x| *x == first) {
+        return Some(first);
+    }
+    Some((v.iter().map(|x| x.ln()).sum::<f64>() / v.len() as f64).exp())
 }
 
 /// Fitted curves and estimates of one subject from its points and grid.

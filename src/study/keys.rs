@@ -70,7 +70,44 @@ pub fn test_hash(
     split: &Split,
     skill: &SkillSpec,
 ) -> String {
-    let rows = ndarray::s![split.held_out.clone(), ..];
+    region_hash(
+        values,
+        subgrid,
+        split.held_out.clone(),
+        &split.initial_conditions,
+        skill,
+    )
+}
+
+/// Hex SHA-256 of the validation data (truth of the validation region, its initial conditions
+/// and the skill definition), for the points of models tuned by forecasts from them; `None`
+/// when the split has no validation initial conditions.
+pub fn validation_hash(
+    values: ArrayView2<f64>,
+    split: &Split,
+    skill: &SkillSpec,
+) -> Option<String> {
+    (!split.validation_conditions.is_empty()).then(|| {
+        region_hash(
+            values,
+            None,
+            split.validation.clone(),
+            &split.validation_conditions,
+            skill,
+        )
+    })
+}
+
+/// Hex SHA-256 of the truth in `region` (with the coupling term when given), its initial
+/// conditions `ics` and the skill definition.
+fn region_hash(
+    values: ArrayView2<f64>,
+    subgrid: Option<ArrayView2<f64>>,
+    region: std::ops::Range<usize>,
+    ics: &[usize],
+    skill: &SkillSpec,
+) -> String {
+    let rows = ndarray::s![region, ..];
     let mut h = Sha256::new();
     h.update(crate::data::hash_array(values.slice(rows)).as_bytes());
     if let Some(u) = subgrid {
@@ -84,7 +121,7 @@ pub fn test_hash(
     h.update(
         format!(
             "ics {:?}\nthreshold {:?}\nwarm-up {}\nmax-lead {}\nsample-interval {:?}\nmean {:?}\nsigma {:?}\n",
-            split.initial_conditions,
+            ics,
             skill.threshold,
             skill.warm_up,
             skill.max_lead,
@@ -116,6 +153,10 @@ pub struct PointIdentity<'a> {
     pub data: &'a str,
     /// [`test_hash`].
     pub test: &'a str,
+    /// [`validation_hash`], for a model tuned by forecasts from the validation initial
+    /// conditions (`None` otherwise: the key then has no `validation` entry at all, so the keys
+    /// of other models do not change).
+    pub validation: Option<&'a str>,
     /// Closures: the coarse solver and the checks.
     pub closure: Option<(Coupling, &'a ClosurePlan)>,
 }
@@ -140,7 +181,7 @@ pub fn point_identity(p: &PointIdentity) -> serde_json::Value {
             "free-run-horizon": plan.free_run_horizon,
         })
     });
-    serde_json::json!({
+    let mut identity = serde_json::json!({
         "results-version": RESULTS_VERSION,
         "family": p.model.kind.key(),
         "model": p.model.kind.identity(),
@@ -151,7 +192,11 @@ pub fn point_identity(p: &PointIdentity) -> serde_json::Value {
         "training-data": p.data,
         "test": p.test,
         "coarse-solver": closure,
-    })
+    });
+    if let Some(v) = p.validation {
+        identity["validation"] = serde_json::json!(v);
+    }
+    identity
 }
 
 /// The key of one point: hex SHA-256 of the canonical JSON of [`point_identity`].
@@ -236,6 +281,7 @@ mod tests {
             n,
             data: "d",
             test: "t",
+            validation: None,
             closure: None,
         })
     }
@@ -280,6 +326,7 @@ mod tests {
             n: 200,
             data: "d",
             test: "t",
+            validation: None,
             closure: None,
         });
         assert_eq!(identity["family"], "esn");
@@ -294,6 +341,7 @@ mod tests {
             n: 200,
             data: "d",
             test: "t",
+            validation: None,
             closure: None,
         });
         assert!(poly_identity["standardised-on-first-samples"].is_null());
@@ -310,6 +358,68 @@ mod tests {
                 }
             )
         );
+    }
+
+    /// A model tuned by forecasts keys its points by the validation data too; for every other
+    /// model the key document has no `validation` entry, so its keys are those it had before
+    /// validation conditions existed. The validation hash follows the validation region only.
+    #[test]
+    fn validation_data_enter_the_keys_of_tuned_models_only() {
+        let esn = model("esn", "reservoir-size = 60", ModelUse::Emulator);
+        let identity = |validation: Option<&str>| {
+            point_identity(&PointIdentity {
+                model: &esn,
+                seed: 7,
+                smallest: 100,
+                n: 200,
+                data: "d",
+                test: "t",
+                validation,
+                closure: None,
+            })
+        };
+        assert!(identity(None).get("validation").is_none());
+        assert_eq!(identity(Some("v"))["validation"], "v");
+        assert_ne!(
+            document_key(&identity(Some("v"))),
+            document_key(&identity(Some("w")))
+        );
+        let spec = crate::data::SplitSpec {
+            initial_conditions: 2,
+            gap: 5,
+            spacing: 4,
+            warm_up: 3,
+            max_lead: 5,
+            validation_conditions: 2,
+        };
+        let values = Array2::from_shape_fn((120, 2), |(i, j)| ((i * 7 + j) % 11) as f64);
+        let split = Split::new(120, spec, 40).unwrap();
+        let skill = SkillSpec {
+            threshold: 0.5,
+            warm_up: 3,
+            max_lead: 5,
+            sample_interval: 0.1,
+            mean: vec![0.0; 2],
+            sigma: vec![1.0; 2],
+            unresolved: None,
+        };
+        let v = validation_hash(values.view(), &split, &skill).unwrap();
+        let mut edited = values.clone();
+        edited[[split.pool.start + 3, 0]] = -9.0; // the pool: not validation data
+        assert_eq!(validation_hash(edited.view(), &split, &skill).unwrap(), v);
+        edited[[split.validation_conditions[1], 1]] = -9.0;
+        assert_ne!(validation_hash(edited.view(), &split, &skill).unwrap(), v);
+        assert_ne!(v, test_hash(values.view(), None, &split, &skill));
+        let plain = Split::new(
+            120,
+            crate::data::SplitSpec {
+                validation_conditions: 0,
+                ..spec
+            },
+            40,
+        )
+        .unwrap();
+        assert!(validation_hash(values.view(), &plain, &skill).is_none());
     }
 
     #[test]

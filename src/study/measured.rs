@@ -301,6 +301,7 @@ pub fn fit_measured(path: &Path, options: &MeasuredOptions) -> Result<PlanDocume
                     censored_share: 0.0,
                     blow_up_share: 0.0,
                     ridge_penalty: None,
+                    validation_valid_time: None,
                     training_rmse: None,
                     train_seconds: 0.0,
                     forecast_seconds_per_step: 0.0,

@@ -905,6 +905,8 @@ pub(super) fn load(fp: &FieldPlan, t: &Timing, largest: usize) -> Result<Loaded,
             pool: offset..offset + n0,
             held_out: 0..offset,
             initial_conditions: ics,
+            validation: offset..offset,
+            validation_conditions: Vec::new(),
             spec,
         };
         (split, parts, 0..n0)
@@ -1254,6 +1256,7 @@ mod tests {
             spacing: 5,
             warm_up: 3,
             max_lead: 6,
+            validation_conditions: 0,
         };
         // A window needs 3 + 6 + 1 = 10 samples; 24 samples hold starts 3, 8, 13 (13 + 6 < 24).
         assert_eq!(capacity(24, &spec), 3);

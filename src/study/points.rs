@@ -10,7 +10,7 @@ use super::progress::bar_with_template;
 use super::records::{PointCost, RecordStore, SkillRecord};
 use super::score::{score_batched, ClosureReference};
 use super::seeds::derive_seed;
-use super::train::train_unit;
+use super::train::{train_unit, UnitAids};
 use super::StudyError;
 use crate::models::family::{ExternalPoint, RelativeCost, Trainer};
 use crate::models::FitSummary;
@@ -57,6 +57,7 @@ pub(super) fn plan_units(plan: &StudyPlan, prep: &Prepared) -> Vec<Unit> {
     let values = prep.traj.values.view();
     let subgrid = prep.traj.subgrid.as_ref().map(|u| u.view());
     let test = keys::test_hash(values, subgrid, &prep.split, &prep.skill);
+    let validation = keys::validation_hash(values, &prep.split, &prep.skill);
     // Prefix hashes per (window, with the coupling term), shared by the models.
     let mut hashes: HashMap<(usize, bool), Vec<String>> = HashMap::new();
     let mut units = Vec::new();
@@ -80,6 +81,9 @@ pub(super) fn plan_units(plan: &StudyPlan, prep: &Prepared) -> Vec<Unit> {
                         n,
                         data,
                         test: &test,
+                        validation: validation
+                            .as_deref()
+                            .filter(|_| model.kind.tunes_by_forecasts()),
                         closure: prep
                             .coupling
                             .filter(|_| closure)
@@ -246,6 +250,19 @@ pub(super) fn compute(
     let truth = prep.traj.values.view();
     let ics = &prep.split.initial_conditions;
     let largest = *plan.sizes.last().expect("sizes");
+    // Validation forecasts for models tuned by them: the mean valid time from every validation
+    // initial condition, in the fixed batches of the test forecasts, one after another (the
+    // units already run in parallel), so the choice does not depend on the thread count.
+    let validation = &prep.split.validation_conditions;
+    let validation_score = |model: &dyn crate::models::Forecaster| -> f64 {
+        let per_ic: Vec<skill::IcSkill> = validation
+            .chunks(super::score::FORECAST_BATCH)
+            .flat_map(|batch| skill::valid_times(model, truth, batch, &prep.skill))
+            .collect();
+        skill::summarise(&per_ic).mean
+    };
+    let score: Option<crate::models::family::ForecastScore> =
+        (!validation.is_empty()).then_some(&validation_score);
     let key_of = |unit: &Unit, n: usize| {
         unit.keys
             .iter()
@@ -354,7 +371,10 @@ pub(super) fn compute(
                 &plan.sizes,
                 wanted,
                 unit.seed,
-                prep.coupling,
+                UnitAids {
+                    coupling: prep.coupling,
+                    score,
+                },
             )
             .map_err(|source| StudyError::Model {
                 model: model.name.clone(),

@@ -304,6 +304,7 @@ pub(super) fn data_info(
         content_sha256: d.content_hash(),
         training_pool: split.pool.len(),
         test_initial_conditions: ics.len(),
+        validation_initial_conditions: split.validation_conditions.len(),
         test_range: [ics[0], *ics.last().expect("at least one IC")],
         seed: d.meta.seed,
         sigma: skill.sigma.clone(),

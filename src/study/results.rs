@@ -292,6 +292,10 @@ pub struct DataInfo {
     pub content_sha256: String,
     pub training_pool: usize,
     pub test_initial_conditions: usize,
+    /// Validation initial conditions between the test region and the pool (0: none), for
+    /// models tuned by forecasts.
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub validation_initial_conditions: usize,
     /// First and last test initial condition (sample indices).
     pub test_range: [usize; 2],
     pub seed: Option<u64>,
@@ -414,8 +418,13 @@ pub struct PointResult {
     pub q90: f64,
     pub censored_share: f64,
     pub blow_up_share: f64,
-    /// Mean ridge penalty used over replicates.
+    /// Ridge penalty used: the geometric mean over replicates (penalties tuned per replicate
+    /// span decades).
     pub ridge_penalty: Option<f64>,
+    /// Models tuned by forecasts: the mean over replicates of the chosen readout's mean valid
+    /// time on the validation initial conditions.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub validation_valid_time: Option<f64>,
     /// Mean one-step training residual over replicates (standardised units).
     pub training_rmse: Option<f64>,
     /// Mean wall-clock seconds of training per replicate (a nested one-pass fit is charged in
@@ -805,4 +814,8 @@ impl HistoryEntry {
             .iter()
             .find(|e| e.model == model && e.target == target)
     }
+}
+
+fn is_zero(v: &usize) -> bool {
+    *v == 0
 }

@@ -156,6 +156,10 @@ pub struct SplitSection {
     pub gap: f64,
     /// Spacing of consecutive initial conditions, model time units; default: `gap`.
     pub spacing: Option<f64>,
+    /// Validation initial conditions between the test region and the training pool, for models
+    /// that tune their ridge penalty by forecasts (`ridge-selection = "forecast"`); default: 16
+    /// when such a model is in the study, else 0.
+    pub validation_conditions: Option<usize>,
 }
 
 /// `[skill]`: valid prediction time settings.

@@ -6,7 +6,7 @@
 
 use super::plan::{ModelPlan, ModelUse};
 use crate::models::closure::{CoupledModel, Coupling};
-use crate::models::family::{ClosureData, Trainable, Trainer, TransferFits};
+use crate::models::family::{ClosureData, ForecastScore, Trainable, Trainer, TransferFits};
 use crate::models::finetune::ValidFineTuneParams;
 use crate::models::{FitSummary, Forecaster, ModelError};
 use ndarray::ArrayView2;
@@ -30,6 +30,14 @@ fn trainable(model: &ModelPlan) -> Result<&dyn Trainable, ModelError> {
     }
 }
 
+/// What a unit's training can use besides its data: the coarse solver closures are coupled to,
+/// and the validation forecasts that score candidates of families tuned by them.
+#[derive(Clone, Copy, Default)]
+pub struct UnitAids<'a> {
+    pub coupling: Option<Coupling>,
+    pub score: Option<ForecastScore<'a>>,
+}
+
 /// Trains `model` on the prefixes `wanted` (a subset of the study's `sizes`, ascending) of `x`
 /// (resolved states) and, for closures, `u` (the coupling term at the same samples). Each fit
 /// equals the one a pass over all of `sizes` would give, bit for bit: families standardised on
@@ -41,8 +49,9 @@ pub fn train_unit(
     sizes: &[usize],
     wanted: &[usize],
     seed: u64,
-    coupling: Option<Coupling>,
+    aids: UnitAids,
 ) -> Result<Vec<Fitted>, ModelError> {
+    let UnitAids { coupling, score } = aids;
     let trainer = trainable(model)?;
     let mut fit_sizes = wanted.to_vec();
     if super::keys::standardised_on_smallest(model) {
@@ -52,7 +61,7 @@ pub fn train_unit(
     fit_sizes.dedup();
     let mut fits = match model.usage {
         ModelUse::Emulator => trainer
-            .fit_emulator(x, &fit_sizes, seed)?
+            .fit_emulator(x, &fit_sizes, seed, score)?
             .into_iter()
             .map(|(forecaster, summary)| Fitted {
                 summary,
@@ -116,10 +125,18 @@ mod tests {
             usage: ModelUse::Emulator,
         };
         let x = ndarray::Array2::<f64>::zeros((20, 2));
-        let e = train_unit(&model, x.view(), None, &[10, 20], &[10, 20], 1, None)
-            .err()
-            .unwrap()
-            .to_string();
+        let e = train_unit(
+            &model,
+            x.view(),
+            None,
+            &[10, 20],
+            &[10, 20],
+            1,
+            UnitAids::default(),
+        )
+        .err()
+        .unwrap()
+        .to_string();
         assert!(
             e.contains("'my-net'") && e.contains("run point by point by the runner"),
             "{e}"

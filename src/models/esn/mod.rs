@@ -19,12 +19,12 @@ pub use sequence::{fit_sequence_nested, EsnSequence};
 use super::closure::memory_form;
 use super::family::{
     read_settings, ridge_memory, settings_json, ClosureData, FamilyError, ModelFamily,
-    Registration, RelativeCost, ClosureFits, Equations, FineTuning, Fits, Train, Trainer,
+    Registration, RelativeCost, ClosureFits, Equations, FineTuning, Fits, ForecastScore, Train, Trainer,
     TrainingMemory, TrainingShape,
 };
 use super::finetune::{fine_tune_readouts, ValidFineTuneParams};
 use super::ridge::{
-    nested_pass, nested_readouts, Block, NormalEquations, Penalty, RidgeSelection, RowSource, Rows,
+    nested_pass, nested_readouts, Block, NormalEquations, Penalty, ReadoutScore, RidgeSelection, RowSource, Rows,
 };
 use super::{
     out_of_range, standardisation, FitSummary, Forecaster, ModelError, RidgeScaling,
@@ -49,7 +49,7 @@ use std::sync::Arc;
 /// | `leak-rate` | 1.0 | α | (0, 1] |
 /// | `ridge` | 1e-5 | λ (per training pair when `ridge-scaling = "per-sample"`) | (0, 1e3] |
 /// | `ridge-scaling` | per-sample | penalty λ·n (per-sample) or λ (fixed) | per-sample, fixed |
-/// | `ridge-selection` | fixed | `ridge` with `ridge-scaling`, or λ chosen per subset size by generalised cross-validation (`gcv`) | fixed, gcv |
+/// | `ridge-selection` | fixed | `ridge` with `ridge-scaling`, or λ chosen per subset size by generalised cross-validation (`gcv`), or by forecasts from the study's validation initial conditions (`forecast`, emulators only) | fixed, gcv, forecast |
 /// | `washout` | 100 | initial reservoir steps left out of the fit | 0 ..= 100000 |
 ///
 /// `ridge-selection` defaults to `fixed` by measurement (300 units, nested sizes 1000–16000,
@@ -348,6 +348,19 @@ pub fn fit_nested(
     sizes: &[usize],
     seed: u64,
 ) -> Result<Vec<(Esn, FitSummary)>, ModelError> {
+    fit_nested_scored(params, train, sizes, seed, None)
+}
+
+/// [`fit_nested`] with the penalty at every size chosen by `score` under
+/// `ridge-selection = "forecast"` (the candidate readouts share the reservoir and
+/// standardisation; only the readout differs).
+pub fn fit_nested_scored(
+    params: &ValidEsnParams,
+    train: ArrayView2<f64>,
+    sizes: &[usize],
+    seed: u64,
+    score: Option<ForecastScore>,
+) -> Result<Vec<(Esn, FitSummary)>, ModelError> {
     let p = params.get();
     let d = train.ncols();
     let smallest = *sizes.first().ok_or(ModelError::NoSizes)?;
@@ -372,8 +385,18 @@ pub fn fit_nested(
         selection: p.ridge_selection,
     };
     let mut pairs = ReservoirPairs::new(&reservoir, &mean, &scale, p.washout, train.view());
+    let mut candidate = |_size: usize, w: &[f64]| -> f64 {
+        let esn = Esn {
+            reservoir: reservoir.clone(),
+            mean: mean.clone(),
+            scale: scale.clone(),
+            readout: w.to_vec(),
+        };
+        score.map_or(f64::NAN, |s| s(&esn))
+    };
+    let scorer: Option<ReadoutScore> = score.is_some().then_some(&mut candidate);
     Ok(
-        nested_readouts(&mut pairs, sizes, |n| n - 1 - p.washout, &penalty)?
+        nested_readouts(&mut pairs, sizes, |n| n - 1 - p.washout, &penalty, scorer)?
             .into_iter()
             .map(|(readout, summary)| {
                 let esn = Esn {
@@ -646,6 +669,10 @@ impl ModelFamily for ValidEsnParams {
         "echo state network"
     }
 
+    fn tunes_by_forecasts(&self) -> bool {
+        self.get().ridge_selection == RidgeSelection::Forecast
+    }
+
     fn settings(&self) -> serde_json::Value {
         settings_json(self.get())
     }
@@ -701,6 +728,16 @@ impl Train for ValidEsnParams {
 
     fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], seed: u64) -> Fits<Esn> {
         fit_nested(self, x, sizes, seed)
+    }
+
+    fn fit_scored(
+        &self,
+        x: ArrayView2<f64>,
+        sizes: &[usize],
+        seed: u64,
+        score: Option<ForecastScore>,
+    ) -> Fits<Esn> {
+        fit_nested_scored(self, x, sizes, seed, score)
     }
 
     /// A closure with memory: one reservoir state per channel (per k for local inputs), driven

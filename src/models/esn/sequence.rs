@@ -80,7 +80,13 @@ pub fn fit_sequence_nested(
         readout: Vec::new(),
     };
     let mut rows = ChannelRows::new(&model, inputs.view(), targets.view(), c_count, p.washout);
-    let fits = nested_readouts(&mut rows, sizes, |n| (n - p.washout) * c_count, &penalty)?;
+    let fits = nested_readouts(
+        &mut rows,
+        sizes,
+        |n| (n - p.washout) * c_count,
+        &penalty,
+        None,
+    )?;
     Ok(fits
         .into_iter()
         .map(|(readout, summary)| {

@@ -322,6 +322,12 @@ pub fn fit_polynomial(
                     .map_err(|_| degenerate(m, f))?
                     .lambda
             }
+            RidgeSelection::Forecast => {
+                return Err(ModelError::Ridge {
+                    size: m,
+                    source: crate::models::ridge::RidgeError::NoForecasts,
+                })
+            }
         };
         let coef = svd.solve(lambda).ok_or_else(|| degenerate(m, f))?;
         (coef, lambda, Some(svd.condition()))

@@ -103,6 +103,13 @@ impl PolynomialParams {
         if !(self.ridge.is_finite() && (0.0..=1e3).contains(&self.ridge)) {
             bad.out_of_range("ridge", self.ridge.to_string(), "0 to 1000");
         }
+        if self.ridge_selection == RidgeSelection::Forecast {
+            bad.out_of_range(
+                "ridge-selection",
+                "\"forecast\"".to_string(),
+                "\"fixed\" or \"gcv\" (tuning by forecasts is for the reservoir readouts: esn, ngrc)",
+            );
+        }
         if self.ridge_selection == RidgeSelection::Gcv && self.ridge != 0.0 {
             bad.out_of_range(
                 "ridge",

@@ -38,10 +38,17 @@ pub mod penalty;
 pub mod selection;
 pub mod svd;
 
-pub use nested::{nested_pass, nested_readouts, Block, Layout, RowSource, Rows, BLOCK_ROWS};
+pub use nested::{
+    nested_pass, nested_readouts, Block, Layout, ReadoutScore, RowSource, Rows, BLOCK_ROWS,
+};
 pub use normal::NormalEquations;
-pub use penalty::{fit_readout, fit_readout_toward, Penalty, Readout, RidgeChoice, RidgeSelection};
-pub use selection::{relative_grid, select, RidgeEigen, Selection, Tie, GCV_GRID_DECADES};
+pub use penalty::{
+    fit_readout, fit_readout_toward, forecast_readout, Penalty, Readout, RidgeChoice,
+    RidgeSelection,
+};
+pub use selection::{
+    relative_grid, select, RidgeEigen, Selection, Tie, FORECAST_GRID_DECADES, GCV_GRID_DECADES,
+};
 
 /// Errors from solving the ridge normal equations.
 #[derive(Debug, thiserror::Error)]
@@ -54,6 +61,8 @@ pub enum RidgeError {
     Eigen { features: usize },
     #[error("generalised cross-validation gave no finite score on the penalty grid of {grid} values (non-finite or degenerate features); use `ridge-selection = \"fixed\"`")]
     NoFiniteScore { grid: usize },
+    #[error("ridge-selection = \"forecast\" needs validation forecasts, which this fit does not have (emulators of a study only; use \"fixed\" or \"gcv\")")]
+    NoForecasts,
 }
 
 /// Clears the upper halves of the vector registers after faer's hand-written AVX-512 kernels.

@@ -9,7 +9,7 @@
 //! sizes were added.
 
 use super::normal::NormalEquations;
-use super::penalty::{fit_readout, Penalty, Readout};
+use super::penalty::{fit_readout, forecast_readout, Penalty, Readout, RidgeSelection};
 use crate::models::{FitSummary, ModelError};
 use faer::MatRef;
 
@@ -184,21 +184,32 @@ pub fn nested_pass(
     Ok(ne)
 }
 
+/// Scores a candidate readout of subset size `size` (its weights, outputs × features) by its
+/// forecasts: higher is better.
+pub type ReadoutScore<'a> = &'a mut dyn FnMut(usize, &[f64]) -> f64;
+
 /// The nested pass with a readout solved at every boundary: for subset size `sizes[i]`, whose
 /// rows are `rows(sizes[i])`, the readout by `penalty` and its fit summary (a failed solve names
-/// the size). Results in the order of `sizes` (ascending).
+/// the size). Results in the order of `sizes` (ascending). Forecast selection scores its
+/// candidates with `score` (an error without it).
 pub fn nested_readouts(
     source: &mut dyn RowSource,
     sizes: &[usize],
     rows: impl Fn(usize) -> usize,
     penalty: &Penalty,
+    mut score: Option<ReadoutScore>,
 ) -> Result<Vec<(Readout, FitSummary)>, ModelError> {
     let boundaries: Vec<usize> = sizes.iter().map(|&n| rows(n)).collect();
     let mut out = Vec::with_capacity(sizes.len());
     nested_pass(source, &boundaries, &mut |i, ne| {
         let size = sizes[i];
-        let readout =
-            fit_readout(ne, penalty).map_err(|source| ModelError::Ridge { size, source })?;
+        let solved = match (penalty.selection, score.as_mut()) {
+            (RidgeSelection::Forecast, Some(score)) => {
+                forecast_readout(ne, &mut |w: &[f64]| score(size, w))
+            }
+            _ => fit_readout(ne, penalty),
+        };
+        let readout = solved.map_err(|source| ModelError::Ridge { size, source })?;
         let summary = readout.summary(size, ne.count);
         out.push((readout, summary));
         Ok(())

@@ -33,6 +33,14 @@ pub enum RidgeSelection {
     /// one-step error need not give the most stable autonomous forecast (measured for the
     /// next-generation reservoir computer on Lorenz-63, see `ngrc`).
     Gcv,
+    /// By forecasts, separately for every fit (every subset size): on
+    /// [`FORECAST_GRID_DECADES`](super::FORECAST_GRID_DECADES) relative to the mean eigenvalue
+    /// of the Gram matrix, the penalty whose readout forecasts best from the study's validation
+    /// initial conditions (the largest mean valid prediction time; on a tie the larger penalty).
+    /// The skill the curve reports is what the penalty is tuned for, measured on validation
+    /// data that neither the fit nor the test forecasts use; `ridge` and `ridge-scaling` are not
+    /// used. Emulators only.
+    Forecast,
 }
 
 /// A readout's penalty setting, resolved from model parameters.
@@ -58,6 +66,10 @@ pub struct RidgeChoice {
     /// GCV chose the smallest or largest grid penalty: the best may lie beyond the grid.
     #[serde(default)]
     pub at_grid_edge: bool,
+    /// Mean valid prediction time of the chosen readout on the validation initial conditions
+    /// (model time units; forecast selection only).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub validation_valid_time: Option<f64>,
 }
 
 /// A solved readout.
@@ -118,6 +130,7 @@ pub fn fit_readout(ne: &NormalEquations, penalty: &Penalty) -> Result<Readout, R
                     method: RidgeSelection::Fixed,
                     gcv_score: None,
                     at_grid_edge: false,
+                    validation_valid_time: None,
                 },
             })
         }
@@ -133,10 +146,58 @@ pub fn fit_readout(ne: &NormalEquations, penalty: &Penalty) -> Result<Readout, R
                     method: RidgeSelection::Gcv,
                     gcv_score: Some(sel.score),
                     at_grid_edge: sel.at_grid_edge(),
+                    validation_valid_time: None,
                 },
             })
         }
+        RidgeSelection::Forecast => Err(RidgeError::NoForecasts),
     }
+}
+
+/// The readout of `ne` whose forecasts score best: on the forecast grid
+/// ([`FORECAST_GRID_DECADES`](super::FORECAST_GRID_DECADES) times the mean eigenvalue), the
+/// penalty with the largest `score(weights)` (a mean valid time on validation data; higher is
+/// better, the larger penalty on a tie, a non-finite score never wins). One eigendecomposition
+/// serves every penalty.
+pub fn forecast_readout(
+    ne: &NormalEquations,
+    score: &mut dyn FnMut(&[f64]) -> f64,
+) -> Result<Readout, RidgeError> {
+    let eig = ne.eigen()?;
+    let mean = eig.mean_eigenvalue();
+    let scale = if mean > 0.0 { mean } else { 1.0 };
+    let grid: Vec<f64> = super::relative_grid(super::FORECAST_GRID_DECADES)
+        .into_iter()
+        .map(|r| scale * r)
+        .collect();
+    let mut solved = Vec::with_capacity(grid.len());
+    let mut scores = Vec::with_capacity(grid.len());
+    for &lambda in &grid {
+        let (weights, rmse) = eig.solve(lambda);
+        scores.push(score(&weights));
+        solved.push((weights, rmse));
+    }
+    // Highest score wins: the selection minimises its negative.
+    let sel = super::select(
+        &grid,
+        |l| {
+            let i = grid.iter().position(|g| *g == l).expect("a grid value");
+            -scores[i]
+        },
+        super::Tie::Larger,
+    )?;
+    let (weights, rmse) = solved.swap_remove(sel.index);
+    Ok(Readout {
+        weights,
+        rmse,
+        lambda: sel.lambda,
+        choice: RidgeChoice {
+            method: RidgeSelection::Forecast,
+            gcv_score: None,
+            at_grid_edge: sel.at_grid_edge(),
+            validation_valid_time: Some(scores[sel.index]),
+        },
+    })
 }
 
 /// Solves the readout of `ne` shrunk toward the prior readout `w0` (outputs × features,
@@ -169,6 +230,65 @@ pub fn fit_readout_toward(
 mod tests {
     use super::super::test_problems::{random_prior, random_problem};
     use super::*;
+
+    /// Forecast selection returns the candidate its score ranks first, solved exactly as the
+    /// eigendecomposition solves it at that penalty, with the score recorded; a tie goes to the
+    /// larger penalty, a non-finite score never wins; without scores the fit refuses.
+    #[test]
+    fn forecast_selection_keeps_the_best_scored_readout() {
+        let (rows, f, d) = (150, 6, 2);
+        let (phi, y) = random_problem(rows, f, d, 17);
+        let mut ne = NormalEquations::zeros(f, d);
+        ne.add_rows(&phi, &y, rows);
+        let eig = ne.eigen().unwrap();
+        let grid: Vec<f64> =
+            crate::models::ridge::relative_grid(crate::models::ridge::FORECAST_GRID_DECADES)
+                .into_iter()
+                .map(|r| r * eig.mean_eigenvalue())
+                .collect();
+        assert_eq!(grid.len(), 13);
+        // Score each candidate by how close its weight norm is to that of the 5th penalty: the
+        // peak is known in advance and comes from the weights the selection hands over.
+        let norm = |w: &[f64]| w.iter().map(|v| v * v).sum::<f64>().sqrt();
+        let target = norm(&eig.solve(grid[4]).0);
+        let mut calls = 0;
+        let r = forecast_readout(&ne, &mut |w: &[f64]| {
+            calls += 1;
+            -(norm(w) - target).abs()
+        })
+        .unwrap();
+        assert_eq!(calls, 13);
+        assert_eq!(r.lambda, grid[4]);
+        assert_eq!(r.weights, eig.solve(grid[4]).0);
+        assert_eq!(r.choice.method, RidgeSelection::Forecast);
+        assert_eq!(r.choice.validation_valid_time, Some(0.0));
+        assert!(!r.choice.at_grid_edge);
+        // Equal scores everywhere: the largest penalty, at the grid's edge.
+        let flat = forecast_readout(&ne, &mut |_: &[f64]| 1.0).unwrap();
+        assert_eq!(flat.lambda, grid[12]);
+        assert!(flat.choice.at_grid_edge);
+        // A candidate that blew up (NaN) never wins over a finite one.
+        let mut i = 0;
+        let nan_best = forecast_readout(&ne, &mut |_: &[f64]| {
+            i += 1;
+            if i == 1 {
+                f64::NAN
+            } else {
+                1.0 / i as f64
+            }
+        })
+        .unwrap();
+        assert_eq!(nan_best.lambda, grid[1]);
+        let refused = fit_readout(
+            &ne,
+            &Penalty {
+                ridge: 1e-3,
+                scaling: RidgeScaling::PerSample,
+                selection: RidgeSelection::Forecast,
+            },
+        );
+        assert!(matches!(refused, Err(RidgeError::NoForecasts)));
+    }
 
     /// Fixed selection reproduces the Cholesky solve at λ·n (per-sample scaling); GCV records its
     /// score and solves at the penalty it chose.

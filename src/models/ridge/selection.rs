@@ -212,6 +212,11 @@ fn tridiagonal_solve(a: &[f64], b: &[f64], lambda: f64, r: &mut Mat<f64>) {
 /// Lorenz-63 features, 2.5e-6 with 400 training pairs, is 8e-14 relative (measured).
 pub const GCV_GRID_DECADES: (f64, f64, usize) = (-12.0, 0.0, 25);
 
+/// The penalty grid of forecast selection ([`RidgeSelection::Forecast`](super::RidgeSelection)):
+/// every decade from 10⁻¹² to 1 times the mean eigenvalue of the Gram matrix, 13 values. Each
+/// value costs one set of validation forecasts, so the grid is half as fine as GCV's.
+pub const FORECAST_GRID_DECADES: (f64, f64, usize) = (-12.0, 0.0, 13);
+
 /// The eigendecomposition of a ridge problem's normal equations: the fit at any penalty λ > 0 in
 /// O(F·D) operations after one O(F³) decomposition (see the module documentation).
 #[derive(Debug, Clone)]

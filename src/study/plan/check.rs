@@ -97,6 +97,19 @@ pub(super) fn check(
         None => None,
     };
 
+    // Validation initial conditions for models tuned by forecasts.
+    let validation = validation_conditions(
+        &f.split,
+        &models,
+        transfer.as_ref().and_then(|t| t.as_ref()),
+        data.as_ref(),
+        &mut c,
+    );
+    let timing = timing.map(|t| Timing {
+        validation_conditions: validation,
+        ..t
+    });
+
     // What needs the data: the data files, what each family needs of the data, the work.
     let work = sizes.as_ref().and_then(|sizes| {
         data_and_work(
@@ -184,6 +197,8 @@ fn timing(split: &SplitSection, skill: &SkillSection, c: &mut Checks) -> Option<
     }
     Some(Timing {
         initial_conditions: split.initial_conditions,
+        // Set once the models are known (see `validation_conditions`).
+        validation_conditions: 0,
         gap: gap?,
         spacing: spacing?,
         threshold: skill.threshold,
@@ -203,6 +218,67 @@ fn model_key(i: usize, name: Option<&str>) -> String {
     match name {
         Some(n) => format!("model \"{n}\""),
         None => format!("model[{i}]"),
+    }
+}
+
+/// Validation initial conditions to lay out: `split.validation-conditions` as given, else 16
+/// when a model tunes its penalty by forecasts ([`crate::models::family::ModelFamily::tunes_by_forecasts`]),
+/// else none. Forecast tuning is for emulators of a study's pilot data, simulated or one series
+/// of the user's: a closure, a model with a new regime and gridded runs are refused.
+fn validation_conditions(
+    split: &SplitSection,
+    models: &[Option<ModelPlan>],
+    transfer: Option<&TransferPlan>,
+    data: Option<&DataSource>,
+    c: &mut Checks,
+) -> usize {
+    const DEFAULT: usize = 16;
+    let mut tuned = 0;
+    for (i, m) in models.iter().enumerate() {
+        let Some(m) = m.as_ref().filter(|m| m.kind.tunes_by_forecasts()) else {
+            continue;
+        };
+        tuned += 1;
+        let key = model_key(i, Some(&m.name));
+        let why = if m.usage.is_closure() {
+            Some("an emulator: a closure's penalty cannot be tuned by forecasts yet; use \"fixed\" or \"gcv\"")
+        } else if transfer.is_some_and(|t| t.models.contains(&i)) {
+            Some("\"fixed\" or \"gcv\" for a model with a new regime ([transfer]): its fine-tuned and from-scratch fits have no validation forecasts yet")
+        } else if matches!(
+            data,
+            Some(DataSource::File {
+                fields: Some(_),
+                ..
+            })
+        ) {
+            Some("\"fixed\" or \"gcv\" with gridded runs ([data.file] with fields): their held-out runs hold no validation initial conditions yet")
+        } else {
+            None
+        };
+        if let Some(why) = why {
+            c.invalid(
+                format!("{key}.{}.ridge-selection", m.kind.key()),
+                "\"forecast\"",
+                why,
+            );
+        }
+    }
+    match split.validation_conditions {
+        Some(0) if tuned > 0 => {
+            c.invalid(
+                "split.validation-conditions",
+                "0",
+                format!("1 to 100000: {tuned} model(s) tune their penalty by forecasts from them (ridge-selection = \"forecast\"); the default is {DEFAULT}"),
+            );
+            0
+        }
+        Some(v) if v > 100_000 => {
+            c.invalid("split.validation-conditions", v.to_string(), "0 to 100000");
+            0
+        }
+        Some(v) => v,
+        None if tuned > 0 => DEFAULT,
+        None => 0,
     }
 }
 

@@ -265,6 +265,7 @@ mod tests {
     fn timing() -> Timing {
         Timing {
             initial_conditions: 4,
+            validation_conditions: 0,
             gap: 1.0,
             spacing: 1.0,
             threshold: 0.5,

@@ -151,6 +151,8 @@ impl PartialEq for ModelKind {
 #[derive(Debug, Clone, PartialEq)]
 pub struct Timing {
     pub initial_conditions: usize,
+    /// Validation initial conditions (0: none; see [`crate::data::Split`]).
+    pub validation_conditions: usize,
     pub gap: f64,
     pub spacing: f64,
     pub threshold: f64,
@@ -169,6 +171,7 @@ impl Timing {
             spacing: to_samples(self.spacing, sample_interval).max(1),
             warm_up: to_samples(self.warm_up, sample_interval).max(1),
             max_lead: to_samples(self.max_lead, sample_interval).max(1),
+            validation_conditions: self.validation_conditions,
         }
     }
 }
