@@ -86,7 +86,7 @@ impl Lstm {
 
     /// Glorot-uniform weights (each gate's [W_x; W_h] block has fan-in inputs + hidden and
     /// fan-out hidden), zero biases except the forget gate's, which start at 1.
-    fn glorot(
+    pub(super) fn glorot(
         inputs: usize,
         hidden: usize,
         outputs: usize,
