@@ -2,8 +2,10 @@
 //! Gram accumulation (faer lower-triangular product vs a plain scalar loop), the whole nested
 //! learning curve vs one fit at the largest size (echo state network with a fixed penalty and
 //! with GCV, next-generation reservoir computing), free-running forecasts (one by one vs
-//! batched), the two-scale integrator, feed-forward network training (one thread vs two), and
-//! the learning-curve stage with its bootstrap (one thread vs two).
+//! batched), the two-scale integrator, an epoch of network gradients (chunks of samples vs one
+//! sample at a time, against the FMA peak), feed-forward network training (one thread vs two),
+//! and the learning-curve stage with its bootstrap (one thread vs two). The FMA peak is checked
+//! against the core clock, measured by a chain of dependent integer adds.
 //! Run with `cargo bench --bench hot_paths` (add `-- quick` for a short run).
 
 use closure_budget::models::esn::{fit_nested, EsnParams};
@@ -59,7 +61,9 @@ fn fma_peak_gflops() -> (f64, &'static str) {
     #[cfg(target_arch = "x86_64")]
     {
         use std::arch::x86_64::*;
-        const ITERS: usize = 20_000_000;
+        // Best of 30 short runs (about 7 ms each at 16 flops per cycle and 3.6 GHz), so a run
+        // that another process interrupts on a shared machine does not count.
+        const ITERS: usize = 2_000_000;
         #[target_feature(enable = "avx512f")]
         unsafe fn avx512(iters: usize) -> f64 {
             let a = _mm512_set1_pd(0.999_999_9);
@@ -108,13 +112,13 @@ fn fma_peak_gflops() -> (f64, &'static str) {
         }
         if std::arch::is_x86_feature_detected!("avx512f") {
             // SAFETY: the CPU supports AVX-512F (checked just above).
-            let t = best_of(3, || unsafe { avx512(ITERS) });
+            let t = best_of(30, || unsafe { avx512(ITERS) });
             return ((ITERS * 12 * 8 * 2) as f64 / t / 1e9, "AVX-512 FMA");
         }
         if std::arch::is_x86_feature_detected!("avx2") && std::arch::is_x86_feature_detected!("fma")
         {
             // SAFETY: the CPU supports AVX2 and FMA (checked just above).
-            let t = best_of(3, || unsafe { avx2(ITERS) });
+            let t = best_of(30, || unsafe { avx2(ITERS) });
             return ((ITERS * 12 * 4 * 2) as f64 / t / 1e9, "AVX2 FMA");
         }
     }
@@ -134,7 +138,62 @@ fn fma_peak_gflops() -> (f64, &'static str) {
     ((iters * 12 * 2) as f64 / t / 1e9, "scalar FMA")
 }
 
-fn gram(quick: bool) {
+/// The core clock while busy, GHz, from a dependent chain of integer adds (one cycle of latency
+/// each): four `add reg, 1` per loop iteration on one register, so the loop counter and branch
+/// run beside the chain and each iteration takes four cycles. `None` off x86_64.
+fn core_clock_ghz() -> Option<f64> {
+    #[cfg(target_arch = "x86_64")]
+    {
+        // Best of 30 runs of about 4.4 ms, as for the FMA peak.
+        const ITERS: u64 = 4_000_000;
+        let t = best_of(30, || {
+            let mut x = 0u64;
+            for _ in 0..ITERS {
+                // SAFETY: four adds on a register the asm owns; no memory, no stack.
+                unsafe {
+                    std::arch::asm!(
+                        "add {0}, 1",
+                        "add {0}, 1",
+                        "add {0}, 1",
+                        "add {0}, 1",
+                        inout(reg) x,
+                        options(nomem, nostack),
+                    );
+                }
+            }
+            assert_eq!(x, 4 * ITERS, "the add chain ran short");
+            x
+        });
+        Some((4 * ITERS) as f64 / t / 1e9)
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    None
+}
+
+/// Measures the FMA peak and the clock and prints flops per cycle, so the peak is checked
+/// against the core's FMA width: a 256-bit FMA is 4 doubles × 2 flops = 8 flops. (From memory:
+/// AMD's Zen 4 has two 256-bit FMA pipes and runs a 512-bit FMA as two halves, 16 flops per
+/// cycle; Intel cores with two 512-bit FMA units reach 32.) Returns the peak, GFLOP/s.
+fn peak_and_clock() -> f64 {
+    let (peak, how) = fma_peak_gflops();
+    match core_clock_ghz() {
+        Some(ghz) => {
+            let per_cycle = peak / ghz;
+            println!(
+                "fma peak           single-core {how} {peak:.1} GFLOP/s; clock {ghz:.2} GHz (dependent \
+                 integer adds); {per_cycle:.1} flops per cycle = {:.2} 256-bit FMAs per cycle",
+                per_cycle / 8.0
+            );
+        }
+        None => println!(
+            "fma peak           single-core {how} {peak:.1} GFLOP/s; clock not measured (not x86_64), \
+             so flops per cycle unknown"
+        ),
+    }
+    peak
+}
+
+fn gram(quick: bool, peak: f64) {
     use faer::MatRef;
     let (rows, f, d) = (if quick { 8192 } else { 32768 }, 901, 8);
     let phi = pseudo_random(rows * f, 1);
@@ -200,9 +259,8 @@ fn gram(quick: bool) {
         slow / col,
         row / col
     );
-    let (peak, how) = fma_peak_gflops();
     println!(
-        "gram vs peak       single-core {how} peak {peak:.1} GFLOP/s (measured above); column-major Gram at {:.0}% of it",
+        "gram vs peak       single-core FMA peak {peak:.1} GFLOP/s (measured above); column-major Gram at {:.0}% of it",
         100.0 * flops / col / 1e9 / peak
     );
 }
@@ -335,6 +393,35 @@ fn integrator(quick: bool) {
     );
 }
 
+/// One epoch of network gradients on one thread: chunks of `CHUNK_ROWS` samples (matrix
+/// products, as training does) against one sample at a time (matrix–vector products through the
+/// same kernels, the per-sample baseline), with the achieved rate of the batched pass as a share
+/// of the measured FMA peak. The flop counts (matrix products only) are derived on
+/// `closure_budget::models::nn::gradient_pass_seconds`.
+fn network_epochs(quick: bool, peak: f64) {
+    use closure_budget::models::nn::{gradient_pass_seconds, CHUNK_ROWS};
+    let rows = 16_000;
+    let reps = if quick { 5 } else { 9 };
+    for (kind, label) in [("mlp", "MLP 8-64-64-8"), ("lstm", "LSTM 8-32-8, window 4")] {
+        let best = |chunk: usize| {
+            (0..reps)
+                .map(|_| gradient_pass_seconds(kind, rows, chunk))
+                .fold((f64::INFINITY, 0.0), |a, b| if b.0 < a.0 { b } else { a })
+        };
+        let (batched, flops) = best(CHUNK_ROWS);
+        let (single, _) = best(1);
+        let rate = flops / batched / 1e9;
+        println!(
+            "network epoch      {label}, {rows} samples, 1 thread: chunks of {CHUNK_ROWS} {batched:.4} s, \
+             one at a time {single:.4} s; ratio {:.2}x; batched {rate:.1} GFLOP/s ({:.1} kflop per sample), \
+             {:.0}% of the FMA peak",
+            single / batched,
+            flops / rows as f64 / 1e3,
+            100.0 * rate / peak
+        );
+    }
+}
+
 fn network_training(quick: bool) {
     use closure_budget::models::nn::{train_mlp, MlpParams};
     let rows = if quick { 16_000 } else { 64_000 };
@@ -433,9 +520,11 @@ fn curve_analysis(quick: bool) {
 fn main() {
     let quick = std::env::args().any(|a| a == "quick");
     curve_analysis(quick);
-    gram(quick);
+    let peak = peak_and_clock();
+    gram(quick, peak);
     nested_curve(quick);
     forecasts(quick);
     integrator(quick);
+    network_epochs(quick, peak);
     network_training(quick);
 }

@@ -86,7 +86,7 @@ impl Lstm {
 
     /// Glorot-uniform weights (each gate's [W_x; W_h] block has fan-in inputs + hidden and
     /// fan-out hidden), zero biases except the forget gate's, which start at 1.
-    fn glorot(
+    pub(super) fn glorot(
         inputs: usize,
         hidden: usize,
         outputs: usize,
@@ -352,18 +352,19 @@ impl Lstm {
             let c_old = &s.c[t * ch..(t + 1) * ch];
             let tc = &s.tc[t * ch..(t + 1) * ch];
             let dz = &mut s.dz[..c * g4];
-            for r in 0..c {
-                let gr = &gates[r * g4..(r + 1) * g4];
-                let dzr = &mut dz[r * g4..(r + 1) * g4];
-                for j in 0..h {
-                    let k = r * h + j;
-                    let (i, f, g, og) = (gr[j], gr[h + j], gr[2 * h + j], gr[3 * h + j]);
-                    let dc = s.dc[k] + s.dh[k] * og * (1.0 - tc[k] * tc[k]);
-                    dzr[j] = dc * g * i * (1.0 - i);
-                    dzr[h + j] = dc * c_old[k] * f * (1.0 - f);
-                    dzr[2 * h + j] = dc * i * (1.0 - g * g);
-                    dzr[3 * h + j] = s.dh[k] * tc[k] * og * (1.0 - og);
-                    s.dc[k] = dc * f;
+            let (dh_all, dc_all) = (&s.dh[..ch], &mut s.dc[..ch]);
+            for (r, (gr, dzr)) in gates.chunks_exact(g4).zip(dz.chunks_exact_mut(g4)).enumerate() {
+                let span = r * h..(r + 1) * h;
+                let (dh, dcr) = (&dh_all[span.clone()], &mut dc_all[span.clone()]);
+                let (co, tcr) = (&c_old[span.clone()], &tc[span]);
+                let mut j = 0;
+                while j + 8 <= h {
+                    cell_backward::<8>(j, h, gr, co, tcr, dh, dcr, dzr);
+                    j += 8;
+                }
+                while j < h {
+                    cell_backward::<1>(j, h, gr, co, tcr, dh, dcr, dzr);
+                    j += 1;
                 }
             }
             for row in dz.chunks_exact(g4) {
@@ -379,6 +380,43 @@ impl Lstm {
         }
         sse
     }
+}
+
+/// Backpropagation through one step's cells for units j .. j + N of one row: from the gate
+/// activations (`gates`: i, f, g, o blocks of h), the old cell state, tanh of the new one, ∂/∂h
+/// and the running ∂/∂c (`dc`, updated to the old cell state's), writes the gate pre-activation
+/// deltas to `dz` (same blocks). Units are loaded into and stored from arrays of N, so with N = 8
+/// the compiler keeps them in vector registers with no alias checks; the operations per unit and
+/// their order do not depend on N.
+#[inline(always)]
+#[allow(clippy::too_many_arguments)]
+fn cell_backward<const N: usize>(
+    j: usize,
+    h: usize,
+    gates: &[f64],
+    c_old: &[f64],
+    tc: &[f64],
+    dh: &[f64],
+    dc: &mut [f64],
+    dz: &mut [f64],
+) {
+    let load = |v: &[f64], at: usize| -> [f64; N] { v[at..at + N].try_into().expect("N units") };
+    let (i, f) = (load(gates, j), load(gates, h + j));
+    let (g, og) = (load(gates, 2 * h + j), load(gates, 3 * h + j));
+    let (co, t, d_h, d_c) = (load(c_old, j), load(tc, j), load(dh, j), load(dc, j));
+    let mut out = [[0.0; N]; 5];
+    for l in 0..N {
+        let dcl = d_c[l] + d_h[l] * og[l] * (1.0 - t[l] * t[l]);
+        out[0][l] = dcl * g[l] * i[l] * (1.0 - i[l]);
+        out[1][l] = dcl * co[l] * f[l] * (1.0 - f[l]);
+        out[2][l] = dcl * i[l] * (1.0 - g[l] * g[l]);
+        out[3][l] = d_h[l] * t[l] * og[l] * (1.0 - og[l]);
+        out[4][l] = dcl * f[l];
+    }
+    for (gate, o) in out[..4].iter().enumerate() {
+        dz[gate * h + j..gate * h + j + N].copy_from_slice(o);
+    }
+    dc[j..j + N].copy_from_slice(&out[4]);
 }
 
 /// Trains a sequence-to-one LSTM.

@@ -39,7 +39,7 @@ pub struct MlpScratch {
 
 impl Mlp {
     /// A network with Glorot-uniform weights and zero biases.
-    fn glorot(
+    pub(super) fn glorot(
         sizes: Vec<usize>,
         activation: Activation,
         scaling: Scaling,

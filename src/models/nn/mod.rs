@@ -473,6 +473,94 @@ pub fn derive_seed(seed: u64, n: usize) -> u64 {
     mix(seed ^ mix(n as u64))
 }
 
+/// Benchmark hook (for `benches/hot_paths.rs`; not part of the interface): seconds of one pass
+/// of gradients over `rows` samples in chunks of `chunk` samples on the calling thread, and the
+/// floating-point operations of the pass's matrix products.
+///
+/// `kind` is `"mlp"` (a tanh network 8-64-64-8, the default hidden layers) or `"lstm"` (8 inputs,
+/// 32 units, window 4, 8 outputs: a closure-sized network). Weights are Glorot-uniform from a
+/// fixed seed, inputs and targets pseudo-random in standardised units, and the samples are visited
+/// in one shuffled order, as in an epoch; every chunk adds its gradient into one vector through
+/// the same code training uses. A chunk of 1 is the per-sample loop (matrix–vector products);
+/// [`CHUNK_ROWS`] is what training does.
+///
+/// Flops count a multiply-add as 2 and include only the matrix products (the nonlinearities,
+/// residuals and bias sums are left out), per sample:
+/// - feed-forward, widths n₀ … n_L: forward Σₗ nₗ₋₁·nₗ; backward the weight gradients
+///   Σₗ nₗ₋₁·nₗ and the deltas passed down through layers 2 … L, Σₗ₌₂ nₗ₋₁·nₗ
+///   (8-64-64-8: 5,120 + 5,120 + 4,608 = 14,848 multiply-adds, 29,696 flops);
+/// - LSTM, p inputs, h units, q outputs, window w: forward w·p·4h (input weights) +
+///   (w − 1)·h·4h (recurrent weights; h₀ = 0 is skipped) + h·q (readout); backward the same
+///   three weight gradients plus h·q for the readout's delta and (w − 1)·4h·h for the deltas
+///   through time (8, 32, 8, 4: 16,640 + 29,184 = 45,824 multiply-adds, 91,648 flops).
+///
+/// Panics on another `kind` or `chunk == 0`.
+#[doc(hidden)]
+pub fn gradient_pass_seconds(kind: &str, rows: usize, chunk: usize) -> (f64, f64) {
+    use rand::seq::SliceRandom;
+    use rand::SeedableRng;
+    use train::{Network, Samples};
+    fn pass<N: Network>(net: &N, data: &Samples, chunk: usize) -> f64 {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(2);
+        let mut order: Vec<usize> = (0..data.len()).collect();
+        order.shuffle(&mut rng);
+        let mut scratch = net.scratch();
+        let mut grad = vec![0.0; net.params().len()];
+        let start = std::time::Instant::now();
+        crate::models::ridge::clear_upper_simd_state();
+        let mut sse = 0.0;
+        for rows in order.chunks(chunk) {
+            sse += net.squared_error(data, rows, &mut scratch, Some(&mut grad));
+        }
+        std::hint::black_box((sse, &grad));
+        start.elapsed().as_secs_f64()
+    }
+    assert!(chunk > 0, "chunk must hold at least one sample");
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(1);
+    let mut uniform = |len: usize| -> Vec<f64> {
+        use rand::RngExt;
+        (0..len).map(|_| rng.random_range(-1.0..1.0)).collect()
+    };
+    let unit = |n: usize| Scaling {
+        input_mean: vec![0.0; n],
+        input_scale: vec![1.0; n],
+        output_mean: vec![0.0; n],
+        output_scale: vec![1.0; n],
+    };
+    let (p, q) = (8, 8);
+    match kind {
+        "mlp" => {
+            let sizes = vec![p, 64, 64, q];
+            let pairs: Vec<usize> = sizes.windows(2).map(|w| w[0] * w[1]).collect();
+            let mads = 2 * pairs.iter().sum::<usize>() + pairs[1..].iter().sum::<usize>();
+            let data = Samples {
+                x: uniform(rows * p),
+                y: uniform(rows * q),
+                inputs: p,
+                outputs: q,
+                span: 1,
+            };
+            let net = Mlp::glorot(sizes, Activation::Tanh, unit(p), &mut rng);
+            (pass(&net, &data, chunk), (2 * mads * rows) as f64)
+        }
+        "lstm" => {
+            let (h, w) = (32, 4);
+            let forward = w * p * 4 * h + (w - 1) * h * 4 * h + h * q;
+            let mads = 2 * forward + h * q + (w - 1) * 4 * h * h;
+            let data = Samples {
+                x: uniform((rows + w - 1) * p),
+                y: uniform(rows * q),
+                inputs: p,
+                outputs: q,
+                span: w,
+            };
+            let net = Lstm::glorot(p, h, q, w, unit(p), &mut rng);
+            (pass(&net, &data, chunk), (2 * mads * rows) as f64)
+        }
+        other => panic!("unknown network kind {other:?}; use \"mlp\" or \"lstm\""),
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
