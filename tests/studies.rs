@@ -256,7 +256,17 @@ fn run_into_out(dir: &std::path::Path, study: &std::path::Path) -> PlanDocument 
 /// The quick demo's pilot with a new regime at `forcing`, run into `dir/out`; the study gives
 /// its Lyapunov exponent.
 fn run_transfer(dir: &std::path::Path, forcing: f64, seed: u64) -> PlanDocument {
-    let text = std::fs::read_to_string(repo("studies/demo-quick.toml")).unwrap();
+    run_transfer_edited(dir, forcing, seed, |t| t)
+}
+
+/// [`run_transfer`] with the quick demo's text edited by `edit` first.
+fn run_transfer_edited(
+    dir: &std::path::Path,
+    forcing: f64,
+    seed: u64,
+    edit: impl Fn(String) -> String,
+) -> PlanDocument {
+    let text = edit(std::fs::read_to_string(repo("studies/demo-quick.toml")).unwrap());
     assert!(text.contains("\n[skill]\n"));
     let mut text = text.replace("\n[skill]\n", "\n[skill]\nlyapunov-exponent = 18.5\n");
     text.push_str(&format!(
@@ -470,4 +480,43 @@ fn a_penalty_tuned_by_validation_forecasts_beats_a_fixed_one() {
     // One thread chooses the same penalties and measures the same skill.
     let (_, _, skill_one, _dir_one) = run("1");
     assert_eq!(skill, skill_one);
+}
+
+/// A model tuned by validation forecasts transfers too: its base is the pilot study's tuned
+/// model at the largest size (the same skill), its from-scratch fits in the new regime are tuned
+/// on the new regime's own validation conditions, and a rerun reads the new regime's records
+/// back instead of training again.
+#[test]
+fn a_model_tuned_by_forecasts_transfers_to_a_new_regime() {
+    let dir = tempfile::tempdir().unwrap();
+    let tune = |t: String| {
+        let fixed = "esn = { reservoir-size = 60, ridge = 1e-6, washout = 50 }";
+        assert!(t.contains(fixed));
+        t.replace(
+            fixed,
+            "esn = { reservoir-size = 60, washout = 50, ridge-selection = \"forecast\" }",
+        )
+    };
+    let doc = run_transfer_edited(dir.path(), 24.0, 99, tune);
+    let m = &doc.transfer.as_ref().expect("transfer results").models[0];
+    let pilot = doc.models.iter().find(|p| p.name == m.name).unwrap();
+    assert!(pilot
+        .points
+        .iter()
+        .all(|p| p.validation_valid_time.is_some()));
+    assert!((m.base_skill - pilot.points.last().unwrap().mean).abs() < 1e-12);
+    assert!(m
+        .scratch
+        .points
+        .iter()
+        .all(|p| p.validation_valid_time.is_some_and(|v| v > 0.0)));
+    let records =
+        || std::fs::read_to_string(dir.path().join("out/new-regime-records.jsonl")).unwrap();
+    let before = records();
+    let again = run_transfer_edited(dir.path(), 24.0, 99, tune);
+    assert_eq!(records(), before, "nothing trained again");
+    assert_eq!(
+        again.transfer.as_ref().unwrap().models[0].scratch.points,
+        m.scratch.points
+    );
 }

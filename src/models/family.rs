@@ -197,7 +197,9 @@ pub trait Trainable: Send + Sync {
 
     /// The emulator the study measures at its largest size `sizes.last()` on `pilot`, then, for
     /// every prefix k of `ks` of the new regime's `target`, that base fine-tuned by `tune` and a
-    /// model trained from scratch with the same seed.
+    /// model trained from scratch with the same seed (each tuned by `scores` of its regime, for
+    /// families tuned by forecasts).
+    #[allow(clippy::too_many_arguments)]
     fn fit_transfer(
         &self,
         tune: &ValidFineTuneParams,
@@ -206,7 +208,16 @@ pub trait Trainable: Send + Sync {
         target: ArrayView2<f64>,
         ks: &[usize],
         seed: u64,
+        scores: TransferScores,
     ) -> Result<TransferFits, ModelError>;
+}
+
+/// Validation forecasts of both regimes of a transfer, for families tuned by them: the base is
+/// tuned on the pilot's, a model trained from scratch on the new regime's.
+#[derive(Clone, Copy, Default)]
+pub struct TransferScores<'a> {
+    pub pilot: Option<ForecastScore<'a>>,
+    pub target: Option<ForecastScore<'a>>,
 }
 
 /// A candidate model's skill on validation data (the mean valid prediction time from the
@@ -302,6 +313,7 @@ impl<F: Train> Trainable for F {
         target: ArrayView2<f64>,
         ks: &[usize],
         seed: u64,
+        scores: TransferScores,
     ) -> Result<TransferFits, ModelError> {
         let base_n = *sizes.last().ok_or(ModelError::NoSizes)?;
         let pilot = pilot.slice(ndarray::s![..base_n, ..]);
@@ -310,7 +322,7 @@ impl<F: Train> Trainable for F {
             base_sizes.insert(0, sizes[0]);
         }
         let (base, _) = self
-            .fit(pilot, &base_sizes, seed)?
+            .fit_scored(pilot, &base_sizes, seed, scores.pilot)?
             .pop()
             .expect("one fit per size");
         // Pooled fine-tuning needs the base's normal equations on its pilot prefix.
@@ -326,7 +338,7 @@ impl<F: Train> Trainable for F {
             seed,
         };
         let fine_tuned = self.fine_tune(&base, on)?;
-        let scratch = self.fit(target, ks, seed)?;
+        let scratch = self.fit_scored(target, ks, seed, scores.target)?;
         Ok(TransferFits {
             base: Arc::new(base),
             scratch: fits(scratch),

@@ -254,13 +254,7 @@ pub(super) fn compute(
     // initial condition, in the fixed batches of the test forecasts, one after another (the
     // units already run in parallel), so the choice does not depend on the thread count.
     let validation = &prep.split.validation_conditions;
-    let validation_score = |model: &dyn crate::models::Forecaster| -> f64 {
-        let per_ic: Vec<skill::IcSkill> = validation
-            .chunks(super::score::FORECAST_BATCH)
-            .flat_map(|batch| skill::valid_times(model, truth, batch, &prep.skill))
-            .collect();
-        skill::summarise(&per_ic).mean
-    };
+    let validation_score = super::score::validation_score(truth, validation, &prep.skill);
     let score: Option<crate::models::family::ForecastScore> =
         (!validation.is_empty()).then_some(&validation_score);
     let key_of = |unit: &Unit, n: usize| {

@@ -286,6 +286,8 @@ fn run_in_pool(
                 &PilotSide {
                     traj: &prep.traj,
                     pool: prep.split.pool.clone(),
+                    validation: &prep.split.validation_conditions,
+                    skill: &prep.skill,
                     base_skill: &base_skill,
                     base_key: &base_key,
                 },

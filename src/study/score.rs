@@ -44,6 +44,24 @@ pub(super) fn score_batched(
     (per_ic, seconds / steps.max(1.0))
 }
 
+/// The mean valid time of a model from the validation initial conditions `ics` of `truth`, in
+/// the fixed batches of the test forecasts, one batch after another (the caller already runs in
+/// parallel), so a choice made by it does not depend on the thread count: the
+/// [`crate::models::family::ForecastScore`] of families tuned by forecasts.
+pub(super) fn validation_score<'a>(
+    truth: ndarray::ArrayView2<'a, f64>,
+    ics: &'a [usize],
+    spec: &'a SkillSpec,
+) -> impl Fn(&dyn crate::models::Forecaster) -> f64 + Sync + 'a {
+    move |model| {
+        let per_ic: Vec<IcSkill> = ics
+            .chunks(FORECAST_BATCH)
+            .flat_map(|batch| skill::valid_times(model, truth, batch, spec))
+            .collect();
+        skill::summarise(&per_ic).mean
+    }
+}
+
 /// The floors on the test initial conditions: persistence (x̂(t) = x(0)) and climatology (the
 /// training pool's mean), each per initial condition in split order.
 pub(super) fn floors(prep: &Prepared) -> (Vec<IcSkill>, Vec<IcSkill>) {

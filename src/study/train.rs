@@ -6,7 +6,9 @@
 
 use super::plan::{ModelPlan, ModelUse};
 use crate::models::closure::{CoupledModel, Coupling};
-use crate::models::family::{ClosureData, ForecastScore, Trainable, Trainer, TransferFits};
+use crate::models::family::{
+    ClosureData, ForecastScore, Trainable, Trainer, TransferFits, TransferScores,
+};
 use crate::models::finetune::ValidFineTuneParams;
 use crate::models::{FitSummary, Forecaster, ModelError};
 use ndarray::ArrayView2;
@@ -99,6 +101,7 @@ pub fn train_unit(
 /// Trains an emulator's base on the pilot prefix of the largest of the study's `sizes` (exactly
 /// the model the study measures at that size with this seed), then trains from scratch on and
 /// fine-tunes with every prefix `ks` of `target` ([`crate::models::family::Trainable::fit_transfer`]).
+#[allow(clippy::too_many_arguments)]
 pub fn train_transfer_unit(
     model: &ModelPlan,
     tune: &ValidFineTuneParams,
@@ -107,8 +110,9 @@ pub fn train_transfer_unit(
     target: ArrayView2<f64>,
     ks: &[usize],
     seed: u64,
+    scores: TransferScores,
 ) -> Result<TransferFits, ModelError> {
-    trainable(model)?.fit_transfer(tune, pilot, sizes, target, ks, seed)
+    trainable(model)?.fit_transfer(tune, pilot, sizes, target, ks, seed, scores)
 }
 
 #[cfg(test)]

@@ -35,6 +35,10 @@ pub(super) struct PilotSide<'a> {
     pub traj: &'a crate::data::Trajectory,
     /// The pilot's training pool (sample indices).
     pub pool: std::ops::Range<usize>,
+    /// The pilot's validation initial conditions and skill definition: the base of a model
+    /// tuned by forecasts is tuned on them, as in the pilot study.
+    pub validation: &'a [usize],
+    pub skill: &'a crate::skill::SkillSpec,
     /// Mean valid time per model (index into the plan's models) and replicate at the largest
     /// pilot size.
     pub base_skill: &'a dyn Fn(usize, usize) -> Option<f64>,
@@ -53,17 +57,18 @@ pub const TRANSFER_RECORDS_FILE: &str = "new-regime-records.jsonl";
 /// model (the pilot point's key at the largest size), the pilot sizes the base is trained on,
 /// the fine-tuning settings, the seed, the new regime's training samples used and its test
 /// data with the skill definition, and the fine-tuning sizes. A hex SHA-256 of the canonical
-/// JSON, like [`super::keys::point_key`].
+/// JSON, like [`super::keys::point_key`]. A model tuned by forecasts adds the new regime's
+/// validation data.
 fn unit_key(
     base: &str,
     pilot_sizes: &[usize],
     fine_tune: &serde_json::Value,
     seed: u64,
     data: &str,
-    test: &str,
+    (test, validation): (&str, Option<&str>),
     ks: &[usize],
 ) -> String {
-    let doc = serde_json::json!({
+    let mut doc = serde_json::json!({
         "results-version": super::keys::RESULTS_VERSION,
         "new-regime-unit": {
             "base-point": base,
@@ -75,6 +80,10 @@ fn unit_key(
             "sizes": ks,
         }
     });
+    // Only for a model tuned by forecasts, so other units keep their keys.
+    if let Some(v) = validation {
+        doc["new-regime-unit"]["validation"] = serde_json::json!(v);
+    }
     super::keys::document_key(&doc)
 }
 
@@ -171,6 +180,7 @@ pub(super) fn run_transfer(
     let fine_tune_identity =
         serde_json::to_value(tp.fine_tune.get()).unwrap_or(serde_json::Value::Null);
     let test = super::keys::test_hash(truth, None, &split, &spec);
+    let validation = super::keys::validation_hash(truth, &split, &spec);
     let unit_keys: Vec<Option<String>> = units
         .iter()
         .map(|&(m, r)| {
@@ -184,7 +194,12 @@ pub(super) fn run_transfer(
                 &fine_tune_identity,
                 derive_seed(plan.seed, &plan.models[m].name, rb),
                 &data,
-                &test,
+                (
+                    &test,
+                    validation
+                        .as_deref()
+                        .filter(|_| plan.models[m].kind.tunes_by_forecasts()),
+                ),
                 &tp.sizes,
             ))
         })
@@ -224,6 +239,10 @@ pub(super) fn run_transfer(
         })
         .collect();
     let missing = reused.iter().filter(|u| u.is_none()).count();
+    // Validation forecasts of both regimes, for models tuned by them.
+    let pilot_score =
+        super::score::validation_score(pilot_traj.values.view(), pilot.validation, pilot.skill);
+    let target_score = super::score::validation_score(truth, &split.validation_conditions, &spec);
     let progress_bar = bar(progress, missing as u64, "new regime: fine-tuning");
     let computed: Vec<Option<Unit>> = units
         .par_iter()
@@ -249,6 +268,10 @@ pub(super) fn run_transfer(
                 traj.values.slice(ndarray::s![tw..tw + largest_k, ..]),
                 &tp.sizes,
                 seed,
+                crate::models::family::TransferScores {
+                    pilot: (!pilot.validation.is_empty()).then_some(&pilot_score),
+                    target: (!split.validation_conditions.is_empty()).then_some(&target_score),
+                },
             )
             .map_err(|source| StudyError::Model {
                 model: format!("{} (new regime)", model.name),

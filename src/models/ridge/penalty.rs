@@ -157,8 +157,10 @@ pub fn fit_readout(ne: &NormalEquations, penalty: &Penalty) -> Result<Readout, R
 /// The readout of `ne` whose forecasts score best: on the forecast grid
 /// ([`FORECAST_GRID_DECADES`](super::FORECAST_GRID_DECADES) times the mean eigenvalue), the
 /// penalty with the largest `score(weights)` (a mean valid time on validation data; higher is
-/// better, the larger penalty on a tie, a non-finite score never wins). One eigendecomposition
-/// serves every penalty.
+/// better, the larger penalty on a tie, a non-finite score never wins), then refined by the
+/// penalties half a decade either side of it (inside the grid), so the choice is within a
+/// quarter decade of the best on the grid's span at the price of two more scores. One
+/// eigendecomposition serves every penalty.
 pub fn forecast_readout(
     ne: &NormalEquations,
     score: &mut dyn FnMut(&[f64]) -> f64,
@@ -186,16 +188,35 @@ pub fn forecast_readout(
         },
         super::Tie::Larger,
     )?;
-    let (weights, rmse) = solved.swap_remove(sel.index);
+    let at_grid_edge = sel.at_grid_edge();
+    let (mut lambda, mut best) = (sel.lambda, scores[sel.index]);
+    let (mut weights, mut rmse) = solved.swap_remove(sel.index);
+    let half = 10f64.sqrt();
+    let mut refine = Vec::with_capacity(2);
+    if sel.index > 0 {
+        refine.push(lambda / half);
+    }
+    if sel.index + 1 < grid.len() {
+        refine.push(lambda * half);
+    }
+    // Ascending penalties: a tie goes to the later, larger one, as on the grid.
+    for l in refine {
+        let (w, r) = eig.solve(l);
+        let s = score(&w);
+        let wins = if l > lambda { s >= best } else { s > best };
+        if s.is_finite() && wins {
+            (lambda, best, weights, rmse) = (l, s, w, r);
+        }
+    }
     Ok(Readout {
         weights,
         rmse,
-        lambda: sel.lambda,
+        lambda,
         choice: RidgeChoice {
             method: RidgeSelection::Forecast,
             gcv_score: None,
-            at_grid_edge: sel.at_grid_edge(),
-            validation_valid_time: Some(scores[sel.index]),
+            at_grid_edge,
+            validation_valid_time: Some(best),
         },
     })
 }
@@ -257,7 +278,8 @@ mod tests {
             -(norm(w) - target).abs()
         })
         .unwrap();
-        assert_eq!(calls, 13);
+        // 13 on the grid, and half a decade either side of the best.
+        assert_eq!(calls, 15);
         assert_eq!(r.lambda, grid[4]);
         assert_eq!(r.weights, eig.solve(grid[4]).0);
         assert_eq!(r.choice.method, RidgeSelection::Forecast);
@@ -267,6 +289,16 @@ mod tests {
         let flat = forecast_readout(&ne, &mut |_: &[f64]| 1.0).unwrap();
         assert_eq!(flat.lambda, grid[12]);
         assert!(flat.choice.at_grid_edge);
+        // A peak between grid values: the refinement finds it (half a decade above grid[7]).
+        let between = norm(&eig.solve(grid[7] * 10f64.sqrt()).0);
+        let refined = forecast_readout(&ne, &mut |w: &[f64]| -(norm(w) - between).abs()).unwrap();
+        assert!(
+            (refined.lambda / (grid[7] * 10f64.sqrt()) - 1.0).abs() < 1e-12,
+            "{} against {}",
+            refined.lambda,
+            grid[7] * 10f64.sqrt()
+        );
+        assert!(refined.choice.validation_valid_time.unwrap() > -1e-9);
         // A candidate that blew up (NaN) never wins over a finite one.
         let mut i = 0;
         let nan_best = forecast_readout(&ne, &mut |_: &[f64]| {

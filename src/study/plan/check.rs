@@ -98,13 +98,7 @@ pub(super) fn check(
     };
 
     // Validation initial conditions for models tuned by forecasts.
-    let validation = validation_conditions(
-        &f.split,
-        &models,
-        transfer.as_ref().and_then(|t| t.as_ref()),
-        data.as_ref(),
-        &mut c,
-    );
+    let validation = validation_conditions(&f.split, &models, data.as_ref(), &mut c);
     let timing = timing.map(|t| Timing {
         validation_conditions: validation,
         ..t
@@ -224,11 +218,11 @@ fn model_key(i: usize, name: Option<&str>) -> String {
 /// Validation initial conditions to lay out: `split.validation-conditions` as given, else 16
 /// when a model tunes its penalty by forecasts ([`crate::models::family::ModelFamily::tunes_by_forecasts`]),
 /// else none. Forecast tuning is for emulators of a study's pilot data, simulated or one series
-/// of the user's: a closure, a model with a new regime and gridded runs are refused.
+/// of the user's (and of a new regime, laid out the same way): closures and gridded runs are
+/// refused.
 fn validation_conditions(
     split: &SplitSection,
     models: &[Option<ModelPlan>],
-    transfer: Option<&TransferPlan>,
     data: Option<&DataSource>,
     c: &mut Checks,
 ) -> usize {
@@ -242,8 +236,6 @@ fn validation_conditions(
         let key = model_key(i, Some(&m.name));
         let why = if m.usage.is_closure() {
             Some("an emulator: a closure's penalty cannot be tuned by forecasts yet; use \"fixed\" or \"gcv\"")
-        } else if transfer.is_some_and(|t| t.models.contains(&i)) {
-            Some("\"fixed\" or \"gcv\" for a model with a new regime ([transfer]): its fine-tuned and from-scratch fits have no validation forecasts yet")
         } else if matches!(
             data,
             Some(DataSource::File {
