@@ -454,7 +454,15 @@ fn a_penalty_tuned_by_validation_forecasts_beats_a_fixed_one() {
         let skill = std::fs::read(out.join("skill.csv")).unwrap();
         (doc, report, skill, dir)
     };
-    let (doc, report, skill, _dir) = run("2");
+    let (doc, report, skill, dir) = run("2");
+    // `check` counts the validation forecasts before any work: one tuned model × 3 replicates ×
+    // 4 sizes × 15 candidate penalties × 16 conditions.
+    let checked = run_in(dir.path(), &["check", "tuned.toml"]);
+    assert!(
+        stdout(&checked).contains("2880 validation forecasts"),
+        "{}",
+        stdout(&checked)
+    );
     let model = |name: &str| doc.models.iter().find(|m| m.name == name).unwrap();
     let (plain, tuned) = (model("esn-tiny"), model("esn-tuned"));
     let mean = |m: &closure_budget::study::results::ModelResult| {

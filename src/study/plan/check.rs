@@ -1086,6 +1086,13 @@ fn data_and_work(
     }
     let timing = timing?;
     data?;
+    // Forecast tuning scores 15 candidate penalties (13 on the grid, 2 refining) per size from
+    // every validation initial condition.
+    let tuned = models
+        .iter()
+        .flatten()
+        .filter(|m| m.kind.tunes_by_forecasts())
+        .count();
     let work = WorkEstimate {
         simulations: [Some(&pilot), regime.as_ref()]
             .into_iter()
@@ -1096,6 +1103,7 @@ fn data_and_work(
         points_detail: detail,
         transfer_points: transfer.map_or(0, |t| 2 * t.models.len() * t.sizes.len() * t.replicates),
         forecasts: all * replicates * sizes.len() * timing.initial_conditions,
+        validation_forecasts: tuned * replicates * sizes.len() * 15 * timing.validation_conditions,
         data: [Some(&pilot), regime.as_ref()]
             .into_iter()
             .flatten()

@@ -24,6 +24,9 @@ pub struct WorkEstimate {
     pub transfer_points: usize,
     /// Test forecasts of the learning curves.
     pub forecasts: usize,
+    /// Validation forecasts of the models tuned by them (every candidate penalty at every
+    /// size and replicate).
+    pub validation_forecasts: usize,
     /// The data held in memory, each part with what it holds and its bytes (parts not known
     /// before the data are read are left out).
     pub data: Vec<(String, String, f64)>,
@@ -178,6 +181,13 @@ impl WorkEstimate {
             "  training: {} points ({}), {} test forecasts",
             self.training_points, self.points_detail, self.forecasts
         );
+        if self.validation_forecasts > 0 {
+            let _ = write!(
+                s,
+                ", {} validation forecasts (penalties tuned by forecasts)",
+                self.validation_forecasts
+            );
+        }
         if self.transfer_points > 0 {
             let _ = write!(s, "; new regime: {} points", self.transfer_points);
         }

@@ -191,6 +191,14 @@ pub fn plain_words(message: &str) -> String {
         }
     }
     out.push_str(rest);
+    // serde's words for the file's keys and values.
+    for (from, to) in [
+        ("unknown variant ", "unknown value "),
+        ("unknown field ", "unknown key "),
+        ("missing field ", "missing key or table "),
+    ] {
+        out = out.replace(from, to);
+    }
     out
 }
 
@@ -222,6 +230,14 @@ mod tests {
         );
         // Words that only begin like a type name stay.
         assert_eq!(plain_words("expected u8x"), "expected u8x");
+        assert_eq!(
+            plain_words("unknown variant `forcast`, expected one of `fixed`, `gcv`, `forecast`"),
+            "unknown value `forcast`, expected one of `fixed`, `gcv`, `forecast`"
+        );
+        assert_eq!(
+            plain_words("missing field `plan`"),
+            "missing key or table `plan`"
+        );
     }
 
     #[test]
