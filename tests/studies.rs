@@ -528,3 +528,56 @@ fn a_model_tuned_by_forecasts_transfers_to_a_new_regime() {
         m.scratch.points
     );
 }
+
+/// Closures can be tuned by forecasts too: every candidate readout runs coupled in the coarse
+/// solver from the validation initial conditions, every point records the validation skill of
+/// the penalty chosen, and one thread chooses what two do.
+#[test]
+fn a_closure_tuned_by_coupled_validation_forecasts() {
+    let text = std::fs::read_to_string(repo("studies/demo-quick.toml")).unwrap();
+    let quartic = "half-width = 0            # U_k from X_k alone, the classical form (Wilks 2005)\npolynomial = { degree = 4 }";
+    assert!(text.contains(quartic));
+    let text = text
+        .replace(
+            quartic,
+            "half-width = 1\nngrc = { delays = 1, ridge-selection = \"forecast\" }",
+        )
+        .replace("name = \"wilks-quartic\"", "name = \"ngrc-closure\"");
+    let run = |threads: &str| {
+        let dir = tempfile::tempdir().unwrap();
+        let study = dir.path().join("closure.toml");
+        std::fs::write(&study, &text).unwrap();
+        let o = run_in(
+            dir.path(),
+            &[
+                "run",
+                "closure.toml",
+                "--out",
+                "out",
+                "--quiet",
+                "-j",
+                threads,
+            ],
+        );
+        assert!(o.status.success(), "{}", stderr(&o));
+        let doc: PlanDocument =
+            serde_json::from_slice(&std::fs::read(dir.path().join("out/budget.json")).unwrap())
+                .unwrap();
+        (
+            doc,
+            std::fs::read(dir.path().join("out/skill.csv")).unwrap(),
+        )
+    };
+    let (doc, skill) = run("2");
+    let closure = doc
+        .models
+        .iter()
+        .find(|m| m.name == "ngrc-closure")
+        .unwrap();
+    assert_eq!(closure.role, "closure");
+    assert!(closure
+        .points
+        .iter()
+        .all(|p| p.validation_valid_time.is_some_and(|v| v > 0.0) && p.ridge_penalty.is_some()));
+    assert_eq!(run("1").1, skill);
+}

@@ -284,13 +284,14 @@ pub fn fit_instant(
             let (rows_in, rows_out) = data.inputs.rows(data.x.slice(prefix), data.u.slice(prefix));
             let (regressor, mut summary) = fit(rows_in.view(), rows_out.view())?;
             summary.n = n;
-            let closure = LearnedClosure {
-                regressor,
-                inputs: data.inputs,
-            };
-            Ok((ClosureForm::Instant(Arc::new(closure)), summary))
+            Ok((instant_form(regressor, data.inputs), summary))
         })
         .collect()
+}
+
+/// An instant closure from a regression over `inputs`.
+pub fn instant_form(regressor: Arc<dyn Regressor>, inputs: ClosureInputs) -> ClosureForm {
+    ClosureForm::Instant(Arc::new(LearnedClosure { regressor, inputs }))
 }
 
 /// A closure with memory from a sequence regression over `inputs` of `k` resolved variables

@@ -127,7 +127,7 @@ pub trait ModelFamily: Send + Sync + std::fmt::Debug {
     /// Whether the family tunes a setting at every size by forecasts from validation initial
     /// conditions (`ridge-selection = "forecast"`): the study then lays out validation
     /// conditions, keys the family's points by them and hands the family a
-    /// [`ForecastScore`].
+    /// [`ForecastScore`]; for closures [`ClosureScore`].
     fn tunes_by_forecasts(&self) -> bool {
         false
     }
@@ -193,7 +193,13 @@ pub trait Trainable: Send + Sync {
     /// Closures fitted on the prefixes `sizes` of `data`, in the same way: the coupling term as
     /// a function of the stage state (an instant closure) or of it and the saved samples before
     /// it (a closure with memory).
-    fn fit_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits;
+    fn fit_closure(
+        &self,
+        data: ClosureData,
+        sizes: &[usize],
+        seed: u64,
+        score: Option<ClosureScore>,
+    ) -> ClosureFits;
 
     /// The emulator the study measures at its largest size `sizes.last()` on `pilot`, then, for
     /// every prefix k of `ks` of the new regime's `target`, that base fine-tuned by `tune` and a
@@ -223,6 +229,11 @@ pub struct TransferScores<'a> {
 /// A candidate model's skill on validation data (the mean valid prediction time from the
 /// study's validation initial conditions): higher is better.
 pub type ForecastScore<'a> = &'a (dyn Fn(&dyn Forecaster) -> f64 + Sync);
+
+/// A candidate closure's skill on validation data: the mean valid prediction time of the coarse
+/// solver with it coupled in, from the study's validation initial conditions (higher is
+/// better).
+pub type ClosureScore<'a> = &'a (dyn Fn(ClosureForm) -> f64 + Sync);
 
 /// Fitted models of one type with their fit summaries, one per subset size.
 pub type Fits<M> = Result<Vec<(M, FitSummary)>, ModelError>;
@@ -272,6 +283,19 @@ pub trait Train: ModelFamily {
     /// Closures fitted on the prefixes `sizes` of `data` (see [`Trainable::fit_closure`]).
     fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits;
 
+    /// [`Train::fit_as_closure`] with coupled forecasts on validation data at hand, for
+    /// families tuned by them ([`ModelFamily::tunes_by_forecasts`]); the others ignore `score`.
+    fn fit_as_closure_scored(
+        &self,
+        data: ClosureData,
+        sizes: &[usize],
+        seed: u64,
+        score: Option<ClosureScore>,
+    ) -> ClosureFits {
+        let _ = score;
+        self.fit_as_closure(data, sizes, seed)
+    }
+
     /// `base` fine-tuned on every prefix k of the new regime's data, in the order of the ks,
     /// each the same bit for bit whatever other sizes are listed.
     fn fine_tune(&self, base: &Self::Model, on: FineTuning) -> Fits<Self::Model>;
@@ -296,8 +320,14 @@ impl<F: Train> Trainable for F {
         Ok(fits(self.fit_scored(x, sizes, seed, score)?))
     }
 
-    fn fit_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits {
-        self.fit_as_closure(data, sizes, seed)
+    fn fit_closure(
+        &self,
+        data: ClosureData,
+        sizes: &[usize],
+        seed: u64,
+        score: Option<ClosureScore>,
+    ) -> ClosureFits {
+        self.fit_as_closure_scored(data, sizes, seed, score)
     }
 
     /// The base is exactly the model the study measures at its largest size on `pilot` (fitted

@@ -9,10 +9,10 @@
 //! Reference: Gauthier, Bollt, Griffith & Barbosa (2021), "Next generation reservoir computing",
 //! Nat. Commun. 12, 5564.
 
-use super::closure::{fit_instant, ClosureInputs, Regressor};
+use super::closure::{fit_instant, instant_form, ClosureInputs, Regressor};
 use super::family::{
     read_settings, ridge_memory, settings_json, ClosureData, FamilyError, ModelFamily,
-    Registration, RelativeCost, ClosureFits, Equations, FineTuning, Fits, ForecastScore, Train, Trainer,
+    Registration, RelativeCost, ClosureFits, ClosureScore, Equations, FineTuning, Fits, ForecastScore, Train, Trainer,
     TrainingMemory, TrainingShape,
 };
 use super::finetune::{fine_tune_readouts, ValidFineTuneParams};
@@ -43,7 +43,7 @@ pub const MAX_FEATURES: usize = 5000;
 /// | `stride` | 1 | s, samples between delayed states | 1 ..= 10000 |
 /// | `ridge` | 1e-6 | λ (per training pair under the default `ridge-scaling = "per-sample"`) | (0, 1e3] |
 /// | `ridge-scaling` | per-sample | penalty λ·n (per-sample) or λ (fixed) | per-sample, fixed |
-/// | `ridge-selection` | fixed | `ridge` with `ridge-scaling`, or λ chosen per subset size by generalised cross-validation (`gcv`), or by forecasts from the study's validation initial conditions (`forecast`, emulators only) | fixed, gcv, forecast |
+/// | `ridge-selection` | fixed | `ridge` with `ridge-scaling`, or λ chosen per subset size by generalised cross-validation (`gcv`), or by forecasts from the study's validation initial conditions (`forecast`; closures run coupled in the coarse solver) | fixed, gcv, forecast |
 /// | `standardise` | true | standardise every variable by the mean and standard deviation of the smallest subset | true, false |
 ///
 /// The defaults of `delays` and `stride` are the published Lorenz-63 setting (Gauthier et al.
@@ -1274,6 +1274,16 @@ pub fn fit_regression(
     inputs: ArrayView2<f64>,
     targets: ArrayView2<f64>,
 ) -> Result<(NgrcRegression, FitSummary), ModelError> {
+    fit_regression_scored(params, inputs, targets, None)
+}
+
+/// [`fit_regression`] with the penalty chosen by `score` under `ridge-selection = "forecast"`.
+pub fn fit_regression_scored(
+    params: &ValidNgrcParams,
+    inputs: ArrayView2<f64>,
+    targets: ArrayView2<f64>,
+    score: Option<&dyn Fn(NgrcRegression) -> f64>,
+) -> Result<(NgrcRegression, FitSummary), ModelError> {
     let p = params.get();
     if p.delays != 1 {
         return Err(out_of_range(
@@ -1303,7 +1313,17 @@ pub fn fit_regression(
         phi: vec![0.0; feature_count(l)],
         y: vec![0.0; outputs],
     };
-    let (readout, summary) = nested_readouts(&mut source, &[rows], |n| n, &penalty, None)?
+    let mut candidate = |_size: usize, w: &[f64]| -> f64 {
+        let r = NgrcRegression {
+            mean: mean.clone(),
+            scale: scale.clone(),
+            outputs,
+            readout: w.to_vec(),
+        };
+        score.map_or(f64::NAN, |s| s(r))
+    };
+    let scorer: Option<ReadoutScore> = score.is_some().then_some(&mut candidate);
+    let (readout, summary) = nested_readouts(&mut source, &[rows], |n| n, &penalty, scorer)?
         .pop()
         .expect("one size");
     Ok((
@@ -1499,9 +1519,27 @@ impl Train for ValidNgrcParams {
         fit_nested_scored(self, x, sizes, score)
     }
 
-    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], _seed: u64) -> ClosureFits {
+    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits {
+        self.fit_as_closure_scored(data, sizes, seed, None)
+    }
+
+    /// Under forecast selection every candidate readout runs coupled in the coarse solver.
+    fn fit_as_closure_scored(
+        &self,
+        data: ClosureData,
+        sizes: &[usize],
+        _seed: u64,
+        score: Option<ClosureScore>,
+    ) -> ClosureFits {
+        let inputs = data.inputs;
+        let candidate = |r: NgrcRegression| -> f64 {
+            score.map_or(f64::NAN, |s| s(instant_form(Arc::new(r), inputs)))
+        };
+        let regression_score: Option<&dyn Fn(NgrcRegression) -> f64> =
+            score.is_some().then_some(&candidate);
         fit_instant(data, sizes, |rows_in, rows_out| {
-            let (regression, summary) = fit_regression(self, rows_in, rows_out)?;
+            let (regression, summary) =
+                fit_regression_scored(self, rows_in, rows_out, regression_score)?;
             Ok((Arc::new(regression) as Arc<dyn Regressor>, summary))
         })
     }

@@ -5,9 +5,9 @@
 //! [`crate::models::family`].
 
 use super::plan::{ModelPlan, ModelUse};
-use crate::models::closure::{CoupledModel, Coupling};
+use crate::models::closure::{ClosureForm, CoupledModel, Coupling};
 use crate::models::family::{
-    ClosureData, ForecastScore, Trainable, Trainer, TransferFits, TransferScores,
+    ClosureData, ClosureScore, ForecastScore, Trainable, Trainer, TransferFits, TransferScores,
 };
 use crate::models::finetune::ValidFineTuneParams;
 use crate::models::{FitSummary, Forecaster, ModelError};
@@ -80,8 +80,17 @@ pub fn train_unit(
                 u: u.view(),
                 inputs,
             };
+            // A candidate closure is scored coupled in the coarse solver, from the validation
+            // initial conditions.
+            let coupled_score = |form: ClosureForm| -> f64 {
+                match (score, CoupledModel::coupled(form, &coupling)) {
+                    (Some(s), Ok(model)) => s(&model),
+                    _ => f64::NAN,
+                }
+            };
+            let closure_score: Option<ClosureScore> = score.is_some().then_some(&coupled_score);
             trainer
-                .fit_closure(data, &fit_sizes, seed)?
+                .fit_closure(data, &fit_sizes, seed, closure_score)?
                 .into_iter()
                 .map(|(form, summary)| {
                     let coupled = Arc::new(CoupledModel::coupled(form, &coupling)?);

@@ -19,7 +19,7 @@ pub use sequence::{fit_sequence_nested, EsnSequence};
 use super::closure::memory_form;
 use super::family::{
     read_settings, ridge_memory, settings_json, ClosureData, FamilyError, ModelFamily,
-    Registration, RelativeCost, ClosureFits, Equations, FineTuning, Fits, ForecastScore, Train, Trainer,
+    Registration, RelativeCost, ClosureFits, ClosureScore, Equations, FineTuning, Fits, ForecastScore, Train, Trainer,
     TrainingMemory, TrainingShape,
 };
 use super::finetune::{fine_tune_readouts, ValidFineTuneParams};
@@ -49,7 +49,7 @@ use std::sync::Arc;
 /// | `leak-rate` | 1.0 | α | (0, 1] |
 /// | `ridge` | 1e-5 | λ (per training pair when `ridge-scaling = "per-sample"`) | (0, 1e3] |
 /// | `ridge-scaling` | per-sample | penalty λ·n (per-sample) or λ (fixed) | per-sample, fixed |
-/// | `ridge-selection` | fixed | `ridge` with `ridge-scaling`, or λ chosen per subset size by generalised cross-validation (`gcv`), or by forecasts from the study's validation initial conditions (`forecast`, emulators only) | fixed, gcv, forecast |
+/// | `ridge-selection` | fixed | `ridge` with `ridge-scaling`, or λ chosen per subset size by generalised cross-validation (`gcv`), or by forecasts from the study's validation initial conditions (`forecast`; closures run coupled in the coarse solver) | fixed, gcv, forecast |
 /// | `washout` | 100 | initial reservoir steps left out of the fit | 0 ..= 100000 |
 ///
 /// `ridge-selection` defaults to `fixed` by measurement (300 units, nested sizes 1000–16000,
@@ -743,17 +743,39 @@ impl Train for ValidEsnParams {
     /// A closure with memory: one reservoir state per channel (per k for local inputs), driven
     /// by the input rows of the largest prefix.
     fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits {
+        self.fit_as_closure_scored(data, sizes, seed, None)
+    }
+
+    /// Under forecast selection every candidate readout runs coupled in the coarse solver.
+    fn fit_as_closure_scored(
+        &self,
+        data: ClosureData,
+        sizes: &[usize],
+        seed: u64,
+        score: Option<ClosureScore>,
+    ) -> ClosureFits {
         let largest = *sizes.last().ok_or(ModelError::NoSizes)?;
         let prefix = ndarray::s![..largest.min(data.x.nrows()), ..];
         let (rows_in, rows_out) = data.inputs.rows(data.x.slice(prefix), data.u.slice(prefix));
         let k = data.x.ncols();
         let channels = data.inputs.channels(k);
-        Ok(
-            fit_sequence_nested(self, rows_in.view(), rows_out.view(), channels, sizes, seed)?
-                .into_iter()
-                .map(|(m, summary)| (memory_form(Arc::new(m), data.inputs, k), summary))
-                .collect(),
-        )
+        let candidate = |m: EsnSequence| -> f64 {
+            score.map_or(f64::NAN, |s| s(memory_form(Arc::new(m), data.inputs, k)))
+        };
+        let sequence_score: Option<&dyn Fn(EsnSequence) -> f64> =
+            score.is_some().then_some(&candidate);
+        Ok(sequence::fit_sequence_nested_scored(
+            self,
+            rows_in.view(),
+            rows_out.view(),
+            channels,
+            sizes,
+            seed,
+            sequence_score,
+        )?
+        .into_iter()
+        .map(|(m, summary)| (memory_form(Arc::new(m), data.inputs, k), summary))
+        .collect())
     }
 
     fn fine_tune(&self, base: &Esn, on: FineTuning) -> Fits<Esn> {

@@ -44,6 +44,20 @@ pub fn fit_sequence_nested(
     sizes: &[usize],
     seed: u64,
 ) -> Result<Vec<(EsnSequence, FitSummary)>, ModelError> {
+    fit_sequence_nested_scored(params, inputs, targets, channels, sizes, seed, None)
+}
+
+/// [`fit_sequence_nested`] with the penalty at every size chosen by `score` under
+/// `ridge-selection = "forecast"` (each candidate shares the reservoir and standardisation).
+pub fn fit_sequence_nested_scored(
+    params: &ValidEsnParams,
+    inputs: ArrayView2<f64>,
+    targets: ArrayView2<f64>,
+    channels: usize,
+    sizes: &[usize],
+    seed: u64,
+    score: Option<&dyn Fn(EsnSequence) -> f64>,
+) -> Result<Vec<(EsnSequence, FitSummary)>, ModelError> {
     let p = params.get();
     let c_count = channels.max(1);
     let p_in = inputs.ncols();
@@ -80,12 +94,21 @@ pub fn fit_sequence_nested(
         readout: Vec::new(),
     };
     let mut rows = ChannelRows::new(&model, inputs.view(), targets.view(), c_count, p.washout);
+    let mut candidate = |_size: usize, w: &[f64]| -> f64 {
+        let fitted = EsnSequence {
+            readout: w.to_vec(),
+            ..model.clone()
+        };
+        score.map_or(f64::NAN, |s| s(fitted))
+    };
+    let scorer: Option<crate::models::ridge::ReadoutScore> =
+        score.is_some().then_some(&mut candidate);
     let fits = nested_readouts(
         &mut rows,
         sizes,
         |n| (n - p.washout) * c_count,
         &penalty,
-        None,
+        scorer,
     )?;
     Ok(fits
         .into_iter()

@@ -218,8 +218,8 @@ fn model_key(i: usize, name: Option<&str>) -> String {
 /// Validation initial conditions to lay out: `split.validation-conditions` as given, else 16
 /// when a model tunes its penalty by forecasts ([`crate::models::family::ModelFamily::tunes_by_forecasts`]),
 /// else none. Forecast tuning is for emulators of a study's pilot data, simulated or one series
-/// of the user's (and of a new regime, laid out the same way): closures and gridded runs are
-/// refused.
+/// of the user's (and of a new regime, laid out the same way), emulators and closures alike:
+/// gridded runs are refused.
 fn validation_conditions(
     split: &SplitSection,
     models: &[Option<ModelPlan>],
@@ -234,20 +234,15 @@ fn validation_conditions(
         };
         tuned += 1;
         let key = model_key(i, Some(&m.name));
-        let why = if m.usage.is_closure() {
-            Some("an emulator: a closure's penalty cannot be tuned by forecasts yet; use \"fixed\" or \"gcv\"")
-        } else if matches!(
+        let gridded = matches!(
             data,
             Some(DataSource::File {
                 fields: Some(_),
                 ..
             })
-        ) {
-            Some("\"fixed\" or \"gcv\" with gridded runs ([data.file] with fields): their held-out runs hold no validation initial conditions yet")
-        } else {
-            None
-        };
-        if let Some(why) = why {
+        );
+        if gridded {
+            let why = "\"fixed\" or \"gcv\" with gridded runs ([data.file] with fields): their held-out runs hold no validation initial conditions yet";
             c.invalid(
                 format!("{key}.{}.ridge-selection", m.kind.key()),
                 "\"forecast\"",
