@@ -53,9 +53,10 @@ fn tuning_note(out: &mut String, doc: &PlanDocument, points: &[PointResult]) {
     let _ = writeln!(
         out,
         "<p class=\"muted\">Ridge penalty chosen at every size and replicate by forecasts: of 13 \
-         penalties a decade apart, the one whose readout forecast longest from the study's {} \
-         validation initial conditions (held apart from the test conditions and the training \
-         pool); the column shows the geometric mean over replicates. Validation mean valid time \
+         penalties a decade apart, then half a decade either side of the best, the one whose \
+         readout forecast longest from the study's {} validation initial conditions (held apart \
+         from the test conditions and the training pool); the column shows the geometric mean \
+         over replicates. Validation mean valid time \
          {} at n = {} and {} at n = {}; the skill above is measured on test conditions the \
          tuning did not see.</p>",
         thousands(conditions as f64),
