@@ -113,6 +113,15 @@ impl ValidNgrcParams {
 }
 
 impl NgrcParams {
+    /// The readout's penalty setting: `ridge`, `ridge-scaling` and `ridge-selection`.
+    pub fn penalty(&self) -> Penalty {
+        Penalty {
+            ridge: self.ridge,
+            scaling: self.ridge_scaling,
+            selection: self.ridge_selection,
+        }
+    }
+
     /// Checks every setting against its valid range (see the table on [`NgrcParams`]).
     pub fn check(self) -> Result<ValidNgrcParams, ModelError> {
         let mut bad = SettingProblems::default();
@@ -210,11 +219,7 @@ pub fn export(
     create_dir(dir)?;
     let d = model.mean.len();
     write_readout(dir, &model.readout, d, &model.mean, &model.scale)?;
-    let penalty = Penalty {
-        ridge: p.ridge,
-        scaling: p.ridge_scaling,
-        selection: p.ridge_selection,
-    };
+    let penalty = p.penalty();
     write_manifest(
         dir,
         &ExportManifest {
@@ -329,11 +334,7 @@ pub fn fit_nested_scored(
             u[t * d + j] = (train[[t, j]] - mean[j]) / scale[j];
         }
     }
-    let penalty = Penalty {
-        ridge: p.ridge,
-        scaling: p.ridge_scaling,
-        selection: p.ridge_selection,
-    };
+    let penalty = p.penalty();
     let mut pairs = DelayPairs::new(p.delays, p.stride, &u, d);
     let mut candidate = |_size: usize, w: &[f64]| -> f64 {
         let model = Ngrc {
@@ -490,9 +491,8 @@ pub fn fine_tune_nested(
     let p = params.get();
     let u = base.standardised(target)?;
     let fixed = Penalty {
-        ridge: p.ridge,
-        scaling: p.ridge_scaling,
         selection: RidgeSelection::Fixed,
+        ..p.penalty()
     };
     let tuned = fine_tune_readouts(
         tune,
@@ -1299,11 +1299,7 @@ pub fn fit_regression_scored(
     } else {
         (vec![0.0; l], vec![1.0; l])
     };
-    let penalty = Penalty {
-        ridge: p.ridge,
-        scaling: p.ridge_scaling,
-        selection: p.ridge_selection,
-    };
+    let penalty = p.penalty();
     let mut source = RegressionRows {
         inputs: inputs.view(),
         targets: targets.view(),

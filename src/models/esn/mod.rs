@@ -101,6 +101,15 @@ impl ValidEsnParams {
 }
 
 impl EsnParams {
+    /// The readout's penalty setting: `ridge`, `ridge-scaling` and `ridge-selection`.
+    pub fn penalty(&self) -> Penalty {
+        Penalty {
+            ridge: self.ridge,
+            scaling: self.ridge_scaling,
+            selection: self.ridge_selection,
+        }
+    }
+
     /// Checks every setting against its valid range (see the table on [`EsnParams`]).
     pub fn check(self) -> Result<ValidEsnParams, ModelError> {
         let p = &self;
@@ -379,11 +388,7 @@ pub fn fit_nested_scored(
     }
     let (mean, scale) = standardisation(train.slice(ndarray::s![..smallest, ..]));
     let reservoir = Arc::new(Reservoir::new(p, d, seed));
-    let penalty = Penalty {
-        ridge: p.ridge,
-        scaling: p.ridge_scaling,
-        selection: p.ridge_selection,
-    };
+    let penalty = p.penalty();
     let mut pairs = ReservoirPairs::new(&reservoir, &mean, &scale, p.washout, train.view());
     let mut candidate = |_size: usize, w: &[f64]| -> f64 {
         let esn = Esn {
@@ -573,9 +578,8 @@ pub fn fine_tune_nested(
     let p = params.get();
     base.check_inputs(target)?;
     let fixed = Penalty {
-        ridge: p.ridge,
-        scaling: p.ridge_scaling,
         selection: RidgeSelection::Fixed,
+        ..p.penalty()
     };
     let tuned = fine_tune_readouts(
         tune,

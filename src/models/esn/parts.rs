@@ -9,7 +9,6 @@ use crate::data::{write_npy, DataError};
 use crate::models::ridge::export::{
     create_dir, write_manifest, write_readout, ReadoutFit, EXPORT_SCHEMA,
 };
-use crate::models::ridge::Penalty;
 use crate::models::FitSummary;
 use ndarray::{Array1, Array2};
 use serde::Serialize;
@@ -125,11 +124,7 @@ pub fn export(
         &parts.mean,
         &parts.scale,
     )?;
-    let penalty = Penalty {
-        ridge: p.ridge,
-        scaling: p.ridge_scaling,
-        selection: p.ridge_selection,
-    };
+    let penalty = p.penalty();
     write_manifest(
         dir,
         &Manifest {

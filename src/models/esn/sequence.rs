@@ -8,7 +8,7 @@
 
 use super::{Reservoir, ValidEsnParams};
 use crate::models::closure::{SequenceMemory, SequenceRegressor};
-use crate::models::ridge::{nested_readouts, Block, Penalty, RowSource, Rows};
+use crate::models::ridge::{nested_readouts, Block, RowSource, Rows};
 use crate::models::{standardisation, FitSummary, ModelError};
 use ndarray::ArrayView2;
 use std::sync::Arc;
@@ -80,11 +80,7 @@ pub fn fit_sequence_nested_scored(
     let (in_mean, in_scale) = standardisation(inputs.slice(first_rows));
     let (out_mean, out_scale) = standardisation(targets.slice(first_rows));
     let reservoir = Arc::new(Reservoir::new(p, p_in, seed));
-    let penalty = Penalty {
-        ridge: p.ridge,
-        scaling: p.ridge_scaling,
-        selection: p.ridge_selection,
-    };
+    let penalty = p.penalty();
     let model = EsnSequence {
         reservoir,
         in_mean,
