@@ -250,9 +250,7 @@ pub(super) fn compute(
     let truth = prep.traj.values.view();
     let ics = &prep.split.initial_conditions;
     let largest = *plan.sizes.last().expect("sizes");
-    // Validation forecasts for models tuned by them: the mean valid time from every validation
-    // initial condition, in the fixed batches of the test forecasts, one after another (the
-    // units already run in parallel), so the choice does not depend on the thread count.
+    // Validation forecasts for models tuned by them (see `score::validation_score`).
     let validation = &prep.split.validation_conditions;
     let validation_score = super::score::validation_score(truth, validation, &prep.skill);
     let score: Option<crate::models::family::ForecastScore> =
