@@ -263,38 +263,26 @@ pub trait Train: ModelFamily {
     /// The family's trained emulator.
     type Model: Forecaster + 'static;
 
-    /// Emulators fitted on the prefixes `sizes` of `x` (see [`Trainable::fit_emulator`]).
-    fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], seed: u64) -> Fits<Self::Model>;
-
-    /// [`Train::fit`] with forecasts on validation data at hand, for families that tune a
-    /// setting by them at every size ([`ModelFamily::tunes_by_forecasts`]); the others ignore
-    /// `score`.
-    fn fit_scored(
+    /// Emulators fitted on the prefixes `sizes` of `x` (see [`Trainable::fit_emulator`]);
+    /// `score` rates candidates by validation forecasts for families tuned by them
+    /// ([`ModelFamily::tunes_by_forecasts`]), the others ignore it.
+    fn fit(
         &self,
         x: ArrayView2<f64>,
         sizes: &[usize],
         seed: u64,
         score: Option<ForecastScore>,
-    ) -> Fits<Self::Model> {
-        let _ = score;
-        self.fit(x, sizes, seed)
-    }
+    ) -> Fits<Self::Model>;
 
-    /// Closures fitted on the prefixes `sizes` of `data` (see [`Trainable::fit_closure`]).
-    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits;
-
-    /// [`Train::fit_as_closure`] with coupled forecasts on validation data at hand, for
-    /// families tuned by them ([`ModelFamily::tunes_by_forecasts`]); the others ignore `score`.
-    fn fit_as_closure_scored(
+    /// Closures fitted on the prefixes `sizes` of `data` (see [`Trainable::fit_closure`]);
+    /// `score` rates candidates coupled in the coarse solver, as for [`Train::fit`].
+    fn fit_as_closure(
         &self,
         data: ClosureData,
         sizes: &[usize],
         seed: u64,
         score: Option<ClosureScore>,
-    ) -> ClosureFits {
-        let _ = score;
-        self.fit_as_closure(data, sizes, seed)
-    }
+    ) -> ClosureFits;
 
     /// `base` fine-tuned on every prefix k of the new regime's data, in the order of the ks,
     /// each the same bit for bit whatever other sizes are listed.
@@ -317,7 +305,7 @@ impl<F: Train> Trainable for F {
         seed: u64,
         score: Option<ForecastScore>,
     ) -> Fits<Arc<dyn Forecaster>> {
-        Ok(fits(self.fit_scored(x, sizes, seed, score)?))
+        Ok(fits(self.fit(x, sizes, seed, score)?))
     }
 
     fn fit_closure(
@@ -327,7 +315,7 @@ impl<F: Train> Trainable for F {
         seed: u64,
         score: Option<ClosureScore>,
     ) -> ClosureFits {
-        self.fit_as_closure_scored(data, sizes, seed, score)
+        self.fit_as_closure(data, sizes, seed, score)
     }
 
     /// The base is exactly the model the study measures at its largest size on `pilot` (fitted
@@ -352,7 +340,7 @@ impl<F: Train> Trainable for F {
             base_sizes.insert(0, sizes[0]);
         }
         let (base, _) = self
-            .fit_scored(pilot, &base_sizes, seed, scores.pilot)?
+            .fit(pilot, &base_sizes, seed, scores.pilot)?
             .pop()
             .expect("one fit per size");
         // Pooled fine-tuning needs the base's normal equations on its pilot prefix.
@@ -368,7 +356,7 @@ impl<F: Train> Trainable for F {
             seed,
         };
         let fine_tuned = self.fine_tune(&base, on)?;
-        let scratch = self.fit_scored(target, ks, seed, scores.target)?;
+        let scratch = self.fit(target, ks, seed, scores.target)?;
         Ok(TransferFits {
             base: Arc::new(base),
             scratch: fits(scratch),

@@ -336,17 +336,19 @@ pub fn fit_nested_scored(
     }
     let penalty = p.penalty();
     let mut pairs = DelayPairs::new(p.delays, p.stride, &u, d);
-    let mut candidate = |_size: usize, w: &[f64]| -> f64 {
-        let model = Ngrc {
-            delays: p.delays,
-            stride: p.stride,
-            mean: mean.clone(),
-            scale: scale.clone(),
-            readout: w.to_vec(),
-        };
-        score.map_or(f64::NAN, |s| s(&model))
-    };
-    let scorer: Option<ReadoutScore> = score.is_some().then_some(&mut candidate);
+    let (m, sc) = (&mean, &scale);
+    let mut candidate = score.map(|s| {
+        move |w: &[f64]| {
+            s(&Ngrc {
+                delays: p.delays,
+                stride: p.stride,
+                mean: m.clone(),
+                scale: sc.clone(),
+                readout: w.to_vec(),
+            })
+        }
+    });
+    let scorer = candidate.as_mut().map(|c| c as ReadoutScore);
     Ok(
         nested_readouts(&mut pairs, sizes, |n| n - 1 - span, &penalty, scorer)?
             .into_iter()
@@ -1309,16 +1311,18 @@ pub fn fit_regression_scored(
         phi: vec![0.0; feature_count(l)],
         y: vec![0.0; outputs],
     };
-    let mut candidate = |_size: usize, w: &[f64]| -> f64 {
-        let r = NgrcRegression {
-            mean: mean.clone(),
-            scale: scale.clone(),
-            outputs,
-            readout: w.to_vec(),
-        };
-        score.map_or(f64::NAN, |s| s(r))
-    };
-    let scorer: Option<ReadoutScore> = score.is_some().then_some(&mut candidate);
+    let (m, sc) = (&mean, &scale);
+    let mut candidate = score.map(|s| {
+        move |w: &[f64]| {
+            s(NgrcRegression {
+                mean: m.clone(),
+                scale: sc.clone(),
+                outputs,
+                readout: w.to_vec(),
+            })
+        }
+    });
+    let scorer = candidate.as_mut().map(|c| c as ReadoutScore);
     let (readout, summary) = nested_readouts(&mut source, &[rows], |n| n, &penalty, scorer)?
         .pop()
         .expect("one size");
@@ -1501,11 +1505,7 @@ impl ModelFamily for ValidNgrcParams {
 impl Train for ValidNgrcParams {
     type Model = Ngrc;
 
-    fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], _seed: u64) -> Fits<Ngrc> {
-        fit_nested(self, x, sizes)
-    }
-
-    fn fit_scored(
+    fn fit(
         &self,
         x: ArrayView2<f64>,
         sizes: &[usize],
@@ -1515,12 +1515,8 @@ impl Train for ValidNgrcParams {
         fit_nested_scored(self, x, sizes, score)
     }
 
-    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits {
-        self.fit_as_closure_scored(data, sizes, seed, None)
-    }
-
     /// Under forecast selection every candidate readout runs coupled in the coarse solver.
-    fn fit_as_closure_scored(
+    fn fit_as_closure(
         &self,
         data: ClosureData,
         sizes: &[usize],
@@ -1528,11 +1524,11 @@ impl Train for ValidNgrcParams {
         score: Option<ClosureScore>,
     ) -> ClosureFits {
         let inputs = data.inputs;
-        let candidate = |r: NgrcRegression| -> f64 {
-            score.map_or(f64::NAN, |s| s(instant_form(Arc::new(r), inputs)))
-        };
-        let regression_score: Option<&dyn Fn(NgrcRegression) -> f64> =
-            score.is_some().then_some(&candidate);
+        let candidate =
+            score.map(|s| move |r: NgrcRegression| s(instant_form(Arc::new(r), inputs)));
+        let regression_score = candidate
+            .as_ref()
+            .map(|c| c as &dyn Fn(NgrcRegression) -> f64);
         fit_instant(data, sizes, |rows_in, rows_out| {
             let (regression, summary) =
                 fit_regression_scored(self, rows_in, rows_out, regression_score)?;

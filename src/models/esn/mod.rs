@@ -390,16 +390,18 @@ pub fn fit_nested_scored(
     let reservoir = Arc::new(Reservoir::new(p, d, seed));
     let penalty = p.penalty();
     let mut pairs = ReservoirPairs::new(&reservoir, &mean, &scale, p.washout, train.view());
-    let mut candidate = |_size: usize, w: &[f64]| -> f64 {
-        let esn = Esn {
-            reservoir: reservoir.clone(),
-            mean: mean.clone(),
-            scale: scale.clone(),
-            readout: w.to_vec(),
-        };
-        score.map_or(f64::NAN, |s| s(&esn))
-    };
-    let scorer: Option<ReadoutScore> = score.is_some().then_some(&mut candidate);
+    let (r, m, sc) = (&reservoir, &mean, &scale);
+    let mut candidate = score.map(|s| {
+        move |w: &[f64]| {
+            s(&Esn {
+                reservoir: r.clone(),
+                mean: m.clone(),
+                scale: sc.clone(),
+                readout: w.to_vec(),
+            })
+        }
+    });
+    let scorer = candidate.as_mut().map(|c| c as ReadoutScore);
     Ok(
         nested_readouts(&mut pairs, sizes, |n| n - 1 - p.washout, &penalty, scorer)?
             .into_iter()
@@ -730,11 +732,7 @@ impl ModelFamily for ValidEsnParams {
 impl Train for ValidEsnParams {
     type Model = Esn;
 
-    fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], seed: u64) -> Fits<Esn> {
-        fit_nested(self, x, sizes, seed)
-    }
-
-    fn fit_scored(
+    fn fit(
         &self,
         x: ArrayView2<f64>,
         sizes: &[usize],
@@ -745,13 +743,9 @@ impl Train for ValidEsnParams {
     }
 
     /// A closure with memory: one reservoir state per channel (per k for local inputs), driven
-    /// by the input rows of the largest prefix.
-    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits {
-        self.fit_as_closure_scored(data, sizes, seed, None)
-    }
-
-    /// Under forecast selection every candidate readout runs coupled in the coarse solver.
-    fn fit_as_closure_scored(
+    /// by the input rows of the largest prefix. Under forecast selection every candidate
+    /// readout runs coupled in the coarse solver.
+    fn fit_as_closure(
         &self,
         data: ClosureData,
         sizes: &[usize],
@@ -763,11 +757,12 @@ impl Train for ValidEsnParams {
         let (rows_in, rows_out) = data.inputs.rows(data.x.slice(prefix), data.u.slice(prefix));
         let k = data.x.ncols();
         let channels = data.inputs.channels(k);
-        let candidate = |m: EsnSequence| -> f64 {
-            score.map_or(f64::NAN, |s| s(memory_form(Arc::new(m), data.inputs, k)))
-        };
-        let sequence_score: Option<&dyn Fn(EsnSequence) -> f64> =
-            score.is_some().then_some(&candidate);
+        let inputs = data.inputs;
+        let candidate =
+            score.map(|s| move |m: EsnSequence| s(memory_form(Arc::new(m), inputs, k)));
+        let sequence_score = candidate
+            .as_ref()
+            .map(|c| c as &dyn Fn(EsnSequence) -> f64);
         Ok(sequence::fit_sequence_nested_scored(
             self,
             rows_in.view(),

@@ -90,15 +90,18 @@ pub fn fit_sequence_nested_scored(
         readout: Vec::new(),
     };
     let mut rows = ChannelRows::new(&model, inputs.view(), targets.view(), c_count, p.washout);
-    let mut candidate = |_size: usize, w: &[f64]| -> f64 {
-        let fitted = EsnSequence {
-            readout: w.to_vec(),
-            ..model.clone()
-        };
-        score.map_or(f64::NAN, |s| s(fitted))
-    };
-    let scorer: Option<crate::models::ridge::ReadoutScore> =
-        score.is_some().then_some(&mut candidate);
+    let base = &model;
+    let mut candidate = score.map(|s| {
+        move |w: &[f64]| {
+            s(EsnSequence {
+                readout: w.to_vec(),
+                ..base.clone()
+            })
+        }
+    });
+    let scorer = candidate
+        .as_mut()
+        .map(|c| c as crate::models::ridge::ReadoutScore);
     let fits = nested_readouts(
         &mut rows,
         sizes,

@@ -9,7 +9,7 @@ use super::{
 use crate::models::closure::{fit_instant, memory_form, ClosureInputs, Regressor};
 use crate::models::family::{
     doubles, read_settings, settings_json, ClosureData, FamilyError, ModelFamily, Registration,
-    RelativeCost, ClosureFits, FineTuning, Fits, Train, Trainer, TrainingMemory, TrainingShape,
+    RelativeCost, ClosureFits, ClosureScore, FineTuning, Fits, ForecastScore, Train, Trainer, TrainingMemory, TrainingShape,
 };
 use crate::models::{out_of_range, FitSummary, ModelError};
 use ndarray::ArrayView2;
@@ -105,11 +105,23 @@ impl ModelFamily for ValidMlpParams {
 impl Train for ValidMlpParams {
     type Model = MlpEmulator;
 
-    fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], seed: u64) -> Fits<MlpEmulator> {
+    fn fit(
+        &self,
+        x: ArrayView2<f64>,
+        sizes: &[usize],
+        seed: u64,
+        _score: Option<ForecastScore>,
+    ) -> Fits<MlpEmulator> {
         fit_mlp_emulator(self, x, sizes, seed)
     }
 
-    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits {
+    fn fit_as_closure(
+        &self,
+        data: ClosureData,
+        sizes: &[usize],
+        seed: u64,
+        _score: Option<ClosureScore>,
+    ) -> ClosureFits {
         fit_instant(data, sizes, |rows_in, rows_out| {
             let (net, report) = train_mlp(self, rows_in, rows_out, seed, None)?;
             let summary = FitSummary {
@@ -172,13 +184,25 @@ impl ModelFamily for ValidLstmParams {
 impl Train for ValidLstmParams {
     type Model = LstmEmulator;
 
-    fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], seed: u64) -> Fits<LstmEmulator> {
+    fn fit(
+        &self,
+        x: ArrayView2<f64>,
+        sizes: &[usize],
+        seed: u64,
+        _score: Option<ForecastScore>,
+    ) -> Fits<LstmEmulator> {
         fit_lstm_emulator(self, x, sizes, seed)
     }
 
     /// A closure with memory of the window of saved samples before the current one (global
     /// inputs).
-    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], seed: u64) -> ClosureFits {
+    fn fit_as_closure(
+        &self,
+        data: ClosureData,
+        sizes: &[usize],
+        seed: u64,
+        _score: Option<ClosureScore>,
+    ) -> ClosureFits {
         let k = data.x.ncols();
         Ok(fit_lstm_sequence(self, data.x, data.u, sizes, seed)?
             .into_iter()

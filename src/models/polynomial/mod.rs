@@ -26,7 +26,7 @@ pub use fit::{fit_polynomial, least_squares_qr_multi, PolyFitInfo, Polynomial};
 
 use super::family::{
     doubles, read_settings, settings_json, ClosureData, FamilyError, ModelFamily, Registration,
-    RelativeCost, ClosureFits, Equations, FineTuning, Fits, Train, Trainer, TrainingMemory,
+    RelativeCost, ClosureFits, ClosureScore, Equations, FineTuning, Fits, ForecastScore, Train, Trainer, TrainingMemory,
     TrainingShape,
 };
 use super::closure::fit_instant;
@@ -203,11 +203,23 @@ impl ModelFamily for ValidPolynomialParams {
 impl Train for ValidPolynomialParams {
     type Model = PolynomialEmulator;
 
-    fn fit(&self, x: ArrayView2<f64>, sizes: &[usize], _seed: u64) -> Fits<PolynomialEmulator> {
+    fn fit(
+        &self,
+        x: ArrayView2<f64>,
+        sizes: &[usize],
+        _seed: u64,
+        _score: Option<ForecastScore>,
+    ) -> Fits<PolynomialEmulator> {
         fit_emulator_nested(self, x, sizes)
     }
 
-    fn fit_as_closure(&self, data: ClosureData, sizes: &[usize], _seed: u64) -> ClosureFits {
+    fn fit_as_closure(
+        &self,
+        data: ClosureData,
+        sizes: &[usize],
+        _seed: u64,
+        _score: Option<ClosureScore>,
+    ) -> ClosureFits {
         fit_instant(data, sizes, |rows_in, rows_out| {
             closure::fit_regression(self, rows_in, rows_out)
         })

@@ -184,9 +184,9 @@ pub fn nested_pass(
     Ok(ne)
 }
 
-/// Scores a candidate readout of subset size `size` (its weights, outputs × features) by its
-/// forecasts: higher is better.
-pub type ReadoutScore<'a> = &'a mut dyn FnMut(usize, &[f64]) -> f64;
+/// Scores a candidate readout (its weights, outputs × features) by its forecasts: higher is
+/// better.
+pub type ReadoutScore<'a> = &'a mut dyn FnMut(&[f64]) -> f64;
 
 /// The nested pass with a readout solved at every boundary: for subset size `sizes[i]`, whose
 /// rows are `rows(sizes[i])`, the readout by `penalty` and its fit summary (a failed solve names
@@ -204,9 +204,7 @@ pub fn nested_readouts(
     nested_pass(source, &boundaries, &mut |i, ne| {
         let size = sizes[i];
         let solved = match (penalty.selection, score.as_mut()) {
-            (RidgeSelection::Forecast, Some(score)) => {
-                forecast_readout(ne, &mut |w: &[f64]| score(size, w))
-            }
+            (RidgeSelection::Forecast, Some(score)) => forecast_readout(ne, *score),
             _ => fit_readout(ne, penalty),
         };
         let readout = solved.map_err(|source| ModelError::Ridge { size, source })?;

@@ -178,24 +178,20 @@ pub fn forecast_readout(
         .into_iter()
         .map(|r| scale * r)
         .collect();
+    // Highest score wins: the selection minimises its negative, solving each penalty once.
     let mut solved = Vec::with_capacity(grid.len());
-    let mut scores = Vec::with_capacity(grid.len());
-    for &lambda in &grid {
-        let (weights, rmse) = eig.solve(lambda);
-        scores.push(score(&weights));
-        solved.push((weights, rmse));
-    }
-    // Highest score wins: the selection minimises its negative.
     let sel = super::select(
         &grid,
-        |l| {
-            let i = grid.iter().position(|g| *g == l).expect("a grid value");
-            -scores[i]
+        |lambda| {
+            let (weights, rmse) = eig.solve(lambda);
+            let s = score(&weights);
+            solved.push((weights, rmse));
+            -s
         },
         super::Tie::Larger,
     )?;
     let at_grid_edge = sel.at_grid_edge();
-    let (mut lambda, mut best) = (sel.lambda, scores[sel.index]);
+    let (mut lambda, mut best) = (sel.lambda, -sel.score);
     let (mut weights, mut rmse) = solved.swap_remove(sel.index);
     let half = 10f64.sqrt();
     let mut refine = Vec::with_capacity(2);

@@ -275,7 +275,11 @@ pub enum Tie {
 
 /// The penalty of `grid` with the smallest `score`, ties broken by `tie`. Non-finite scores
 /// never win; an empty grid or one with no finite score is an error.
-pub fn select(grid: &[f64], score: impl Fn(f64) -> f64, tie: Tie) -> Result<Selection, RidgeError> {
+pub fn select(
+    grid: &[f64],
+    mut score: impl FnMut(f64) -> f64,
+    tie: Tie,
+) -> Result<Selection, RidgeError> {
     let scores: Vec<f64> = grid.iter().map(|&l| score(l)).collect();
     let mut best: Option<usize> = None;
     for (i, &s) in scores.iter().enumerate() {
