@@ -43,9 +43,9 @@ pub enum RidgeSelection {
     ///
     /// Measured (`studies/demo.toml` pilot, 16 validation conditions): a 600-unit ESN emulator
     /// forecast 0.08–0.90 time units from 125 to 8,000 samples against 0.05–0.78 with its fixed
-    /// penalty; on the quick demo an ESN closure gained nothing (1.37 against 1.42 at 3,200) at
-    /// about 25× the training time: with a few validation conditions the choice among 15
-    /// penalties partly follows their noise.
+    /// penalty; on the quick demo an ESN closure gained nothing (1.37 against 1.42 at 3,200)
+    /// and trained about 200× longer (19 s against 0.09 s over three replicates): with a few
+    /// validation conditions the choice among 15 penalties partly follows their noise.
     Forecast,
 }
 
